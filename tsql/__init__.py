@@ -1,0 +1,1 @@
+"""tsql: time-series diagnostics as SQL functions over DuckDB."""

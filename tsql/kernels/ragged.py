@@ -1,0 +1,134 @@
+"""A batch of series of different lengths, as one flat array and offsets.
+
+This is the only data type the kernels share. It holds no Arrow or DuckDB
+object, so any engine that can hand over flat values and offsets can use the
+kernels.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cached_property
+from typing import Iterator
+
+import numpy as np
+
+
+@dataclass(frozen=True, eq=False)
+class Ragged:
+    """Series ``i`` is ``values[offsets[i]:offsets[i + 1]]``.
+
+    ``values`` is float64 with NaN for a missing element; ``offsets`` is int64,
+    starts at 0 and ends at ``len(values)``. ``valid`` marks rows that exist
+    (False for a NULL list); ``None`` means every row is valid. An invalid row
+    always has length 0.
+    """
+
+    values: np.ndarray
+    offsets: np.ndarray
+    valid: np.ndarray | None = None
+
+    @classmethod
+    def from_list(cls, series: list, valid: np.ndarray | None = None) -> Ragged:
+        """Build a batch from a list of 1-D sequences (None = NULL row)."""
+        rows = [np.asarray([] if s is None else s, dtype=np.float64).ravel() for s in series]
+        lengths = np.array([len(r) for r in rows], dtype=np.int64)
+        offsets = np.zeros(len(rows) + 1, dtype=np.int64)
+        np.cumsum(lengths, out=offsets[1:])
+        values = np.concatenate(rows) if rows else np.empty(0)
+        if valid is None and any(s is None for s in series):
+            valid = np.array([s is not None for s in series])
+        return cls(values, offsets, valid)
+
+    @property
+    def n_rows(self) -> int:
+        return len(self.offsets) - 1
+
+    @cached_property
+    def lengths(self) -> np.ndarray:
+        return np.diff(self.offsets)
+
+    @cached_property
+    def row_ids(self) -> np.ndarray:
+        """The row each flat element belongs to."""
+        return np.repeat(np.arange(self.n_rows, dtype=np.int64), self.lengths)
+
+    @cached_property
+    def positions(self) -> np.ndarray:
+        """0-based position of each flat element inside its own series."""
+        return np.arange(len(self.values), dtype=np.int64) - np.repeat(self.offsets[:-1], self.lengths)
+
+    @cached_property
+    def present(self) -> np.ndarray:
+        """True where an element is a number (not NULL, not NaN)."""
+        return ~np.isnan(self.values)
+
+    @cached_property
+    def has_missing(self) -> bool:
+        return not bool(self.present.all())
+
+    @cached_property
+    def row_valid(self) -> np.ndarray:
+        return np.ones(self.n_rows, dtype=bool) if self.valid is None else self.valid
+
+    def row(self, i: int) -> np.ndarray:
+        return self.values[self.offsets[i] : self.offsets[i + 1]]
+
+    def rows(self) -> Iterator[np.ndarray]:
+        for i in range(self.n_rows):
+            yield self.row(i)
+
+    def segment_sum(self, x: np.ndarray) -> np.ndarray:
+        """Sum of a flat per-element array over each row."""
+        return np.bincount(self.row_ids, weights=x, minlength=self.n_rows)
+
+    def by_length(self) -> Iterator[tuple[int, np.ndarray, np.ndarray]]:
+        """Rows grouped by length: ``(length, row indices, 2-D view or copy)``.
+
+        The matrix has one row per series of that length, so a 2-D FFT or a
+        batched solve can treat them together.
+        """
+        lengths = self.lengths
+        order = np.argsort(lengths, kind="stable")
+        sorted_lengths = lengths[order]
+        bounds = np.flatnonzero(np.diff(sorted_lengths)) + 1
+        for group in np.split(order, bounds):
+            if len(group) == 0:
+                continue
+            n = int(lengths[group[0]])
+            starts = self.offsets[group]
+            if n == 0:
+                matrix = np.empty((len(group), 0))
+            elif len(group) == self.n_rows:
+                matrix = self.values.reshape(len(group), n)
+            else:
+                matrix = self.values[starts[:, None] + np.arange(n)]
+            yield n, group, matrix
+
+
+def full(n_rows: int, fill: float = np.nan) -> np.ndarray:
+    """A per-row float result, NaN (no answer) unless filled."""
+    return np.full(n_rows, fill, dtype=np.float64)
+
+
+def linear_detrend(batch: Ragged) -> np.ndarray:
+    """Residuals of each row's least-squares line through its present values.
+
+    Returned flat, aligned with ``batch.values``; missing elements stay NaN.
+    A row with fewer than two present values is only centred (or left NaN).
+    """
+    present = batch.present
+    x = np.where(present, batch.values, 0.0)
+    t = np.where(present, batch.positions.astype(np.float64), 0.0)
+    w = present.astype(np.float64)
+    n = batch.segment_sum(w)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t_mean = batch.segment_sum(t) / n
+        x_mean = batch.segment_sum(x) / n
+        tc = np.where(present, t - t_mean[batch.row_ids], 0.0)
+        xc = np.where(present, x - x_mean[batch.row_ids], 0.0)
+        stt = batch.segment_sum(tc * tc)
+        slope = np.where(stt > 0, batch.segment_sum(tc * xc) / np.where(stt > 0, stt, 1.0), 0.0)
+    residual = xc - slope[batch.row_ids] * tc
+    residual[~present] = np.nan
+    return residual
