@@ -7,9 +7,9 @@ kernels.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass
 from functools import cached_property
-from typing import Iterator
 
 import numpy as np
 
@@ -132,3 +132,28 @@ def linear_detrend(batch: Ragged) -> np.ndarray:
     residual = xc - slope[batch.row_ids] * tc
     residual[~present] = np.nan
     return residual
+
+
+@dataclass(frozen=True, eq=False)
+class RaggedRecords:
+    """A list of records per row, e.g. a warping path or a segment table.
+
+    Row ``i`` holds records ``offsets[i]:offsets[i + 1]`` of every array in
+    ``fields`` (flat, all the same length). ``valid`` as for :class:`Ragged`.
+    """
+
+    fields: dict[str, np.ndarray]
+    offsets: np.ndarray
+    valid: np.ndarray | None = None
+
+    @property
+    def n_rows(self) -> int:
+        return len(self.offsets) - 1
+
+    @cached_property
+    def row_valid(self) -> np.ndarray:
+        return np.ones(self.n_rows, dtype=bool) if self.valid is None else self.valid
+
+    def row(self, i: int) -> dict[str, np.ndarray]:
+        lo, hi = self.offsets[i], self.offsets[i + 1]
+        return {name: values[lo:hi] for name, values in self.fields.items()}

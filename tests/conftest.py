@@ -1,0 +1,16 @@
+import numpy as np
+import pytest
+
+
+@pytest.fixture(scope="session")
+def sunspots() -> np.ndarray:
+    """Yearly sunspot numbers 1700-2008, shipped inside statsmodels."""
+    sm = pytest.importorskip("statsmodels.api")
+    return sm.datasets.sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(dtype=float)
+
+
+@pytest.fixture(scope="session")
+def nile() -> np.ndarray:
+    """Annual flow of the Nile at Aswan 1871-1970, shipped inside statsmodels."""
+    sm = pytest.importorskip("statsmodels.api")
+    return sm.datasets.nile.load_pandas().data["volume"].to_numpy(dtype=float)

@@ -1,0 +1,54 @@
+"""Arrow list arrays to ragged batches and back."""
+
+import numpy as np
+import pyarrow as pa
+
+from tsql import batch
+
+
+def test_complete_doubles_are_not_copied():
+    arr = pa.array([[1.0, 2.0], [3.0], []], type=pa.list_(pa.float64()))
+    ragged = batch.to_ragged(arr)
+    assert np.shares_memory(ragged.values, np.asarray(arr.values))
+    assert ragged.offsets.tolist() == [0, 2, 3, 3]
+    assert ragged.valid is None
+
+
+def test_nulls_become_nan_and_invalid_rows():
+    arr = pa.array([[1.0, None], None, [3.0]], type=pa.list_(pa.float64()))
+    ragged = batch.to_ragged(arr)
+    assert np.isnan(ragged.values[1]) and ragged.values[0] == 1.0
+    assert ragged.valid.tolist() == [True, False, True]
+    assert ragged.lengths.tolist() == [2, 0, 1]
+
+
+def test_sliced_and_chunked_inputs():
+    arr = pa.array([[1.0], [2.0, 3.0], [4.0, 5.0, 6.0], [7.0]], type=pa.list_(pa.float64()))
+    ragged = batch.to_ragged(arr.slice(1, 2))
+    assert ragged.offsets.tolist() == [0, 2, 5]
+    assert ragged.values.tolist() == [2.0, 3.0, 4.0, 5.0, 6.0]
+    chunked = pa.chunked_array([arr.slice(0, 2), arr.slice(2, 2)])
+    assert batch.to_ragged(chunked).values.tolist() == [1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0]
+
+
+def test_null_row_covering_values_is_dropped():
+    # Arrow allows a NULL list entry to span child values; they must not leak into a series
+    offsets = pa.array([0, 2, 4, 5], type=pa.int32())
+    values = pa.array([1.0, 2.0, 99.0, 99.0, 3.0])
+    arr = pa.ListArray.from_arrays(offsets, values, mask=pa.array([False, True, False]))
+    ragged = batch.to_ragged(arr)
+    assert ragged.values.tolist() == [1.0, 2.0, 3.0]
+    assert ragged.lengths.tolist() == [2, 0, 1]
+
+
+def test_integer_and_large_lists_are_accepted():
+    arr = pa.array([[1, 2, 3]], type=pa.large_list(pa.int64()))
+    assert batch.to_ragged(arr).values.dtype == np.float64
+
+
+def test_results_back_to_arrow():
+    out = batch.to_arrow_scalar(np.array([1.0, np.nan, 3.0]), np.array([True, True, False]))
+    assert out.to_pylist() == [1.0, None, None]
+    fields = {"q": np.array([1.0, np.nan]), "p_value": np.array([0.5, np.nan])}
+    struct = batch.to_arrow_struct(fields, {"q": pa.float64(), "p_value": pa.float64()})
+    assert struct.to_pylist() == [{"q": 1.0, "p_value": 0.5}, None]

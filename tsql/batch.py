@@ -1,0 +1,99 @@
+"""Arrow list arrays <-> ragged numpy batches.
+
+DuckDB hands a vectorised UDF a ``pyarrow.ChunkedArray`` of lists; Spark hands
+a ``pyarrow.ListArray``. Both become one :class:`~tsql.kernels.ragged.Ragged`
+without copying the values when they hold no NULLs, and kernel results go back
+as Arrow arrays whose NaN entries are NULL.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+import pyarrow as pa
+
+from tsql.kernels.ragged import Ragged
+
+ArrowInput = pa.Array | pa.ChunkedArray
+_DOUBLE = pa.float64()
+
+
+def _single(arr: ArrowInput) -> pa.Array:
+    if isinstance(arr, pa.ChunkedArray):
+        if arr.num_chunks == 1:
+            return arr.chunk(0)
+        if arr.num_chunks == 0:
+            return pa.array([], type=arr.type)
+        return arr.combine_chunks()
+    return arr
+
+
+def to_ragged(arr: ArrowInput) -> Ragged:
+    """One batch of series from a list array (list or large_list of numbers)."""
+    arr = _single(arr)
+    if not (pa.types.is_list(arr.type) or pa.types.is_large_list(arr.type)):
+        raise TypeError(f"expected a list array, got {arr.type}")
+    offsets = np.asarray(arr.offsets, dtype=np.int64)
+    start, end = int(offsets[0]), int(offsets[-1])
+    child = arr.values.slice(start, end - start)
+    if not pa.types.is_float64(child.type):
+        child = child.cast(pa.float64())
+    # Floating-point nulls become NaN; without nulls this is a read-only view.
+    values = child.to_numpy(zero_copy_only=child.null_count == 0)
+    offsets = offsets - start if start else offsets
+    valid = None
+    if arr.null_count:
+        valid = np.asarray(arr.is_valid(), dtype=bool)
+        lengths = np.diff(offsets)
+        if lengths[~valid].any():  # Arrow lets a NULL row cover values: drop them.
+            keep = np.repeat(valid, lengths)
+            values = values[keep]
+            offsets = np.zeros_like(offsets)
+            np.cumsum(np.where(valid, lengths, 0), out=offsets[1:])
+    return Ragged(values, offsets, valid)
+
+
+def to_arrow_scalar(result: np.ndarray, row_valid: np.ndarray | None = None) -> pa.Array:
+    """DOUBLE per row; NaN and invalid rows become NULL."""
+    result = np.asarray(result, dtype=np.float64)
+    mask = np.isnan(result)
+    if row_valid is not None:
+        mask |= ~row_valid
+    return pa.array(result, type=pa.float64(), mask=mask if mask.any() else None)
+
+
+def to_arrow_struct(
+    fields: Mapping[str, np.ndarray], types: Mapping[str, pa.DataType], row_valid: np.ndarray | None = None
+) -> pa.StructArray:
+    """STRUCT per row; a row whose fields are all NaN (or an invalid row) is NULL."""
+    arrays, row_null = [], None
+    for name in types:
+        values = np.asarray(fields[name], dtype=np.float64)
+        missing = np.isnan(values)
+        row_null = missing if row_null is None else row_null & missing
+        arrays.append(_typed(values, missing, types[name]))
+    if row_valid is not None:
+        row_null = row_null | ~row_valid
+    return pa.StructArray.from_arrays(arrays, names=list(types), mask=pa.array(row_null) if row_null.any() else None)
+
+
+def to_arrow_list(batch: Ragged, value_type: pa.DataType = _DOUBLE) -> pa.ListArray:
+    """LIST per row from a ragged result; NaN elements and invalid rows are NULL."""
+    values = np.asarray(batch.values, dtype=np.float64)
+    missing = np.isnan(values)
+    child = _typed(values, missing, value_type)
+    offsets = pa.array(batch.offsets.astype(np.int32))
+    mask = None if batch.valid is None or batch.valid.all() else pa.array(~batch.valid)
+    return pa.ListArray.from_arrays(offsets, child, mask=mask)
+
+
+def _typed(values: np.ndarray, missing: np.ndarray, arrow_type: pa.DataType) -> pa.Array:
+    if pa.types.is_integer(arrow_type):
+        values = np.where(missing, 0, values).astype(arrow_type.to_pandas_dtype())
+    return pa.array(values, type=arrow_type, mask=missing if missing.any() else None)
+
+
+def scalar_parameter(arr: ArrowInput) -> Sequence:
+    """A per-row parameter column as a Python list (NULL = None)."""
+    return _single(arr).to_pylist()

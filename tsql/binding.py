@@ -1,0 +1,193 @@
+"""Registration of every tsql function on a DuckDB connection.
+
+For each registry entry this creates one vectorised Arrow UDF (internal name
+``__tsql_<name>``), then runs the ``sql/`` files, which define the public TEMP
+macros with their named defaults and ``*_agg`` forms. Nothing is written to
+the database file, so a read-only database works.
+
+This layer owns SQL types, NULLs and argument errors; the kernels own the
+mathematics.
+"""
+
+from __future__ import annotations
+
+import inspect
+import re
+from collections.abc import Callable
+from importlib import resources
+from typing import Any
+
+import duckdb
+import numpy as np
+import pyarrow as pa
+
+from tsql import batch as arrow_batch
+from tsql.kernels.ragged import Ragged
+from tsql.registry import FUNCTIONS, Function, Param
+
+_ARROW_TYPES = {"DOUBLE": pa.float64(), "INTEGER": pa.int32(), "BIGINT": pa.int64()}
+
+
+def connect(
+    database: str = ":memory:", read_only: bool = False, config: dict | None = None
+) -> duckdb.DuckDBPyConnection:
+    """Open a DuckDB connection with every tsql function registered."""
+    con = duckdb.connect(database, read_only=read_only, config=config or {})
+    return register(con)
+
+
+def register(con: duckdb.DuckDBPyConnection) -> duckdb.DuckDBPyConnection:
+    """Register every tsql function on ``con``; calling it again is harmless.
+
+    The Python UDFs are visible from every cursor of the connection; the TEMP
+    macros (the public names) only on the connection or cursor passed here.
+    """
+    for fn in FUNCTIONS:
+        _create_udf(con, fn)
+    for statement in sql_statements():
+        con.execute(statement)
+    return con
+
+
+def sql_statements() -> list[str]:
+    """The macro definitions from ``sql/``, one statement each, in file order."""
+    folder = resources.files("tsql.sql")
+    statements = []
+    for path in sorted((p for p in folder.iterdir() if p.name.endswith(".sql")), key=lambda p: p.name):
+        text = path.read_text(encoding="utf-8")
+        statements += [s.strip() for s in _split_statements(text) if s.strip()]
+    return statements
+
+
+def _split_statements(text: str) -> list[str]:
+    body = "\n".join(line for line in text.splitlines() if not line.lstrip().startswith("--"))
+    return body.split(";")
+
+
+def _create_udf(con: duckdb.DuckDBPyConnection, fn: Function) -> None:
+    param_types = ["DOUBLE[]"] * len(fn.series) + [p.sql_type for p in fn.params]
+    try:
+        con.create_function(fn.udf_name, make_udf(fn), param_types, fn.returns, type="arrow", null_handling="special")
+    except duckdb.NotImplementedException as error:
+        # UDFs belong to the whole connection: a second register() (or a cursor's) finds them there.
+        if "already created" not in str(error):
+            raise
+
+
+def make_udf(fn: Function) -> Callable[..., pa.Array]:
+    """The vectorised function DuckDB (or another Arrow host) calls.
+
+    It receives one Arrow column per argument for a whole vector of rows.
+    Plain parameters are usually the same on every row; rows are grouped by
+    their parameter values so the kernel always sees one setting per call.
+    """
+    convert = _result_converter(fn.returns)
+    n_series = len(fn.series)
+
+    def udf(*columns: Any) -> pa.Array:
+        series = [arrow_batch._single(c) for c in columns[:n_series]]
+        settings = [arrow_batch.scalar_parameter(c) for c in columns[n_series:]]
+        n_rows = len(series[0])
+        keys = list(zip(*settings)) if settings else [()] * n_rows
+        distinct = dict.fromkeys(keys)
+        if len(distinct) <= 1:
+            key = next(iter(distinct), ())
+            return _run(fn, convert, series, key, n_rows)
+        parts, order = [], []
+        for key in distinct:
+            rows = np.fromiter((i for i, k in enumerate(keys) if k == key), dtype=np.int64)
+            subset = [s.take(pa.array(rows)) for s in series]
+            parts.append(_run(fn, convert, subset, key, len(rows)))
+            order.append(rows)
+        joined = pa.concat_arrays(parts)
+        return joined.take(pa.array(np.argsort(np.concatenate(order), kind="stable")))
+
+    udf.__name__ = fn.udf_name
+    udf.__doc__ = fn.doc
+    # DuckDB checks the arity against the declared parameter types.
+    names = list(fn.series) + [p.name for p in fn.params]
+    udf.__signature__ = inspect.Signature([inspect.Parameter(n, inspect.Parameter.POSITIONAL_ONLY) for n in names])
+    return udf
+
+
+def _run(fn: Function, convert: Callable, series: list[pa.Array], key: tuple, n_rows: int) -> pa.Array:
+    kwargs = _checked_arguments(fn, key)
+    if kwargs is None:  # a NULL argument that has no "not set" meaning
+        return pa.nulls(n_rows, type=convert.arrow_type)
+    batches = [arrow_batch.to_ragged(s) for s in series]
+    result = fn.kernel(*batches, **kwargs)
+    valid = batches[0].row_valid
+    for b in batches[1:]:
+        valid = valid & b.row_valid
+    return convert(result, valid)
+
+
+def _checked_arguments(fn: Function, key: tuple) -> dict | None:
+    kwargs = {}
+    for p, value in zip(fn.params, key):
+        if value is None:
+            if not p.none_ok:
+                return None
+            kwargs[p.name] = None
+            continue
+        kwargs[p.name] = check_argument(fn.name, p, value)
+    for smaller, larger, message in fn.relations:
+        a, b = kwargs.get(smaller), kwargs.get(larger)
+        if a is not None and b is not None and b < a:
+            raise ValueError(f"{fn.name}: {message}, got {smaller} = {_show(a)} and {larger} = {_show(b)}")
+    return kwargs
+
+
+def check_argument(function: str, p: Param, value: Any) -> Any:
+    """Validate one plain argument; raise ``ValueError`` naming what is allowed."""
+    if p.choices:
+        if value not in p.choices:
+            allowed = ", ".join(repr(c) for c in p.choices)
+            raise ValueError(f"{function}: {p.name} must be one of {allowed}, got {value!r}")
+        return value
+    if isinstance(value, float) and not np.isfinite(value):
+        raise ValueError(f"{function}: {p.name} must be a finite number, got {value}")
+    if p.whole:
+        if float(value) != int(value):
+            raise ValueError(f"{function}: {p.name} must be a whole number, got {_show(value)}")
+        value = int(value)
+    if p.minimum is not None and value < p.minimum:
+        raise ValueError(f"{function}: {p.name} must be >= {_show(p.minimum)}, got {_show(value)}")
+    return value
+
+
+def _show(x: Any) -> str:
+    return str(int(x)) if isinstance(x, float) and x.is_integer() else str(x)
+
+
+class _Converter:
+    """Turns a kernel result into the Arrow array of the declared SQL type."""
+
+    def __init__(self, sql_type: str):
+        self.sql_type = sql_type
+        struct = re.fullmatch(r"STRUCT\((.*)\)", sql_type)
+        if struct:
+            fields = [f.strip().split() for f in struct.group(1).split(",")]
+            self.kind = "struct"
+            self.fields = {name: _ARROW_TYPES[t] for name, t in fields}
+            self.arrow_type = pa.struct(list(self.fields.items()))
+        elif sql_type.endswith("[]"):
+            self.kind = "list"
+            self.element = _ARROW_TYPES[sql_type[:-2]]
+            self.arrow_type = pa.list_(self.element)
+        else:
+            self.kind = "scalar"
+            self.arrow_type = _ARROW_TYPES[sql_type]
+
+    def __call__(self, result: Any, valid: np.ndarray) -> pa.Array:
+        if self.kind == "struct":
+            return arrow_batch.to_arrow_struct(result, self.fields, valid)
+        if self.kind == "list":
+            assert isinstance(result, Ragged)
+            rows = result.row_valid & valid
+            return arrow_batch.to_arrow_list(Ragged(result.values, result.offsets, rows), self.element)
+        return arrow_batch.to_arrow_scalar(result, valid)
+
+
+def _result_converter(sql_type: str) -> _Converter:
+    return _Converter(sql_type)

@@ -1,0 +1,185 @@
+"""Serial correlation of each series: the sample ACF and the Ljung–Box test.
+
+Rows are processed per bucket of equal length, as matrices, so every row is
+reduced by the same operations whatever else is in the batch: an answer never
+depends on batch boundaries.
+
+References
+----------
+Box, G. E. P. & Jenkins, G. M. (1976). *Time Series Analysis: Forecasting and
+Control*, ch. 2 (the sample autocorrelation function).
+Ljung, G. M. & Box, G. E. P. (1978). On a measure of lack of fit in time series
+models. *Biometrika* 65(2), 297–303.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+
+import numpy as np
+from scipy import fft, special
+
+from tsql.kernels.ragged import Ragged
+
+#: Above this many lags one FFT per bucket is cheaper than one pass per lag.
+_DIRECT_MAX_LAGS = 40
+
+_EPS = np.finfo(np.float64).eps
+_TINY = np.finfo(np.float64).tiny
+
+
+class _Centred:
+    """Equal-length series minus their own means, with gaps set to 0.
+
+    With zeros at the gaps, ``sum(xc[t] * xc[t + k])`` is exactly the sum over
+    the pairs whose two elements are both present.
+    """
+
+    def __init__(self, matrix: np.ndarray):
+        self.n = matrix.shape[1]
+        present = ~np.isnan(matrix)
+        if present.all():
+            self.present = None
+            self.count = np.full(len(matrix), float(self.n))
+            self.mean = matrix.sum(axis=1) / self.n
+            self.xc = matrix - self.mean[:, None]
+        else:
+            self.present = present
+            self.count = present.sum(axis=1).astype(np.float64)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                self.mean = np.nan_to_num(np.where(present, matrix, 0.0).sum(axis=1) / self.count)
+            self.xc = np.where(present, matrix - self.mean[:, None], 0.0)
+        self.denominator = (self.xc * self.xc).sum(axis=1)
+
+    def lagged(self, lag: int) -> tuple[np.ndarray, np.ndarray]:
+        """Cross-product sums at ``lag`` and the number of present pairs."""
+        if lag >= self.n:
+            zero = np.zeros(len(self.xc))
+            return zero, zero
+        numerator = (self.xc[:, :-lag] * self.xc[:, lag:]).sum(axis=1)
+        if self.present is None:
+            return numerator, np.full(len(self.xc), float(self.n - lag))
+        pairs = (self.present[:, :-lag] & self.present[:, lag:]).sum(axis=1).astype(np.float64)
+        return numerator, pairs
+
+    def usable(self) -> np.ndarray:
+        """Rows with two or more present values that are not all equal.
+
+        Centring a constant series leaves rounding noise of order eps * |mean|;
+        a variance at that level counts as zero.
+        """
+        noise = 8 * _EPS * np.maximum(np.abs(self.mean), _TINY)
+        return (self.count >= 2) & (self.denominator > self.count * noise * noise)
+
+
+def _buckets(batch: Ragged) -> Iterator[tuple[np.ndarray, _Centred, np.ndarray]]:
+    """(row indices, centred bucket, usable rows) for each length present."""
+    valid = batch.row_valid
+    for n, rows, matrix in batch.by_length():
+        if n == 0:
+            continue
+        centred = _Centred(matrix)
+        yield rows, centred, centred.usable() & valid[rows]
+
+
+def autocorrelation(batch: Ragged, lag: int = 1) -> np.ndarray:
+    """Standard (biased) sample autocorrelation at one lag.
+
+    ``r_k = sum_t (x_t - m)(x_{t+k} - m) / sum_t (x_t - m)^2`` (Box & Jenkins
+    1976), where ``m`` and the denominator use the present values and the
+    numerator the pairs whose two elements are present.
+
+    Parameters
+    ----------
+    batch : Ragged
+        The series; NaN elements are missing.
+    lag : int
+        k >= 1, in samples.
+
+    Returns
+    -------
+    ndarray
+        ``r_k`` per row; NaN when the row is constant, has fewer than two
+        present values, or has no present pair ``lag`` apart.
+
+    Examples
+    --------
+    >>> autocorrelation(Ragged.from_list([[1.0, 2.0, 3.0, 4.0]]), lag=1)
+    array([0.25])
+    """
+    out = np.full(batch.n_rows, np.nan)
+    for rows, centred, usable in _buckets(batch):
+        numerator, pairs = centred.lagged(lag)
+        ok = usable & (pairs > 0)
+        out[rows[ok]] = numerator[ok] / centred.denominator[ok]
+    return out
+
+
+def acf(batch: Ragged, max_lag: int = 10) -> Ragged:
+    """Sample autocorrelations at lags 1..max_lag, as for :func:`autocorrelation`.
+
+    Returns
+    -------
+    Ragged
+        ``max_lag`` values per usable row (NaN where a lag has no present
+        pair); rows that are constant or too short are invalid (NULL).
+    """
+    table = np.full((batch.n_rows, max_lag), np.nan)
+    valid = np.zeros(batch.n_rows, dtype=bool)
+    for rows, centred, usable in _buckets(batch):
+        valid[rows] = usable
+        if max_lag <= _DIRECT_MAX_LAGS:
+            numerators, pairs = zip(*(centred.lagged(k) for k in range(1, max_lag + 1)))
+            numerator, pairs = np.column_stack(numerators), np.column_stack(pairs)
+        else:
+            numerator, pairs = _lagged_by_fft(centred, max_lag)
+        ok = usable[:, None] & (pairs > 0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            table[rows] = np.where(ok, numerator / centred.denominator[:, None], np.nan)
+    offsets = np.arange(0, (batch.n_rows + 1) * max_lag, max_lag, dtype=np.int64)
+    return Ragged(table.ravel(), offsets, valid)
+
+
+def _lagged_by_fft(centred: _Centred, max_lag: int) -> tuple[np.ndarray, np.ndarray]:
+    """All cross-product sums at once, by the Wiener–Khinchin route."""
+    n, k = centred.n, min(max_lag, centred.n - 1)
+    size = fft.next_fast_len(2 * n - 1, real=True)
+    numerator = np.zeros((len(centred.xc), max_lag))
+    pairs = np.zeros((len(centred.xc), max_lag))
+    if k < 1:
+        return numerator, pairs
+    numerator[:, :k] = _circular_autocorrelation(centred.xc, size, k)
+    if centred.present is None:
+        pairs[:, :k] = np.arange(n - 1, n - 1 - k, -1, dtype=np.float64)
+    else:
+        pairs[:, :k] = np.rint(_circular_autocorrelation(centred.present.astype(np.float64), size, k))
+    return numerator, pairs
+
+
+def _circular_autocorrelation(matrix: np.ndarray, size: int, max_lag: int) -> np.ndarray:
+    spectrum = fft.rfft(matrix, n=size, axis=1)
+    return fft.irfft(spectrum * spectrum.conj(), n=size, axis=1)[:, 1 : max_lag + 1]
+
+
+def ljung_box(batch: Ragged, lags: int = 10) -> dict[str, np.ndarray]:
+    """Ljung–Box portmanteau test of no autocorrelation up to ``lags``.
+
+    ``Q = n (n + 2) sum_{k=1..h} r_k^2 / (n - k)`` with ``n`` the number of
+    present values, compared with a chi-squared distribution on ``h`` degrees
+    of freedom (Ljung & Box 1978). ``r_k`` as in :func:`autocorrelation`.
+
+    Returns
+    -------
+    dict
+        ``q`` and ``p_value`` per row; NaN where the row is constant, or has
+        no more present values than ``lags``.
+    """
+    table = acf(batch, lags)
+    r = table.values.reshape(batch.n_rows, lags)
+    present = batch.present.astype(np.float64) if batch.has_missing else np.ones(len(batch.values))
+    n = batch.segment_sum(present)
+    k = np.arange(1, lags + 1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        q = n * (n + 2) * np.sum(r * r / (n[:, None] - k), axis=1)
+    q[~table.row_valid | (n <= lags) | np.isnan(q)] = np.nan
+    return {"q": q, "p_value": special.chdtrc(lags, q)}

@@ -1,0 +1,149 @@
+"""The one list of public functions.
+
+Each :class:`Function` entry says everything the rest of the package needs:
+the SQL name and signature, the kernel, which rows get NULL, a one-line doc
+and a runnable example. Registration, ``tsql functions`` and the README's
+function table are all generated from :data:`FUNCTIONS`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+from tsql.kernels import correlation, periodicity, trend
+
+
+@dataclass(frozen=True)
+class Param:
+    """A plain argument after the series.
+
+    ``default`` is the SQL text of the macro default (None: required).
+    ``whole`` demands an integer value; ``minimum`` a lower bound; ``none_ok``
+    lets NULL mean "not set" (otherwise a NULL argument gives a NULL row).
+    """
+
+    name: str
+    sql_type: str = "DOUBLE"
+    default: str | None = None
+    minimum: float | None = None
+    whole: bool = False
+    none_ok: bool = False
+    choices: tuple[str, ...] = ()
+    help: str = ""
+
+
+@dataclass(frozen=True)
+class Function:
+    name: str
+    family: str
+    returns: str
+    kernel: Callable
+    doc: str
+    example: str
+    null_rows: str
+    series: tuple[str, ...] = ("values",)
+    params: tuple[Param, ...] = ()
+    aggregate: bool = True
+    relations: tuple[tuple[str, str, str], ...] = field(default=())
+    """Checks between two parameters: (smaller, larger, message)."""
+
+    @property
+    def udf_name(self) -> str:
+        return f"__tsql_{self.name}"
+
+    @property
+    def signature(self) -> str:
+        args = list(self.series)
+        for p in self.params:
+            args.append(p.name if p.default is None else f"{p.name} := {p.default}")
+        return f"{self.name}({', '.join(args)})"
+
+    @property
+    def agg_signature(self) -> str:
+        args = ["value", "time"] + [p.name if p.default is None else f"{p.name} := {p.default}" for p in self.params]
+        return f"{self.name}_agg({', '.join(args)})"
+
+
+SERIES_TOO_SHORT = "NULL list, fewer than {n} present values, or a constant series"
+
+PERIOD_PARAMS = (
+    Param("min_period", default="2", minimum=2, help="shortest period considered, in samples"),
+    Param("max_period", default="NULL", minimum=2, none_ok=True, help="longest period (default: half the record)"),
+)
+PERIOD_RELATIONS = (("min_period", "max_period", "max_period must be >= min_period"),)
+
+FUNCTIONS: tuple[Function, ...] = (
+    Function(
+        name="dominant_period",
+        family="periodicity",
+        returns="DOUBLE",
+        kernel=periodicity.dominant_period,
+        doc="Period of the strongest cycle, in samples, refined off the Fourier grid.",
+        example="SELECT dominant_period([1, 5, 9, 5, 1, 5, 9, 5, 1, 5, 9, 5]) AS period;",
+        null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
+        params=PERIOD_PARAMS,
+        relations=PERIOD_RELATIONS,
+    ),
+    Function(
+        name="seasonality",
+        family="periodicity",
+        returns="STRUCT(period DOUBLE, strength DOUBLE, p_value DOUBLE)",
+        kernel=periodicity.seasonality,
+        doc="Dominant period, share of variance its harmonics explain, and Fisher's g p-value.",
+        example="SELECT seasonality([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2]) AS s;",
+        null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
+        params=PERIOD_PARAMS,
+        relations=PERIOD_RELATIONS,
+    ),
+    Function(
+        name="autocorrelation",
+        family="correlation",
+        returns="DOUBLE",
+        kernel=correlation.autocorrelation,
+        doc="Sample autocorrelation at one lag (standard biased estimator).",
+        example="SELECT autocorrelation([2, 4, 3, 5, 4, 6, 5, 7], lag := 2) AS r2;",
+        null_rows=SERIES_TOO_SHORT.format(n=2) + ", or no present pair lag apart",
+        params=(Param("lag", default="1", minimum=1, whole=True, help="k, in samples"),),
+    ),
+    Function(
+        name="acf",
+        family="correlation",
+        returns="DOUBLE[]",
+        kernel=correlation.acf,
+        doc="Sample autocorrelations at lags 1..max_lag.",
+        example="SELECT acf([2, 4, 3, 5, 4, 6, 5, 7], max_lag := 3) AS r;",
+        null_rows=SERIES_TOO_SHORT.format(n=2) + "; a lag with no present pair is a NULL element",
+        params=(Param("max_lag", default="10", minimum=1, whole=True, help="highest lag returned"),),
+    ),
+    Function(
+        name="ljung_box",
+        family="correlation",
+        returns="STRUCT(q DOUBLE, p_value DOUBLE)",
+        kernel=correlation.ljung_box,
+        doc="Ljung-Box test that the first lags show no autocorrelation.",
+        example="SELECT ljung_box([2, 4, 3, 5, 4, 6, 5, 7, 6, 8, 7, 9], lags := 3) AS lb;",
+        null_rows=SERIES_TOO_SHORT.format(n="lags + 1"),
+        params=(Param("lags", default="10", minimum=1, whole=True, help="number of lags (degrees of freedom)"),),
+    ),
+    Function(
+        name="trend_test",
+        family="correlation",
+        returns="STRUCT(tau DOUBLE, p_value DOUBLE, slope DOUBLE)",
+        kernel=trend.trend_test,
+        doc="Mann-Kendall trend test (tau-b, two-sided p) and Sen's slope per sample.",
+        example="SELECT trend_test([3, 4, 4, 6, 5, 7, 8, 8, 10, 9]) AS t;",
+        null_rows=SERIES_TOO_SHORT.format(n=3),
+    ),
+)
+
+BY_NAME: dict[str, Function] = {f.name: f for f in FUNCTIONS}
+
+
+def markdown_table() -> str:
+    """The README's function table."""
+    rows = ["| family | function | returns | what it answers |", "|---|---|---|---|"]
+    for fn in FUNCTIONS:
+        agg = f" · `{fn.name}_agg(value, time, …)`" if fn.aggregate else ""
+        rows.append(f"| {fn.family} | `{fn.signature}`{agg} | `{fn.returns}` | {fn.doc} |")
+    return "\n".join(rows)
