@@ -13,7 +13,7 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 import pyarrow as pa
 
-from tsql.kernels.ragged import Ragged
+from tsql.kernels.ragged import Ragged, RaggedRecords
 
 ArrowInput = pa.Array | pa.ChunkedArray
 _DOUBLE = pa.float64()
@@ -86,6 +86,21 @@ def to_arrow_list(batch: Ragged, value_type: pa.DataType = _DOUBLE) -> pa.ListAr
     offsets = pa.array(batch.offsets.astype(np.int32))
     mask = None if batch.valid is None or batch.valid.all() else pa.array(~batch.valid)
     return pa.ListArray.from_arrays(offsets, child, mask=mask)
+
+
+def to_arrow_record_list(
+    records: RaggedRecords, types: Mapping[str, pa.DataType], row_valid: np.ndarray | None = None
+) -> pa.ListArray:
+    """LIST of STRUCT per row from a RaggedRecords; NaN fields are NULL."""
+    arrays = []
+    for name, arrow_type in types.items():
+        values = np.asarray(records.fields[name])
+        missing = np.isnan(values) if values.dtype.kind == "f" else np.zeros(len(values), dtype=bool)
+        arrays.append(_typed(values, missing, arrow_type))
+    child = pa.StructArray.from_arrays(arrays, names=list(types))
+    valid = records.row_valid if row_valid is None else row_valid
+    mask = None if valid.all() else pa.array(~valid)
+    return pa.ListArray.from_arrays(pa.array(records.offsets.astype(np.int32)), child, mask=mask)
 
 
 def _typed(values: np.ndarray, missing: np.ndarray, arrow_type: pa.DataType) -> pa.Array:

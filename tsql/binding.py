@@ -22,7 +22,7 @@ import numpy as np
 import pyarrow as pa
 
 from tsql import batch as arrow_batch
-from tsql.kernels.ragged import Ragged
+from tsql.kernels.ragged import Ragged, RaggedRecords
 from tsql.registry import FUNCTIONS, Function, Param
 
 _ARROW_TYPES = {"DOUBLE": pa.float64(), "INTEGER": pa.int32(), "BIGINT": pa.int64()}
@@ -68,9 +68,9 @@ def _create_udf(con: duckdb.DuckDBPyConnection, fn: Function) -> None:
     param_types = ["DOUBLE[]"] * len(fn.series) + [p.sql_type for p in fn.params]
     try:
         con.create_function(fn.udf_name, make_udf(fn), param_types, fn.returns, type="arrow", null_handling="special")
-    except duckdb.NotImplementedException as error:
+    except (duckdb.NotImplementedException, duckdb.CatalogException) as error:
         # UDFs belong to the whole connection: a second register() (or a cursor's) finds them there.
-        if "already created" not in str(error):
+        if "already" not in str(error):
             raise
 
 
@@ -141,10 +141,15 @@ def _checked_arguments(fn: Function, key: tuple) -> dict | None:
 def check_argument(function: str, p: Param, value: Any) -> Any:
     """Validate one plain argument; raise ``ValueError`` naming what is allowed."""
     if p.choices:
-        if value not in p.choices:
-            allowed = ", ".join(repr(c) for c in p.choices)
+        if value in p.choices:
+            return value
+        allowed = ", ".join(repr(c) for c in p.choices)
+        if not p.number_ok:
             raise ValueError(f"{function}: {p.name} must be one of {allowed}, got {value!r}")
-        return value
+        try:
+            value = float(value)
+        except ValueError:
+            raise ValueError(f"{function}: {p.name} must be one of {allowed} or a number, got {value!r}") from None
     if isinstance(value, float) and not np.isfinite(value):
         raise ValueError(f"{function}: {p.name} must be a finite number, got {value}")
     if p.whole:
@@ -161,31 +166,36 @@ def _show(x: Any) -> str:
 
 
 class _Converter:
-    """Turns a kernel result into the Arrow array of the declared SQL type."""
+    """Turns a kernel result into the Arrow array of the declared SQL type.
+
+    DOUBLE from a per-row array; STRUCT(...) from a dict of per-row arrays;
+    T[] from a Ragged; STRUCT(...)[] from a RaggedRecords.
+    """
 
     def __init__(self, sql_type: str):
         self.sql_type = sql_type
-        struct = re.fullmatch(r"STRUCT\((.*)\)", sql_type)
+        self.is_list = sql_type.endswith("[]")
+        element = sql_type[:-2] if self.is_list else sql_type
+        struct = re.fullmatch(r"STRUCT\((.*)\)", element)
         if struct:
             fields = [f.strip().split() for f in struct.group(1).split(",")]
-            self.kind = "struct"
             self.fields = {name: _ARROW_TYPES[t] for name, t in fields}
-            self.arrow_type = pa.struct(list(self.fields.items()))
-        elif sql_type.endswith("[]"):
-            self.kind = "list"
-            self.element = _ARROW_TYPES[sql_type[:-2]]
-            self.arrow_type = pa.list_(self.element)
+            self.element = pa.struct(list(self.fields.items()))
         else:
-            self.kind = "scalar"
-            self.arrow_type = _ARROW_TYPES[sql_type]
+            self.fields = None
+            self.element = _ARROW_TYPES[element]
+        self.arrow_type = pa.list_(self.element) if self.is_list else self.element
 
     def __call__(self, result: Any, valid: np.ndarray) -> pa.Array:
-        if self.kind == "struct":
-            return arrow_batch.to_arrow_struct(result, self.fields, valid)
-        if self.kind == "list":
+        if self.is_list and self.fields:
+            assert isinstance(result, RaggedRecords)
+            return arrow_batch.to_arrow_record_list(result, self.fields, result.row_valid & valid)
+        if self.is_list:
             assert isinstance(result, Ragged)
             rows = result.row_valid & valid
             return arrow_batch.to_arrow_list(Ragged(result.values, result.offsets, rows), self.element)
+        if self.fields:
+            return arrow_batch.to_arrow_struct(result, self.fields, valid)
         return arrow_batch.to_arrow_scalar(result, valid)
 
 

@@ -20,7 +20,8 @@ class Param:
 
     ``default`` is the SQL text of the macro default (None: required).
     ``whole`` demands an integer value; ``minimum`` a lower bound; ``none_ok``
-    lets NULL mean "not set" (otherwise a NULL argument gives a NULL row).
+    lets NULL mean "not set" (otherwise a NULL argument gives a NULL row);
+    ``choices`` lists the allowed words, and ``number_ok`` also admits a number.
     """
 
     name: str
@@ -30,6 +31,7 @@ class Param:
     whole: bool = False
     none_ok: bool = False
     choices: tuple[str, ...] = ()
+    number_ok: bool = False
     help: str = ""
 
 
