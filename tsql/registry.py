@@ -11,7 +11,7 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-from tsql.kernels import correlation, periodicity, trend
+from tsql.kernels import correlation, dtw, periodicity, trend
 
 
 @dataclass(frozen=True)
@@ -136,6 +136,78 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Mann-Kendall trend test (tau-b, two-sided p) and Sen's slope per sample.",
         example="SELECT trend_test([3, 4, 4, 6, 5, 7, 8, 8, 10, 9]) AS t;",
         null_rows=SERIES_TOO_SHORT.format(n=3),
+    ),
+)
+
+PAIR_NULL_ROWS = "either list NULL or empty, or holding a NULL/NaN element (drop them with list_filter)"
+
+FUNCTIONS += (
+    Function(
+        name="dtw_distance",
+        family="similarity",
+        returns="DOUBLE",
+        kernel=dtw.dtw_distance,
+        doc="Dynamic time warping distance: root of the least summed squared difference over warping paths.",
+        example="SELECT dtw_distance([1, 2, 3, 5, 3], [1, 1, 2, 3, 5, 3], band := 2) AS d;",
+        null_rows=PAIR_NULL_ROWS + "; with cutoff, a pair farther than cutoff",
+        series=("a", "b"),
+        params=(
+            Param(
+                "band",
+                default="NULL",
+                minimum=0,
+                whole=True,
+                none_ok=True,
+                help="Sakoe-Chiba half-width |i - j| <= band, widened to the length difference (default: none)",
+            ),
+            Param(
+                "normalize",
+                sql_type="BOOLEAN",
+                default="false",
+                help="z-normalise each series first, to compare shape rather than level and scale",
+            ),
+            Param(
+                "cutoff",
+                default="NULL",
+                minimum=0,
+                none_ok=True,
+                help="return NULL for pairs farther than this, stopping early (cheap filters)",
+            ),
+        ),
+        aggregate=False,
+    ),
+    Function(
+        name="dtw_path",
+        family="similarity",
+        returns="STRUCT(i INTEGER, j INTEGER)[]",
+        kernel=dtw.dtw_path,
+        doc="An optimal warping path, 1-based (i, j) pairs from (1, 1) to (n, m).",
+        example="SELECT dtw_path([1, 2, 3], [1, 2, 2, 3]) AS path;",
+        null_rows=PAIR_NULL_ROWS,
+        series=("a", "b"),
+        params=(
+            Param(
+                "band",
+                default="NULL",
+                minimum=0,
+                whole=True,
+                none_ok=True,
+                help="Sakoe-Chiba half-width, as for dtw_distance",
+            ),
+        ),
+        aggregate=False,
+    ),
+    Function(
+        name="lb_keogh",
+        family="similarity",
+        returns="DOUBLE",
+        kernel=dtw.lb_keogh,
+        doc="LB_Keogh lower bound of dtw_distance(a, b, band := band): a cheap pre-filter.",
+        example="SELECT lb_keogh([1, 2, 3, 5, 3], [1, 1, 2, 3, 5], 1) AS bound;",
+        null_rows=PAIR_NULL_ROWS,
+        series=("a", "b"),
+        params=(Param("band", minimum=0, whole=True, help="Sakoe-Chiba half-width of the envelope of b"),),
+        aggregate=False,
     ),
 )
 
