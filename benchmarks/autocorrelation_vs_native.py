@@ -41,7 +41,9 @@ def main() -> None:
     con = tsql.connect()
     con.execute(
         f"""CREATE TABLE series AS
-            SELECT (i % {args.groups})::INTEGER AS g, (i // {args.groups})::INTEGER AS t, sin(i * 0.001) + ((i * 7919) % 1000) / 1000.0 AS v
+            SELECT (i % {args.groups})::INTEGER AS g,
+                   (i // {args.groups})::INTEGER AS t,
+                   sin(i * 0.001) + ((i * 7919) % 1000) / 1000.0 AS v
             FROM range({args.groups * args.points}) r(i)"""
     )
     results = {}
