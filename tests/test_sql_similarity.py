@@ -136,3 +136,11 @@ def test_rows_without_support_are_null(con, call):
 def test_nonsense_arguments_are_errors(con, call, message):
     with pytest.raises(duckdb.Error, match=message):
         con.execute(f"SELECT {call}").fetchall()
+
+
+def test_path_too_large_for_memory_is_a_clear_error(con):
+    # 20,000 x 20,000 cells without a band would need 3.2 GB
+    with pytest.raises(duckdb.Error, match="dtw_path: a 20000 x 20000 pair needs 400,000,000 cells"):
+        con.execute("SELECT dtw_path(range(20000)::DOUBLE[], range(20000)::DOUBLE[])").fetchall()
+    path = con.execute("SELECT len(dtw_path(range(20000)::DOUBLE[], range(20000)::DOUBLE[], band := 10))").fetchone()
+    assert path == (20000,)

@@ -452,6 +452,26 @@ def dtw_distance(
     return _distance_batch(av, aoff, bv, boff, order, group_starts, _band_code(band), bool(normalize), limit, out)
 
 
+#: Largest cost matrix dtw_path keeps for one pair (8 bytes a cell: 1 GiB).
+PATH_MAX_CELLS = 1 << 27
+
+
+def _check_path_size(n: np.ndarray, m: np.ndarray, band: int | None) -> None:
+    if len(n) == 0:
+        return
+    if band is None:
+        cells = n * m
+    else:
+        w = np.maximum(band, np.abs(n - m))
+        cells = np.minimum(n * (2 * w + 1), n * m)
+    worst = int(np.argmax(cells))
+    if cells[worst] > PATH_MAX_CELLS:
+        raise ValueError(
+            f"dtw_path: a {n[worst]} x {m[worst]} pair needs {cells[worst]:,} cells, more than the "
+            f"{PATH_MAX_CELLS:,} allowed; give a smaller band"
+        )
+
+
 def dtw_path(a: Ragged, b: Ragged, band: int | None = None) -> RaggedRecords:
     """One optimal warping path per pair, as 1-based cells ``(i, j)``.
 
@@ -474,13 +494,16 @@ def dtw_path(a: Ragged, b: Ragged, band: int | None = None) -> RaggedRecords:
     RaggedRecords
         Fields ``'i'`` and ``'j'`` (int64, 1-based), one list of cells per pair;
         a pair without an answer (see :func:`dtw_distance`) is an invalid row.
-        Memory: 8 bytes per cell inside the band, for the pair being traced.
+        Memory: 8 bytes per cell inside the band, for the pair being traced;
+        a pair needing more than ``PATH_MAX_CELLS`` cells is an error (give a
+        band) rather than an allocation that could exhaust the machine.
 
     References
     ----------
     Sakoe, H. & Chiba, S. (1978). IEEE Trans. ASSP 26(1), 43–49.
     """
     usable = _usable(a, b)
+    _check_path_size(a.lengths[usable], b.lengths[usable], band)
     av, aoff = _flat(a)
     bv, boff = _flat(b)
     room = np.where(usable, a.lengths + b.lengths - 1, 0).astype(np.int64)
