@@ -1,0 +1,130 @@
+"""The PELT kernel against ruptures' exact PELT and against the SQL list-building floor.
+
+    python -m benchmarks.pelt_kernel [--n 3000] [--series 4000] [--points 500] [--repeat 5]
+
+1. One series of ``--n`` points, model 'mean', BIC penalty: tsql's change_points against
+   ``ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma^2)`` (ruptures'
+   l2 cost is the plain RSS, ours is RSS / sigma^2), same answer checked, ratio of medians.
+2. ``--series`` series of ``--points`` points in batches of 2,048 rows, as the SQL layer hands
+   them: kernel time per model, beside DuckDB's ``list_sum(list(v ORDER BY t)) ... GROUP BY g`` on
+   the same data (the floor every list function pays), as a ratio of medians.
+
+All figures are medians of wall-clock times measured in this one run.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import statistics
+import time
+
+import numpy as np
+
+from tsql.kernels import changepoint
+from tsql.kernels.ragged import Ragged
+
+BATCH_ROWS = 2048
+
+
+def median_seconds(fn, repeat: int) -> float:
+    times = []
+    for _ in range(repeat):
+        start = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def piecewise(rng: np.random.Generator, n: int, n_changes: int) -> np.ndarray:
+    cuts = np.sort(rng.choice(np.arange(20, n - 20), size=n_changes, replace=False))
+    levels = rng.normal(0.0, 2.0, n_changes + 1)
+    return np.repeat(levels, np.diff(np.r_[0, cuts, n])) + rng.standard_normal(n)
+
+
+def sigma_first(x: np.ndarray) -> float:
+    """The 'mean' model's noise scale, 1.4826 MAD(diff x) / sqrt 2, written out in numpy."""
+    d = np.diff(x)
+    return 1.482602218505602 * float(np.median(np.abs(d - np.median(d)))) / math.sqrt(2.0)
+
+
+def single_series(n: int, repeat: int, rupture_repeat: int) -> None:
+    import ruptures
+
+    rng = np.random.default_rng(2024)
+    x = piecewise(rng, n, 8) * 5.0 + 50.0
+    batch = Ragged.from_list([x])
+    beta = 2.0 * math.log(n)
+    ours = [int(v) for v in changepoint.change_points(batch).values]
+    ends = ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma_first(x) ** 2)
+    theirs = [e + 1 for e in ends[:-1]]
+    ours_s = median_seconds(lambda: changepoint.change_points(batch), repeat)
+    theirs_s = median_seconds(
+        lambda: ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma_first(x) ** 2),
+        rupture_repeat,
+    )
+    print(f"1. one series of {n} points, 'mean', BIC penalty {beta:.2f} ({len(ours)} changes)")
+    print(f"   same change points as ruptures: {ours == theirs}")
+    print(f"   tsql     {ours_s * 1e3:9.2f} ms   (median of {repeat})")
+    print(f"   ruptures {theirs_s * 1e3:9.2f} ms   (median of {rupture_repeat})")
+    print(f"   ruptures / tsql = {theirs_s / ours_s:,.0f}x")
+
+
+def many_series(n_series: int, points: int, repeat: int) -> None:
+    rng = np.random.default_rng(7)
+    rows = np.empty((n_series, points))
+    for i in range(n_series):
+        rows[i] = piecewise(rng, points, int(rng.integers(0, 5)))
+        if i % 10 == 0:
+            rows[i, rng.integers(0, points, 5)] = np.nan
+    batches = []
+    for lo in range(0, n_series, BATCH_ROWS):
+        block = rows[lo : lo + BATCH_ROWS]
+        offsets = np.arange(0, block.size + 1, points, dtype=np.int64)
+        batches.append(Ragged(block.ravel().copy(), offsets))
+    print(f"2. {n_series} series x {points} points (0-4 level shifts each, 1 in 10 with gaps), batches of {BATCH_ROWS}")
+    floor_s = None
+    try:
+        import duckdb
+
+        con = duckdb.connect()
+        g = np.repeat(np.arange(n_series, dtype=np.int32), points)
+        t = np.tile(np.arange(points, dtype=np.int32), n_series)
+        v = rows.ravel()
+        con.register("source", {"g": g, "t": t, "v": v})
+        con.execute("CREATE TABLE series AS SELECT g, t, CASE WHEN isnan(v) THEN NULL ELSE v END AS v FROM source")
+        sql = "SELECT g, list_sum(list(v ORDER BY t)) FROM series GROUP BY g"
+        con.execute(sql).fetchall()
+        floor_s = median_seconds(lambda: con.execute(sql).fetchall(), repeat)
+        print(f"   {'floor: DuckDB list_sum(list(v ORDER BY t)) GROUP BY g':<56} {floor_s:7.3f} s")
+    except ImportError:
+        print("   (duckdb not installed: no floor measured)")
+    for model in ("mean", "trend", "meanvar"):
+        seconds = median_seconds(lambda m=model: [changepoint.change_points(b, m) for b in batches], repeat)
+        found = sum(len(changepoint.change_points(b, model).values) for b in batches)
+        ratio = f"   {seconds / floor_s:5.2f}x floor" if floor_s else ""
+        label = f"kernel change_points(model='{model}')"
+        print(f"   {label:<56} {seconds:7.3f} s{ratio}   ({found} changes)")
+    worst = [Ragged(np.random.default_rng(1).standard_normal(b.values.size), b.offsets) for b in batches]
+    seconds = median_seconds(lambda: [changepoint.change_points(b) for b in worst], repeat)
+    ratio = f"   {seconds / floor_s:5.2f}x floor" if floor_s else ""
+    print(f"   {'worst case: mean on pure noise (nothing to prune)':<56} {seconds:7.3f} s{ratio}")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--n", type=int, default=3000)
+    parser.add_argument("--series", type=int, default=4000)
+    parser.add_argument("--points", type=int, default=500)
+    parser.add_argument("--repeat", type=int, default=5)
+    parser.add_argument("--ruptures-repeat", type=int, default=3)
+    args = parser.parse_args()
+    start = time.perf_counter()
+    changepoint.change_points(Ragged.from_list([np.arange(10.0) % 3]))
+    print(f"first call (numba: load from cache, or compile): {time.perf_counter() - start:.2f} s")
+    single_series(args.n, max(args.repeat, 21), args.ruptures_repeat)
+    many_series(args.series, args.points, args.repeat)
+
+
+if __name__ == "__main__":
+    main()

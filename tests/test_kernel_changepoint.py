@@ -1,0 +1,340 @@
+"""Change points (PELT) against exhaustive optimal partitioning, ruptures and published answers.
+
+The exhaustive search and the noise scales below are written out plainly in numpy from the
+definitions in tsql.kernels.changepoint.segments; ruptures (test-only oracle) gives an
+independent exact PELT for the 'mean' model.
+"""
+
+import math
+
+import numpy as np
+import pytest
+from scipy.stats import norm
+
+from tsql.kernels import changepoint
+from tsql.kernels.changepoint import change_points, segments
+from tsql.kernels.ragged import Ragged
+
+MAD = 1 / norm.ppf(0.75)  # makes the MAD a consistent Gaussian sigma (Hampel 1974)
+FLOOR = 1e-4  # 'meanvar' variance floor, as a share of the series' variance
+ULPS = 1000  # a scale within this many ulps of max |y| counts as zero
+
+
+# --------------------------------------------------------------------------- plain references
+
+
+def sigma_first(y: np.ndarray) -> float:
+    """1.4826 MAD(diff y) / sqrt 2, then std(diff y) / sqrt 2, then std(y)."""
+    tiny = ULPS * np.finfo(float).eps * np.abs(y).max()
+    d = np.diff(y)
+    s = MAD * np.median(np.abs(d - np.median(d))) / math.sqrt(2) if len(d) else 0.0
+    if s <= tiny:
+        s = np.std(d) / math.sqrt(2) if len(d) else 0.0
+    return s if s > tiny else float(np.std(y))
+
+
+def sigma_second(y: np.ndarray, t: np.ndarray) -> float:
+    """1.4826 MAD of each value's residual from the line through its neighbours, at unit noise variance."""
+    w0 = (t[2:] - t[1:-1]) / (t[2:] - t[:-2])
+    w2 = (t[1:-1] - t[:-2]) / (t[2:] - t[:-2])
+    r = (y[1:-1] - w0 * y[:-2] - w2 * y[2:]) / np.sqrt(1 + w0**2 + w2**2)
+    tiny = ULPS * np.finfo(float).eps * np.abs(y).max()
+    s = MAD * np.median(np.abs(r - np.median(r)))
+    if s <= tiny:
+        s = np.std(r)
+    return s if s > tiny else float(np.std(y))
+
+
+def segment_cost(model: str, y: np.ndarray, t: np.ndarray, scale: float) -> float:
+    if model == "mean":
+        return float(np.sum((y - y.mean()) ** 2)) / scale**2
+    if model == "meanvar":
+        return len(y) * math.log(np.var(y) / scale**2 + FLOOR)
+    if len(y) < 2:
+        return 0.0
+    slope, intercept = np.polyfit(t, y, 1)
+    return float(np.sum((y - (intercept + slope * t)) ** 2)) / scale**2
+
+
+def exhaustive(x, model: str, penalty, min_size: int) -> list[int]:
+    """Optimal partitioning (Jackson et al. 2005): every last-segment start, no pruning, O(n^2) costs.
+
+    Same rule as the kernel: earliest last-segment start among equal totals, a change point is
+    the original 1-based position of its segment's first present value.
+    """
+    x = np.asarray(x, dtype=float)
+    keep = ~np.isnan(x)
+    y, t = x[keep], np.flatnonzero(keep).astype(float)
+    m = len(y)
+    if m < 2 * min_size or y.min() == y.max():
+        return []
+    scale = sigma_first(y) if model == "mean" else sigma_second(y, t) if model == "trend" else float(np.std(y))
+    params = {"mean": 2, "meanvar": 3, "trend": 3}[model]
+    beta = params * math.log(m) if penalty == "bic" else 3 * math.log(m) if penalty == "mbic" else penalty
+    best = np.full(m + 1, np.inf)
+    best[0] = -beta
+    last = np.zeros(m + 1, dtype=int)
+    for end in range(min_size, m + 1):
+        for start in range(0, end - min_size + 1):
+            if not np.isfinite(best[start]):
+                continue
+            c = segment_cost(model, y[start:end], t[start:end], scale)
+            if penalty == "mbic":
+                c += math.log((end - start) / m)
+            total = best[start] + c + beta
+            if total < best[end]:
+                best[end], last[end] = total, start
+    starts, end = [], m
+    while end > 0:
+        end = last[end]
+        starts.append(end)
+    return [int(t[s]) + 1 for s in sorted(starts)[1:]]
+
+
+def piecewise(rng, n: int, n_changes: int, kind: str = "mean") -> np.ndarray:
+    cuts = (
+        np.sort(rng.choice(np.arange(1, n), size=min(n_changes, n - 1), replace=False))
+        if n > 1
+        else np.array([], dtype=int)
+    )
+    lengths = np.diff(np.r_[0, cuts, n])
+    if kind == "mean":
+        return np.repeat(rng.normal(0, 3, len(lengths)), lengths) + rng.standard_normal(n)
+    if kind == "meanvar":
+        return np.repeat(rng.normal(0, 2, len(lengths)), lengths) + rng.standard_normal(n) * np.repeat(
+            np.exp(rng.normal(0, 1, len(lengths))), lengths
+        )
+    slopes = np.repeat(rng.normal(0, 0.5, len(lengths)), lengths)
+    return np.cumsum(slopes) + rng.standard_normal(n)
+
+
+def cps(batch: Ragged, i: int) -> list[int]:
+    return [int(v) for v in batch.row(i)]
+
+
+# --------------------------------------------------------------------------- published answer
+
+
+def test_nile_has_one_change_at_1899(nile):
+    # Cobb (1978), Biometrika 65(2) (citation recalled from memory): the Nile's annual flow at
+    # Aswan drops after 1898; the statsmodels copy starts in 1871, so 1899 is position 29.
+    got = change_points(Ragged.from_list([nile]))
+    assert cps(got, 0) == [29]
+    seg = segments(Ragged.from_list([nile])).row(0)
+    np.testing.assert_array_equal(seg["first"], [1, 29])
+    np.testing.assert_array_equal(seg["last"], [28, 100])
+    np.testing.assert_allclose(seg["mean"], [nile[:28].mean(), nile[28:].mean()], rtol=1e-13)
+
+
+def test_nile_sigma_is_the_difference_mad(nile):
+    # reference: the definition, in numpy; the change found must not depend on the shift inflating sigma
+    sigma = sigma_first(nile)
+    assert 100 < sigma < np.std(nile)
+    # with the penalty given as a number the answer is the same (2 log 100 = 9.21)
+    assert cps(change_points(Ragged.from_list([nile]), penalty=2 * math.log(100)), 0) == [29]
+
+
+# --------------------------------------------------------------------------- exactness
+
+
+CASES = [
+    ("mean", [1, 2, 3]),
+    ("meanvar", [2, 3, 5]),
+    ("trend", [2, 3, 4]),
+]
+
+
+@pytest.mark.parametrize("model,sizes", CASES)
+def test_pelt_equals_exhaustive_search(model, sizes):
+    # reference: exhaustive optimal partitioning above, on seeded random piecewise signals
+    rng = np.random.default_rng({"mean": 1, "meanvar": 2, "trend": 3}[model])
+    signals = []
+    for i in range(24):
+        x = piecewise(rng, int(rng.integers(4, 36)), int(rng.integers(0, 5)), model)
+        if i % 4 == 3:
+            x[rng.integers(0, len(x), 3)] = np.nan
+        signals.append(x)
+    batch = Ragged.from_list(signals)
+    checked = 0
+    for min_size in sizes:
+        for penalty in (0.0, 0.7, 4.0, 15.0, "bic", "mbic"):
+            got = change_points(batch, model, penalty, min_size)
+            for i, x in enumerate(signals):
+                expected = exhaustive(x, model, penalty, min_size)
+                assert cps(got, i) == expected, (model, min_size, penalty, i)
+                checked += len(expected)
+    assert checked > 300  # the signals do have change points to find
+
+
+def test_pelt_equals_ruptures_exact_pelt():
+    # reference: ruptures.Pelt(model="l2", min_size=2, jump=1), an exact PELT on the plain RSS;
+    # our cost is RSS / sigma^2, so its penalty is ours times sigma^2. It returns segment ends.
+    rpt = pytest.importorskip("ruptures")
+    rng = np.random.default_rng(11)
+    for n, k in ((150, 2), (240, 5), (300, 0), (300, 8)):
+        x = piecewise(rng, n, k) * 7.0 + 100.0
+        sigma = sigma_first(x)
+        for penalty in ("bic", 3.0):
+            beta = 2 * math.log(n) if penalty == "bic" else penalty
+            ends = rpt.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma**2)
+            assert cps(change_points(Ragged.from_list([x]), "mean", penalty), 0) == [e + 1 for e in ends[:-1]]
+
+
+# --------------------------------------------------------------------------- what each model sees
+
+
+def test_meanvar_finds_a_variance_only_change():
+    # planted: same mean, standard deviation 1 then 4, change at position 201
+    rng = np.random.default_rng(5)
+    x = np.r_[rng.normal(10, 1, 200), rng.normal(10, 4, 200)]
+    (found,) = cps(change_points(Ragged.from_list([x]), "meanvar", min_size=5), 0)
+    assert abs(found - 201) <= 5
+    # and nothing in the same stretch without the change
+    assert cps(change_points(Ragged.from_list([x[:200]]), "meanvar", min_size=5), 0) == []
+
+
+def test_trend_finds_slope_changes():
+    # planted: a continuous line whose slope goes +1, -2, +0.5 at positions 101 and 201
+    rng = np.random.default_rng(6)
+    t = np.arange(300.0)
+    line = np.where(t < 100, t, np.where(t < 200, 100 - 2 * (t - 100), -100 + 0.5 * (t - 200)))
+    x = line + rng.normal(0, 3, 300)
+    got = cps(change_points(Ragged.from_list([x]), "trend"), 0)
+    assert len(got) == 2 and abs(got[0] - 101) <= 4 and abs(got[1] - 201) <= 4
+    seg = segments(Ragged.from_list([x]), "trend").row(0)
+    np.testing.assert_allclose(seg["slope"], [1, -2, 0.5], atol=0.1)
+
+
+@pytest.mark.parametrize("model", ["mean", "meanvar", "trend"])
+def test_min_size_is_honoured(model):
+    rng = np.random.default_rng(8)
+    signals = [piecewise(rng, 80, 12, model) for _ in range(10)]
+    for min_size in (2, 3, 7):
+        seg = segments(Ragged.from_list(signals), model, 0.0, min_size)
+        for i in range(len(signals)):
+            lengths = seg.row(i)["last"] - seg.row(i)["first"] + 1
+            assert len(lengths) > 1 and lengths.min() >= min_size
+
+
+def test_segments_cover_the_list_with_exact_means_and_slopes():
+    # reference: numpy means and np.polyfit slopes over each segment's present values
+    rng = np.random.default_rng(9)
+    for model in ("mean", "trend", "meanvar"):
+        x = piecewise(rng, 120, 4, "trend" if model == "trend" else "mean")
+        x[[0, 1, 30, 31, 32, 77, 119]] = np.nan
+        seg = segments(Ragged.from_list([x]), model, 2.0).row(0)
+        assert seg["first"][0] == 1 and seg["last"][-1] == len(x)
+        np.testing.assert_array_equal(seg["first"][1:], seg["last"][:-1] + 1)
+        assert len(seg["first"]) > 1
+        for first, last, mean, slope in zip(seg["first"], seg["last"], seg["mean"], seg["slope"]):
+            part = x[first - 1 : last]
+            t = np.arange(first - 1, last)[~np.isnan(part)]
+            assert mean == pytest.approx(np.nanmean(part), rel=1e-12, abs=1e-12)
+            assert slope == pytest.approx(np.polyfit(t, part[~np.isnan(part)], 1)[0], rel=1e-9, abs=1e-12)
+        starts = change_points(Ragged.from_list([x]), model, 2.0)
+        np.testing.assert_array_equal(starts.values, seg["first"][1:])
+        # a change point is where a present value starts the new segment
+        assert not np.isnan(x[starts.values.astype(int) - 1]).any()
+
+
+# --------------------------------------------------------------------------- edge rows
+
+
+def test_edge_rows():
+    rows = [
+        None,  # NULL
+        [],  # empty
+        [np.nan, np.nan, np.nan],  # all missing
+        [1.0, 5.0, 2.0],  # fewer than 2 * min_size present values
+        [4.0] * 10,  # constant
+        [4.0, np.nan, 4.0, 4.0, np.nan],  # constant with gaps
+        [7.0],  # one value
+        [0.0, 1.0, np.inf, 0.0],  # an infinite value
+    ]
+    batch = Ragged.from_list(rows)
+    got = change_points(batch)
+    np.testing.assert_array_equal(got.row_valid, [False, False, False, True, True, True, True, False])
+    assert len(got.values) == 0
+    seg = segments(batch)
+    np.testing.assert_array_equal(seg.row_valid, got.row_valid)
+    assert seg.row(3)["first"].tolist() == [1] and seg.row(3)["last"].tolist() == [3]
+    assert seg.row(3)["mean"][0] == pytest.approx(np.mean([1.0, 5.0, 2.0]))
+    assert seg.row(3)["slope"][0] == pytest.approx(np.polyfit([0, 1, 2], [1, 5, 2], 1)[0])
+    assert seg.row(4)["slope"][0] == 0.0 and seg.row(4)["mean"][0] == 4.0
+    assert seg.row(5)["last"].tolist() == [5]
+    assert seg.row(6)["mean"][0] == 7.0 and np.isnan(seg.row(6)["slope"][0])
+    for i in (0, 1, 2, 7):
+        assert len(seg.row(i)["first"]) == 0
+
+
+def test_gaps_keep_original_positions():
+    # a level step with missing elements just before and at the start of the new level
+    rng = np.random.default_rng(12)
+    x = np.r_[rng.normal(0, 0.1, 20), rng.normal(5, 0.1, 20)]
+    x[[0, 18, 19, 20, 21, 39]] = np.nan
+    assert cps(change_points(Ragged.from_list([x])), 0) == [23]  # first present value of the new level
+    seg = segments(Ragged.from_list([x])).row(0)
+    assert seg["first"].tolist() == [1, 23] and seg["last"].tolist() == [22, 40]
+    np.testing.assert_allclose(seg["mean"], [np.nanmean(x[:22]), np.nanmean(x[22:])], rtol=1e-13)
+
+
+def test_rounding_is_not_noise():
+    # 5.1 - 5.0 is not exactly 0.1: the MAD of these differences is ~1e-16, which must count
+    # as zero (then sigma = std(diff) / sqrt 2 = 1.25 and only the real step is a change)
+    x = [0.0, 0.1, -0.1, 0.0, 5.0, 5.1, 4.9, 5.0]
+    assert cps(change_points(Ragged.from_list([x])), 0) == [5]
+    # equal up to rounding is constant: 0.1 + 0.2 != 0.3 in floating point
+    assert cps(change_points(Ragged.from_list([[0.1 + 0.2, 0.3, 0.3, 0.1 + 0.2] * 3]), penalty=0.0), 0) == []
+
+
+def test_too_short_for_the_min_size():
+    x = [0.0, 0.0, 9.0, 9.0, 9.0]
+    assert cps(change_points(Ragged.from_list([x]), min_size=3), 0) == []
+    assert cps(change_points(Ragged.from_list([x]), min_size=2), 0) == [3]
+
+
+def test_arguments_are_checked():
+    one = Ragged.from_list([[1.0, 2.0, 3.0, 4.0]])
+    for kwargs in (
+        {"model": "median"},
+        {"penalty": "aic"},
+        {"penalty": -1.0},
+        {"penalty": math.inf},
+        {"model": "trend", "min_size": 1},
+        {"model": "meanvar", "min_size": 1},
+        {"min_size": 0},
+    ):
+        with pytest.raises(ValueError):
+            change_points(one, **kwargs)
+    assert changepoint.MIN_SIZE == {"mean": 1, "meanvar": 2, "trend": 2}
+
+
+# --------------------------------------------------------------------------- batch independence
+
+
+@pytest.mark.parametrize("model", ["mean", "meanvar", "trend"])
+def test_rows_alone_equal_rows_in_a_mixed_batch(model):
+    rng = np.random.default_rng(13)
+    rows = []
+    for i in range(300):
+        if i % 37 == 0:
+            rows.append(None)
+            continue
+        x = piecewise(rng, int(rng.integers(0, 160)), int(rng.integers(0, 6)), model)
+        if i % 5 == 0 and len(x) > 3:
+            x[rng.integers(0, len(x), 3)] = np.nan
+        rows.append(x)
+    together = change_points(Ragged.from_list(rows), model)
+    seg_together = segments(Ragged.from_list(rows), model)
+    for i in rng.permutation(len(rows))[:60]:
+        alone = change_points(Ragged.from_list([rows[i]]), model)
+        assert alone.row_valid[0] == together.row_valid[i]
+        np.testing.assert_array_equal(alone.row(0), together.row(i))
+        seg_alone = segments(Ragged.from_list([rows[i]]), model).row(0)
+        for name, values in seg_together.row(i).items():
+            np.testing.assert_array_equal(seg_alone[name], values)
+    # shuffling the batch changes nothing either
+    order = rng.permutation(len(rows))
+    shuffled = change_points(Ragged.from_list([rows[i] for i in order]), model)
+    for j, i in enumerate(order):
+        np.testing.assert_array_equal(shuffled.row(j), together.row(i))
