@@ -135,6 +135,9 @@ def _checked_arguments(fn: Function, key: tuple) -> dict | None:
         a, b = kwargs.get(smaller), kwargs.get(larger)
         if a is not None and b is not None and b < a:
             raise ValueError(f"{fn.name}: {message}, got {smaller} = {_show(a)} and {larger} = {_show(b)}")
+    problem = fn.check(kwargs) if fn.check else None
+    if problem:
+        raise ValueError(f"{fn.name}: {problem}")
     return kwargs
 
 

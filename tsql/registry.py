@@ -8,10 +8,9 @@ function table are all generated from :data:`FUNCTIONS`.
 
 from __future__ import annotations
 
+import importlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
-
-from tsql.kernels import correlation, dtw, periodicity, trend
 
 
 @dataclass(frozen=True)
@@ -37,10 +36,13 @@ class Param:
 
 @dataclass(frozen=True)
 class Function:
+    """One public function. ``kernel`` is ``"module:function"`` under ``tsql.kernels``,
+    imported on first use so that ``import tsql`` stays light."""
+
     name: str
     family: str
     returns: str
-    kernel: Callable
+    kernel_path: str
     doc: str
     example: str
     null_rows: str
@@ -49,6 +51,13 @@ class Function:
     aggregate: bool = True
     relations: tuple[tuple[str, str, str], ...] = field(default=())
     """Checks between two parameters: (smaller, larger, message)."""
+    check: Callable[[dict], str | None] | None = None
+    """A last check over all arguments; returns what is wrong, or None."""
+
+    @property
+    def kernel(self) -> Callable:
+        module, function = self.kernel_path.split(":")
+        return getattr(importlib.import_module(f"tsql.kernels.{module}"), function)
 
     @property
     def udf_name(self) -> str:
@@ -80,7 +89,7 @@ FUNCTIONS: tuple[Function, ...] = (
         name="dominant_period",
         family="periodicity",
         returns="DOUBLE",
-        kernel=periodicity.dominant_period,
+        kernel_path="periodicity:dominant_period",
         doc="Period of the strongest cycle, in samples, refined off the Fourier grid.",
         example="SELECT dominant_period([1, 5, 9, 5, 1, 5, 9, 5, 1, 5, 9, 5]) AS period;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
@@ -91,7 +100,7 @@ FUNCTIONS: tuple[Function, ...] = (
         name="seasonality",
         family="periodicity",
         returns="STRUCT(period DOUBLE, strength DOUBLE, p_value DOUBLE)",
-        kernel=periodicity.seasonality,
+        kernel_path="periodicity:seasonality",
         doc="Dominant period, share of variance its harmonics explain, and Fisher's g p-value.",
         example="SELECT seasonality([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2]) AS s;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
@@ -102,7 +111,7 @@ FUNCTIONS: tuple[Function, ...] = (
         name="autocorrelation",
         family="correlation",
         returns="DOUBLE",
-        kernel=correlation.autocorrelation,
+        kernel_path="correlation:autocorrelation",
         doc="Sample autocorrelation at one lag (standard biased estimator).",
         example="SELECT autocorrelation([2, 4, 3, 5, 4, 6, 5, 7], lag := 2) AS r2;",
         null_rows=SERIES_TOO_SHORT.format(n=2) + ", or no present pair lag apart",
@@ -112,7 +121,7 @@ FUNCTIONS: tuple[Function, ...] = (
         name="acf",
         family="correlation",
         returns="DOUBLE[]",
-        kernel=correlation.acf,
+        kernel_path="correlation:acf",
         doc="Sample autocorrelations at lags 1..max_lag.",
         example="SELECT acf([2, 4, 3, 5, 4, 6, 5, 7], max_lag := 3) AS r;",
         null_rows=SERIES_TOO_SHORT.format(n=2) + "; a lag with no present pair is a NULL element",
@@ -122,7 +131,7 @@ FUNCTIONS: tuple[Function, ...] = (
         name="ljung_box",
         family="correlation",
         returns="STRUCT(q DOUBLE, p_value DOUBLE)",
-        kernel=correlation.ljung_box,
+        kernel_path="correlation:ljung_box",
         doc="Ljung-Box test that the first lags show no autocorrelation.",
         example="SELECT ljung_box([2, 4, 3, 5, 4, 6, 5, 7, 6, 8, 7, 9], lags := 3) AS lb;",
         null_rows=SERIES_TOO_SHORT.format(n="lags + 1"),
@@ -132,7 +141,7 @@ FUNCTIONS: tuple[Function, ...] = (
         name="trend_test",
         family="correlation",
         returns="STRUCT(tau DOUBLE, p_value DOUBLE, slope DOUBLE)",
-        kernel=trend.trend_test,
+        kernel_path="trend:trend_test",
         doc="Mann-Kendall trend test (tau-b, two-sided p) and Sen's slope per sample.",
         example="SELECT trend_test([3, 4, 4, 6, 5, 7, 8, 8, 10, 9]) AS t;",
         null_rows=SERIES_TOO_SHORT.format(n=3),
@@ -146,7 +155,7 @@ FUNCTIONS += (
         name="dtw_distance",
         family="similarity",
         returns="DOUBLE",
-        kernel=dtw.dtw_distance,
+        kernel_path="dtw:dtw_distance",
         doc="Dynamic time warping distance: root of the least summed squared difference over warping paths.",
         example="SELECT dtw_distance([1, 2, 3, 5, 3], [1, 1, 2, 3, 5, 3], band := 2) AS d;",
         null_rows=PAIR_NULL_ROWS + "; with cutoff, a pair farther than cutoff",
@@ -180,7 +189,7 @@ FUNCTIONS += (
         name="dtw_path",
         family="similarity",
         returns="STRUCT(i INTEGER, j INTEGER)[]",
-        kernel=dtw.dtw_path,
+        kernel_path="dtw:dtw_path",
         doc="An optimal warping path, 1-based (i, j) pairs from (1, 1) to (n, m).",
         example="SELECT dtw_path([1, 2, 3], [1, 2, 2, 3]) AS path;",
         null_rows=PAIR_NULL_ROWS,
@@ -201,13 +210,69 @@ FUNCTIONS += (
         name="lb_keogh",
         family="similarity",
         returns="DOUBLE",
-        kernel=dtw.lb_keogh,
+        kernel_path="dtw:lb_keogh",
         doc="LB_Keogh lower bound of dtw_distance(a, b, band := band): a cheap pre-filter.",
         example="SELECT lb_keogh([1, 2, 3, 5, 3], [1, 1, 2, 3, 5], 1) AS bound;",
         null_rows=PAIR_NULL_ROWS,
         series=("a", "b"),
         params=(Param("band", minimum=0, whole=True, help="Sakoe-Chiba half-width of the envelope of b"),),
         aggregate=False,
+    ),
+)
+
+CHANGE_MIN_SIZE = {"mean": 1, "meanvar": 2, "trend": 2}
+
+
+def _min_size_fits_model(args: dict) -> str | None:
+    least = CHANGE_MIN_SIZE[args["model"]]
+    if args["min_size"] < least:
+        return f"min_size must be >= {least} for model {args['model']!r}, got {args['min_size']}"
+    return None
+
+
+CHANGE_PARAMS = (
+    Param(
+        "model",
+        sql_type="VARCHAR",
+        default="'mean'",
+        choices=tuple(CHANGE_MIN_SIZE),
+        help="'mean' (level shifts), 'meanvar' (level and spread), 'trend' (piecewise lines)",
+    ),
+    Param(
+        "penalty",
+        sql_type="VARCHAR",
+        default="'bic'",
+        choices=("bic", "mbic"),
+        number_ok=True,
+        minimum=0,
+        help="'bic', 'mbic' (Zhang & Siegmund 2007), or a number: the cost added per change",
+    ),
+    Param("min_size", default="2", minimum=1, whole=True, help="fewest samples in a segment"),
+)
+CHANGE_NULL_ROWS = "NULL, empty or all-missing list; a series too short to split or constant gives an empty list"
+
+FUNCTIONS += (
+    Function(
+        name="change_points",
+        family="change",
+        returns="INTEGER[]",
+        kernel_path="changepoint:change_points",
+        doc="Exact PELT change points: 1-based position of the first element of each new segment.",
+        example="SELECT change_points([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS starts;",
+        null_rows=CHANGE_NULL_ROWS,
+        params=CHANGE_PARAMS,
+        check=_min_size_fits_model,
+    ),
+    Function(
+        name="segments",
+        family="change",
+        returns="STRUCT(first INTEGER, last INTEGER, mean DOUBLE, slope DOUBLE)[]",
+        kernel_path="changepoint:segments",
+        doc="The PELT segments with inclusive 1-based bounds, mean and least-squares slope per sample.",
+        example="SELECT segments([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS regimes;",
+        null_rows=CHANGE_NULL_ROWS.replace("an empty list", "one segment"),
+        params=CHANGE_PARAMS,
+        check=_min_size_fits_model,
     ),
 )
 
