@@ -1,0 +1,30 @@
+"""The `tsql functions` command prints the registry."""
+
+import subprocess
+import sys
+
+from tsql.cli import main
+from tsql.registry import FUNCTIONS
+
+
+def test_functions_lists_every_function(capsys):
+    assert main(["functions"]) == 0
+    out = capsys.readouterr().out
+    assert [line.split()[0] for line in out.splitlines()] == [f.name for f in FUNCTIONS]
+
+
+def test_describe_one_function_with_its_example(capsys):
+    assert main(["functions", "autocorrelation_agg"]) == 0
+    out = capsys.readouterr().out
+    assert "autocorrelation(values, lag := 1)" in out and "autocorrelation_agg(value, time, lag := 1)" in out
+    assert "SELECT autocorrelation(" in out
+
+
+def test_unknown_function_is_an_error(capsys):
+    assert main(["functions", "no_such_thing"]) == 2
+    assert "no function named 'no_such_thing'" in capsys.readouterr().err
+
+
+def test_console_entry_point_runs():
+    done = subprocess.run([sys.executable, "-m", "tsql.cli", "functions", "--markdown"], capture_output=True, text=True)
+    assert done.returncode == 0 and done.stdout.startswith("| family | function |")
