@@ -6,7 +6,12 @@ independent exact PELT for the 'mean' model.
 """
 
 import math
+import multiprocessing
+import threading
+import warnings
+from concurrent.futures import ThreadPoolExecutor
 
+import numba
 import numpy as np
 import pytest
 from scipy.stats import norm
@@ -338,3 +343,103 @@ def test_rows_alone_equal_rows_in_a_mixed_batch(model):
     shuffled = change_points(Ragged.from_list([rows[i] for i in order]), model)
     for j, i in enumerate(order):
         np.testing.assert_array_equal(shuffled.row(j), together.row(i))
+
+
+# --------------------------------------------------------------------------- threads
+
+
+def mixed_batch(seed: int) -> Ragged:
+    """NULL, empty, constant, infinite, gapped, short and long rows, of very different costs."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for i in range(400):
+        kind = i % 9
+        if kind == 0:
+            rows.append(None)
+        elif kind == 1:
+            rows.append([] if i % 2 else [3.0] * int(rng.integers(1, 30)))
+        elif kind == 2:
+            x = rng.standard_normal(int(rng.integers(4, 60)))
+            x[1] = np.inf
+            rows.append(x)
+        elif kind == 3:
+            rows.append(rng.standard_normal(int(rng.integers(600, 1200))))  # nothing to prune
+        else:
+            x = piecewise(rng, int(rng.integers(1, 300)), int(rng.integers(0, 6)), ("mean", "meanvar", "trend")[i % 3])
+            if kind % 2 and len(x) > 4:
+                x[rng.integers(0, len(x), 4)] = np.nan
+            rows.append(x)
+    return Ragged.from_list(rows)
+
+
+def answers(batch: Ragged) -> dict[str, bytes]:
+    """Every output of change_points and segments for all models, as raw bytes."""
+    out = {}
+    for model in ("mean", "meanvar", "trend"):
+        cp = change_points(batch, model, "bic", 2)
+        seg = segments(batch, model, "mbic", 3)
+        arrays = {"cp": cp.values, "cp_offsets": cp.offsets, "cp_valid": cp.row_valid}
+        arrays |= {f"seg_{name}": values for name, values in seg.fields.items()}
+        arrays |= {"seg_offsets": seg.offsets, "seg_valid": seg.row_valid}
+        for name, values in arrays.items():
+            out[f"{model}/{name}"] = values.dtype.str.encode() + values.tobytes()
+    return out
+
+
+def test_answers_do_not_depend_on_threads_or_schedule(monkeypatch):
+    if numba.config.NUMBA_NUM_THREADS < 2:
+        pytest.skip("numba has a single thread here")
+    batch = mixed_batch(21)
+    before = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = answers(batch)
+        numba.set_num_threads(2)
+        two = answers(batch)
+        with numba.parallel_chunksize(1):  # rows handed out one at a time
+            interleaved = answers(batch)
+    finally:
+        numba.set_num_threads(before)
+    monkeypatch.setattr(changepoint, "_FORKED_AFTER_OPENMP", True)  # the rows in order, on this thread
+    in_order = answers(batch)
+    assert two == one
+    assert interleaved == one
+    assert in_order == one
+    assert len(change_points(batch).values) > 100  # the batch does have change points
+
+
+def test_calls_from_two_python_threads_at_once():
+    # DuckDB may run the UDF from several of its threads; calls must not crash or mix answers
+    batches = [mixed_batch(seed) for seed in (31, 32)]
+    expected = [answers(b) for b in batches]
+    start = threading.Barrier(2)
+
+    def work(k: int) -> list[dict[str, bytes]]:
+        start.wait()
+        return [answers(batches[(k + j) % 2]) for j in range(4)]
+
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        results = list(pool.map(work, range(2)))
+    for k, got in enumerate(results):
+        for j, one in enumerate(got):
+            assert one == expected[(k + j) % 2]
+
+
+def _answers_in_child(batch: Ragged, queue) -> None:
+    queue.put(answers(batch))
+
+
+@pytest.mark.skipif("fork" not in multiprocessing.get_all_start_methods(), reason="no fork here")
+def test_a_forked_process_gets_the_same_answers():
+    # GNU OpenMP cannot run in a child forked after it was used; the child must still answer
+    batch = mixed_batch(41)
+    expected = answers(batch)  # the parallel kernel has run in this process
+    context = multiprocessing.get_context("fork")
+    queue = context.Queue()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)  # fork of a multi-threaded process
+        child = context.Process(target=_answers_in_child, args=(batch, queue))
+        child.start()
+    child.join(120)
+    assert child.exitcode == 0
+    assert queue.get(timeout=10) == expected

@@ -18,12 +18,14 @@ def line(x, width=None) -> str | None:
 
 
 def reference(x: list, width: int | None = None) -> str:
-    """Plain Python: bin means (element i in bin floor(i * width / n)), then 8 equal levels."""
+    """Plain Python: bin means (element i in bin floor(i * width / n)) or stretching, then 8 levels."""
     n = len(x)
     if n == 0:
         return ""
     if width is None:
         shown = list(x)
+    elif width > n:  # stretched: bin k shows element floor(k * n / width)
+        shown = [x[k * n // width] for k in range(width)]
     else:
         sums, counts = [0.0] * width, [0] * width
         for i, v in enumerate(x):
@@ -81,7 +83,8 @@ def test_hand_checked_lines(x, expected):
         ([1, 2, 3, 4, 5, 6], 1, "▄"),  # one bin: a single (constant) value
         ([1, NAN, NAN, 4], 2, "▁█"),  # a bin's mean uses its present values only
         ([1, 2, NAN, NAN, 5, 6], 3, "▁ █"),  # a bin with no present value is a space
-        ([1, 2], 4, "▁ █ "),  # wider than the series: bins 1 and 3 hold no element
+        ([1, 2], 4, "▁▁██"),  # wider than the series: stretched, bin k shows element k * 2 // 4
+        ([1, NAN, 3], 6, "▁▁  ██"),  # stretched, the gap too
         ([], 5, ""),
     ],
 )

@@ -32,6 +32,13 @@ SETTINGS = {
     ),
     "segments": ("penalty := 'mbic'", {"model": "mean", "penalty": "mbic", "min_size": 2}),
 }
+SETTINGS.update(
+    {
+        "harmonic_smooth": ("harmonics := 2, period := 7", {"harmonics": 2, "period": 7}),
+        "harmonic_profile": ("6, harmonics := 2", {"period": 6, "harmonics": 2}),
+        "sparkline": ("width := 12", {"width": 12}),
+    }
+)
 #: Functions whose *_agg form answers in the time column's terms, so it differs from the list form.
 TIME_ANSWERS = {"change_points", "segments"}
 ARROW_PARAM_TYPES = {"DOUBLE": pa.float64(), "VARCHAR": pa.string(), "BOOLEAN": pa.bool_()}
@@ -130,12 +137,23 @@ def test_registry_example_runs(con, fn):
     "values", ["NULL", "[]::DOUBLE[]", "[1.0]", "[NULL, NULL, NULL]::DOUBLE[]", "[2, 2, 2, 2, 2, 2]"]
 )
 def test_rows_without_support_are_null_and_the_query_goes_on(con, fn, values):
+    sql_args, _ = SETTINGS[fn.name]
+    extra = f", {sql_args}" if sql_args else ""
     rows = con.execute(
-        f"SELECT {fn.name}(x) FROM (VALUES ({values}), ([1, 5, 2, 8, 3, 9, 4, 7, 1, 6, 2, 8])) v(x)"
+        f"SELECT {fn.name}(x{extra}) FROM (VALUES ({values}), ([1, 5, 2, 8, 3, 9, 4, 7, 1, 6, 2, 8])) v(x)"
     ).fetchall()
     if fn.name in TIME_ANSWERS and values in ("[1.0]", "[2, 2, 2, 2, 2, 2]"):
         # too short to split, or constant: a real answer, "no change"
         assert len(rows[0][0]) == (0 if fn.name == "change_points" else 1)
+    elif fn.family == "smoothing" and values == "[2, 2, 2, 2, 2, 2]":
+        # a constant series is smooth already: its curve and its cycle are that constant
+        assert rows[0][0] and all(v == pytest.approx(2.0, rel=1e-12) for v in rows[0][0])
+    elif fn.name == "sparkline" and values != "NULL":
+        # every list has a picture (stretched to width 12): '' when empty, spaces for NULLs,
+        # the middle block when constant
+        assert rows[0][0] == {"[]::DOUBLE[]": "", "[1.0]": "▄" * 12, "[2, 2, 2, 2, 2, 2]": "▄" * 12}.get(
+            values, " " * 12
+        )
     else:
         assert rows[0] == (None,)
     assert rows[1][0] is not None

@@ -25,7 +25,7 @@ from tsql import batch as arrow_batch
 from tsql.kernels.ragged import Ragged, RaggedRecords
 from tsql.registry import FUNCTIONS, Function, Param
 
-_ARROW_TYPES = {"DOUBLE": pa.float64(), "INTEGER": pa.int32(), "BIGINT": pa.int64()}
+_ARROW_TYPES = {"DOUBLE": pa.float64(), "INTEGER": pa.int32(), "BIGINT": pa.int64(), "VARCHAR": pa.string()}
 
 
 def connect(
@@ -199,6 +199,8 @@ class _Converter:
             return arrow_batch.to_arrow_list(Ragged(result.values, result.offsets, rows), self.element)
         if self.fields:
             return arrow_batch.to_arrow_struct(result, self.fields, valid)
+        if pa.types.is_string(self.element):  # a list of str, None = NULL
+            return pa.array([r if ok else None for r, ok in zip(result, valid)], type=pa.string())
         return arrow_batch.to_arrow_scalar(result, valid)
 
 

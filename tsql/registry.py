@@ -276,6 +276,63 @@ FUNCTIONS += (
     ),
 )
 
+FUNCTIONS += (
+    Function(
+        name="harmonic_smooth",
+        family="smoothing",
+        returns="DOUBLE[]",
+        kernel_path="smoothing:harmonic_smooth",
+        doc="Least-squares fit of a mean, a trend and the first harmonics: the smooth curve, same length.",
+        example="SELECT harmonic_smooth([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], harmonics := 1, period := 4) AS smooth;",
+        null_rows="NULL or empty list, or fewer present values than 2 + 2 * harmonics",
+        params=(
+            Param("harmonics", default="3", minimum=1, whole=True, help="number of cosine/sine pairs"),
+            Param(
+                "period",
+                default="NULL",
+                none_ok=True,
+                minimum=1e-9,
+                help="period of the harmonics in samples (default: the record length)",
+            ),
+        ),
+        aggregate=False,
+    ),
+    Function(
+        name="harmonic_profile",
+        family="smoothing",
+        returns="DOUBLE[]",
+        kernel_path="smoothing:harmonic_profile",
+        doc="One cycle of the fitted pattern (level plus harmonics), phase 0 = the first element's phase.",
+        example="SELECT harmonic_profile([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], 4, harmonics := 1) AS cycle;",
+        null_rows="NULL or empty list, too few present values, or a pattern the data cannot determine",
+        params=(
+            Param("period", minimum=2, help="cycle length in samples; the profile has round(period) values"),
+            Param("harmonics", default="3", minimum=1, whole=True, help="number of cosine/sine pairs"),
+        ),
+        aggregate=False,
+    ),
+    Function(
+        name="sparkline",
+        family="look",
+        returns="VARCHAR",
+        kernel_path="look:sparkline",
+        doc="A one-line picture of a series in block characters; NULL gaps are spaces.",
+        example="SELECT sparkline([1, 2, 4, 8, 4, 2, 1, NULL, 1, 3]) AS picture;",
+        null_rows="NULL list (an empty list gives '')",
+        params=(
+            Param(
+                "width",
+                default="NULL",
+                none_ok=True,
+                minimum=1,
+                whole=True,
+                help="resample to this many characters (bin means)",
+            ),
+        ),
+        aggregate=False,
+    ),
+)
+
 BY_NAME: dict[str, Function] = {f.name: f for f in FUNCTIONS}
 
 

@@ -32,7 +32,8 @@ def sparkline(batch: Ragged, width: int | None = None) -> list[str | None]:
         Number of characters (>= 1). ``None`` draws one character per element. Otherwise the
         positions ``0..n-1`` are cut into ``width`` equal bins (element ``i`` falls in bin
         ``floor(i * width / n)``) and each bin shows the mean of its present values; a bin with
-        none is a space. With ``width > n`` some bins hold no element and show as spaces.
+        none is a space. With ``width > n`` the series is stretched instead: bin ``k`` shows
+        element ``floor(k * n / width)``.
 
     Returns
     -------
@@ -80,6 +81,11 @@ def _resample(batch: Ragged, width: int) -> Ragged:
     counts = np.bincount(bins, weights=present.astype(np.float64), minlength=offsets[-1])
     with np.errstate(invalid="ignore", divide="ignore"):
         means = np.where(counts > 0, sums / counts, np.nan)
+    short = np.flatnonzero(nonempty & (lengths < width))
+    if len(short):  # fewer elements than characters: stretch, each bin shows its nearest element
+        k = np.arange(width)
+        source = batch.offsets[short][:, None] + (k * lengths[short][:, None]) // width
+        means[(offsets[short][:, None] + k).ravel()] = batch.values[source.ravel()]
     return Ragged(means, offsets)
 
 
