@@ -30,8 +30,15 @@ The models and the search are in one module on purpose: numba's on-disk cache
 checks only the source file of the function it loads, so a compiled search
 would keep running the old code of a cost edited in another file.
 
-Rows are independent: each is read, segmented and written by itself, in
-order, so an answer never depends on the other rows of the batch.
+Rows are independent: each is read, segmented and written by itself, with
+work buffers of its own and an output slot fixed by its position in the batch
+(a row of ``n`` values has at most ``n`` segments), so the rows run in parallel
+(``numba.prange``) and an answer depends neither on the other rows of the batch
+nor on the number of threads or the order in which they take the rows. Calls
+from several Python threads take turns (a lock: numba releases the GIL inside a
+parallel region, and its 'workqueue' threading layer must not be entered twice
+at once). In a process forked after numba's OpenMP layer was loaded, where
+OpenMP cannot run, the same rows run on the calling thread.
 
 Rules for a row (``m`` = number of present, non-NaN values):
 
@@ -65,10 +72,13 @@ Hoare, C. A. R. (1961). Algorithm 65: Find. *Comm. ACM* 4(7), 321–322.
 from __future__ import annotations
 
 import math
+import os
+import threading
 from dataclasses import dataclass
 
+import numba
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 from tsql.kernels.ragged import Ragged, RaggedRecords
 
@@ -556,6 +566,121 @@ def _segment_stats(y, p, lo, hi) -> tuple[float, float]:
 
 
 @njit(cache=True, error_model="numpy")
+def _segment_row(
+    r,
+    values,
+    offsets,
+    valid,
+    code,
+    n_stats,
+    params_per_change,
+    penalty_kind,
+    penalty_value,
+    min_size,
+    out_first,
+    out_last,
+    out_mean,
+    out_slope,
+    counts,
+    row_ok,
+) -> None:
+    """Segment row ``r``: its segments go to ``out_*[offsets[r]:]``, their number to ``counts[r]``.
+
+    A row of ``n`` values has at most ``n`` segments, so the rows' output slots do
+    not overlap. ``row_ok[r]`` is False when the row has no answer (NULL, no present
+    value, or an infinite one). Every work buffer is the row's own, so the answer
+    does not depend on what else runs, before, after or at the same time.
+    """
+    counts[r] = 0
+    row_ok[r] = False
+    if not valid[r]:
+        return
+    lo = offsets[r]
+    n = offsets[r + 1] - lo
+    y = np.empty(n)
+    p = np.empty(n, dtype=np.int64)
+    m = 0
+    finite = True
+    for i in range(n):
+        v = values[lo + i]
+        if not np.isnan(v):
+            finite = finite and np.isfinite(v)
+            y[m] = v
+            p[m] = i
+            m += 1
+    if m == 0 or not finite:
+        return
+    row_ok[r] = True
+    seg = np.empty(m + 1, dtype=np.int64)
+    n_seg = 1
+    seg[0] = 0
+    lowest = y[0]
+    highest = y[0]
+    for i in range(m):
+        lowest = min(lowest, y[i])
+        highest = max(highest, y[i])
+    if m >= 2 * min_size and lowest < highest:
+        work = np.empty(2 * m + 2)
+        stats = np.empty((MAX_STATS, m + 1))
+        if _prepare(code, y, p, m, stats, work):
+            log_m = math.log(m)
+            if penalty_kind == _BIC:
+                beta = params_per_change * log_m
+            elif penalty_kind == _MBIC:
+                beta = 3.0 * log_m
+            else:
+                beta = penalty_value
+            use_length_term = penalty_kind == _MBIC
+            length_term = np.empty(m + 1)
+            if use_length_term:
+                length_term[0] = 0.0
+                for k in range(1, m + 1):
+                    length_term[k] = math.log(k) - log_m
+            F = np.empty(m + 1)
+            last = np.empty(m + 1, dtype=np.int64)
+            _pelt(
+                code,
+                n_stats,
+                stats,
+                m,
+                beta,
+                length_term,
+                use_length_term,
+                min_size,
+                F,
+                last,
+                np.empty(m + 1),
+                np.empty((MAX_STATS, m + 1)),
+                np.empty(m + 1),
+                np.empty(m + 1),
+                np.empty(m + 1),
+            )
+            # walk back from the end: the starts of the optimum's segments, last first
+            n_seg = 0
+            t = m
+            while t > 0:
+                t = last[t]
+                seg[n_seg] = t
+                n_seg += 1
+            for k in range(n_seg // 2):
+                a = seg[k]
+                seg[k] = seg[n_seg - 1 - k]
+                seg[n_seg - 1 - k] = a
+    for k in range(n_seg):
+        a = seg[k]
+        b = seg[k + 1] if k + 1 < n_seg else m
+        w = lo + k
+        out_first[w] = 1 if k == 0 else p[a] + 1
+        out_last[w] = p[b] if k + 1 < n_seg else n
+        out_mean[w], out_slope[w] = _segment_stats(y, p, a, b)
+    counts[r] = n_seg
+
+
+# numba releases the GIL around a parallel region (nogil or not), so two Python threads
+# (DuckDB runs a UDF from several of its own) could enter the threading layer at once, which
+# its 'workqueue' layer (used where neither TBB nor OpenMP loads) answers by aborting the
+# process. Calls therefore go through _KERNEL_LOCK (see _run).
+@njit(cache=True, error_model="numpy", parallel=True)
 def _segment_rows(
     values,
     offsets,
@@ -573,100 +698,93 @@ def _segment_rows(
     counts,
     row_ok,
 ) -> None:
-    """Segment every row; write its segments one after another into ``out_*``."""
-    n_rows = len(offsets) - 1
-    cap = 1
-    for r in range(n_rows):
-        cap = max(cap, offsets[r + 1] - offsets[r])
-    y = np.empty(cap)
-    p = np.empty(cap, dtype=np.int64)
-    work = np.empty(2 * cap + 2)
-    stats = np.empty((MAX_STATS, cap + 1))
-    cand = np.empty((MAX_STATS, cap + 1))
-    F = np.empty(cap + 1)
-    last = np.empty(cap + 1, dtype=np.int64)
-    starts = np.empty(cap + 1)
-    f_start = np.empty(cap + 1)
-    until = np.empty(cap + 1)
-    vals = np.empty(cap + 1)
-    length_term = np.empty(cap + 1)
-    seg = np.empty(cap + 1, dtype=np.int64)
-    w = 0
-    for r in range(n_rows):
-        lo = offsets[r]
-        n = offsets[r + 1] - lo
-        counts[r] = 0
-        row_ok[r] = False
-        if not valid[r]:
-            continue
-        m = 0
-        finite = True
-        for i in range(n):
-            v = values[lo + i]
-            if not np.isnan(v):
-                finite = finite and np.isfinite(v)
-                y[m] = v
-                p[m] = i
-                m += 1
-        if m == 0 or not finite:
-            continue
-        row_ok[r] = True
-        n_seg = 1
-        seg[0] = 0
-        lowest = y[0]
-        highest = y[0]
-        for i in range(m):
-            lowest = min(lowest, y[i])
-            highest = max(highest, y[i])
-        if m >= 2 * min_size and lowest < highest and _prepare(code, y, p, m, stats, work):
-            log_m = math.log(m)
-            if penalty_kind == _BIC:
-                beta = params_per_change * log_m
-            elif penalty_kind == _MBIC:
-                beta = 3.0 * log_m
-            else:
-                beta = penalty_value
-            use_length_term = penalty_kind == _MBIC
-            if use_length_term:
-                length_term[0] = 0.0
-                for k in range(1, m + 1):
-                    length_term[k] = math.log(k) - log_m
-            _pelt(
-                code,
-                n_stats,
-                stats,
-                m,
-                beta,
-                length_term,
-                use_length_term,
-                min_size,
-                F,
-                last,
-                starts,
-                cand,
-                f_start,
-                until,
-                vals,
-            )
-            # walk back from the end: the starts of the optimum's segments, last first
-            n_seg = 0
-            t = m
-            while t > 0:
-                t = last[t]
-                seg[n_seg] = t
-                n_seg += 1
-            for k in range(n_seg // 2):
-                a = seg[k]
-                seg[k] = seg[n_seg - 1 - k]
-                seg[n_seg - 1 - k] = a
-        for k in range(n_seg):
-            a = seg[k]
-            b = seg[k + 1] if k + 1 < n_seg else m
-            out_first[w] = 1 if k == 0 else p[a] + 1
-            out_last[w] = p[b] if k + 1 < n_seg else n
-            out_mean[w], out_slope[w] = _segment_stats(y, p, a, b)
-            w += 1
-        counts[r] = n_seg
+    """Segment every row (see :func:`_segment_row`), the rows in parallel."""
+    for r in prange(len(offsets) - 1):
+        _segment_row(
+            r,
+            values,
+            offsets,
+            valid,
+            code,
+            n_stats,
+            params_per_change,
+            penalty_kind,
+            penalty_value,
+            min_size,
+            out_first,
+            out_last,
+            out_mean,
+            out_slope,
+            counts,
+            row_ok,
+        )
+
+
+@njit(cache=True, error_model="numpy")
+def _segment_rows_in_order(
+    values,
+    offsets,
+    valid,
+    code,
+    n_stats,
+    params_per_change,
+    penalty_kind,
+    penalty_value,
+    min_size,
+    out_first,
+    out_last,
+    out_mean,
+    out_slope,
+    counts,
+    row_ok,
+) -> None:
+    """:func:`_segment_rows` on this thread alone, for where numba's parallel layer cannot run."""
+    for r in range(len(offsets) - 1):
+        _segment_row(
+            r,
+            values,
+            offsets,
+            valid,
+            code,
+            n_stats,
+            params_per_change,
+            penalty_kind,
+            penalty_value,
+            min_size,
+            out_first,
+            out_last,
+            out_mean,
+            out_slope,
+            counts,
+            row_ok,
+        )
+
+
+def _openmp_layer_loaded() -> bool:
+    try:
+        return numba.threading_layer() == "omp"
+    except ValueError:  # no parallel function has run in this process yet
+        return False
+
+
+#: True in a process forked from one that had loaded numba's OpenMP threading layer: GNU
+#: OpenMP cannot run after such a fork (numba terminates the process), so there the rows
+#: run on the calling thread. Inherited by further forks.
+_FORKED_AFTER_OPENMP = False
+
+#: one batch at a time: calls from several Python threads take turns (see _segment_rows);
+#: the kernel already keeps every core busy
+_KERNEL_LOCK = threading.Lock()
+
+
+def _after_fork_in_child() -> None:
+    global _FORKED_AFTER_OPENMP, _KERNEL_LOCK
+    _FORKED_AFTER_OPENMP = _FORKED_AFTER_OPENMP or _openmp_layer_loaded()
+    _KERNEL_LOCK = threading.Lock()  # another thread of the parent may have held it
+
+
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(after_in_child=_after_fork_in_child)
 
 
 # --------------------------------------------------------------------------- public
@@ -674,7 +792,13 @@ def _segment_rows(
 
 def _run(
     batch: Ragged, model: str, penalty: str | float, min_size: int
-) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray]:
+) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray]:
+    """Validate the arguments and segment the batch.
+
+    Returns the segment columns as the kernel left them (row r's ``counts[r]``
+    segments from ``slots[r]`` on, with unused space between rows), ``counts``,
+    ``slots`` and the rows' validity.
+    """
     if model not in MODELS:
         raise ValueError(f"model must be one of {sorted(MODELS)}, not {model!r}")
     spec = MODELS[model]
@@ -693,7 +817,8 @@ def _run(
     offsets = np.ascontiguousarray(batch.offsets, dtype=np.int64)
     valid = np.ascontiguousarray(batch.row_valid, dtype=np.bool_)
     n_rows = batch.n_rows
-    capacity = len(values) + n_rows
+    # row r's slot starts at offsets[r] and a row of n values has at most n segments
+    capacity = len(values)
     fields = {
         "first": np.empty(capacity, dtype=np.int64),
         "last": np.empty(capacity, dtype=np.int64),
@@ -702,25 +827,37 @@ def _run(
     }
     counts = np.empty(n_rows, dtype=np.int64)
     row_ok = np.empty(n_rows, dtype=np.bool_)
-    _segment_rows(
-        values,
-        offsets,
-        valid,
-        spec.code,
-        spec.n_stats,
-        float(spec.params_per_change),
-        kind,
-        value,
-        int(min_size),
-        fields["first"],
-        fields["last"],
-        fields["mean"],
-        fields["slope"],
-        counts,
-        row_ok,
-    )
-    total = int(counts.sum())
-    return {name: column[:total] for name, column in fields.items()}, counts, row_ok
+    kernel = _segment_rows_in_order if _FORKED_AFTER_OPENMP else _segment_rows
+    with _KERNEL_LOCK:
+        kernel(
+            values,
+            offsets,
+            valid,
+            spec.code,
+            spec.n_stats,
+            float(spec.params_per_change),
+            kind,
+            value,
+            int(min_size),
+            fields["first"],
+            fields["last"],
+            fields["mean"],
+            fields["slope"],
+            counts,
+            row_ok,
+        )
+    return fields, counts, offsets[:-1], row_ok
+
+
+def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Where each of ``counts[r]`` items starting at ``slots[r]`` lands when packed, and where it is now.
+
+    Returns the packed offsets (``n_rows + 1``) and the source index of every packed item.
+    """
+    packed = np.zeros(len(counts) + 1, dtype=np.int64)
+    np.cumsum(counts, out=packed[1:])
+    source = np.arange(packed[-1], dtype=np.int64) + np.repeat(slots - packed[:-1], counts)
+    return packed, source
 
 
 def segments(batch: Ragged, model: str = "mean", penalty: str | float = "bic", min_size: int = 2) -> RaggedRecords:
@@ -800,10 +937,9 @@ def segments(batch: Ragged, model: str = "mean", penalty: str | float = "bic", m
     >>> s.row(0)["first"], s.row(0)["last"]
     (array([1, 5]), array([4, 8]))
     """
-    fields, counts, row_ok = _run(batch, model, penalty, min_size)
-    offsets = np.zeros(batch.n_rows + 1, dtype=np.int64)
-    np.cumsum(counts, out=offsets[1:])
-    return RaggedRecords(fields, offsets, row_ok)
+    fields, counts, slots, row_ok = _run(batch, model, penalty, min_size)
+    offsets, source = _gather(counts, slots)
+    return RaggedRecords({name: column[source] for name, column in fields.items()}, offsets, row_ok)
 
 
 def change_points(batch: Ragged, model: str = "mean", penalty: str | float = "bic", min_size: int = 2) -> Ragged:
@@ -824,11 +960,7 @@ def change_points(batch: Ragged, model: str = "mean", penalty: str | float = "bi
     >>> change_points(Ragged.from_list([[0.0, 0.1, -0.1, 0.0, 5.0, 5.1, 4.9, 5.0]])).values
     array([5.])
     """
-    fields, counts, row_ok = _run(batch, model, penalty, min_size)
-    keep = np.ones(len(fields["first"]), dtype=bool)
-    seg_offsets = np.zeros(batch.n_rows + 1, dtype=np.int64)
-    np.cumsum(counts, out=seg_offsets[1:])
-    keep[seg_offsets[:-1][counts > 0]] = False
-    offsets = np.zeros(batch.n_rows + 1, dtype=np.int64)
-    np.cumsum(np.maximum(counts - 1, 0), out=offsets[1:])
-    return Ragged(fields["first"][keep].astype(np.float64), offsets, row_ok)
+    fields, counts, slots, row_ok = _run(batch, model, penalty, min_size)
+    # every segment but a row's first starts a change
+    offsets, source = _gather(np.maximum(counts - 1, 0), slots + 1)
+    return Ragged(fields["first"][source].astype(np.float64), offsets, row_ok)
