@@ -276,21 +276,27 @@ def _second_difference_sigma(y: np.ndarray, p: np.ndarray, m: int, work: np.ndar
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare_mean(y, p, m, stats, work) -> bool:
-    sigma = _first_difference_sigma(y, m, work)
-    if not sigma > 0.0:
-        return False
-    centre = _std(y, m)[0]
+def _standardised_sums(y, m, centre, scale, stats) -> None:
+    """Cumulative sums of z and z^2, z = (y - centre) / scale, into stats[0] and stats[1]."""
     s1 = 0.0
     s2 = 0.0
     stats[0, 0] = 0.0
     stats[1, 0] = 0.0
     for i in range(m):
-        z = (y[i] - centre) / sigma
+        z = (y[i] - centre) / scale
         s1 += z
         s2 += z * z
         stats[0, i + 1] = s1
         stats[1, i + 1] = s2
+
+
+@njit(cache=True, error_model="numpy")
+def _prepare_mean(y, p, m, stats, work) -> bool:
+    sigma = _first_difference_sigma(y, m, work)
+    if not sigma > 0.0:
+        return False
+    centre = _std(y, m)[0]
+    _standardised_sums(y, m, centre, sigma, stats)
     return True
 
 
@@ -315,16 +321,7 @@ def _prepare_meanvar(y, p, m, stats, work) -> bool:
     centre, sd = _std(y, m)
     if not sd > _rounding(y, m):
         return False
-    s1 = 0.0
-    s2 = 0.0
-    stats[0, 0] = 0.0
-    stats[1, 0] = 0.0
-    for i in range(m):
-        z = (y[i] - centre) / sd
-        s1 += z
-        s2 += z * z
-        stats[0, i + 1] = s1
-        stats[1, i + 1] = s2
+    _standardised_sums(y, m, centre, sd, stats)
     return True
 
 
