@@ -81,7 +81,7 @@ def make_udf(fn: Function) -> Callable[..., pa.Array]:
     Plain parameters are usually the same on every row; rows are grouped by
     their parameter values so the kernel always sees one setting per call.
     """
-    convert = _result_converter(fn.returns)
+    convert = _Converter(fn.returns)
     n_series = len(fn.series)
 
     def udf(*columns: Any) -> pa.Array:
@@ -93,9 +93,12 @@ def make_udf(fn: Function) -> Callable[..., pa.Array]:
         if len(distinct) <= 1:
             key = next(iter(distinct), ())
             return _run(fn, convert, series, key, n_rows)
+        groups: dict[tuple, list[int]] = {key: [] for key in distinct}
+        for i, key in enumerate(keys):
+            groups[key].append(i)
         parts, order = [], []
-        for key in distinct:
-            rows = np.fromiter((i for i, k in enumerate(keys) if k == key), dtype=np.int64)
+        for key, members in groups.items():
+            rows = np.asarray(members, dtype=np.int64)
             subset = [s.take(pa.array(rows)) for s in series]
             parts.append(_run(fn, convert, subset, key, len(rows)))
             order.append(rows)
@@ -202,7 +205,3 @@ class _Converter:
         if pa.types.is_string(self.element):  # a list of str, None = NULL
             return pa.array([r if ok else None for r, ok in zip(result, valid)], type=pa.string())
         return arrow_batch.to_arrow_scalar(result, valid)
-
-
-def _result_converter(sql_type: str) -> _Converter:
-    return _Converter(sql_type)

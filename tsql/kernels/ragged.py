@@ -74,12 +74,12 @@ class Ragged:
     def row(self, i: int) -> np.ndarray:
         return self.values[self.offsets[i] : self.offsets[i + 1]]
 
-    def rows(self) -> Iterator[np.ndarray]:
-        for i in range(self.n_rows):
-            yield self.row(i)
-
     def segment_sum(self, x: np.ndarray) -> np.ndarray:
-        """Sum of a flat per-element array over each row."""
+        """Sum of a flat per-element array over each row.
+
+        The summation order differs from a bucket matrix's ``sum(axis=1)``: use it for exact
+        quantities (counts), not for sums a row's answer must reproduce bit for bit.
+        """
         return np.bincount(self.row_ids, weights=x, minlength=self.n_rows)
 
     def by_length(self) -> Iterator[tuple[int, np.ndarray, np.ndarray]]:
@@ -109,29 +109,6 @@ class Ragged:
 def full(n_rows: int, fill: float = np.nan) -> np.ndarray:
     """A per-row float result, NaN (no answer) unless filled."""
     return np.full(n_rows, fill, dtype=np.float64)
-
-
-def linear_detrend(batch: Ragged) -> np.ndarray:
-    """Residuals of each row's least-squares line through its present values.
-
-    Returned flat, aligned with ``batch.values``; missing elements stay NaN.
-    A row with fewer than two present values is only centred (or left NaN).
-    """
-    present = batch.present
-    x = np.where(present, batch.values, 0.0)
-    t = np.where(present, batch.positions.astype(np.float64), 0.0)
-    w = present.astype(np.float64)
-    n = batch.segment_sum(w)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        t_mean = batch.segment_sum(t) / n
-        x_mean = batch.segment_sum(x) / n
-        tc = np.where(present, t - t_mean[batch.row_ids], 0.0)
-        xc = np.where(present, x - x_mean[batch.row_ids], 0.0)
-        stt = batch.segment_sum(tc * tc)
-        slope = np.where(stt > 0, batch.segment_sum(tc * xc) / np.where(stt > 0, stt, 1.0), 0.0)
-    residual = xc - slope[batch.row_ids] * tc
-    residual[~present] = np.nan
-    return residual
 
 
 @dataclass(frozen=True, eq=False)
