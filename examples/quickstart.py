@@ -38,7 +38,7 @@ def invented_sales() -> pa.Table:
 
 QUERY = """
 SELECT shop, planted,
-       round(s.period, 1)        AS cycle_months,
+       s.period                  AS cycle,
        round(s.strength, 2)      AS strength,
        s.p_value < 0.01          AS seasonal,
        round(t.slope, 1)         AS loaves_per_month,

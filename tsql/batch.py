@@ -110,5 +110,8 @@ def _typed(values: np.ndarray, missing: np.ndarray, arrow_type: pa.DataType) -> 
 
 
 def scalar_parameter(arr: ArrowInput) -> Sequence:
-    """A per-row parameter column as a Python list (NULL = None)."""
-    return _single(arr).to_pylist()
+    """A per-row parameter column as a Python list (NULL = None; a STRUCT becomes a tuple)."""
+    arr = _single(arr)
+    if pa.types.is_struct(arr.type):
+        return [None if r is None else tuple(r.values()) for r in arr.to_pylist()]
+    return arr.to_pylist()

@@ -42,8 +42,12 @@ def register(con: duckdb.DuckDBPyConnection) -> duckdb.DuckDBPyConnection:
     The Python UDFs are visible from every cursor of the connection; the TEMP
     macros (the public names) only on the connection or cursor passed here.
     """
+    from tsql import timed  # it builds on this module
+
     for fn in FUNCTIONS:
-        _create_udf(con, fn)
+        if not fn.special:
+            _create_udf(con, fn)
+    timed.create_udfs(con)
     for statement in sql_statements():
         con.execute(statement)
     return con
@@ -66,8 +70,13 @@ def _split_statements(text: str) -> list[str]:
 
 def _create_udf(con: duckdb.DuckDBPyConnection, fn: Function) -> None:
     param_types = ["DOUBLE[]"] * len(fn.series) + [p.sql_type for p in fn.params]
+    create_udf(con, fn.udf_name, make_udf(fn), param_types, fn.returns)
+
+
+def create_udf(con: duckdb.DuckDBPyConnection, name: str, udf: Callable, param_types: list[str], returns: str) -> None:
+    """Create one vectorised Arrow UDF; one that exists already is left as it is."""
     try:
-        con.create_function(fn.udf_name, make_udf(fn), param_types, fn.returns, type="arrow", null_handling="special")
+        con.create_function(name, udf, param_types, returns, type="arrow", null_handling="special")
     except (duckdb.NotImplementedException, duckdb.CatalogException) as error:
         # UDFs belong to the whole connection: a second register() (or a cursor's) finds them there.
         if "already" not in str(error):
@@ -86,31 +95,45 @@ def make_udf(fn: Function) -> Callable[..., pa.Array]:
 
     def udf(*columns: Any) -> pa.Array:
         series = [arrow_batch._single(c) for c in columns[:n_series]]
-        settings = [arrow_batch.scalar_parameter(c) for c in columns[n_series:]]
-        n_rows = len(series[0])
-        keys = list(zip(*settings)) if settings else [()] * n_rows
-        distinct = dict.fromkeys(keys)
-        if len(distinct) <= 1:
-            key = next(iter(distinct), ())
-            return _run(fn, convert, series, key, n_rows)
-        groups: dict[tuple, list[int]] = {key: [] for key in distinct}
-        for i, key in enumerate(keys):
-            groups[key].append(i)
-        parts, order = [], []
-        for key, members in groups.items():
-            rows = np.asarray(members, dtype=np.int64)
-            subset = [s.take(pa.array(rows)) for s in series]
-            parts.append(_run(fn, convert, subset, key, len(rows)))
-            order.append(rows)
-        joined = pa.concat_arrays(parts)
-        return joined.take(pa.array(np.argsort(np.concatenate(order), kind="stable")))
 
-    udf.__name__ = fn.udf_name
-    udf.__doc__ = fn.doc
-    # DuckDB checks the arity against the declared parameter types.
-    names = list(fn.series) + [p.name for p in fn.params]
-    udf.__signature__ = inspect.Signature([inspect.Parameter(n, inspect.Parameter.POSITIONAL_ONLY) for n in names])
+        def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
+            subset = series if rows is None else [s.take(pa.array(rows)) for s in series]
+            return _run(fn, convert, subset, key, len(series[0]) if rows is None else len(rows))
+
+        return by_settings(len(series[0]), columns[n_series:], run)
+
+    return with_arity(udf, fn.udf_name, fn.doc, list(fn.series) + [p.name for p in fn.params])
+
+
+def with_arity(udf: Callable, name: str, doc: str, argument_names: list[str]) -> Callable:
+    """Name ``udf`` and give it a signature of exactly these arguments (DuckDB checks the arity)."""
+    udf.__name__ = name
+    udf.__doc__ = doc
+    positional = inspect.Parameter.POSITIONAL_ONLY
+    udf.__signature__ = inspect.Signature([inspect.Parameter(n, positional) for n in argument_names])
     return udf
+
+
+def by_settings(n_rows: int, setting_columns: Any, run: Callable[[np.ndarray | None, tuple], pa.Array]) -> pa.Array:
+    """Call ``run(rows, settings)`` once per distinct tuple of plain arguments and reassemble the rows.
+
+    Plain parameters are usually the same on every row (``rows`` is then None: all of them).
+    """
+    settings = [arrow_batch.scalar_parameter(c) for c in setting_columns]
+    keys = list(zip(*settings)) if settings else [()] * n_rows
+    distinct = dict.fromkeys(keys)
+    if len(distinct) <= 1:
+        return run(None, next(iter(distinct), ()))
+    groups: dict[tuple, list[int]] = {key: [] for key in distinct}
+    for i, key in enumerate(keys):
+        groups[key].append(i)
+    parts, order = [], []
+    for key, members in groups.items():
+        rows = np.asarray(members, dtype=np.int64)
+        parts.append(run(rows, key))
+        order.append(rows)
+    joined = pa.concat_arrays(parts)
+    return joined.take(pa.array(np.argsort(np.concatenate(order), kind="stable")))
 
 
 def _run(fn: Function, convert: Callable, series: list[pa.Array], key: tuple, n_rows: int) -> pa.Array:

@@ -21,6 +21,7 @@ class Param:
     ``whole`` demands an integer value; ``minimum`` a lower bound; ``none_ok``
     lets NULL mean "not set" (otherwise a NULL argument gives a NULL row);
     ``choices`` lists the allowed words, and ``number_ok`` also admits a number.
+    ``span`` marks a length of time: in the ``*_agg`` form it may also be an INTERVAL.
     """
 
     name: str
@@ -31,6 +32,7 @@ class Param:
     none_ok: bool = False
     choices: tuple[str, ...] = ()
     number_ok: bool = False
+    span: bool = False
     help: str = ""
 
 
@@ -53,6 +55,12 @@ class Function:
     """Checks between two parameters: (smaller, larger, message)."""
     check: Callable[[dict], str | None] | None = None
     """A last check over all arguments; returns what is wrong, or None."""
+    time_answer: str = "same"
+    """How the ``*_agg`` form answers in time terms: 'same' (as the list form), 'period' (the
+    result, or its ``period`` field, becomes a span of time), 'starts' (positions become the times
+    where segments start), 'segments' (first/last become times), 'series' (a list of (time, value))."""
+    special: bool = False
+    """Registered by :mod:`tsql.timed` rather than the generic binding."""
 
     @property
     def kernel(self) -> Callable:
@@ -72,15 +80,58 @@ class Function:
 
     @property
     def agg_signature(self) -> str:
-        args = ["value", "time"] + [p.name if p.default is None else f"{p.name} := {p.default}" for p in self.params]
+        params = self.params + GRID_PARAMS
+        args = ["value", "time"] + [p.name if p.default is None else f"{p.name} := {p.default}" for p in params]
         return f"{self.name}_agg({', '.join(args)})"
+
+    @property
+    def agg_returns(self) -> str:
+        if self.time_answer == "period":
+            return self.returns.replace("period DOUBLE", f"period {SPAN}") if "STRUCT" in self.returns else SPAN
+        if self.time_answer == "starts":
+            return "time[]"
+        if self.time_answer == "segments":
+            return self.returns.replace("first INTEGER, last INTEGER", "first time, last time")
+        if self.time_answer == "series":
+            return f"STRUCT(time {MOMENT}, value DOUBLE)[]"
+        return self.returns
+
+
+SPAN = "UNION(span INTERVAL, number DOUBLE)"
+"""A period in time terms: an INTERVAL for DATE/TIMESTAMP times, a number for numeric times."""
+MOMENT = 'UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)'
+"""A grid time: TIMESTAMP for DATE/TIMESTAMP times, TIMESTAMPTZ for TIMESTAMPTZ, else a number."""
+FILL_CHOICES = ("null", "zero", "linear", "previous")
+GRID_PARAMS = (
+    Param(
+        "step",
+        sql_type="VARCHAR",
+        default="NULL",
+        none_ok=True,
+        help="grid step: an INTERVAL (DATE/TIMESTAMP times) or a number (default: the most common spacing)",
+    ),
+    Param(
+        "fill",
+        sql_type="VARCHAR",
+        default="'null'",
+        choices=FILL_CHOICES,
+        help="grid points without a value: 'null', 'zero' (counts), 'linear', 'previous'",
+    ),
+)
 
 
 SERIES_TOO_SHORT = "NULL list, fewer than {n} present values, or a constant series"
 
 PERIOD_PARAMS = (
-    Param("min_period", default="2", minimum=2, help="shortest period considered, in samples"),
-    Param("max_period", default="NULL", minimum=2, none_ok=True, help="longest period (default: half the record)"),
+    Param("min_period", default="2", minimum=2, span=True, help="shortest period considered, in samples"),
+    Param(
+        "max_period",
+        default="NULL",
+        minimum=2,
+        none_ok=True,
+        span=True,
+        help="longest period (default: half the record)",
+    ),
 )
 PERIOD_RELATIONS = (("min_period", "max_period", "max_period must be >= min_period"),)
 
@@ -95,6 +146,7 @@ FUNCTIONS: tuple[Function, ...] = (
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
         params=PERIOD_PARAMS,
         relations=PERIOD_RELATIONS,
+        time_answer="period",
     ),
     Function(
         name="seasonality",
@@ -106,6 +158,7 @@ FUNCTIONS: tuple[Function, ...] = (
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
         params=PERIOD_PARAMS,
         relations=PERIOD_RELATIONS,
+        time_answer="period",
     ),
     Function(
         name="autocorrelation",
@@ -262,6 +315,7 @@ FUNCTIONS += (
         null_rows=CHANGE_NULL_ROWS,
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
+        time_answer="starts",
     ),
     Function(
         name="segments",
@@ -273,6 +327,7 @@ FUNCTIONS += (
         null_rows=CHANGE_NULL_ROWS.replace("an empty list", "one segment"),
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
+        time_answer="segments",
     ),
 )
 
@@ -292,10 +347,11 @@ FUNCTIONS += (
                 default="NULL",
                 none_ok=True,
                 minimum=1e-9,
+                span=True,
                 help="period of the harmonics in samples (default: the record length)",
             ),
         ),
-        aggregate=False,
+        time_answer="series",
     ),
     Function(
         name="harmonic_profile",
@@ -306,10 +362,9 @@ FUNCTIONS += (
         example="SELECT harmonic_profile([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], 4, harmonics := 1) AS cycle;",
         null_rows="NULL or empty list, too few present values, or a pattern the data cannot determine",
         params=(
-            Param("period", minimum=2, help="cycle length in samples; the profile has round(period) values"),
+            Param("period", minimum=2, span=True, help="cycle length in samples; the profile has round(period) values"),
             Param("harmonics", default="3", minimum=1, whole=True, help="number of cosine/sine pairs"),
         ),
-        aggregate=False,
     ),
     Function(
         name="sparkline",
@@ -330,6 +385,22 @@ FUNCTIONS += (
             ),
         ),
         aggregate=False,
+    ),
+)
+
+FUNCTIONS += (
+    Function(
+        name="on_grid",
+        family="time",
+        returns="DOUBLE[]",
+        kernel_path="grid:on_grid",
+        doc="The values on the regular grid from the first to the last time; missing periods come back.",
+        example="SELECT on_grid([4, 6, 9], [DATE '2024-01-01', DATE '2024-02-01', DATE '2024-04-01']) AS monthly;",
+        null_rows="NULL list; lists of different lengths are an error",
+        series=("values", "times"),
+        params=GRID_PARAMS,
+        aggregate=False,
+        special=True,
     ),
 )
 

@@ -74,6 +74,15 @@ class Ragged:
     def row(self, i: int) -> np.ndarray:
         return self.values[self.offsets[i] : self.offsets[i + 1]]
 
+    def take(self, rows: np.ndarray) -> Ragged:
+        """The batch of the given rows, in that order."""
+        lengths = self.lengths[rows]
+        offsets = np.zeros(len(rows) + 1, dtype=np.int64)
+        np.cumsum(lengths, out=offsets[1:])
+        flat = np.repeat(self.offsets[rows] - offsets[:-1], lengths) + np.arange(offsets[-1])
+        valid = None if self.valid is None else self.valid[rows]
+        return Ragged(self.values[flat], offsets, valid)
+
     def segment_sum(self, x: np.ndarray) -> np.ndarray:
         """Sum of a flat per-element array over each row.
 

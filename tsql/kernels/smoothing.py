@@ -380,7 +380,7 @@ class _BucketFit:
         self.present = present
         # a power of two per row: scaling by it is exact and keeps sums of squares in range
         _, exponent = np.frexp(np.maximum(np.abs(lo), np.abs(hi)))
-        self.scale = np.ldexp(1.0, -exponent)
+        self.scale = np.ldexp(1.0, -np.maximum(exponent, -1020))  # subnormal rows: 2**1021 would overflow
 
     def _complete_centred(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if self.complete.all():

@@ -1,0 +1,23 @@
+-- Loaded first (the underscore sorts before letters): the other files use its helper macros.
+-- Time: put a series on its regular grid, so that a missing period is a missing value again.
+-- Every *_agg form goes through the same grid (see tsql/timed.py).
+
+-- Ticks: microseconds since 1970 for DATE and TIMESTAMP (TIMESTAMPTZ: the UTC instant,
+-- whatever the session's TimeZone), otherwise the number itself.
+CREATE OR REPLACE TEMP MACRO __tsql_tick(t) AS
+    CASE WHEN typeof(t) = 'TIMESTAMP WITH TIME ZONE' THEN epoch_us(TRY_CAST(t AS TIMESTAMPTZ))
+         ELSE COALESCE(epoch_us(TRY_CAST(t AS TIMESTAMP)), TRY_CAST(t AS DOUBLE)) END;
+
+-- A step or a length of time as the UDFs take it: an INTERVAL, a number, and the text for messages.
+CREATE OR REPLACE TEMP MACRO __tsql_span(x) AS
+    {'text': x::VARCHAR, 'interval': TRY_CAST(x AS INTERVAL), 'number': TRY_CAST(x AS DOUBLE)};
+
+-- One group's rows, unordered (the grid sorts them), and its time column's type.
+CREATE OR REPLACE TEMP MACRO __tsql_observations(value, time) AS
+    list({'t': __tsql_tick(time), 'v': value::DOUBLE});
+
+CREATE OR REPLACE TEMP MACRO __tsql_time_type(time) AS any_value(typeof(time));
+
+-- The values on the regular grid from the first to the last time (several values at one point are averaged).
+CREATE OR REPLACE TEMP MACRO on_grid(values, times, step := NULL, fill := 'null') AS
+    __tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), __tsql_span(step), fill);
