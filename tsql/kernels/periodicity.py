@@ -103,9 +103,7 @@ def dominant_period(batch: Ragged, min_period: float = 2.0, max_period: float | 
     return _analyse(batch, float(min_period), _none_or_float(max_period), stats=False)["period"]
 
 
-def seasonality(
-    batch: Ragged, min_period: float = 2.0, max_period: float | None = None
-) -> dict[str, np.ndarray]:
+def seasonality(batch: Ragged, min_period: float = 2.0, max_period: float | None = None) -> dict[str, np.ndarray]:
     """Dominant period, the share of variance its harmonics explain, and Fisher's g p-value.
 
     Parameters
@@ -251,9 +249,7 @@ class _Group:
         self.blocks = self.height + (self.tail is not None)
 
 
-def _analyse(
-    batch: Ragged, min_period: float, max_period: float | None, stats: bool
-) -> dict[str, np.ndarray]:
+def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: bool) -> dict[str, np.ndarray]:
     keys = ("period", "strength", "p_value") if stats else ("period",)
     result = {key: full(batch.n_rows) for key in keys}
     row_valid = batch.row_valid
@@ -326,9 +322,7 @@ def _allowed_bins(n: int, min_period: float, max_period: float | None) -> np.nda
     return k[ok]
 
 
-def _spectral_peak(
-    matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool
-) -> tuple[np.ndarray, ...] | None:
+def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool) -> tuple[np.ndarray, ...] | None:
     """Detrend rows of one length, take the periodogram and its peak among ``bins``.
 
     Returns ``(answerable rows mask, residuals, present mask, peak bin k, the DFT at bins
@@ -429,9 +423,7 @@ def _parabola_step(
     return np.where(concave, np.clip(step, -limit, limit), np.nan)
 
 
-def _detrend(
-    matrix: np.ndarray, present: np.ndarray | None
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Least-squares residuals about each row's line through its present values.
 
     Missing elements become 0. Returns ``(residuals, present count, |mean|, sum of squares of
@@ -522,9 +514,7 @@ def _block_width(n: int) -> int:
     return 1 << max(1, int(np.ceil(0.5 * np.log2(n))))
 
 
-def _unit_powers(
-    theta: np.ndarray, count: int, start: np.ndarray | None = None
-) -> tuple[np.ndarray, np.ndarray]:
+def _unit_powers(theta: np.ndarray, count: int, start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """``cos, sin(start + theta j)`` for ``j = 0..count-1``, each of shape ``(count, len(theta))``.
 
     Built by doubling: only ``start`` and ``theta * 2**b`` go through cos/sin, and every entry is
