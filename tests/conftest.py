@@ -14,3 +14,10 @@ def nile() -> np.ndarray:
     """Annual flow of the Nile at Aswan 1871-1970, shipped inside statsmodels."""
     sm = pytest.importorskip("statsmodels.api")
     return sm.datasets.nile.load_pandas().data["volume"].to_numpy(dtype=float)
+
+
+@pytest.fixture(scope="session")
+def elnino() -> np.ndarray:
+    """Monthly sea surface temperature (El Nino region) 1950-2010, shipped inside statsmodels, as one series."""
+    sm = pytest.importorskip("statsmodels.api")
+    return sm.datasets.elnino.load_pandas().data.iloc[:, 1:].to_numpy(dtype=float).ravel()

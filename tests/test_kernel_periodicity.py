@@ -272,9 +272,7 @@ def test_seasonality_p_value_is_calibrated_on_white_noise():
             assert abs(np.mean(p < a) - a) <= 4 * np.sqrt(a * (1 - a) / rows), (n, a, np.mean(p < a))
 
 
-@pytest.mark.parametrize(
-    "n,min_period,max_period", [(200, 2, None), (201, 2, None), (200, 3, 40), (97, 5, 9)]
-)
+@pytest.mark.parametrize("n,min_period,max_period", [(200, 2, None), (201, 2, None), (200, 3, 40), (97, 5, 9)])
 def test_g_statistic_matches_scipy_periodogram(n, min_period, max_period):
     # reference: scipy.signal.periodogram with linear detrending; g over the allowed Fourier
     # periods n / k (k >= 2, within the limits), Nyquist excluded

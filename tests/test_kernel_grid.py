@@ -1,0 +1,155 @@
+"""The time grid kernel: step inference, calendar months, averaging, fills, order independence."""
+
+import numpy as np
+import pytest
+
+from tsql.kernels.grid import MAX_GRID_POINTS, add_months, on_grid
+from tsql.kernels.ragged import Ragged
+
+US_PER_DAY = 86_400_000_000
+
+
+def ticks(dates) -> list[float]:
+    return [float(np.datetime64(d, "us").astype(np.int64)) for d in dates]
+
+
+def month_starts(first: str, n: int) -> list[str]:
+    return [str(np.datetime64(first, "M") + i) + "-01" for i in range(n)]
+
+
+def test_deleted_months_come_back_as_missing_values():
+    months = month_starts("2021-01", 24)
+    kept = [m for i, m in enumerate(months) if i not in (3, 10, 17)]
+    values = [float(months.index(m)) for m in kept]
+    grid = on_grid(Ragged.from_list([ticks(kept)]), Ragged.from_list([values]), temporal=True)
+    assert grid.months.tolist() == [1] and grid.length.tolist() == [0.0]
+    got = grid.values.row(0)
+    assert len(got) == 24
+    assert np.flatnonzero(np.isnan(got)).tolist() == [3, 10, 17]
+    present = ~np.isnan(got)
+    assert got[present].tolist() == [float(i) for i in range(24) if i not in (3, 10, 17)]
+    assert grid.ticks.tolist() == ticks(months)
+
+
+@pytest.mark.parametrize(
+    ("dates", "months"),
+    [
+        (["2020-01-01", "2020-04-01", "2020-10-01", "2021-01-01"], 3),
+        (["2018-06-30", "2019-06-30", "2020-06-30", "2022-06-30"], 12),
+        (["2020-01-31", "2020-02-29", "2020-03-31", "2020-04-30", "2020-06-30"], 1),
+    ],
+)
+def test_calendar_steps_are_recognised(dates, months):
+    grid = on_grid(Ragged.from_list([ticks(dates)]), Ragged.from_list([list(range(len(dates)))]), temporal=True)
+    assert grid.months.tolist() == [months]
+    assert np.isnan(grid.values.row(0)).sum() == 1  # one step is skipped in each list
+
+
+def test_month_arithmetic_clamps_to_the_month_end_like_duckdb():
+    duckdb = pytest.importorskip("duckdb")
+    start = ticks(["2020-01-31"]) * 5
+    steps = np.arange(5)
+    ours = add_months(np.array(start), steps).astype(np.int64).astype("datetime64[us]").astype("datetime64[D]")
+    # reference: DuckDB's own DATE + INTERVAL k MONTH
+    theirs = duckdb.sql(
+        "SELECT (DATE '2020-01-31' + to_months(k::INTEGER))::DATE FROM range(5) r(k) ORDER BY k"
+    ).fetchall()
+    assert [str(d) for d in ours] == [str(r[0]) for r in theirs]
+
+
+def test_fixed_steps_and_decimal_numbers():
+    hours = [0, 1, 2, 5, 6]
+    grid = on_grid(Ragged.from_list([[h * 3_600e6 for h in hours]]), Ragged.from_list([hours]), temporal=True)
+    assert grid.months.tolist() == [0] and grid.length.tolist() == [3_600e6]
+    assert np.flatnonzero(np.isnan(grid.values.row(0))).tolist() == [3, 4]
+    tenths = [0.0, 0.1, 0.2, 0.30000000000000004, 0.5]
+    grid = on_grid(Ragged.from_list([tenths]), Ragged.from_list([[1, 2, 3, 4, 5]]), temporal=False)
+    assert grid.values.row(0)[:4].tolist() == [1, 2, 3, 4] and np.isnan(grid.values.row(0)[4])
+
+
+def test_several_values_at_one_point_are_averaged_and_order_does_not_matter():
+    t = [3.0, 1.0, 2.0, 2.0, 1.0, 5.0]
+    v = [30.0, 10.0, 20.0, 23.0, np.nan, 50.0]
+    grid = on_grid(Ragged.from_list([t]), Ragged.from_list([v]), temporal=False)
+    assert grid.values.row(0).tolist()[:3] == [10.0, 21.5, 30.0] and np.isnan(grid.values.row(0)[3])
+    rng = np.random.default_rng(5)
+    for _ in range(20):
+        order = rng.permutation(len(t))
+        again = on_grid(Ragged.from_list([np.array(t)[order]]), Ragged.from_list([np.array(v)[order]]), False)
+        assert again.values.row(0).tobytes() == grid.values.row(0).tobytes()
+
+
+@pytest.mark.parametrize("fill", ["zero", "linear", "previous"])
+def test_fills(fill):
+    t = [[0, 1, 4, 5, 7], [10, 12, 13]]
+    v = [[1.0, np.nan, 4.0, 2.0, 6.0], [5.0, 7.0, 9.0]]
+    grid = on_grid(Ragged.from_list(t), Ragged.from_list(v), temporal=False, fill=fill)
+    first, second = grid.values.row(0), grid.values.row(1)
+    points = np.arange(8.0)
+    observed = {0: 1.0, 4: 4.0, 5: 2.0, 7: 6.0}
+    if fill == "zero":
+        expected = [observed.get(k, 0.0) for k in range(8)]
+        assert second.tolist() == [5.0, 0.0, 7.0, 9.0]
+    elif fill == "linear":  # reference: numpy.interp between the present points
+        expected = np.interp(points, list(observed), list(observed.values())).tolist()
+        assert second.tolist() == [5.0, 6.0, 7.0, 9.0]
+    else:
+        expected = [1.0, 1.0, 1.0, 1.0, 4.0, 2.0, 2.0, 6.0]
+        assert second.tolist() == [5.0, 5.0, 7.0, 9.0]
+    np.testing.assert_allclose(first, expected, rtol=0, atol=1e-15)
+
+
+def test_leading_gaps_stay_missing_and_rows_stay_apart():
+    grid = on_grid(
+        Ragged.from_list([[0, 1, 2], [0, 1, 3]]),
+        Ragged.from_list([[np.nan, np.nan, 3.0], [8.0, 9.0, 12.0]]),
+        temporal=False,
+        fill="linear",
+    )
+    assert np.isnan(grid.values.row(0)[:2]).all() and grid.values.row(0)[2] == 3.0
+    assert grid.values.row(1).tolist() == [8.0, 9.0, 10.5, 12.0]
+
+
+def test_null_rows_rows_without_times_and_a_given_step():
+    grid = on_grid(
+        Ragged.from_list([None, [np.nan, np.nan], [0.0, 10.0]]),
+        Ragged.from_list([None, [1.0, 2.0], [1.0, 2.0]]),
+        temporal=False,
+        step_length=5.0,
+    )
+    assert grid.values.lengths.tolist() == [0, 0, 3]
+    assert grid.values.row_valid.tolist() == [False, True, True]
+    assert grid.values.row(2)[[0, 2]].tolist() == [1.0, 2.0]
+
+
+def test_observed_points_the_first_observation_at_or_after_each_grid_point():
+    grid = on_grid(Ragged.from_list([[0, 1, 4, 5]]), Ragged.from_list([[1, 2, 3, 4]]), temporal=False)
+    assert grid.observed.tolist() == [0, 1, 2, 2, 2, 3]
+
+
+def test_a_grid_too_fine_for_the_data_is_an_error():
+    with pytest.raises(ValueError, match="grid of"):
+        on_grid(Ragged.from_list([[0.0, 365.0 * US_PER_DAY]]), Ragged.from_list([[1.0, 2.0]]), True, step_length=1.0)
+    assert MAX_GRID_POINTS >= 1_000_000
+
+
+def test_months_on_numbers_and_unknown_fills_are_errors():
+    one = Ragged.from_list([[1.0, 2.0]])
+    with pytest.raises(ValueError, match="needs DATE or TIMESTAMP"):
+        on_grid(one, one, temporal=False, step_months=1)
+    with pytest.raises(ValueError, match="fill must be one of"):
+        on_grid(one, one, temporal=False, fill="nearest")
+    with pytest.raises(ValueError, match="same length"):
+        on_grid(one, Ragged.from_list([[1.0]]), temporal=False)
+
+
+def test_span_in_steps_and_back():
+    grid = on_grid(
+        Ragged.from_list([ticks(month_starts("2020-01", 30)), [0.0, 3_600e6, 7_200e6]]),
+        Ragged.from_list([list(range(30)), [1, 2, 3]]),
+        temporal=True,
+    )
+    assert grid.steps(12, 0.0)[0] == 12.0 and np.isnan(grid.steps(12, 0.0)[1])
+    assert np.isnan(grid.steps(0, US_PER_DAY)[0]) and grid.steps(0, US_PER_DAY)[1] == 24.0
+    months, length = grid.span(np.array([11.97, 24.0]))
+    assert months[0] == 12 and np.isnan(months[1]) and length[1] == US_PER_DAY

@@ -1,0 +1,216 @@
+"""Honest time through SQL: on_grid, and *_agg forms that see missing periods and answer in time terms."""
+
+import datetime as dt
+
+import duckdb
+import numpy as np
+import pyarrow as pa
+import pytest
+
+import tsql
+
+DELETED = (14, 31, 47)  # months removed from the record: no row at all
+
+
+@pytest.fixture(scope="module")
+def con():
+    c = tsql.connect()
+    yield c
+    c.close()
+
+
+@pytest.fixture(scope="module")
+def sst(con, elnino):
+    """Five years (1990-1994) of the monthly El Nino sea surface temperature, three months deleted."""
+    series = elnino[40 * 12 : 45 * 12]
+    months = [dt.date(1990 + i // 12, i % 12 + 1, 1) for i in range(len(series))]
+    keep = [i for i in range(len(series)) if i not in DELETED]
+    table = pa.table(
+        {
+            "month": pa.array([months[i] for i in keep], pa.date32()),
+            "month_index": pa.array(keep, pa.int64()),
+            "temperature": pa.array(series[keep]),
+        }
+    )
+    con.register("sst_table", table)
+    con.execute(
+        """CREATE OR REPLACE TEMP VIEW sst AS
+           SELECT month, month::TIMESTAMP AS month_ts, (month::TIMESTAMP AT TIME ZONE 'UTC') AS month_tz,
+                  month_index, temperature
+           FROM sst_table"""
+    )
+    return series
+
+
+def test_on_grid_puts_missing_values_back_where_they_belong(con, sst):
+    (grid,) = con.execute("SELECT on_grid(list(temperature), list(month)) FROM sst").fetchall()[0]
+    assert len(grid) == 60
+    assert [i for i, v in enumerate(grid) if v is None] == list(DELETED)
+    assert all(grid[i] == sst[i] for i in range(60) if i not in DELETED)
+
+
+def test_dominant_period_agg_answers_a_year_where_the_squeezed_list_does_not(con, sst):
+    agg, squeezed, complete = con.execute(
+        f"""SELECT dominant_period_agg(temperature, month) = INTERVAL 12 MONTH,
+                  dominant_period(list(temperature ORDER BY month)),
+                  dominant_period({sst.tolist()})
+           FROM sst"""
+    ).fetchall()[0]
+    assert agg
+    assert abs(complete - 12) < 0.25  # the full record (El Nino SST is dominated by the annual cycle)
+    assert abs(squeezed - 12) > 0.4  # the squeezed list lost three months: its cycle looks shorter
+
+
+@pytest.mark.parametrize("time", ["month", "month_ts", "month_tz"])
+def test_temporal_time_columns_give_intervals(con, sst, time):
+    period, season, lag12 = con.execute(
+        f"""SELECT dominant_period_agg(temperature, {time}) = INTERVAL 12 MONTH,
+                  seasonality_agg(temperature, {time}).period = INTERVAL 1 YEAR,
+                  autocorrelation_agg(temperature, {time}, lag := 12)
+           FROM sst"""
+    ).fetchall()[0]
+    assert period and season
+    (on_grid,) = con.execute(
+        "SELECT autocorrelation(on_grid(list(temperature), list(month)), lag := 12) FROM sst"
+    ).fetchall()[0]
+    assert lag12 == on_grid
+
+
+def test_integer_time_columns_answer_in_their_own_units(con, sst):
+    period, stepped = con.execute(
+        """SELECT dominant_period_agg(temperature, month_index),
+                  dominant_period_agg(temperature, month_index * 5)
+           FROM sst"""
+    ).fetchall()[0]
+    assert abs(period - 12) < 0.25
+    assert stepped == pytest.approx(5 * period, rel=1e-12)
+
+
+def test_timestamptz_grid_runs_on_utc_instants_whatever_the_session_zone(con):
+    # 2024-03-31 02:00 does not exist on a Berlin wall clock; an hourly UTC grid has no hole there
+    other = tsql.connect()
+    other.execute("SET TimeZone = 'Europe/Berlin'")
+    rows = other.execute(
+        """WITH h AS (SELECT TIMESTAMPTZ '2024-03-30 12:00:00+00' + to_hours(i::BIGINT) AS hour, i AS v
+                      FROM range(48) r(i))
+           SELECT len(on_grid(list(v), list(hour))), harmonic_smooth_agg(v, hour, harmonics := 1)[1].time
+           FROM h"""
+    ).fetchall()
+    other.close()
+    ((points, first),) = rows
+    assert points == 48
+    assert first == dt.datetime(2024, 3, 30, 12, tzinfo=dt.UTC)  # a TIMESTAMPTZ, the same instant
+
+
+def test_change_points_agg_with_gaps_answers_observed_years(con, nile):
+    # Nile annual flow (statsmodels), the 1899 shift (Cobb 1978), with three years missing
+    years = [y for y in range(1871, 1971) if y not in (1880, 1898, 1930)]
+    con.register("nile_gaps", pa.table({"year": years, "flow": [nile[y - 1871] for y in years]}))
+    starts, segments = con.execute(
+        "SELECT change_points_agg(flow, year), segments_agg(flow, year) FROM nile_gaps"
+    ).fetchall()[0]
+    assert starts == [1899]  # the grid point 1898 has no row: the first row of the new regime is 1899
+    assert [(s["first"], s["last"]) for s in segments] == [(1871, 1897), (1899, 1970)]
+
+
+def test_harmonic_smooth_agg_is_the_list_form_on_the_grid(con, sst):
+    (records,) = con.execute(
+        "SELECT harmonic_smooth_agg(temperature, month, harmonics := 2, period := 12) FROM sst"
+    ).fetchall()[0]
+    (expected,) = con.execute(
+        "SELECT harmonic_smooth(on_grid(list(temperature), list(month)), harmonics := 2, period := 12) FROM sst"
+    ).fetchall()[0]
+    assert [r["value"] for r in records] == expected
+    assert [r["time"] for r in records] == [dt.datetime(1990 + i // 12, i % 12 + 1, 1) for i in range(60)]
+    (with_interval,) = con.execute(
+        "SELECT harmonic_smooth_agg(temperature, month, harmonics := 2, period := INTERVAL 1 YEAR) FROM sst"
+    ).fetchall()[0]
+    assert with_interval == records
+
+
+def test_harmonic_profile_agg_finds_the_peak_hour_of_an_hourly_load(con):
+    # a synthetic call load peaking at 14:00; quiet hours have no row (an event log), so fill with zeros
+    rng = np.random.default_rng(7)
+    hours = np.arange(24 * 28)
+    expected = 2 + 40 * np.exp(-0.5 * ((hours % 24 - 14) / 2.5) ** 2)
+    calls = rng.poisson(expected)
+    stamps = [dt.datetime(2024, 5, 6) + dt.timedelta(hours=int(h)) for h in hours]
+    keep = calls > 0
+    con.register(
+        "calls",
+        pa.table({"hour": pa.array(np.array(stamps)[keep], pa.timestamp("us")), "calls": calls[keep]}),
+    )
+    by_interval, by_steps, mean, zero_mean = con.execute(
+        """SELECT list_position(p, list_max(p)) - 1, list_position(q, list_max(q)) - 1, list_avg(p), z
+           FROM (SELECT harmonic_profile_agg(calls, hour, INTERVAL 1 DAY, harmonics := 4, fill := 'zero') AS p,
+                        harmonic_profile_agg(calls, hour, 24, harmonics := 4, fill := 'zero') AS q,
+                        list_avg(on_grid(list(calls), list(hour), fill := 'zero')) AS z
+                 FROM calls)"""
+    ).fetchall()[0]
+    assert by_interval == by_steps == 14
+    assert mean == pytest.approx(zero_mean, rel=1e-9)  # the profile's mean is the series' mean
+
+
+def test_results_do_not_depend_on_row_order(con, sst):
+    query = """SELECT dominant_period_agg(temperature, month), seasonality_agg(temperature, month),
+                      change_points_agg(temperature, month), harmonic_smooth_agg(temperature, month),
+                      acf_agg(temperature, month, max_lag := 13), trend_test_agg(temperature, month)
+               FROM {table}"""
+    first = con.execute(query.format(table="sst")).fetchall()
+    con.execute("CREATE OR REPLACE TEMP TABLE shuffled AS SELECT * FROM sst ORDER BY hash(month) DESC")
+    con.execute("INSERT INTO shuffled SELECT * FROM sst WHERE month_index = 20")  # a duplicate row: same mean
+    assert con.execute(query.format(table="shuffled")).fetchall() == first
+
+
+def test_explicit_steps(con, sst):
+    same, daily = con.execute(
+        """SELECT on_grid(list(temperature), list(month), step := INTERVAL 1 MONTH)
+                      = on_grid(list(temperature), list(month)),
+                  len(on_grid(list(temperature), list(month), step := '1 day'))
+           FROM sst"""
+    ).fetchall()[0]
+    assert same and daily == (dt.date(1994, 12, 1) - dt.date(1990, 1, 1)).days + 1
+    (quarters,) = con.execute(
+        "SELECT len(on_grid([1, 2, 3], [DATE '2020-01-01', DATE '2020-07-01', DATE '2021-01-01'], step := '3 months'))"
+    ).fetchall()[0]
+    assert quarters == 5
+
+
+@pytest.mark.parametrize(
+    ("query", "message"),
+    [
+        ("SELECT on_grid([1, 2], [1, 2, 3])", "on_grid: values and times must have the same length"),
+        ("SELECT on_grid([1, 2], [1, 2], fill := 'nearest')", "fill must be one of 'null', 'zero', 'linear'"),
+        ("SELECT on_grid([1, 2], [1, 2], step := 0)", "on_grid: step must be > 0, got 0"),
+        ("SELECT on_grid([1, 2], [1, 2], step := INTERVAL 1 DAY)", "step must be a number for numeric times"),
+        ("SELECT on_grid([1, 2], [DATE '2020-01-01', DATE '2020-02-01'], step := 2)", "must be an INTERVAL"),
+        ("SELECT on_grid([1, 2], [DATE '2020-01-01', DATE '2020-02-01'], step := 'fortnight')", "got 'fortnight'"),
+        ("SELECT on_grid([1, 2], [DATE '2020-01-01', DATE '2021-02-01'], step := '1 month 2 days')", "not both"),
+        ("SELECT on_grid([1, 2], ['a', 'b'])", "time must be DATE, TIMESTAMP, TIMESTAMPTZ or a number, got VARCHAR"),
+        (
+            "SELECT dominant_period_agg(v, t, fill := 'nearest') FROM (VALUES (1, 1), (2, 2)) x(v, t)",
+            "dominant_period_agg: fill must be one of",
+        ),
+        (
+            "SELECT harmonic_profile_agg(v, t, INTERVAL 1 MONTH) FROM "
+            "(SELECT i AS v, TIMESTAMP '2024-01-01' + to_hours(i) AS t FROM range(100) r(i))",
+            "cannot be counted in the grid's steps",
+        ),
+        (
+            "SELECT on_grid([1, 2], [TIMESTAMP '2000-01-01', TIMESTAMP '2024-01-01'], step := '1 second')",
+            "on_grid: the step makes a grid of",
+        ),
+    ],
+)
+def test_nonsense_is_an_error_that_names_the_function(con, query, message):
+    with pytest.raises(duckdb.Error, match=message) as error:
+        con.execute(query).fetchall()
+    assert "Traceback" not in str(error.value)
+
+
+def test_null_and_empty_lists(con):
+    rows = con.execute(
+        "SELECT on_grid(x, y) FROM "
+        "(VALUES (NULL, [1]), ([1], NULL), ([]::INTEGER[], []::INTEGER[]), ([5], [3])) v(x, y)"
+    ).fetchall()
+    assert [r[0] for r in rows] == [None, None, [], [5.0]]
