@@ -31,10 +31,33 @@ def _functions(args: argparse.Namespace) -> int:
             return 2
         print(describe(fn))
         return 0
-    width = max(len(f.name) for f in FUNCTIONS)
-    for fn in FUNCTIONS:
-        print(f"{fn.name:<{width}}  {fn.doc}")
+    print(function_list())
     return 0
+
+
+def function_list() -> str:
+    """One line per function: its name and one-line doc."""
+    width = max(len(f.name) for f in FUNCTIONS)
+    return "\n".join(f"{fn.name:<{width}}  {fn.doc}" for fn in FUNCTIONS)
+
+
+def _shell(args: argparse.Namespace) -> int:
+    from tsql.shell import main as shell
+
+    return shell(args.database, read_only=args.read_only)
+
+
+def _run(args: argparse.Namespace) -> int:
+    from tsql.pipeline import UsageError, parse_params, run
+
+    try:
+        return run(args.files, args.db, out=args.out, replace=args.replace, params=parse_params(args.param))
+    except UsageError as error:
+        print(f"tsql run: {error}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("tsql run: interrupted", file=sys.stderr)
+        return 130
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -45,6 +68,19 @@ def main(argv: list[str] | None = None) -> int:
     listing.add_argument("name", nargs="?", help="a function name")
     listing.add_argument("--markdown", action="store_true", help="print the README's function table")
     listing.set_defaults(run=_functions)
+    shell = commands.add_parser("shell", help="an interactive SQL session with every function registered")
+    shell.add_argument("database", nargs="?", default=":memory:", help="a DuckDB file (default: in memory)")
+    shell.add_argument("--read-only", action="store_true", help="open the database read-only")
+    shell.set_defaults(run=_shell)
+    script = commands.add_parser("run", help="run SQL files in order, as a pipeline step")
+    script.add_argument("files", nargs="+", metavar="FILE.sql", help="SQL files, run in the order given")
+    script.add_argument("--db", default=":memory:", metavar="DATABASE", help="a DuckDB file (default: in memory)")
+    script.add_argument("--out", metavar="RESULT", help="write the last result to a .csv, .parquet, .json or .jsonl")
+    script.add_argument("--replace", action="store_true", help="let --out overwrite an existing file")
+    script.add_argument(
+        "--param", action="append", default=[], metavar="NAME=VALUE", help="a value for $NAME in the SQL (repeatable)"
+    )
+    script.set_defaults(run=_run)
     args = parser.parse_args(argv)
     return args.run(args)
 

@@ -1,0 +1,144 @@
+"""`tsql run`: SQL files as a pipeline step."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import duckdb
+import pytest
+
+from tsql.cli import main
+
+
+@pytest.fixture
+def scripts(tmp_path, monkeypatch):
+    """Write SQL files into tmp_path (the working folder) by name; returns the names."""
+    monkeypatch.chdir(tmp_path)
+
+    def write(**files: str) -> list[str]:
+        for name, text in files.items():
+            (tmp_path / f"{name}.sql").write_text(text)
+        return [f"{name}.sql" for name in files]
+
+    return write
+
+
+CREATE = "CREATE TABLE sales AS\nSELECT * FROM (VALUES ('bun', 5), ('loaf', 50), ('cake', 500)) AS v(item, units);\n"
+
+
+def test_files_run_in_order_and_the_last_result_is_printed(scripts, capsys):
+    files = scripts(a=CREATE, b="-- the report\nSELECT item, units * 2 AS doubled\nFROM sales ORDER BY units")
+    assert main(["run", *files]) == 0
+    assert capsys.readouterr().out.splitlines() == [
+        "item  doubled",
+        "----  -------",
+        "bun        10",
+        "loaf      100",
+        "cake     1000",
+        "3 rows",
+    ]
+
+
+def test_tsql_functions_are_registered(scripts, capsys):
+    files = scripts(a="SELECT round(autocorrelation([1, 2, 1, 2, 1, 2]), 3) AS r1;")
+    assert main(["run", *files]) == 0
+    # lag-1 autocorrelation of an alternating series of six: sum of 5 products (-1/4) / (6 * 1/4) = -5/6
+    assert capsys.readouterr().out.splitlines()[2] == "-0.833"
+
+
+@pytest.mark.parametrize("extension", ["csv", "parquet", "json", "jsonl"])
+def test_out_writes_the_last_result_with_copy(scripts, tmp_path, capsys, extension):
+    files = scripts(a=CREATE, b="SELECT item, units FROM sales WHERE units > 10 ORDER BY units;")
+    target = tmp_path / f"result.{extension}"
+    assert main(["run", *files, "--out", str(target)]) == 0
+    assert capsys.readouterr().out == ""
+    assert duckdb.sql(f"SELECT item, units FROM '{target}' ORDER BY units").fetchall() == [("loaf", 50), ("cake", 500)]
+
+
+def test_failure_reports_file_and_line_and_stops(scripts, tmp_path, capsys):
+    files = scripts(
+        a=CREATE,
+        b="INSERT INTO sales VALUES ('roll', 7);\n-- the next statement fails\nSELECT *\nFROM no_such_table;\n"
+        "INSERT INTO sales VALUES ('never', 0);\n",
+    )
+    db = tmp_path / "shop.duckdb"
+    assert main(["run", *files, "--db", str(db)]) == 1
+    err = capsys.readouterr().err
+    assert err.startswith("b.sql:3: Catalog Error: ") and "no_such_table" in err and "Traceback" not in err
+    with duckdb.connect(str(db)) as con:
+        assert con.sql("SELECT list(item ORDER BY units) FROM sales").fetchall() == [(["bun", "roll", "loaf", "cake"],)]
+
+
+def test_params_are_bound_as_values(scripts, capsys):
+    files = scripts(a=CREATE, b="SELECT count(*) AS n FROM sales WHERE units > $least;")
+    assert main(["run", *files, "--param", "least=100"]) == 0
+    # compared as numbers (500 only); pasted as the text '100' it would also let '5' and '50' through
+    assert capsys.readouterr().out.splitlines()[2] == "1"
+
+
+def test_a_value_that_looks_like_sql_stays_a_value(scripts, tmp_path, capsys):
+    files = scripts(a=CREATE, b="INSERT INTO sales VALUES ($item, 1);\nSELECT item FROM sales WHERE units = 1;")
+    db = tmp_path / "shop.duckdb"
+    hostile = "x'; DROP TABLE sales; --"
+    assert main(["run", *files, "--db", str(db), "--param", f"item={hostile}"]) == 0
+    assert capsys.readouterr().out.splitlines()[2] == hostile
+    with duckdb.connect(str(db)) as con:
+        assert con.sql("SELECT count(*) FROM sales").fetchall() == [(4,)]
+        assert con.sql("SELECT item FROM sales WHERE units = 1").fetchall() == [(hostile,)]
+
+
+def test_each_statement_gets_only_the_params_it_uses(scripts, capsys):
+    # DuckDB refuses a value for a parameter a statement does not have
+    files = scripts(a="CREATE TABLE t AS SELECT $first AS a;\nSELECT a, $second AS b FROM t;")
+    assert main(["run", *files, "--param", "first=1", "--param", "second=2"]) == 0
+    assert capsys.readouterr().out.splitlines()[2].split() == ["1", "2"]
+
+
+def test_a_param_with_no_value_stops_before_anything_runs(scripts, tmp_path, capsys):
+    files = scripts(a=CREATE, b="SELECT * FROM sales\nWHERE units > 1;\nSELECT $least;")
+    db = tmp_path / "shop.duckdb"
+    assert main(["run", *files, "--db", str(db)]) == 2
+    assert capsys.readouterr().err == "tsql run: b.sql:3: no value for $least; give it with --param least=VALUE\n"
+    assert not db.exists()
+
+
+def test_an_unused_param_is_a_warning(scripts, capsys):
+    files = scripts(a="SELECT 1 AS one;")
+    assert main(["run", *files, "--param", "region=north"]) == 0
+    assert "warning: --param region is not used by any statement" in capsys.readouterr().err
+
+
+def test_out_refuses_to_overwrite_unless_replace(scripts, tmp_path, capsys):
+    files = scripts(a="SELECT 42 AS answer;")
+    target = tmp_path / "result.csv"
+    target.write_text("keep me\n")
+    assert main(["run", *files, "--out", str(target)]) == 2
+    assert "result.csv exists; pass --replace to overwrite it" in capsys.readouterr().err
+    assert target.read_text() == "keep me\n"
+    assert main(["run", *files, "--out", str(target), "--replace"]) == 0
+    assert target.read_text().split() == ["answer", "42"]
+
+
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [
+        (["missing.sql"], "tsql run: cannot read missing.sql: No such file or directory\n"),
+        (["a.sql", "--param", "no_equals"], "tsql run: --param wants NAME=VALUE with NAME a plain identifier"),
+        (["a.sql", "--param", "x=1", "--param", "x=2"], "tsql run: --param x is given twice\n"),
+        (["a.sql", "--out", "result.xlsx"], "tsql run: cannot tell the format of 'result.xlsx'"),
+        (["b.sql", "--out", "result.csv"], "tsql run: b.sql:1: --out needs the last statement to be a query\n"),
+        (["empty.sql"], "tsql run: no SQL statements in empty.sql\n"),
+    ],
+)
+def test_mistakes_in_the_command_are_one_line_and_exit_2(scripts, capsys, args, message):
+    scripts(a="SELECT 1;", b="CREATE TABLE t (x INTEGER);", empty="-- nothing yet\n")
+    assert main(["run", *args]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith(message) and err.count("\n") == 1
+
+
+def test_exit_codes_of_the_command(scripts, tmp_path):
+    files = scripts(a="SELECT 1;\n\nSELECT 1 / 'x';")
+    done = subprocess.run([sys.executable, "-m", "tsql.cli", "run", *files], capture_output=True, text=True)
+    assert done.returncode == 1 and done.stderr.startswith("a.sql:3: ") and done.stdout == ""
