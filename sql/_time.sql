@@ -12,11 +12,20 @@ CREATE OR REPLACE TEMP MACRO __tsql_tick(t) AS
 CREATE OR REPLACE TEMP MACRO __tsql_span(x) AS
     {'text': x::VARCHAR, 'interval': TRY_CAST(x AS INTERVAL), 'number': TRY_CAST(x AS DOUBLE)};
 
--- One group's rows, unordered (the grid sorts them), and its time column's type.
+-- One group's rows, in no particular order (the grid sorts them: cheaper than ORDER BY here),
+-- and its time column's type.
 CREATE OR REPLACE TEMP MACRO __tsql_observations(value, time) AS
     list({'t': __tsql_tick(time), 'v': value::DOUBLE});
 
 CREATE OR REPLACE TEMP MACRO __tsql_time_type(time) AS any_value(typeof(time));
+
+-- A grid time from its tick and kind (0: TIMESTAMP, 1: TIMESTAMPTZ, 2: a number).
+CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, kind) AS
+    CASE kind
+        WHEN 0 THEN union_value("time" := make_timestamp(tick::BIGINT))
+        WHEN 1 THEN union_value(time_tz := to_timestamp(0) + to_microseconds(tick::BIGINT))
+        ELSE union_value(number := tick)
+    END::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE);
 
 -- The values on the regular grid from the first to the last time (several values at one point are averaged).
 CREATE OR REPLACE TEMP MACRO on_grid(values, times, step := NULL, fill := 'null') AS

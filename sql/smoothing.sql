@@ -9,8 +9,10 @@ CREATE OR REPLACE TEMP MACRO harmonic_smooth(values, harmonics := 3, period := N
 -- STRUCT(time, value)[] on the grid, gaps included.
 CREATE OR REPLACE TEMP MACRO harmonic_smooth_agg(value, time, harmonics := 3, period := NULL,
                                                  step := NULL, fill := 'null') AS
-    __tsql_harmonic_smooth_on_grid(__tsql_observations(value, time), __tsql_time_type(time), __tsql_span(step),
-                                   fill, harmonics, __tsql_span(period));
+    list_transform(
+        __tsql_harmonic_smooth_on_grid(__tsql_observations(value, time), __tsql_time_type(time), __tsql_span(step),
+                                       fill, harmonics, __tsql_span(period)),
+        lambda r: {'time': __tsql_moment(r.tick, r.kind), 'value': r.value});
 
 -- One cycle of round(period) values; list_position(p, list_max(p)) is the 1-based phase of the peak.
 CREATE OR REPLACE TEMP MACRO harmonic_profile(values, period, harmonics := 3) AS

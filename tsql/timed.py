@@ -1,7 +1,7 @@
 """The time-aware forms: ``on_grid`` and every ``*_agg`` form, which go through the grid.
 
 An ``*_agg(value, time, ...)`` macro hands its UDF one list of ``{t, v}`` records
-per group (no ORDER BY: the grid sorts), where ``t`` is a "tick": microseconds
+per group, in no particular order, where ``t`` is a "tick": microseconds
 since 1970 for DATE and TIMESTAMP times (TIMESTAMPTZ: the UTC instant), or the
 number itself. The UDF puts each group on its regular grid
 (:func:`tsql.kernels.grid.on_grid`), runs the function's kernel on the gridded
@@ -11,7 +11,8 @@ series, and answers in time terms:
   temporal times (whole months on a calendar grid), a number for numeric times;
 - change points and segment bounds become positions in the time-ordered rows,
   which the macro turns into the rows' own times;
-- a smoothed series becomes ``(time, value)`` records on the grid.
+- a smoothed series becomes ``(time, value)`` records on the grid (the UDF gives
+  ``(tick, kind, value)``; the macro makes the time).
 
 Arguments that are lengths of time (``period``, ``min_period`` ...) may be an
 INTERVAL for temporal times; a number counts grid steps, as in the list forms.
@@ -38,11 +39,10 @@ _OBSERVATIONS = "STRUCT(t DOUBLE, v DOUBLE)[]"
 # how the step and every span argument reach a UDF (macro __tsql_span): its text, as INTERVAL, as DOUBLE
 _SPAN_STRUCT = 'STRUCT("text" VARCHAR, "interval" INTERVAL, number DOUBLE)'
 _SPAN_ARROW = [pa.field("span", pa.month_day_nano_interval()), pa.field("number", pa.float64())]
-_MOMENT_ARROW = [
-    pa.field("time", pa.timestamp("us")),
-    pa.field("time_tz", pa.timestamp("us", tz="UTC")),
-    pa.field("number", pa.float64()),
-]
+# grid times leave the UDF as (tick, kind) and become a UNION in SQL (macro __tsql_moment):
+# DuckDB builds unions there far faster than it imports Arrow unions
+_WALL, _UTC, _NUMBER = 0, 1, 2
+_SERIES_RECORDS = "STRUCT(tick DOUBLE, kind TINYINT, value DOUBLE)[]"
 
 
 def create_udfs(con: duckdb.DuckDBPyConnection) -> None:
@@ -69,6 +69,8 @@ def _sql_returns(fn: Function) -> str:
         return "INTEGER[]"
     if fn.time_answer == "segments":
         return fn.returns
+    if fn.time_answer == "series":
+        return _SERIES_RECORDS
     return fn.agg_returns
 
 
@@ -214,7 +216,7 @@ def _per_argument_group(fn: Function, grid: Grid, per_row: list[Any], answer: An
 
     def call(rows: np.ndarray | None, key: tuple) -> pa.Array:
         kwargs = _checked_arguments(fn, key)
-        sub = grid if rows is None else _take(grid, rows)
+        sub = grid if rows is None else grid.take(rows)
         if kwargs is None:
             return pa.nulls(sub.values.n_rows, type=_arrow_type(fn))
         return answer(sub, kwargs)
@@ -232,22 +234,6 @@ def _per_argument_group(fn: Function, grid: Grid, per_row: list[Any], answer: An
     return pa.concat_arrays(parts).take(pa.array(np.argsort(np.concatenate(order), kind="stable")))
 
 
-def _take(grid: Grid, rows: np.ndarray) -> Grid:
-    values = grid.values.take(rows)
-    first_point = np.repeat(grid.values.offsets[rows], values.lengths) + values.positions
-    obs = np.diff(grid.observation_offsets)[rows]
-    obs_offsets = np.zeros(len(rows) + 1, dtype=np.int64)
-    np.cumsum(obs, out=obs_offsets[1:])
-    return Grid(
-        values=values,
-        start=grid.start[rows],
-        months=grid.months[rows],
-        length=grid.length[rows],
-        observed=grid.observed[first_point],
-        observation_offsets=obs_offsets,
-    )
-
-
 def _arrow_type(fn: Function) -> pa.DataType:
     returns = _sql_returns(fn)
     if returns == SPAN:
@@ -255,7 +241,8 @@ def _arrow_type(fn: Function) -> pa.DataType:
     if fn.time_answer == "period":
         return _Converter(fn.returns.replace(f"period {SPAN}", "period DOUBLE")).arrow_type
     if fn.time_answer == "series":
-        return pa.list_(pa.struct([pa.field("time", pa.sparse_union(_MOMENT_ARROW)), pa.field("value", pa.float64())]))
+        fields = [("tick", pa.float64()), ("kind", pa.int8()), ("value", pa.float64())]
+        return pa.list_(pa.struct(fields))
     return _Converter(returns).arrow_type
 
 
@@ -342,23 +329,20 @@ def _series(fn: Function) -> Any:
     def answer(fn: Function, clock: _Clock, grid: Grid, kwargs: dict) -> pa.Array:
         smooth: Ragged = fn.kernel(grid.values, **kwargs)
         ticks = grid.ticks[np.repeat(smooth.row_valid, grid.values.lengths)]  # NULL rows have no values
-        n = len(ticks)
-        tag = (1 if clock.utc else 0) if clock.temporal else 2
-        children = [pa.nulls(n, f.type) for f in _MOMENT_ARROW]
-        if clock.temporal:
-            children[tag] = pa.array(ticks.astype(np.int64), type=_MOMENT_ARROW[tag].type)
-        else:
-            children[tag] = pa.array(ticks)
-        times = pa.UnionArray.from_sparse(
-            pa.array(np.full(n, tag, dtype=np.int8)), children, field_names=[f.name for f in _MOMENT_ARROW]
+        kind = (_UTC if clock.utc else _WALL) if clock.temporal else _NUMBER
+        records = pa.StructArray.from_arrays(
+            [pa.array(ticks), pa.array(np.full(len(ticks), kind, dtype=np.int8)), _values_of(smooth)],
+            names=["tick", "kind", "value"],
         )
-        values = arrow_batch.to_arrow_list(Ragged(smooth.values, smooth.offsets, None)).values
-        records = pa.StructArray.from_arrays([times, values], names=["time", "value"])
         valid = smooth.row_valid & grid.values.row_valid
         offsets = pa.array(smooth.offsets.astype(np.int32))
         return pa.ListArray.from_arrays(offsets, records, mask=None if valid.all() else pa.array(~valid))
 
     return answer
+
+
+def _values_of(batch: Ragged) -> pa.Array:
+    return arrow_batch.to_arrow_list(Ragged(batch.values, batch.offsets, None)).values
 
 
 _ANSWERS = {"same": _same, "period": _period, "starts": _starts, "segments": _segments, "series": _series}

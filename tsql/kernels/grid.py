@@ -40,6 +40,9 @@ MAX_GRID_POINTS = 10_000_000
 _DAY_US = 86_400_000_000.0
 # (shortest, longest spacing in days, months) recognised as calendar steps
 _CALENDAR = ((28, 31, 1), (59, 62, 2), (89, 92, 3), (181, 184, 6), (365, 366, 12))
+_CALENDAR_MONTHS = np.zeros(368, dtype=np.int64)  # whole days of a spacing -> calendar months (0: not one)
+for _low, _high, _months in _CALENDAR:
+    _CALENDAR_MONTHS[_low : _high + 1] = _months
 _EPS = 1e-6  # positions within this of a grid point count as on it (decimal steps such as 0.1)
 
 
@@ -49,17 +52,37 @@ class Grid:
 
     ``values`` holds the gridded series; per row, ``start`` is the first time
     (tick), ``months`` the calendar step (0 when fixed) and ``length`` the fixed
-    step in ticks (0 when calendar). ``observed`` is, for each grid point, the
-    0-based index (within its row, in time order) of the first observation at
-    or after it, and ``observation_offsets`` bound each row's observations.
+    step in ticks (0 when calendar). ``points`` is the flat grid index of each
+    observation (in time order) and ``observation_offsets`` bound each row's
+    observations.
     """
 
     values: Ragged
     start: np.ndarray
     months: np.ndarray
     length: np.ndarray
-    observed: np.ndarray
+    points: np.ndarray
     observation_offsets: np.ndarray
+
+    @cached_property
+    def observed(self) -> np.ndarray:
+        """For each grid point, the 0-based index (within its row, in time order) of the first
+        observation at or after it."""
+        total = len(self.values.values)
+        first = np.repeat(self.observation_offsets[:-1], self.values.lengths)
+        return np.searchsorted(self.points, np.arange(total), side="left") - first
+
+    def take(self, rows: np.ndarray) -> Grid:
+        """The grids of the given rows, in that order."""
+        values = self.values.take(rows)
+        counts = np.diff(self.observation_offsets)[rows]
+        offsets = np.zeros(len(rows) + 1, dtype=np.int64)
+        np.cumsum(counts, out=offsets[1:])
+        source = np.repeat(self.observation_offsets[rows] - offsets[:-1], counts) + np.arange(offsets[-1])
+        shift = np.repeat(values.offsets[:-1] - self.values.offsets[rows], counts)
+        return Grid(
+            values, self.start[rows], self.months[rows], self.length[rows], self.points[source] + shift, offsets
+        )
 
     @cached_property
     def ticks(self) -> np.ndarray:
@@ -150,14 +173,7 @@ def on_grid(
     else:
         months, length = _inferred_steps(t, rows, obs_offsets, temporal)
 
-    bins = np.zeros(len(t), dtype=np.int64)
-    if len(t):
-        t0 = start[rows]
-        calendar = months[rows] > 0
-        fixed = ~calendar & (length[rows] > 0)
-        span = _month_index(t[calendar]) - _month_index(t0[calendar])
-        bins[calendar] = span // months[rows][calendar]
-        bins[fixed] = np.floor((t[fixed] - t0[fixed]) / length[rows][fixed] + _EPS).astype(np.int64)
+    bins = _bins(t, rows, start, months, length, has_obs)
     n_grid = np.zeros(n_rows, dtype=np.int64)
     last = obs_offsets[1:] - 1
     n_grid[has_obs] = bins[last[has_obs]] + 1
@@ -168,23 +184,49 @@ def on_grid(
     np.cumsum(n_grid, out=grid_offsets[1:])
     where = grid_offsets[rows] + bins
 
-    present = ~np.isnan(v)
     total = int(grid_offsets[-1])
-    sums = np.bincount(where[present], weights=v[present], minlength=total)
-    counts = np.bincount(where[present], minlength=total)
-    gridded = np.divide(sums, counts, out=np.full(total, np.nan), where=counts > 0)
+    gridded = np.full(total, np.nan)
+    if np.all(where[1:] > where[:-1]):  # at most one observation per grid point: no averaging
+        gridded[where] = v
+    else:
+        present = ~np.isnan(v)
+        sums = np.bincount(where[present], weights=v[present], minlength=total)
+        counts = np.bincount(where[present], minlength=total)
+        np.divide(sums, counts, out=gridded, where=counts > 0)
     gridded = _filled(gridded, grid_offsets, fill)
 
-    # the first observation at or after each grid point (bins are sorted within rows)
-    observed = np.searchsorted(where, np.arange(total), side="left") - np.repeat(first, n_grid)
     return Grid(
         values=Ragged(gridded, grid_offsets, times.valid),
         start=start,
         months=months,
         length=length,
-        observed=observed,
+        points=where,
         observation_offsets=obs_offsets,
     )
+
+
+def _bins(
+    t: np.ndarray, rows: np.ndarray, start: np.ndarray, months: np.ndarray, length: np.ndarray, has_obs: np.ndarray
+) -> np.ndarray:
+    """The grid point at or before each observation, counted from its row's first time."""
+    bins = np.zeros(len(t), dtype=np.int64)
+    if len(t) == 0:
+        return bins
+    calendar_rows = months > 0
+    if calendar_rows.any():
+        first_month = np.zeros(len(start), dtype=np.int64)
+        first_month[has_obs] = _month_index(start[has_obs])
+        if calendar_rows.all():
+            return (_month_index(t) - first_month[rows]) // months[rows]
+        calendar = calendar_rows[rows]
+        bins[calendar] = (_month_index(t[calendar]) - first_month[rows[calendar]]) // months[rows[calendar]]
+    fixed_rows = ~calendar_rows & (length > 0)
+    if fixed_rows.all():
+        return np.floor((t - start[rows]) / length[rows] + _EPS).astype(np.int64)
+    fixed = fixed_rows[rows]
+    steps = (t[fixed] - start[rows[fixed]]) / length[rows[fixed]]
+    bins[fixed] = np.floor(steps + _EPS).astype(np.int64)
+    return bins
 
 
 def add_months(ticks: np.ndarray, months: np.ndarray) -> np.ndarray:
@@ -202,28 +244,65 @@ def add_months(ticks: np.ndarray, months: np.ndarray) -> np.ndarray:
 
 
 def _month_index(ticks: np.ndarray) -> np.ndarray:
-    return ticks.astype(np.int64).astype("datetime64[us]").astype("datetime64[M]").astype(np.int64)
+    """Months since 1970-01 of each tick (through a table of the days spanned, which is fast)."""
+    if len(ticks) == 0:
+        return np.zeros(0, dtype=np.int64)
+    days = np.floor_divide(ticks, _DAY_US).astype(np.int64)
+    first, last = int(days.min()), int(days.max())
+    if last - first > 4 * len(days) + 100_000:
+        return days.astype("datetime64[D]").astype("datetime64[M]").astype(np.int64)
+    table = np.arange(first, last + 1).astype("datetime64[D]").astype("datetime64[M]").astype(np.int64)
+    return table[days - first]
 
 
 def _sorted_observations(times: Ragged, values: Ragged) -> tuple[np.ndarray, ...]:
-    """Observations with a time, sorted by (row, time, value); NaN values sort last among equal times."""
-    keep = ~np.isnan(times.values)
-    rows = times.row_ids[keep]
-    t, v = times.values[keep], values.values[keep]
-    same_row = rows[1:] == rows[:-1]
-    if np.any(same_row & (t[1:] <= t[:-1])):
-        order = np.lexsort((v, t, rows))
-        rows, t, v = rows[order], t[order], v[order]
+    """Observations with a time, sorted by (row, time, value); NaN values sort last among equal times.
+
+    Only rows out of order are sorted, and only rows with repeated times are also ordered by
+    value: that makes the averages of repeated times independent of the order rows arrived in.
+    """
+    rows, t, v = times.row_ids, times.values, values.values
+    keep = ~np.isnan(t)
+    if not keep.all():
+        rows, t, v = rows[keep], t[keep], v[keep]
+    for by_value in (False, True):
+        same_row = rows[1:] == rows[:-1]
+        wrong = same_row & ((t[1:] == t[:-1]) if by_value else (t[1:] < t[:-1]))
+        if not wrong.any():
+            continue
+        flagged = np.zeros(times.n_rows, dtype=bool)
+        flagged[rows[1:][wrong]] = True
+        touched = np.flatnonzero(flagged[rows])
+        order = (
+            np.lexsort((v[touched], t[touched], rows[touched])) if by_value else _time_order(rows[touched], t[touched])
+        )
+        rows, t, v = rows.copy(), t.copy(), v.copy()  # the inputs may be read-only views of Arrow memory
+        rows[touched], t[touched], v[touched] = rows[touched][order], t[touched][order], v[touched][order]
     counts = np.bincount(rows, minlength=times.n_rows)
     offsets = np.zeros(times.n_rows + 1, dtype=np.int64)
     np.cumsum(counts, out=offsets[1:])
     return t, v, rows, offsets
 
 
+def _time_order(rows: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """The order by (row, time): one integer sort when the times are whole numbers (microseconds)."""
+    low, high = t.min(), t.max()
+    span = high - low + 1
+    if np.all(t == np.floor(t)) and span * (rows.max() - rows.min() + 1) < 2.0**62:
+        key = (rows - rows.min()) * np.int64(span) + (t - low).astype(np.int64)
+        return np.argsort(key, kind="stable")
+    return np.lexsort((t, rows))
+
+
 def _inferred_steps(
     t: np.ndarray, rows: np.ndarray, offsets: np.ndarray, temporal: bool
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Each row's most common spacing between distinct times (the smallest among equally common ones)."""
+    """Each row's most common spacing between distinct times (the smallest among equally common ones).
+
+    A spacing shared by more than half of a row's gaps is its most common one. The median
+    spacing of a sample of the batch is usually that for every row, so most batches are settled
+    by one comparison per gap; only the other rows count every spacing.
+    """
     n_rows = len(offsets) - 1
     months = np.zeros(n_rows, dtype=np.int64)
     length = np.zeros(n_rows)
@@ -231,32 +310,67 @@ def _inferred_steps(
         return months, length
     gap = np.diff(t)
     gap_row = rows[1:]
-    usable = (rows[1:] == rows[:-1]) & (gap > 0)
-    gap, gap_row = gap[usable], gap_row[usable]
-    gap_months = np.zeros(len(gap), dtype=np.int64)
-    if temporal:
-        days = gap / _DAY_US
-        for low, high, m in _CALENDAR:
-            gap_months[(days >= low) & (days <= high + 1 - 1e-9)] = m
-        key = np.where(gap_months > 0, gap_months - 100.0, gap)  # calendar keys first, fewest months first
-    else:
-        scale = np.abs(t).max() or 1.0
-        key = np.rint(gap * (1e9 / scale))  # spacings equal to about 9 digits are one spacing
-    if len(key) == 0:
+    usable = gap > 0
+    usable[offsets[1:-1][offsets[1:-1] > 0] - 1] = False  # the step from one row into the next
+    if not usable.all():
+        gap, gap_row = gap[usable], gap_row[usable]
+    if len(gap) == 0:
         return months, length
-    order = np.lexsort((gap, key, gap_row))
-    key, gap, gap_row, gap_months = key[order], gap[order], gap_row[order], gap_months[order]
-    run_start = np.flatnonzero(np.r_[True, (key[1:] != key[:-1]) | (gap_row[1:] != gap_row[:-1])])
-    run_count = np.diff(np.r_[run_start, len(key)])
-    run_row = gap_row[run_start]
-    # per row, the longest run; among equally long runs the first (calendar, then the shortest spacing)
-    best = np.lexsort((np.arange(len(run_start)), -run_count, run_row))
-    first_of_row = best[np.r_[True, run_row[best][1:] != run_row[best][:-1]]]
-    chosen = run_start[first_of_row]
-    winners = run_row[first_of_row]
-    months[winners] = gap_months[chosen]
-    length[winners] = np.where(gap_months[chosen] > 0, 0.0, gap[chosen])
+    scale = 1e9 / (np.abs(t).max() or 1.0)  # numbers: spacings equal to about 9 digits are one spacing
+    sample = _keys(gap[:: max(1, len(gap) // 999)], temporal, scale)
+    candidate = np.partition(sample, len(sample) // 2)[len(sample) // 2]
+    if temporal and candidate < 0:  # a calendar step: its whole range of days matches
+        m = int(candidate + 100)
+        low, high = next((lo, hi) for lo, hi, mm in _CALENDAR if mm == m)
+        match = (gap >= low * _DAY_US) & (gap < (high + 1) * _DAY_US)
+    else:
+        match = (gap == candidate) if temporal else (np.rint(gap * scale) == candidate)
+    gaps_per_row = np.bincount(gap_row, minlength=n_rows)
+    settled = 2 * np.bincount(gap_row[match], minlength=n_rows) > gaps_per_row
+    best = np.full(n_rows, np.nan)
+    best[settled] = candidate
+    open_rows = ~settled & (gaps_per_row > 0)
+    if open_rows.any():
+        mine = open_rows[gap_row]
+        best[open_rows] = _most_common(_keys(gap[mine], temporal, scale), gap_row[mine], n_rows)[open_rows]
+    calendar = best < 0 if temporal else np.zeros(n_rows, dtype=bool)
+    months[calendar] = (best[calendar] + 100).astype(np.int64)
+    fixed = ~calendar & ~np.isnan(best)
+    if temporal:
+        length[fixed] = best[fixed]
+    elif fixed.any():  # the first gap of each row with its key stands for the spacing
+        chosen = np.flatnonzero(np.rint(gap * scale) == best[gap_row])
+        chosen = chosen[np.r_[True, gap_row[chosen][1:] != gap_row[chosen][:-1]]]
+        length[gap_row[chosen]] = gap[chosen]
     return months, length
+
+
+def _keys(gap: np.ndarray, temporal: bool, scale: float) -> np.ndarray:
+    """What counts as one spacing: calendar months as m - 100 (before any length), else the length."""
+    if not temporal:
+        return np.rint(gap * scale)
+    gap_months = _CALENDAR_MONTHS[np.minimum(gap // _DAY_US, len(_CALENDAR_MONTHS) - 1).astype(np.int64)]
+    return np.where(gap_months > 0, gap_months - 100.0, gap)
+
+
+def _most_common(key: np.ndarray, row: np.ndarray, n_rows: int) -> np.ndarray:
+    """Per row, its most common key (the smallest among equally common ones); NaN for rows without keys."""
+    values, code = np.unique(key, return_inverse=True)
+    out = np.full(n_rows, np.nan)
+    if n_rows * len(values) <= 8_000_000:
+        counts = np.bincount(row * len(values) + code, minlength=n_rows * len(values)).reshape(n_rows, -1)
+        present = counts.any(axis=1)
+        out[present] = values[counts.argmax(axis=1)[present]]  # argmax: the first of equally common keys
+        return out
+    order = np.lexsort((code, row))  # very irregular numbers: count runs of equal keys instead of a table
+    code, row = code[order], row[order]
+    run_start = np.flatnonzero(np.r_[True, (np.diff(code) != 0) | (np.diff(row) != 0)])
+    run_count = np.diff(np.r_[run_start, len(code)])
+    run_row = row[run_start]
+    pick = np.lexsort((np.arange(len(run_start)), -run_count, run_row))
+    pick = pick[np.r_[True, run_row[pick][1:] != run_row[pick][:-1]]]
+    out[run_row[pick]] = values[code[run_start[pick]]]
+    return out
 
 
 def _filled(x: np.ndarray, offsets: np.ndarray, fill: str) -> np.ndarray:
