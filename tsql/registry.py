@@ -412,5 +412,8 @@ def markdown_table() -> str:
     rows = ["| family | function | returns | what it answers |", "|---|---|---|---|"]
     for fn in FUNCTIONS:
         agg = f" · `{fn.name}_agg(value, time, …)`" if fn.aggregate else ""
-        rows.append(f"| {fn.family} | `{fn.signature}`{agg} | `{fn.returns}` | {fn.doc} |")
+        returns = f"`{fn.returns}`"
+        if fn.aggregate and fn.agg_returns != fn.returns:
+            returns += f" · agg: `{fn.agg_returns}`"
+        rows.append(f"| {fn.family} | `{fn.signature}`{agg} | {returns} | {fn.doc} |")
     return "\n".join(rows)
