@@ -153,3 +153,17 @@ def test_span_in_steps_and_back():
     assert np.isnan(grid.steps(0, US_PER_DAY)[0]) and grid.steps(0, US_PER_DAY)[1] == 24.0
     months, length = grid.span(np.array([11.97, 24.0]))
     assert months[0] == 12 and np.isnan(months[1]) and length[1] == US_PER_DAY
+
+
+def test_regular_rows_are_their_own_grid_but_month_ends_are_checked():
+    months = month_starts("2019-01", 36)
+    values = Ragged.from_list([list(range(36)), list(range(36, 72))])
+    grid = on_grid(Ragged.from_list([ticks(months)] * 2), values, temporal=True)
+    assert grid.values.values.tobytes() == values.values.tobytes() and grid.months.tolist() == [1, 1]
+    assert grid.ticks.tolist() == ticks(months) * 2
+    # 31 days apart twice, but January 31 to March 2 crosses two month boundaries
+    odd = on_grid(
+        Ragged.from_list([ticks(["2020-01-31", "2020-03-02", "2020-04-02"])]), Ragged.from_list([[1, 2, 3]]), True
+    )
+    assert odd.months.tolist() == [1]
+    assert np.isnan(odd.values.row(0)).tolist() == [False, True, False, False]

@@ -171,7 +171,9 @@ def on_grid(
     elif step_length:
         length[:] = step_length
     else:
-        months, length = _inferred_steps(t, rows, obs_offsets, temporal)
+        months, length, regular = _inferred_steps(t, rows, obs_offsets, temporal)
+        if regular:  # every spacing is one step: the observations are the grid already
+            return _as_grid(times, t, v, rows, obs_offsets, start, months, length)
 
     bins = _bins(t, rows, start, months, length, has_obs)
     n_grid = np.zeros(n_rows, dtype=np.int64)
@@ -203,6 +205,27 @@ def on_grid(
         points=where,
         observation_offsets=obs_offsets,
     )
+
+
+def _as_grid(
+    times: Ragged,
+    t: np.ndarray,
+    v: np.ndarray,
+    rows: np.ndarray,
+    offsets: np.ndarray,
+    start: np.ndarray,
+    months: np.ndarray,
+    length: np.ndarray,
+) -> Grid:
+    """Observations one step apart everywhere: they are the grid."""
+    return Grid(Ragged(v, offsets, times.valid), start, months, length, np.arange(len(t)), offsets)
+
+
+def _steps_within_rows(offsets: np.ndarray, n: int) -> np.ndarray:
+    """Mask of the n - 1 steps between neighbours of the same row."""
+    inside = np.ones(max(n - 1, 0), dtype=bool)
+    inside[offsets[1:-1][offsets[1:-1] > 0] - 1] = False
+    return inside
 
 
 def _bins(
@@ -296,8 +319,9 @@ def _time_order(rows: np.ndarray, t: np.ndarray) -> np.ndarray:
 
 def _inferred_steps(
     t: np.ndarray, rows: np.ndarray, offsets: np.ndarray, temporal: bool
-) -> tuple[np.ndarray, np.ndarray]:
-    """Each row's most common spacing between distinct times (the smallest among equally common ones).
+) -> tuple[np.ndarray, np.ndarray, bool]:
+    """Each row's most common spacing between distinct times (the smallest among equally common ones),
+    and whether every spacing of the batch is exactly one such step.
 
     A spacing shared by more than half of a row's gaps is its most common one. The median
     spacing of a sample of the batch is usually that for every row, so most batches are settled
@@ -307,15 +331,16 @@ def _inferred_steps(
     months = np.zeros(n_rows, dtype=np.int64)
     length = np.zeros(n_rows)
     if len(t) < 2:
-        return months, length
+        return months, length, False
     gap = np.diff(t)
     gap_row = rows[1:]
-    usable = gap > 0
-    usable[offsets[1:-1][offsets[1:-1] > 0] - 1] = False  # the step from one row into the next
+    within = _steps_within_rows(offsets, len(t))
+    usable = (gap > 0) & within
+    repeats = not np.array_equal(usable, within)
     if not usable.all():
         gap, gap_row = gap[usable], gap_row[usable]
     if len(gap) == 0:
-        return months, length
+        return months, length, False
     scale = 1e9 / (np.abs(t).max() or 1.0)  # numbers: spacings equal to about 9 digits are one spacing
     sample = _keys(gap[:: max(1, len(gap) // 999)], temporal, scale)
     candidate = np.partition(sample, len(sample) // 2)[len(sample) // 2]
@@ -325,6 +350,12 @@ def _inferred_steps(
         match = (gap >= low * _DAY_US) & (gap < (high + 1) * _DAY_US)
     else:
         match = (gap == candidate) if temporal else (np.rint(gap * scale) == candidate)
+    if match.all() and not repeats:  # one step everywhere, unless month ends make a day count mislead
+        calendar = temporal and candidate < 0
+        if not calendar or np.all(np.diff(_month_index(t))[within] == candidate + 100):
+            months[:] = int(candidate + 100) if calendar else 0
+            length[:] = 0.0 if calendar else gap[0]
+            return months, length, True
     gaps_per_row = np.bincount(gap_row, minlength=n_rows)
     settled = 2 * np.bincount(gap_row[match], minlength=n_rows) > gaps_per_row
     best = np.full(n_rows, np.nan)
@@ -342,7 +373,7 @@ def _inferred_steps(
         chosen = np.flatnonzero(np.rint(gap * scale) == best[gap_row])
         chosen = chosen[np.r_[True, gap_row[chosen][1:] != gap_row[chosen][:-1]]]
         length[gap_row[chosen]] = gap[chosen]
-    return months, length
+    return months, length, False
 
 
 def _keys(gap: np.ndarray, temporal: bool, scale: float) -> np.ndarray:
