@@ -214,3 +214,16 @@ def test_null_and_empty_lists(con):
         "(VALUES (NULL, [1]), ([1], NULL), ([]::INTEGER[], []::INTEGER[]), ([5], [3])) v(x, y)"
     ).fetchall()
     assert [r[0] for r in rows] == [None, None, [], [5.0]]
+
+
+def test_an_interval_argument_counts_each_groups_own_steps(con):
+    rows = con.execute(
+        """WITH hourly AS (SELECT 'hourly' AS g, TIMESTAMP '2024-01-01' + to_hours(i) AS t, sin(2 * pi() * i / 24) AS v
+                           FROM range(24 * 7) r(i)),
+                halfhourly AS (SELECT 'half-hourly' AS g, TIMESTAMP '2024-01-01' + to_minutes(30 * i) AS t,
+                                      sin(2 * pi() * i / 48) AS v FROM range(48 * 7) r(i))
+           SELECT g, len(harmonic_profile_agg(v, t, INTERVAL 1 DAY)),
+                  round(epoch(dominant_period_agg(v, t).span) / 3600, 3)
+           FROM (SELECT * FROM hourly UNION ALL SELECT * FROM halfhourly) GROUP BY g ORDER BY g"""
+    ).fetchall()
+    assert rows == [("half-hourly", 48, 24.0), ("hourly", 24, 24.0)]  # a one-day cycle, in hours

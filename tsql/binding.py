@@ -120,7 +120,11 @@ def by_settings(n_rows: int, setting_columns: Any, run: Callable[[np.ndarray | N
     Plain parameters are usually the same on every row (``rows`` is then None: all of them).
     """
     settings = [arrow_batch.scalar_parameter(c) for c in setting_columns]
-    keys = list(zip(*settings)) if settings else [()] * n_rows
+    return by_keys(list(zip(*settings)) if settings else [()] * n_rows, run)
+
+
+def by_keys(keys: list[tuple], run: Callable[[np.ndarray | None, tuple], pa.Array]) -> pa.Array:
+    """Call ``run(rows, key)`` once per distinct key (one per row) and put the rows back in order."""
     distinct = dict.fromkeys(keys)
     if len(distinct) <= 1:
         return run(None, next(iter(distinct), ()))

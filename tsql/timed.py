@@ -27,7 +27,7 @@ import numpy as np
 import pyarrow as pa
 
 from tsql import batch as arrow_batch
-from tsql.binding import _checked_arguments, _Converter, by_settings, check_argument, create_udf, with_arity
+from tsql.binding import _checked_arguments, _Converter, by_keys, by_settings, check_argument, create_udf, with_arity
 from tsql.kernels.grid import Grid, on_grid
 from tsql.kernels.ragged import Ragged, RaggedRecords
 from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, SPAN, Function, Param
@@ -210,9 +210,6 @@ def _per_argument_group(fn: Function, grid: Grid, per_row: list[Any], answer: An
     n_rows = grid.values.n_rows
     columns = [a if isinstance(a, np.ndarray) else [a] * n_rows for a in per_row]
     keys = [tuple(None if (isinstance(x, float) and np.isnan(x)) else x for x in row) for row in zip(*columns)]
-    if not keys:
-        keys = [()] * n_rows
-    distinct = dict.fromkeys(keys)
 
     def call(rows: np.ndarray | None, key: tuple) -> pa.Array:
         kwargs = _checked_arguments(fn, key)
@@ -221,17 +218,7 @@ def _per_argument_group(fn: Function, grid: Grid, per_row: list[Any], answer: An
             return pa.nulls(sub.values.n_rows, type=_arrow_type(fn))
         return answer(sub, kwargs)
 
-    if len(distinct) <= 1:
-        return call(None, next(iter(distinct), ()))
-    groups: dict[tuple, list[int]] = {k: [] for k in distinct}
-    for i, k in enumerate(keys):
-        groups[k].append(i)
-    parts, order = [], []
-    for k, members in groups.items():
-        rows = np.asarray(members, dtype=np.int64)
-        parts.append(call(rows, k))
-        order.append(rows)
-    return pa.concat_arrays(parts).take(pa.array(np.argsort(np.concatenate(order), kind="stable")))
+    return by_keys(keys or [()] * n_rows, call)
 
 
 def _arrow_type(fn: Function) -> pa.DataType:
