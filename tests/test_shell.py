@@ -336,3 +336,9 @@ def test_a_database_that_cannot_be_opened_is_one_line_and_exit_2(tmp_path):
     )
     assert done.returncode == 2 and done.stderr.startswith("tsql shell: ") and done.stderr.count("\n") == 1
     assert not missing.exists()
+
+
+def test_negative_zero_prints_as_zero():
+    from tsql.render import format_table
+
+    assert "-0" not in format_table(["r"], [(round(-0.001, 2),)], width=40, max_rows=5)

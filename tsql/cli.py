@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 
 from tsql import __version__
 from tsql.registry import BY_NAME, FUNCTIONS, Function, markdown_table
@@ -60,6 +61,44 @@ def _run(args: argparse.Namespace) -> int:
         return 130
 
 
+def _demo(args: argparse.Namespace) -> int:
+    from tsql.demo import main as demo
+
+    try:
+        return demo(args.db)
+    except KeyboardInterrupt:
+        print("tsql demo: interrupted", file=sys.stderr)
+        return 130
+
+
+def _plot(args: argparse.Namespace) -> int:
+    from tsql.plot import main as plot
+
+    sql = args.sql
+    if args.sql_file is not None:
+        try:
+            sql = Path(args.sql_file).expanduser().read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as error:
+            reason = getattr(error, "strerror", None) or error
+            print(f"tsql plot: cannot read {args.sql_file}: {reason}", file=sys.stderr)
+            return 2
+    try:
+        return plot(
+            sql,
+            args.out,
+            db=args.db,
+            marks=args.marks,
+            smooth=args.smooth,
+            harmonics=args.harmonics,
+            period=args.period,
+            title=args.title,
+            replace=args.replace,
+        )
+    except KeyboardInterrupt:
+        print("tsql plot: interrupted", file=sys.stderr)
+        return 130
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="tsql", description="Time-series diagnostics as SQL functions over DuckDB.")
     parser.add_argument("--version", action="version", version=f"tsql {__version__}")
@@ -81,6 +120,38 @@ def main(argv: list[str] | None = None) -> int:
         "--param", action="append", default=[], metavar="NAME=VALUE", help="a value for $NAME in the SQL (repeatable)"
     )
     script.set_defaults(run=_run)
+    demo = commands.add_parser("demo", help="five questions asked of the sample warehouse, with the planted answers")
+    demo.add_argument(
+        "--db", metavar="PATH", help="where to keep the sample warehouse (default: a file in your cache folder)"
+    )
+    demo.set_defaults(run=_demo)
+    picture = commands.add_parser(
+        "plot",
+        help="draw a query's series as a PNG or SVG picture",
+        description=(
+            "Draw the series of a query, one line each. The query returns a time, a value and optionally a "
+            "series column: named time, value and series, or told apart by type (the text column is the "
+            "series, the DATE or TIMESTAMP column the time). Needs matplotlib: pip install 'tsql[plot]'."
+        ),
+        epilog=(
+            "example: tsql plot --db shop.duckdb --out sales.png --smooth "
+            "--sql \"SELECT item, month, units FROM monthly_sales WHERE item IN ('SKU-0006', 'SKU-2056')\""
+        ),
+    )
+    query = picture.add_mutually_exclusive_group(required=True)
+    query.add_argument("--sql", metavar="QUERY", help="rows of (time, value) or (time, value, series)")
+    query.add_argument("--sql-file", metavar="FILE.sql", help="read the query from a file")
+    picture.add_argument("--out", required=True, metavar="PICTURE", help="a .png or .svg file to write")
+    picture.add_argument("--db", default=":memory:", metavar="DATABASE", help="a DuckDB file, opened read-only")
+    picture.add_argument(
+        "--marks", metavar="QUERY", help="times for dotted vertical lines: rows of (time) or (series, time)"
+    )
+    picture.add_argument("--smooth", action="store_true", help="overlay each series' harmonic_smooth_agg curve")
+    picture.add_argument("--harmonics", type=int, default=3, metavar="N", help="harmonics of --smooth (default 3)")
+    picture.add_argument("--period", metavar="SPAN", help="period of --smooth: '1 day', '1 year' or a number of steps")
+    picture.add_argument("--title", metavar="TEXT", help="a title above the picture")
+    picture.add_argument("--replace", action="store_true", help="let --out overwrite an existing file")
+    picture.set_defaults(run=_plot)
     args = parser.parse_args(argv)
     return args.run(args)
 

@@ -110,7 +110,7 @@ def _float(x: float) -> str:
         return "NaN"
     if math.isinf(x):
         return "inf" if x > 0 else "-inf"
-    return f"{x:.10g}"
+    return f"{x + 0.0:.10g}"  # + 0.0 turns -0.0 (e.g. a rounded -0.001) into 0
 
 
 def _interval(months: int, days: int, micros: int) -> str:

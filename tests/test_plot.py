@@ -1,0 +1,210 @@
+"""`tsql plot`: a query's series drawn to PNG or SVG, with marks and smooth curves, never over a file by accident."""
+
+import contextlib
+import io
+import subprocess
+import sys
+import xml.etree.ElementTree as ET
+
+import duckdb
+import pyarrow as pa
+import pytest
+
+from tsql.cli import main
+from tsql.plot import MISSING_MATPLOTLIB, PlotError, column_roles
+
+pytest.importorskip("matplotlib")
+
+SVG = "{http://www.w3.org/2000/svg}"
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG specification, section 5.2: the signature of every PNG file
+SERIES = ("east", "north", "west")
+# (series, day, value): three sine waves of 90 days with different periods, one NULL value in 'north'
+ROWS = """
+SELECT s AS region, DATE '2024-01-01' + INTERVAL (i) DAY AS day,
+       CASE WHEN s = 'north' AND i = 40 THEN NULL ELSE 10 * k + sin(2 * pi() * i / (7 * k)) END AS sales
+FROM (VALUES ('east', 1), ('north', 2), ('west', 3)) regions(s, k), range(90) days(i)
+"""
+
+
+@pytest.fixture(scope="module")
+def db(tmp_path_factory):
+    path = tmp_path_factory.mktemp("plot") / "sales.duckdb"
+    with duckdb.connect(str(path)) as con:
+        con.execute(f"CREATE TABLE sales AS {ROWS}")
+    return str(path)
+
+
+def run(argv: list[str]) -> tuple[int, str, str]:
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main(argv)
+    return code, out.getvalue(), err.getvalue()
+
+
+def groups(svg_path) -> dict[str, list[str]]:
+    """The tsql-* groups of an SVG file: id -> tags of their children."""
+    root = ET.parse(svg_path).getroot()
+    return {
+        g.get("id"): [child.tag.removeprefix(SVG) for child in g]
+        for g in root.iter(f"{SVG}g")
+        if g.get("id", "").startswith("tsql-")
+    }
+
+
+def test_png_is_written(db, tmp_path):
+    out = tmp_path / "sales.png"
+    code, stdout, err = run(["plot", "--db", db, "--sql", "SELECT region, day, sales FROM sales", "--out", str(out)])
+    assert code == 0 and err == ""
+    assert out.read_bytes()[:8] == PNG_MAGIC
+    assert stdout.strip() == f"wrote {out} (3 series, 270 points)"
+
+
+def test_svg_has_one_path_per_series(db, tmp_path):
+    out = tmp_path / "sales.svg"
+    assert run(["plot", "--db", db, "--sql", "SELECT day, sales, region FROM sales", "--out", str(out)])[0] == 0
+    found = groups(out)
+    assert found == {f"tsql-series-{k}": ["path"] for k in range(1, 4)}
+    assert ET.parse(out).getroot().tag == f"{SVG}svg"
+
+
+def test_one_series_without_a_series_column(tmp_path):
+    out = tmp_path / "one.svg"
+    sql = "SELECT i AS t, i * i AS y FROM range(20) r(i)"  # numbers for times: the first numeric column
+    code, stdout, _ = run(["plot", "--sql", sql, "--out", str(out)])
+    assert code == 0 and "(1 series, 20 points)" in stdout
+    assert groups(out) == {"tsql-series-1": ["path"]}
+
+
+def test_marks_are_drawn_on_their_series(db, tmp_path):
+    out = tmp_path / "marked.svg"
+    marks = (
+        "SELECT 'west' AS region, [DATE '2024-02-01', DATE '2024-03-01'] AS days "  # a list: one mark per element
+        "UNION ALL SELECT 'east', [DATE '2024-01-15']"
+    )
+    code, _, err = run(
+        ["plot", "--db", db, "--sql", "SELECT region, day, sales FROM sales", "--marks", marks, "--out", str(out)]
+    )
+    assert code == 0, err
+    found = groups(out)
+    assert sorted(g for g in found if g.startswith("tsql-mark-")) == ["tsql-mark-1-1", "tsql-mark-3-1", "tsql-mark-3-2"]
+    assert all(found[g] == ["path"] for g in found)
+
+
+def test_marks_without_a_series_go_on_every_series(db, tmp_path):
+    out = tmp_path / "everywhere.svg"
+    code, _, _ = run(
+        ["plot", "--db", db, "--sql", "SELECT region, day, sales FROM sales",
+         "--marks", "SELECT DATE '2024-02-10'", "--out", str(out)]
+    )  # fmt: skip
+    assert code == 0
+    assert sorted(g for g in groups(out) if g.startswith("tsql-mark-")) == [f"tsql-mark-{k}-1" for k in (1, 2, 3)]
+
+
+def test_smooth_overlays_one_curve_per_series(db, tmp_path):
+    out = tmp_path / "smooth.svg"
+    code, _, err = run(
+        ["plot", "--db", db, "--sql", "SELECT region, day, sales FROM sales", "--smooth",
+         "--harmonics", "2", "--period", "7 days", "--out", str(out)]
+    )  # fmt: skip
+    assert code == 0, err
+    found = groups(out)
+    assert [g for g in found if g.startswith("tsql-smooth-")] == [f"tsql-smooth-{k}" for k in (1, 2, 3)]
+
+
+def test_an_existing_file_is_not_overwritten_without_replace(db, tmp_path):
+    out = tmp_path / "taken.png"
+    out.write_bytes(b"someone else's picture")
+    argv = ["plot", "--db", db, "--sql", "SELECT region, day, sales FROM sales", "--out", str(out)]
+    code, stdout, err = run(argv)
+    assert code == 2 and stdout == ""
+    assert err == f"tsql plot: {out} exists; pass --replace to overwrite it\n"
+    assert out.read_bytes() == b"someone else's picture"
+    assert run([*argv, "--replace"])[0] == 0
+    assert out.read_bytes()[:8] == PNG_MAGIC
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["taken.png"]  # no temporary file left behind
+
+
+@pytest.mark.parametrize(
+    ("argv", "message"),
+    [
+        (["--sql", "SELECT 1 AS t, 2 AS v", "--out", "picture.jpg"], "--out must end in .png or .svg"),
+        (["--sql", "SELECT * FROM no_such_table", "--out", "p.png"], "--sql query failed: Catalog Error"),
+        (["--sql", "SELECT 'a' AS x, 'b' AS y", "--out", "p.png"], "must return a time, a value and optionally"),
+        (["--sql", "SELECT 1 AS t, 2 AS v WHERE false", "--out", "p.png"], "returned no rows"),
+        (["--sql", "SELECT 1 AS t, 2 AS v; SELECT 3", "--out", "p.png"], "exactly one SQL query"),
+        (["--sql", "SELECT 1 AS t, 2 AS v", "--marks", "SELECT 'x'", "--out", "p.png"], "neither times nor numbers"),
+        (["--sql", "SELECT 1 AS t, 2 AS v", "--smooth", "--period", "often", "--out", "p.png"], "--period must be"),
+        (["--sql", "SELECT 1 AS t, 2 AS v", "--marks", "SELECT DATE '2024-01-01'", "--out", "p.png"], "but the times"),
+        (["--db", "missing.duckdb", "--sql", "SELECT 1 AS t, 2 AS v", "--out", "p.png"], "no database at"),
+    ],
+)
+def test_mistakes_are_one_line_errors(tmp_path, monkeypatch, argv, message):
+    monkeypatch.chdir(tmp_path)
+    code, stdout, err = run(["plot", *argv])
+    assert code == 2 and stdout == ""
+    assert err.startswith("tsql plot: ") and message in err and err.count("\n") == 1
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_missing_matplotlib_is_a_clear_message(tmp_path, monkeypatch):
+    monkeypatch.setitem(sys.modules, "matplotlib", None)  # makes `import matplotlib` raise ImportError
+    out = tmp_path / "p.png"
+    code, stdout, err = run(["plot", "--sql", "SELECT 1 AS time, 2 AS value", "--out", str(out)])
+    assert code == 2 and stdout == ""
+    assert err == f"tsql plot: {MISSING_MATPLOTLIB}\n" and "pip install 'tsql[plot]'" in err
+    assert not out.exists()
+
+
+def test_missing_matplotlib_from_the_command_line(tmp_path):
+    """The same in a fresh interpreter, where matplotlib was never imported."""
+    script = (
+        "import sys; sys.modules['matplotlib'] = None\n"
+        "from tsql.cli import main\n"
+        f"sys.exit(main(['plot', '--sql', 'SELECT 1 AS time, 2 AS value', '--out', {str(tmp_path / 'p.svg')!r}]))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
+    assert done.returncode == 2 and done.stdout == ""
+    assert done.stderr == f"tsql plot: {MISSING_MATPLOTLIB}\n"
+
+
+def schema(**columns: pa.DataType) -> pa.Schema:
+    return pa.schema(list(columns.items()))
+
+
+def test_column_roles_by_name_then_by_type():
+    # by name, in any order
+    assert column_roles(schema(value=pa.float64(), series=pa.string(), time=pa.date32())) == {
+        "time": 2,
+        "value": 0,
+        "series": 1,
+    }
+    # by type: the text column is the series, the date the time
+    assert column_roles(schema(instrument=pa.string(), day=pa.date32(), price=pa.float64())) == {
+        "time": 1,
+        "value": 2,
+        "series": 0,
+    }
+    # two numbers: the first is the time
+    assert column_roles(schema(step=pa.int64(), reading=pa.float64())) == {"time": 0, "value": 1}
+    for bad in (
+        schema(a=pa.string(), b=pa.string(), c=pa.float64()),  # two text columns
+        schema(t=pa.date32(), a=pa.float64(), b=pa.float64()),  # which number is the series?
+        schema(only=pa.float64()),
+    ):
+        with pytest.raises(PlotError, match="Name the columns time, value and series"):
+            column_roles(bad)
+    with pytest.raises(PlotError, match="is not a number"):
+        column_roles(schema(time=pa.date32(), value=pa.string()))
+
+
+def test_query_from_a_file_and_a_series_too_short_to_smooth(db, tmp_path):
+    query = tmp_path / "query.sql"
+    query.write_text(
+        "-- east in full; north and west for three days only\n"
+        "SELECT region, day, sales FROM sales WHERE region = 'east' OR day < DATE '2024-01-04';\n"
+    )
+    out = tmp_path / "short.svg"
+    code, stdout, err = run(["plot", "--db", db, "--sql-file", str(query), "--smooth", "--out", str(out)])
+    assert code == 0 and "(3 series, 96 points)" in stdout
+    assert err == "tsql plot: too few values for a smooth curve: north, west\n"
+    assert [g for g in groups(out) if g.startswith("tsql-smooth-")] == ["tsql-smooth-1"]
