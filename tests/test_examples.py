@@ -1,4 +1,4 @@
-"""The README's first command: the quick start runs and finds what its generator planted."""
+"""The Python quick start example (examples/quickstart.py) runs and finds what its generator planted."""
 
 import importlib.util
 from pathlib import Path

@@ -7,6 +7,7 @@ import sys
 import xml.etree.ElementTree as ET
 
 import duckdb
+import numpy as np
 import pyarrow as pa
 import pytest
 
@@ -57,6 +58,15 @@ def test_png_is_written(db, tmp_path):
     assert code == 0 and err == ""
     assert out.read_bytes()[:8] == PNG_MAGIC
     assert stdout.strip() == f"wrote {out} (3 series, 270 points)"
+    from matplotlib.image import imread
+
+    pixels = imread(out)
+    assert pixels.shape[:2] == (576, 1200)  # 10 x 4.8 inches at 120 dots per inch
+    white = (pixels[..., :3] > 0.99).all(axis=-1)
+    assert white[0, 0] and white[-1, -1]  # the corners are background
+    assert 0.02 < 1 - white.mean() < 0.5  # lines, axes and labels: some ink, not a filled picture
+    colours = {tuple(np.round(p[:3], 1)) for p in pixels[~white][::50]}
+    assert len(colours) >= 4  # three series colours and the black of the axes at least
 
 
 def test_svg_has_one_path_per_series(db, tmp_path):

@@ -142,3 +142,14 @@ def test_exit_codes_of_the_command(scripts, tmp_path):
     files = scripts(a="SELECT 1;\n\nSELECT 1 / 'x';")
     done = subprocess.run([sys.executable, "-m", "tsql.cli", "run", *files], capture_output=True, text=True)
     assert done.returncode == 1 and done.stderr.startswith("a.sql:3: ") and done.stdout == ""
+
+
+def test_an_argument_error_reads_plainly(tmp_path, capsys):
+    from tsql.cli import main
+
+    script = tmp_path / "bad.sql"
+    script.write_text("SELECT 1;\nSELECT acf([1, 2, 3], max_lag := 0);\n")
+    assert main(["run", str(script)]) == 1
+    err = capsys.readouterr().err
+    assert f"{script}:2: Invalid Input Error: acf: max_lag must be >= 1, got 0" in err
+    assert "Python exception" not in err

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import duckdb
 
-from tsql.render import format_arrow
+from tsql.render import error_message, format_arrow
 
 MAX_ROWS = 40
 FORMATS = {
@@ -252,6 +252,6 @@ def run(
                     if table is not None and (table.num_rows or is_query(text)):
                         print(format_arrow(table, shutil.get_terminal_size().columns, MAX_ROWS))
             except Exception as error:  # a DuckDB error, or one raised inside a tsql function
-                print(f"{step.path}:{step.statement.line}: {error}", file=sys.stderr)
+                print(f"{step.path}:{step.statement.line}: {error_message(error)}", file=sys.stderr)
                 return 1
     return 0

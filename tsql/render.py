@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import re
 from collections.abc import Sequence
 from decimal import Decimal
 from typing import Any
@@ -153,3 +154,12 @@ def _fit(natural: list[int], width: int) -> list[int]:
 
 def _cut(text: str, width: int) -> str:
     return text if len(text) <= width else text[: max(width - 1, 0)] + ELLIPSIS
+
+
+_UDF_WRAPPER = re.compile(r"Python exception occurred while executing the UDF: \w+: ")
+
+
+def error_message(error: BaseException) -> str:
+    """A DuckDB error as a user should read it: an argument error from a tsql function loses the
+    wrapper DuckDB puts around errors raised in Python functions."""
+    return _UDF_WRAPPER.sub("", str(error))

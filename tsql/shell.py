@@ -22,7 +22,7 @@ import pyarrow as pa
 
 from tsql import __version__
 from tsql.pipeline import UsageError, is_query, out_options, split_statements, write_result
-from tsql.render import format_arrow
+from tsql.render import error_message, format_arrow
 
 PROMPT = "tsql> "
 MORE = "  ... "
@@ -121,7 +121,7 @@ class Shell:
         if isinstance(error, duckdb.InterruptException):
             print("\nquery cancelled", file=sys.stderr)
         elif error is not None:
-            print(error, file=sys.stderr)
+            print(error_message(error), file=sys.stderr)
         else:
             table = outcome.get("table")
             if isinstance(table, pa.Table) and (table.num_rows or is_query(sql)):
@@ -140,7 +140,7 @@ class Shell:
         try:
             self._command(name, argument)
         except Exception as error:  # e.g. a DuckDB error while writing a file
-            print(error, file=sys.stderr)
+            print(error_message(error), file=sys.stderr)
         return True
 
     def _command(self, name: str, argument: str) -> None:
@@ -184,7 +184,7 @@ class Shell:
         try:
             out_options(path)
         except UsageError as error:
-            print(error, file=sys.stderr)
+            print(error_message(error), file=sys.stderr)
             return
         if path.exists():
             print(f"{path} exists; not overwritten (remove it or choose another name)", file=sys.stderr)
