@@ -192,6 +192,10 @@ def test_explicit_steps(con, sst):
             "dominant_period_agg: fill must be one of",
         ),
         (
+            "SELECT acf_agg(v, t, max_lag := 0) FROM (VALUES (1, 1), (2, 2)) x(v, t)",
+            "acf_agg: max_lag must be >= 1, got 0",
+        ),
+        (
             "SELECT harmonic_profile_agg(v, t, INTERVAL 1 MONTH) FROM "
             "(SELECT i AS v, TIMESTAMP '2024-01-01' + to_hours(i) AS t FROM range(100) r(i))",
             "cannot be counted in the grid's steps",

@@ -141,7 +141,7 @@ def by_keys(keys: list[tuple], run: Callable[[np.ndarray | None, tuple], pa.Arra
 
 
 def _run(fn: Function, convert: Callable, series: list[pa.Array], key: tuple, n_rows: int) -> pa.Array:
-    kwargs = _checked_arguments(fn, key)
+    kwargs = checked_arguments(fn, key)
     if kwargs is None:  # a NULL argument that has no "not set" meaning
         return pa.nulls(n_rows, type=convert.arrow_type)
     batches = [arrow_batch.to_ragged(s) for s in series]
@@ -152,7 +152,12 @@ def _run(fn: Function, convert: Callable, series: list[pa.Array], key: tuple, n_
     return convert(result, valid)
 
 
-def _checked_arguments(fn: Function, key: tuple) -> dict | None:
+def checked_arguments(fn: Function, key: tuple, name: str | None = None) -> dict | None:
+    """The plain arguments as keyword arguments for the kernel, checked; None when a NULL one makes the row NULL.
+
+    Errors name ``name`` (default: the function's own name; the *_agg forms pass theirs).
+    """
+    name = name or fn.name
     kwargs = {}
     for p, value in zip(fn.params, key):
         if value is None:
@@ -160,14 +165,14 @@ def _checked_arguments(fn: Function, key: tuple) -> dict | None:
                 return None
             kwargs[p.name] = None
             continue
-        kwargs[p.name] = check_argument(fn.name, p, value)
+        kwargs[p.name] = check_argument(name, p, value)
     for smaller, larger, message in fn.relations:
         a, b = kwargs.get(smaller), kwargs.get(larger)
         if a is not None and b is not None and b < a:
-            raise ValueError(f"{fn.name}: {message}, got {smaller} = {_show(a)} and {larger} = {_show(b)}")
+            raise ValueError(f"{name}: {message}, got {smaller} = {_show(a)} and {larger} = {_show(b)}")
     problem = fn.check(kwargs) if fn.check else None
     if problem:
-        raise ValueError(f"{fn.name}: {problem}")
+        raise ValueError(f"{name}: {problem}")
     return kwargs
 
 

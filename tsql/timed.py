@@ -27,7 +27,7 @@ import numpy as np
 import pyarrow as pa
 
 from tsql import batch as arrow_batch
-from tsql.binding import _checked_arguments, _Converter, by_keys, by_settings, check_argument, create_udf, with_arity
+from tsql.binding import _Converter, by_keys, by_settings, check_argument, checked_arguments, create_udf, with_arity
 from tsql.kernels.grid import Grid, on_grid
 from tsql.kernels.ragged import Ragged, RaggedRecords
 from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, SPAN, Function, Param
@@ -212,7 +212,7 @@ def _per_argument_group(fn: Function, grid: Grid, per_row: list[Any], answer: An
     keys = [tuple(None if (isinstance(x, float) and np.isnan(x)) else x for x in row) for row in zip(*columns)]
 
     def call(rows: np.ndarray | None, key: tuple) -> pa.Array:
-        kwargs = _checked_arguments(fn, key)
+        kwargs = checked_arguments(fn, key, f"{fn.name}_agg")
         sub = grid if rows is None else grid.take(rows)
         if kwargs is None:
             return pa.nulls(sub.values.n_rows, type=_arrow_type(fn))

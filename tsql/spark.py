@@ -1,0 +1,487 @@
+"""Spark host: every tsql function in a Spark session, as vectorised Arrow UDFs.
+
+``tsql.spark.register(spark)`` registers each public function under its own name
+for Spark SQL, on the same batch layer and kernels as the DuckDB functions, so
+the answers are the same number for number:
+
+.. code-block:: python
+
+    import tsql.spark
+
+    tsql.spark.register(spark)
+    spark.sql('''
+        SELECT item, seasonality_agg(units, month) AS s, trend_test_agg(units, month) AS t
+        FROM sales GROUP BY item
+    ''')
+
+List forms are scalar Arrow UDFs over ``array<number>`` columns, e.g. a series
+collected in time order::
+
+    seasonality(transform(array_sort(collect_list(struct(month, units))), x -> x.units))
+
+``*_agg(value, time, ...)`` forms are grouped-aggregate Arrow UDFs: each group's
+rows go on their regular time grid first (missing periods come back as gaps),
+exactly as in DuckDB.
+
+Arguments go by position, in the order of the DuckDB signature, or by name
+with Spark's ``=>`` (``acf(v, max_lag => 24)``, ``seasonality_agg(units, month,
+step => '1 month')``); any argument with a default may be left off.
+:func:`positional_forms` lists every form, e.g.
+``seasonality_agg(value, time, min_period = 2, max_period = NULL, step = NULL, fill = 'null')``.
+
+Differences from DuckDB, forced by Spark's fixed UDF return types:
+
+- A period from an ``*_agg`` form (``dominant_period_agg``, ``seasonality_agg``'s
+  ``period``) is a DOUBLE count of grid steps, the number the list form gives on
+  the gridded series: 12.0 for a yearly cycle on a monthly grid, 24.0 for a daily
+  cycle on an hourly one. (DuckDB answers with an INTERVAL, rounded to whole
+  months on a calendar grid.) Give ``step`` to fix the grid for every group.
+- Times in answers (``change_points_agg``, ``segments_agg``'s ``first``/``last``,
+  ``harmonic_smooth_agg``'s ``time``) come back in one Spark type per session,
+  ``register(spark, time_type=...)``: ``'date'`` (the default; DATE times, or
+  TIMESTAMP_NTZ times at midnight), ``'timestamp_ntz'`` (DATE or TIMESTAMP_NTZ
+  times), ``'timestamp'`` (TIMESTAMP times) or ``'double'`` (numeric times). A
+  time column the chosen type cannot hold exactly is an error saying which to choose.
+- Spans (``step``, ``min_period``, ``period`` ... in the ``*_agg`` forms and
+  ``on_grid``) may be a number of grid steps, a day-time interval
+  (``INTERVAL '1' DAY``) or text that DuckDB reads as an interval (``'1 month'``);
+  a year-month interval (``INTERVAL 1 MONTH``) cannot reach a Python UDF in
+  Spark: write ``'1 month'``.
+
+An argument that makes no sense fails the query with Spark's ``PythonException``,
+whose message ends with tsql's own (``autocorrelation: lag must be >= 1, got -1``);
+``spark.sql.execution.pyspark.udf.hideTraceback.enabled=true`` leaves only that line.
+
+An ``*_agg`` form runs the kernel once per group. For many thousands of groups the
+list form over collected rows is batched and faster, and gives the same answer::
+
+    seasonality(on_grid(transform(r, x -> x.units), transform(r, x -> x.month)))
+    -- with r = array_sort(collect_list(struct(month, units))) per item
+
+Spark executors run the UDFs in their own Python: install tsql there too
+(``pip install tsql`` on every node, or ship a packed environment with
+``spark.archives``). ``spark.submit.pyFiles`` (or ``spark.sparkContext.addPyFile``)
+with a zip of the ``tsql`` package also works where numpy, scipy, numba, pyarrow
+and duckdb are already installed on the executors.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import re
+from collections.abc import Callable, Sequence
+from functools import lru_cache
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from tsql import timed
+from tsql.binding import _Converter, make_udf
+from tsql.registry import FUNCTIONS, GRID_PARAMS, Function, Param
+
+__all__ = ["TIME_TYPES", "positional_forms", "register"]
+
+TIME_TYPES = ("date", "timestamp_ntz", "timestamp", "double")
+"""The Spark types ``register(spark, time_type=...)`` can give times in."""
+
+_DAY_US = 86_400_000_000
+_NUMERIC_TIMES = {
+    pa.int8(): "TINYINT",
+    pa.int16(): "SMALLINT",
+    pa.int32(): "INTEGER",
+    pa.int64(): "BIGINT",
+    pa.float32(): "FLOAT",
+    pa.float64(): "DOUBLE",
+}
+_SPAN_TYPE = pa.struct(
+    [
+        pa.field("text", pa.string()),
+        pa.field("interval", pa.month_day_nano_interval()),
+        pa.field("number", pa.float64()),
+    ]
+)
+
+
+def register(spark: Any, time_type: str = "date") -> Any:
+    """Register every tsql function on the Spark session ``spark``; calling it again replaces them.
+
+    ``time_type`` is the Spark type in which ``*_agg`` answers give times (one of
+    :data:`TIME_TYPES`). Returns ``spark``.
+    """
+    from pyspark.sql.functions import arrow_udf
+
+    if time_type not in TIME_TYPES:
+        allowed = ", ".join(repr(t) for t in TIME_TYPES)
+        raise ValueError(f"tsql.spark.register: time_type must be one of {allowed}, got {time_type!r}")
+    for fn in FUNCTIONS:
+        spark.udf.register(fn.name, arrow_udf(_list_udf(fn), _spark_type(fn.returns)))
+        if fn.aggregate:
+            udf = _agg_udf(fn, time_type)
+            spark.udf.register(f"{fn.name}_agg", arrow_udf(udf, _spark_type(_agg_returns(fn), time_type)))
+    return spark
+
+
+def positional_forms() -> list[str]:
+    """Every Spark SQL call form, arguments in positional order with their defaults."""
+    forms = []
+    for fn in FUNCTIONS:
+        forms.append(_form(fn.name, fn.series, fn.params))
+        if fn.aggregate:
+            forms.append(_form(f"{fn.name}_agg", ("value", "time"), fn.params + GRID_PARAMS))
+    return forms
+
+
+def _form(name: str, series: Sequence[str], params: Sequence[Param]) -> str:
+    args = list(series) + [p.name if p.default is None else f"{p.name} = {p.default}" for p in params]
+    return f"{name}({', '.join(args)})"
+
+
+# --- types -------------------------------------------------------------------
+
+
+def _agg_returns(fn: Function) -> str:
+    """The ``*_agg`` answer as a DuckDB-style type, ``time`` standing for the session's time type."""
+    if fn.time_answer in ("same", "period"):
+        return fn.returns  # a period stays a DOUBLE: grid steps
+    if fn.time_answer == "series":
+        return "STRUCT(time time, value DOUBLE)[]"
+    return fn.agg_returns  # 'time[]', or STRUCT(first time, last time, ...)[]
+
+
+def _spark_type(sql: str, time_type: str | None = None) -> Any:
+    from pyspark.sql import types as T
+
+    if sql.endswith("[]"):
+        return T.ArrayType(_spark_type(sql[:-2], time_type))
+    struct = re.fullmatch(r"STRUCT\((.*)\)", sql)
+    if struct:
+        fields = [f.strip().split(None, 1) for f in struct.group(1).split(",")]
+        return T.StructType([T.StructField(name, _spark_type(t, time_type)) for name, t in fields])
+    simple = {
+        "DOUBLE": T.DoubleType(),
+        "INTEGER": T.IntegerType(),
+        "BIGINT": T.LongType(),
+        "VARCHAR": T.StringType(),
+        "time": {
+            "date": T.DateType(),
+            "timestamp_ntz": T.TimestampNTZType(),
+            "timestamp": T.TimestampType(),
+            "double": T.DoubleType(),
+        }.get(time_type),
+    }
+    return simple[sql]
+
+
+# --- arguments -----------------------------------------------------------------
+
+
+def _default(sql: str | None) -> Any:
+    """A macro default (SQL text) as a Python value."""
+    if sql is None or sql == "NULL":
+        return None
+    if sql.startswith("'"):
+        return sql.strip("'")
+    if sql in ("true", "false"):
+        return sql == "true"
+    return float(sql)
+
+
+def _complete(
+    name: str, series: Sequence[str], params: Sequence[Param], columns: Sequence[Any], named: dict[str, Any]
+) -> list[pa.Array]:
+    """Every argument's column in positional order: those given by position, then by name (``lag => 12``),
+    then a column of its default for each one left off."""
+    form = _form(name, series, params)
+    names = list(series) + [p.name for p in params]
+    if len(columns) > len(names):
+        raise ValueError(f"{name}: takes at most {len(names)} arguments, {form}; got {len(columns)}")
+    given = dict(zip(names, columns))
+    for key, column in named.items():
+        if key not in names:
+            raise ValueError(f"{name}: no argument is named {key}, {form}")
+        if key in given:
+            raise ValueError(f"{name}: {key} is given twice, {form}")
+        given[key] = column
+    for argument in series:
+        if argument not in given:
+            raise ValueError(f"{name}: {argument} is required, {form}")
+    given = {k: c.combine_chunks() if isinstance(c, pa.ChunkedArray) else c for k, c in given.items()}
+    n_rows = len(given[series[0]])
+    for p in params:
+        if p.name not in given:
+            if p.default is None:
+                raise ValueError(f"{name}: {p.name} is required, {form}")
+            given[p.name] = pa.array([_default(p.default)] * n_rows)
+    return [given[n] for n in names]
+
+
+def _is_number(t: pa.DataType) -> bool:
+    return pa.types.is_integer(t) or pa.types.is_floating(t) or pa.types.is_decimal(t)
+
+
+def _series(name: str, argument: str, column: pa.Array) -> pa.Array:
+    t = column.type
+    if not (pa.types.is_list(t) or pa.types.is_large_list(t)) or not (
+        _is_number(t.value_type) or pa.types.is_null(t.value_type)
+    ):
+        raise ValueError(f"{name}: {argument} must be an array of numbers, got {t}")
+    return column
+
+
+def _plain(name: str, p: Param, column: pa.Array) -> pa.Array:
+    """A plain argument as the DuckDB UDF receives it (DOUBLE parameters as float64, decimals as floats)."""
+    t = column.type
+    if pa.types.is_null(t) or (p.sql_type == "BOOLEAN" and pa.types.is_boolean(t)):
+        return column
+    if p.sql_type == "DOUBLE" or pa.types.is_decimal(t):
+        if pa.types.is_boolean(t) or not (_is_number(t) or pa.types.is_string(t) or pa.types.is_large_string(t)):
+            raise ValueError(f"{name}: {p.name} must be a number, got {t}")
+        try:
+            return pc.cast(column, pa.float64())
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            bad = next((v for v in column.to_pylist() if v is not None and not _parses(v)), None)
+            raise ValueError(f"{name}: {p.name} must be a number, got {bad!r}") from None
+    if p.sql_type == "BOOLEAN":
+        raise ValueError(f"{name}: {p.name} must be true or false, got {t}")
+    return column
+
+
+def _parses(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _span(name: str, p: Param, column: pa.Array) -> pa.StructArray:
+    """A length of time as the timed UDFs take it: (text, INTERVAL, number) per row."""
+    t = column.type
+    values = column.to_pylist()
+    if pa.types.is_null(t):
+        rows = [(None, None, None)] * len(values)
+    elif _is_number(t):
+        rows = [(None, None, None) if v is None else (str(v), None, float(v)) for v in values]
+    elif pa.types.is_duration(t):
+        micros = pc.cast(pc.cast(column, pa.duration("us")), pa.int64()).to_pylist()
+        rows = [
+            (None, None, None) if v is None else (str(d), pa.MonthDayNano([0, 0, v * 1000]), None)
+            for v, d in zip(micros, values)
+        ]
+    elif pa.types.is_string(t) or pa.types.is_large_string(t):
+        rows = [(None, None, None) if v is None else (v, *_read_span(v)) for v in values]
+    else:
+        rows = [(None, None, None) if v is None else (str(v), None, None) for v in values]
+    return pa.array([{"text": a, "interval": b, "number": c} for a, b, c in rows], type=_SPAN_TYPE)
+
+
+@lru_cache(maxsize=256)
+def _read_span(text: str) -> tuple[Any, float | None]:
+    """Text as DuckDB reads it (TRY_CAST to INTERVAL and to DOUBLE), so that spans mean the same in both hosts."""
+    query = "SELECT TRY_CAST($1 AS INTERVAL) AS i, TRY_CAST($1 AS DOUBLE) AS d"
+    row = _duckdb().sql(query, params=[text]).to_arrow_table().to_pylist()[0]
+    return row["i"], row["d"]
+
+
+@lru_cache(maxsize=1)
+def _duckdb() -> Any:
+    import duckdb
+
+    return duckdb.connect()
+
+
+def _constant(name: str, p: Param, column: pa.Array) -> pa.Array:
+    """A group's argument column as one value; it must not vary within the group."""
+    if len(column) > 1 and not pa.types.is_null(column.type):
+        try:
+            varies = pc.count_distinct(column, mode="all").as_py() > 1
+        except pa.ArrowNotImplementedError:  # a type no argument takes: the checks after this one say so
+            varies = False
+        if varies:
+            raise ValueError(f"{name}: {p.name} must be the same on every row of a group")
+    return column.slice(0, 1) if len(column) else pa.nulls(1, column.type)
+
+
+# --- times ---------------------------------------------------------------------
+
+
+def _time_type_name(name: str, t: pa.DataType) -> str:
+    """The time column's type, as DuckDB spells it."""
+    if pa.types.is_date(t):
+        return "DATE"
+    if pa.types.is_timestamp(t):
+        return "TIMESTAMP" if t.tz is None else "TIMESTAMP WITH TIME ZONE"
+    if pa.types.is_decimal(t):
+        return "DECIMAL"
+    if pa.types.is_null(t):
+        return "DOUBLE"
+    if t in _NUMERIC_TIMES:
+        return _NUMERIC_TIMES[t]
+    raise ValueError(f"{name}: time must be DATE, TIMESTAMP, TIMESTAMP_NTZ or a number, got {t}")
+
+
+def _ticks(name: str, times: pa.Array) -> tuple[np.ndarray, str]:
+    """Microseconds since 1970 for dates and timestamps (a TIMESTAMP: the UTC instant), else the number; NaN = NULL."""
+    t = times.type
+    type_name = _time_type_name(name, t)
+    if pa.types.is_date(t):
+        days = pc.cast(pc.cast(times, pa.date32()), pa.int32())
+        micros = pc.multiply(pc.cast(days, pa.int64()), _DAY_US)
+    elif pa.types.is_timestamp(t):
+        micros = pc.cast(pc.cast(times, pa.timestamp("us", tz=t.tz)), pa.int64())
+    else:
+        micros = times
+    return pc.cast(micros, pa.float64()).to_numpy(zero_copy_only=False), type_name
+
+
+_SPARK_NAMES = {"DATE": "DATE", "TIMESTAMP": "TIMESTAMP_NTZ", "TIMESTAMP WITH TIME ZONE": "TIMESTAMP"}
+
+
+def _times(name: str, time_type: str, type_name: str, ticks: np.ndarray) -> pa.Array:
+    """Answer times (ticks) in the session's time type; an error where that type cannot hold them exactly."""
+    missing = np.isnan(ticks)
+    mask = missing if missing.any() else None
+    whole = np.where(missing, 0, ticks).astype(np.int64)
+    kind = {"DATE": "date", "TIMESTAMP": "timestamp_ntz", "TIMESTAMP WITH TIME ZONE": "timestamp"}.get(
+        type_name, "double"
+    )
+    fits = kind == time_type or (kind == "date" and time_type == "timestamp_ntz")
+    if time_type == "date" and kind == "timestamp_ntz":
+        fits = not (whole % _DAY_US).any()
+    if not fits:
+        spark_name = _SPARK_NAMES.get(type_name, type_name)
+        raise ValueError(
+            f"{name}: the time column is {spark_name}, but tsql.spark.register(spark, time_type={time_type!r}) "
+            f"answers with {time_type.upper()} times; register with time_type={kind!r}"
+        )
+    if time_type == "double":
+        return pa.array(ticks, type=pa.float64(), mask=mask)
+    if time_type == "date":
+        return pa.array((whole // _DAY_US).astype(np.int32), type=pa.date32(), mask=mask)
+    tz = "UTC" if time_type == "timestamp" else None
+    return pa.array(whole, type=pa.timestamp("us", tz=tz), mask=mask)
+
+
+# --- the UDFs ------------------------------------------------------------------
+
+
+def _scalar(body: Callable[..., pa.Array], name: str, doc: str) -> Callable[..., pa.Array]:
+    """A scalar Arrow UDF (so typed for ``arrow_udf``) whose argument errors come without the inner frames."""
+
+    def udf(*columns: pa.Array, **named: pa.Array) -> pa.Array:
+        try:
+            return body(*columns, **named)
+        except ValueError as error:
+            raise ValueError(str(error)) from None
+
+    udf.__name__, udf.__doc__ = name, doc
+    return udf
+
+
+def _grouped(body: Callable[..., pa.Scalar], name: str, doc: str) -> Callable[..., pa.Scalar]:
+    """A grouped-aggregate Arrow UDF (so typed for ``arrow_udf``), errors as in :func:`_scalar`."""
+
+    def udf(*columns: pa.Array, **named: pa.Array) -> pa.Scalar:
+        try:
+            return body(*columns, **named)
+        except ValueError as error:
+            raise ValueError(str(error)) from None
+
+    udf.__name__, udf.__doc__ = name, doc
+    return udf
+
+
+def _list_udf(fn: Function) -> Callable[..., pa.Array]:
+    """The scalar UDF of a list form: the DuckDB UDF behind it, after positional defaults."""
+    if fn.special:
+        return _scalar(_on_grid, fn.name, fn.doc)
+    inner = make_udf(fn)
+    empty = _Converter(fn.returns).arrow_type
+
+    def body(*columns: pa.Array, **named: pa.Array) -> pa.Array:
+        columns = _complete(fn.name, fn.series, fn.params, columns, named)
+        if not len(columns[0]):
+            return pa.array([], type=empty)
+        k = len(fn.series)
+        series = [_series(fn.name, s, c) for s, c in zip(fn.series, columns[:k])]
+        return inner(*series, *(_plain(fn.name, p, c) for p, c in zip(fn.params, columns[k:])))
+
+    return _scalar(body, fn.name, fn.doc)
+
+
+def _on_grid(*columns: pa.Array, **named: pa.Array) -> pa.Array:
+    """``on_grid(values, times, step, fill)``: the times' own type decides the grid."""
+    name = "on_grid"
+    values, times, step, fill = _complete(name, ("values", "times"), GRID_PARAMS, columns, named)
+    if not len(values):
+        return pa.array([], type=pa.list_(pa.float64()))
+    values = _series(name, "values", values)
+    if not (pa.types.is_list(times.type) or pa.types.is_large_list(times.type)):
+        raise ValueError(f"{name}: times must be an array of dates, timestamps or numbers, got {times.type}")
+    ticks, type_name = _ticks(name, times.values)
+    mask = times.is_null() if times.null_count else None
+    tick_lists = pa.ListArray.from_arrays(pc.cast(times.offsets, pa.int32()), pa.array(ticks), mask=mask)
+    type_column = pa.array([type_name] * len(values))
+    return timed._on_grid_udf(
+        values, tick_lists, type_column, _span(name, GRID_PARAMS[0], step), _plain(name, GRID_PARAMS[1], fill)
+    )
+
+
+def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
+    """The grouped-aggregate UDF of ``<name>_agg``: one group's rows in, one answer out."""
+    name = f"{fn.name}_agg"
+    params = fn.params + GRID_PARAMS
+    # A period stays in grid steps: the timed UDF then answers as the list form does.
+    core = timed.make_timed_udf(dataclasses.replace(fn, time_answer="same") if fn.time_answer == "period" else fn)
+
+    def body(*columns: pa.Array, **named: pa.Array) -> pa.Scalar:
+        columns = _complete(name, ("value", "time"), params, columns, named)
+        value, time = columns[:2]
+        settings = [_constant(name, p, c) for p, c in zip(params, columns[2:])]
+        ticks, type_name = _ticks(name, time)
+        try:
+            v = pc.cast(value, pa.float64())
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            raise ValueError(f"{name}: value must be a number, got {value.type}") from None
+        records = pa.StructArray.from_arrays([pa.array(ticks), v], names=["t", "v"])
+        observations = pa.ListArray.from_arrays(pa.array([0, len(ticks)], type=pa.int32()), records)
+        step, fill = settings[-2:]
+        arguments = [_span(name, p, c) if p.span else _plain(name, p, c) for p, c in zip(fn.params, settings[:-2])]
+        answer = core(
+            observations,
+            pa.array([type_name]),
+            _span(name, GRID_PARAMS[0], step),
+            _plain(name, GRID_PARAMS[1], fill),
+            *arguments,
+        )
+        return _in_time_terms(fn, name, time_type, type_name, ticks, answer)[0]
+
+    return _grouped(body, name, fn.doc)
+
+
+def _in_time_terms(
+    fn: Function, name: str, time_type: str, type_name: str, ticks: np.ndarray, answer: pa.Array
+) -> pa.Array:
+    """Turn positions and grid times of a one-group answer into times of the session's time type."""
+    if fn.time_answer in ("same", "period"):
+        return answer
+    mask = answer.is_null() if answer.null_count else None
+    if fn.time_answer == "series":
+        records = answer.values  # (tick, kind, value) on the grid
+        times = _times(name, time_type, type_name, records.field("tick").to_numpy(zero_copy_only=False))
+        records = pa.StructArray.from_arrays([times, records.field("value")], names=["time", "value"])
+        return pa.ListArray.from_arrays(answer.offsets, records, mask=mask)
+    in_order = np.sort(ticks)  # the rows' times in time order, NULL (NaN) last
+
+    def at(positions: pa.Array) -> pa.Array:
+        rows = np.asarray(positions.to_numpy(zero_copy_only=False), dtype=np.int64) - 1
+        return _times(name, time_type, type_name, in_order[rows])
+
+    if fn.time_answer == "starts":
+        return pa.ListArray.from_arrays(answer.offsets, at(answer.values), mask=mask)
+    records = answer.values  # segments
+    names = [f.name for f in records.type]
+    fields = [at(records.field(n)) if n in ("first", "last") else records.field(n) for n in names]
+    return pa.ListArray.from_arrays(answer.offsets, pa.StructArray.from_arrays(fields, names=names), mask=mask)
