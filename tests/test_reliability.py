@@ -364,10 +364,6 @@ for _name in ("dominant_period", "seasonality", "autocorrelation", "acf", "ljung
 for _name in PAIRS:
     for _cls in ("huge", "tiny"):
         KNOWN[(_name, _cls)] = _DTW_SCALE
-for _name in AGG_CALLS:
-    KNOWN[(_name, "empty")] = _AGG_EMPTY.replace("<name>", _name.removesuffix("_agg"))
-    KNOWN[(_name, "inf_time")] = _INF_TIME
-KNOWN[("on_grid", "inf_time")] = _INF_TIME
 
 
 def cells():
@@ -456,10 +452,7 @@ WARNING_KNOWN = {
     "autocorrelation_agg": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
     "acf_agg": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
     "ljung_box_agg": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
-    "on_grid": "inf_time: grid.py invalid value in multiply / cast",
 }
-for _name in AGG_CALLS:
-    WARNING_KNOWN.setdefault(_name, "inf_time: grid.py invalid value in multiply / cast")
 
 
 @pytest.mark.parametrize(
@@ -556,18 +549,10 @@ ARGUMENT_KNOWN = {
     "ljung_box(x, lags := 1e12)": _MEMORY.format("lags"),
     "harmonic_profile(x, 1e12)": _MEMORY.format("period"),
     "sparkline(x, width := 1e12)": _MEMORY.format("width"),
-    "harmonic_smooth(x, period := 1.5)": "a period below 2 samples is accepted (the minimum is 1e-9): "
-    "harmonics shorter than two samples cannot be represented",
-    "harmonic_smooth(x, period := 0)": "the message gives the allowed minimum as 1e-09, not 2",
-    "harmonic_smooth_agg(v, t, period := 1.5)": "a period below 2 grid steps is accepted (the minimum is 1e-9)",
     "lb_keogh(x, y, 1e300)": "a band beyond int64 reaches the compiled kernel uncapped (dtw_distance caps "
     "its band, lb_keogh does not): the first call fails with numba's 'TypingError: Failed in nopython mode "
     "pipeline ... non-precise type pyobject' and the kernel's file path and source lines, later calls with "
     "'OverflowError: int too big to convert'; neither names the function",
-    "on_grid(x, times, step := 1e-300)": "the point count overflows: 'on_grid: negative dimensions are "
-    "not allowed' (numpy's words, after a RuntimeWarning) instead of the too-many-points message",
-    "harmonic_profile_agg(v, d, INTERVAL 1 HOUR)": "the message shows the period converted to grid steps "
-    "('got 0.041666666666666664'), not the value given ('1 hour')",
 }
 
 

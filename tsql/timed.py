@@ -78,7 +78,10 @@ class _Clock:
     """What a time column's type means for the grid."""
 
     def __init__(self, function: str, type_name: str | None):
-        name = (type_name or "").removesuffix("[]")
+        self.temporal = self.utc = False
+        if type_name is None:  # an aggregate over no rows: its one NULL row needs no clock
+            return
+        name = type_name.removesuffix("[]")
         self.temporal = name in _TEMPORAL
         self.utc = name == "TIMESTAMP WITH TIME ZONE"
         if not self.temporal and not name.startswith(_NUMERIC):
@@ -197,10 +200,15 @@ def _span_in_steps(fn: Function, p: Param, clock: _Clock, grid: Grid, span: tupl
         raise ValueError(f"{fn.name}_agg: {p.name} must be {what}, got {text!r}")
     months, length = _interval(interval)
     steps = grid.steps(months, length)
-    if np.isnan(steps[grid.values.row_valid & (grid.values.lengths > 0)]).any():
+    counted = steps[grid.values.row_valid & (grid.values.lengths > 0)]
+    if np.isnan(counted).any():
         raise ValueError(
             f"{fn.name}_agg: {p.name} {text!r} cannot be counted in the grid's steps "
             "(months on a fixed step, or days on a calendar step); give it in the step's own terms"
+        )
+    if p.minimum is not None and (counted < p.minimum).any():
+        raise ValueError(
+            f"{fn.name}_agg: {p.name} must be >= {p.minimum:g} grid steps, got {text!r} ({counted.min():.6g} steps)"
         )
     return steps
 

@@ -155,6 +155,7 @@ def on_grid(
         raise ValueError(f"fill must be one of {FILLS}, got {fill!r}")
     if not np.array_equal(times.lengths, values.lengths):
         raise ValueError("times and values must have the same length in every row")
+    times = _without_infinite_times(times)
     t, v, rows, obs_offsets = _sorted_observations(times, values)
     n_rows = times.n_rows
     first = obs_offsets[:-1]
@@ -175,6 +176,7 @@ def on_grid(
         if regular:  # every spacing is one step: the observations are the grid already
             return _as_grid(times, t, v, rows, obs_offsets, start, months, length)
 
+    _check_extent(t, obs_offsets, start, length, has_obs)
     bins = _bins(t, rows, start, months, length, has_obs)
     n_grid = np.zeros(n_rows, dtype=np.int64)
     last = obs_offsets[1:] - 1
@@ -205,6 +207,29 @@ def on_grid(
         points=where,
         observation_offsets=obs_offsets,
     )
+
+
+def _without_infinite_times(times: Ragged) -> Ragged:
+    """A row with an infinite time has no grid: it becomes a NULL row."""
+    infinite = np.isinf(times.values)
+    if not infinite.any():
+        return times
+    hit = np.zeros(times.n_rows, dtype=bool)
+    hit[times.row_ids[infinite]] = True
+    values = np.where(hit[times.row_ids], np.nan, times.values)
+    return Ragged(values, times.offsets, times.row_valid & ~hit)
+
+
+def _check_extent(t: np.ndarray, offsets: np.ndarray, start: np.ndarray, length: np.ndarray, has_obs: np.ndarray):
+    """Refuse fixed steps that would make too many grid points, before any count is cast to an integer."""
+    fixed = has_obs & (length > 0)
+    if not fixed.any():
+        return
+    points = (t[offsets[1:][fixed] - 1] - start[fixed]) / length[fixed] + 1
+    if points.max() > MAX_GRID_POINTS:
+        raise ValueError(
+            f"the step makes a grid of {points.max():,.0f} points for one series (at most {MAX_GRID_POINTS:,})"
+        )
 
 
 def _as_grid(
