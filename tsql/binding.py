@@ -196,6 +196,8 @@ def check_argument(function: str, p: Param, value: Any) -> Any:
         value = int(value)
     if p.minimum is not None and value < p.minimum:
         raise ValueError(f"{function}: {p.name} must be >= {_show(p.minimum)}, got {_show(value)}")
+    if p.maximum is not None and value > p.maximum:
+        raise ValueError(f"{function}: {p.name} must be <= {p.maximum:,g}, got {_show(value)}")
     return value
 
 

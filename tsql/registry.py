@@ -18,7 +18,8 @@ class Param:
     """A plain argument after the series.
 
     ``default`` is the SQL text of the macro default (None: required).
-    ``whole`` demands an integer value; ``minimum`` a lower bound; ``none_ok``
+    ``whole`` demands an integer value; ``minimum`` and ``maximum`` bounds (a maximum keeps a
+    result list within memory); ``none_ok``
     lets NULL mean "not set" (otherwise a NULL argument gives a NULL row);
     ``choices`` lists the allowed words, and ``number_ok`` also admits a number.
     ``span`` marks a length of time: in the ``*_agg`` form it may also be an INTERVAL.
@@ -28,6 +29,7 @@ class Param:
     sql_type: str = "DOUBLE"
     default: str | None = None
     minimum: float | None = None
+    maximum: float | None = None
     whole: bool = False
     none_ok: bool = False
     choices: tuple[str, ...] = ()
@@ -120,6 +122,9 @@ GRID_PARAMS = (
 )
 
 
+MAX_LIST = 10_000_000
+"""The longest list a size argument may ask for (lags, a profile's period, a sparkline's width)."""
+
 SERIES_TOO_SHORT = "NULL list, fewer than {n} present values, or a constant series"
 
 PERIOD_PARAMS = (
@@ -178,7 +183,7 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Sample autocorrelations at lags 1..max_lag.",
         example="SELECT acf([2, 4, 3, 5, 4, 6, 5, 7], max_lag := 3) AS r;",
         null_rows=SERIES_TOO_SHORT.format(n=2) + "; a lag with no present pair is a NULL element",
-        params=(Param("max_lag", default="10", minimum=1, whole=True, help="highest lag returned"),),
+        params=(Param("max_lag", default="10", minimum=1, maximum=MAX_LIST, whole=True, help="highest lag returned"),),
     ),
     Function(
         name="ljung_box",
@@ -188,7 +193,16 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Ljung-Box test that the first lags show no autocorrelation.",
         example="SELECT ljung_box([2, 4, 3, 5, 4, 6, 5, 7, 6, 8, 7, 9], lags := 3) AS lb;",
         null_rows=SERIES_TOO_SHORT.format(n="lags + 1"),
-        params=(Param("lags", default="10", minimum=1, whole=True, help="number of lags (degrees of freedom)"),),
+        params=(
+            Param(
+                "lags",
+                default="10",
+                minimum=1,
+                maximum=MAX_LIST,
+                whole=True,
+                help="number of lags (degrees of freedom)",
+            ),
+        ),
     ),
     Function(
         name="trend_test",
@@ -362,7 +376,13 @@ FUNCTIONS += (
         example="SELECT harmonic_profile([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], 4, harmonics := 1) AS cycle;",
         null_rows="NULL or empty list, too few present values, or a pattern the data cannot determine",
         params=(
-            Param("period", minimum=2, span=True, help="cycle length in samples; the profile has round(period) values"),
+            Param(
+                "period",
+                minimum=2,
+                maximum=MAX_LIST,
+                span=True,
+                help="cycle length in samples; the profile has round(period) values",
+            ),
             Param("harmonics", default="3", minimum=1, whole=True, help="number of cosine/sine pairs"),
         ),
     ),
@@ -380,6 +400,7 @@ FUNCTIONS += (
                 default="NULL",
                 none_ok=True,
                 minimum=1,
+                maximum=MAX_LIST,
                 whole=True,
                 help="resample to this many characters (bin means)",
             ),
