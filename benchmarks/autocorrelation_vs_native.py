@@ -8,10 +8,9 @@ Prints the median of each query and the ratios, measured in one run.
 from __future__ import annotations
 
 import argparse
-import statistics
-import time
 
 import tsql
+from benchmarks.harness import median_seconds
 
 QUERIES = {
     "floor: list_sum(list(v ORDER BY t))": "SELECT g, list_sum(list(v ORDER BY t)) FROM series GROUP BY g",
@@ -21,15 +20,6 @@ QUERIES = {
         ) GROUP BY g""",
     "tsql: autocorrelation_agg(v, t)": "SELECT g, autocorrelation_agg(v, t) FROM series GROUP BY g",
 }
-
-
-def median_seconds(con, sql: str, repeat: int) -> float:
-    times = []
-    for _ in range(repeat):
-        start = time.perf_counter()
-        con.execute(sql).fetchall()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
 
 
 def main() -> None:
@@ -49,7 +39,7 @@ def main() -> None:
     results = {}
     for name, sql in QUERIES.items():
         con.execute(sql).fetchall()  # warm up
-        results[name] = median_seconds(con, sql, args.repeat)
+        results[name] = median_seconds(lambda sql=sql: con.execute(sql).fetchall(), args.repeat)
     floor = results["floor: list_sum(list(v ORDER BY t))"]
     native = results["native: corr(v, lag(v))"]
     print(f"{args.groups} groups x {args.points} points, median of {args.repeat}")

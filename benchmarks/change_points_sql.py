@@ -14,16 +14,12 @@ import numpy as np
 import pyarrow as pa
 
 import tsql
-from benchmarks.dtw_kernel import side_by_side
+from benchmarks.data import shifted
+from benchmarks.harness import side_by_side
 
 
 def shifted_series(groups: int, points: int) -> pa.Table:
-    rng = np.random.default_rng(8)
-    levels = np.zeros((groups, points))
-    for g in range(groups):
-        for start in rng.integers(10, points - 10, rng.integers(0, 5)):
-            levels[g, start:] += rng.normal(0, 4)
-    values = levels + rng.standard_normal((groups, points))
+    values = shifted(groups, points)
     return pa.table(
         {"g": np.repeat(np.arange(groups), points), "t": np.tile(np.arange(points), groups), "v": values.ravel()}
     )

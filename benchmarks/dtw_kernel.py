@@ -16,31 +16,16 @@ of each and the ratio of the medians, plus the largest difference of the answers
 from __future__ import annotations
 
 import argparse
-import statistics
 import time
-from collections.abc import Callable
 
 import numpy as np
 from dtaidistance import dtw as reference
 
+from benchmarks.harness import side_by_side, timed
 from tsql.kernels import dtw
 from tsql.kernels.ragged import Ragged
 
 BATCH = 2048
-
-
-def timed(fn: Callable[[], object]) -> float:
-    start = time.perf_counter()
-    fn()
-    return time.perf_counter() - start
-
-
-def side_by_side(runs: dict[str, Callable[[], object]], repeat: int) -> dict[str, float]:
-    times: dict[str, list[float]] = {name: [] for name in runs}
-    for _ in range(repeat):
-        for name, fn in runs.items():
-            times[name].append(timed(fn))
-    return {name: statistics.median(values) for name, values in times.items()}
 
 
 def report(title: str, medians: dict[str, float], baseline: str) -> None:

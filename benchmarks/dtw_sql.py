@@ -17,7 +17,7 @@ import pyarrow as pa
 from dtaidistance import dtw as reference
 
 import tsql
-from benchmarks.dtw_kernel import side_by_side
+from benchmarks.harness import side_by_side
 
 QUERY = """
     SELECT a.item, b.item, dtw_distance(a.curve, b.curve) AS distance

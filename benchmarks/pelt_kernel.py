@@ -17,37 +17,18 @@ from __future__ import annotations
 
 import argparse
 import math
-import statistics
 import time
 
 import numba
 import numpy as np
 
+from benchmarks.data import piecewise
+from benchmarks.harness import median_seconds
+from benchmarks.loops import mad_sigma as sigma_first
 from tsql.kernels import changepoint
 from tsql.kernels.ragged import Ragged
 
 BATCH_ROWS = 2048
-
-
-def median_seconds(fn, repeat: int) -> float:
-    times = []
-    for _ in range(repeat):
-        start = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
-
-
-def piecewise(rng: np.random.Generator, n: int, n_changes: int) -> np.ndarray:
-    cuts = np.sort(rng.choice(np.arange(20, n - 20), size=n_changes, replace=False))
-    levels = rng.normal(0.0, 2.0, n_changes + 1)
-    return np.repeat(levels, np.diff(np.r_[0, cuts, n])) + rng.standard_normal(n)
-
-
-def sigma_first(x: np.ndarray) -> float:
-    """The 'mean' model's noise scale, 1.4826 MAD(diff x) / sqrt 2, written out in numpy."""
-    d = np.diff(x)
-    return 1.482602218505602 * float(np.median(np.abs(d - np.median(d)))) / math.sqrt(2.0)
 
 
 def single_series(n: int, repeat: int, rupture_repeat: int) -> None:

@@ -17,7 +17,7 @@ import numpy as np
 import pyarrow as pa
 
 import tsql
-from benchmarks.dtw_kernel import side_by_side
+from benchmarks.harness import side_by_side
 
 
 def monthly_series(groups: int, points: int, deleted: float = 0.02) -> pa.Table:
