@@ -324,8 +324,12 @@ def _sorted_observations(times: Ragged, values: Ragged) -> tuple[np.ndarray, ...
         order = (
             np.lexsort((v[touched], t[touched], rows[touched])) if by_value else _time_order(rows[touched], t[touched])
         )
-        rows, t, v = rows.copy(), t.copy(), v.copy()  # the inputs may be read-only views of Arrow memory
-        rows[touched], t[touched], v[touched] = rows[touched][order], t[touched][order], v[touched][order]
+        # the order keeps every element in its row (rows are sorted), so only times and values move
+        if len(touched) < len(t):
+            whole = np.arange(len(t))
+            whole[touched] = touched[order]
+            order = whole
+        t, v = t[order], v[order]
     counts = np.bincount(rows, minlength=times.n_rows)
     offsets = np.zeros(times.n_rows + 1, dtype=np.int64)
     np.cumsum(counts, out=offsets[1:])

@@ -55,7 +55,7 @@ PAIRWISE_MAX = 112
 
 _EPS = 2.0**-53  # unit roundoff of float64
 _TINY = 1e-300
-_CHUNK_ELEMS = 1 << 20  # elements of a (rows x padded length) work matrix
+_CHUNK_ELEMS = 1 << 18  # elements of a (rows x padded length) work matrix: smaller peaks memory lower, no slower
 _PAIR_CHUNK = 1 << 22  # pair slopes held at once on the all-pairs route
 _FINAL_BUDGET = 1 << 23  # pair slopes listed at once in the final step
 _K_FINAL = 4_000_000  # most slopes a single row may list in its final step
