@@ -19,7 +19,7 @@ from collections.abc import Iterator
 import numpy as np
 from scipy import fft, special
 
-from tsql.kernels.ragged import Ragged
+from tsql.kernels.ragged import Ragged, in_safe_range
 
 #: Above this many lags one FFT per bucket is cheaper than one pass per lag.
 _DIRECT_MAX_LAGS = 40
@@ -78,7 +78,7 @@ def _buckets(batch: Ragged) -> Iterator[tuple[np.ndarray, _Centred, np.ndarray]]
     for n, rows, matrix in batch.by_length():
         if n == 0:
             continue
-        centred = _Centred(matrix)
+        centred = _Centred(in_safe_range(matrix))
         yield rows, centred, centred.usable() & valid[rows]
 
 

@@ -36,7 +36,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from tsql.kernels.ragged import Ragged, full
+from tsql.kernels.ragged import Ragged, full, in_safe_range
 
 __all__ = ["dominant_period", "seasonality", "fisher_g_pvalue"]
 
@@ -267,6 +267,7 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
             rows, matrix = rows[keep], matrix[keep]
         if len(rows) == 0:
             continue
+        matrix = in_safe_range(matrix)
         if may_have_gaps:
             gappy = np.isnan(matrix).any(axis=1)
             parts = [(rows[~gappy], matrix[~gappy], False), (rows[gappy], matrix[gappy], True)]

@@ -115,6 +115,25 @@ class Ragged:
             yield n, group, matrix
 
 
+def in_safe_range(matrix: np.ndarray) -> np.ndarray:
+    """The rows of ``matrix``, each row whose magnitude would overflow or underflow a sum of squares
+    (beyond about 1e120 or below 1e-120) multiplied by a power of two that brings it near 1.
+
+    Multiplying by a power of two is exact, so scale-free answers (a correlation, a period) are the
+    same as at ordinary magnitudes, and rows in range are not touched.
+    """
+    if matrix.size == 0:
+        return matrix
+    magnitude = np.where(np.isfinite(matrix), np.abs(matrix), 0.0).max(axis=1)
+    _, exponent = np.frexp(magnitude)
+    out_of_range = (magnitude > 0) & ((exponent > 400) | (exponent < -400))
+    if not out_of_range.any():
+        return matrix
+    scaled = np.array(matrix, dtype=np.float64)
+    scaled[out_of_range] *= np.ldexp(1.0, -np.clip(exponent[out_of_range], -1020, 1020))[:, None]
+    return scaled
+
+
 def full(n_rows: int, fill: float = np.nan) -> np.ndarray:
     """A per-row float result, NaN (no answer) unless filled."""
     return np.full(n_rows, fill, dtype=np.float64)
