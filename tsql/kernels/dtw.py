@@ -381,6 +381,35 @@ def _usable(a: Ragged, b: Ragged) -> np.ndarray:
     return usable
 
 
+def _pair_scales(a: Ragged, b: Ragged, usable: np.ndarray) -> np.ndarray | None:
+    """Per pair, a power of two bringing both series near 1 where squared differences would overflow
+    or underflow (magnitudes beyond about 1e120 or below 1e-120); None when no pair needs one.
+
+    Scaling by a power of two is exact: distances scale back exactly, paths do not change.
+    """
+    magnitude = np.zeros(a.n_rows)
+    for batch in (a, b):
+        ends = batch.offsets[1:][batch.lengths > 0]
+        if len(ends):
+            biggest = np.maximum.reduceat(np.abs(batch.values), batch.offsets[:-1][batch.lengths > 0])
+            magnitude[batch.lengths > 0] = np.maximum(magnitude[batch.lengths > 0], biggest)
+    _, exponent = np.frexp(magnitude)
+    needed = usable & (magnitude > 0) & ((exponent > 400) | (exponent < -400))
+    if not needed.any():
+        return None
+    scale = np.ones(a.n_rows)
+    scale[needed] = np.ldexp(1.0, -np.clip(exponent[needed], -1020, 1020))
+    return scale
+
+
+def _scaled_flat(a: Ragged, b: Ragged, scale: np.ndarray | None) -> tuple[np.ndarray, ...]:
+    av, aoff = _flat(a)
+    bv, boff = _flat(b)
+    if scale is not None:
+        av, bv = av * np.repeat(scale, a.lengths), bv * np.repeat(scale, b.lengths)
+    return av, aoff, bv, boff
+
+
 def _by_shape(a: Ragged, b: Ragged, usable: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Usable rows ordered by (length of a, length of b), and where each shape starts."""
     rows = np.flatnonzero(usable)
@@ -444,12 +473,23 @@ def dtw_distance(
     0.0
     """
     usable = _usable(a, b)
-    av, aoff = _flat(a)
-    bv, boff = _flat(b)
+    scale = _pair_scales(a, b, usable)
+    av, aoff, bv, boff = _scaled_flat(a, b, scale)
     limit = np.inf if cutoff is None else float(cutoff)
     out = np.full(a.n_rows, np.nan)
-    order, group_starts = _by_shape(a, b, usable)
-    return _distance_batch(av, aoff, bv, boff, order, group_starts, _band_code(band), bool(normalize), limit, out)
+    if scale is None:
+        order, group_starts = _by_shape(a, b, usable)
+        return _distance_batch(av, aoff, bv, boff, order, group_starts, _band_code(band), bool(normalize), limit, out)
+    # scaled pairs: no early abandoning (the cutoff is in the original units), the cutoff applied afterwards
+    for pairs, pair_limit in ((usable & (scale == 1), limit), (usable & (scale != 1), np.inf)):
+        order, group_starts = _by_shape(a, b, pairs)
+        _distance_batch(av, aoff, bv, boff, order, group_starts, _band_code(band), bool(normalize), pair_limit, out)
+    if not normalize:  # a z-normalised distance does not depend on the scale
+        with np.errstate(over="ignore"):
+            out /= scale
+    if cutoff is not None:
+        out[out > limit] = np.nan
+    return out
 
 
 #: Largest cost matrix dtw_path keeps for one pair (8 bytes a cell: 1 GiB).
@@ -504,8 +544,7 @@ def dtw_path(a: Ragged, b: Ragged, band: int | None = None) -> RaggedRecords:
     """
     usable = _usable(a, b)
     _check_path_size(a.lengths[usable], b.lengths[usable], band)
-    av, aoff = _flat(a)
-    bv, boff = _flat(b)
+    av, aoff, bv, boff = _scaled_flat(a, b, _pair_scales(a, b, usable))
     room = np.where(usable, a.lengths + b.lengths - 1, 0).astype(np.int64)
     slots = np.zeros(a.n_rows + 1, dtype=np.int64)
     np.cumsum(room, out=slots[1:])
@@ -556,7 +595,11 @@ def lb_keogh(a: Ragged, b: Ragged, band: int) -> np.ndarray:
     4.0
     """
     usable = _usable(a, b)
-    av, aoff = _flat(a)
-    bv, boff = _flat(b)
+    scale = _pair_scales(a, b, usable)
+    av, aoff, bv, boff = _scaled_flat(a, b, scale)
     out = np.empty(a.n_rows, dtype=np.float64)
-    return _lb_keogh_batch(av, aoff, bv, boff, usable, min(int(band), 2**40), out)  # wider: no difference
+    _lb_keogh_batch(av, aoff, bv, boff, usable, min(int(band), 2**40), out)  # a wider band makes no difference
+    if scale is not None:
+        with np.errstate(over="ignore"):
+            out /= scale
+    return out
