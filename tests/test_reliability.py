@@ -430,14 +430,7 @@ def test_matrix_cell(con, fn, cls, expected):
 _WARNS = (
     "numpy RuntimeWarnings from the kernels reach the user's stderr with the kernel's file path and source line: {}"
 )
-WARNING_KNOWN = {
-    "autocorrelation": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
-    "acf": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
-    "ljung_box": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
-    "autocorrelation_agg": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
-    "acf_agg": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
-    "ljung_box_agg": "huge, pos_inf, neg_inf: correlation.py overflow / invalid value",
-}
+WARNING_KNOWN: dict[str, str] = {}
 
 
 @pytest.mark.parametrize(

@@ -78,6 +78,9 @@ def _buckets(batch: Ragged) -> Iterator[tuple[np.ndarray, _Centred, np.ndarray]]
     for n, rows, matrix in batch.by_length():
         if n == 0:
             continue
+        infinite = np.isinf(matrix).any(axis=1)
+        if infinite.any():  # no answer for a row holding an infinity: treat it as wholly missing
+            matrix = np.where(infinite[:, None], np.nan, matrix)
         centred = _Centred(in_safe_range(matrix))
         yield rows, centred, centred.usable() & valid[rows]
 
