@@ -233,8 +233,9 @@ def _arrow_type(fn: Function) -> pa.DataType:
     returns = _sql_returns(fn)
     if returns == SPAN:
         return pa.sparse_union(_SPAN_ARROW)
-    if fn.time_answer == "period":
-        return _Converter(fn.returns.replace(f"period {SPAN}", "period DOUBLE")).arrow_type
+    if fn.time_answer == "period":  # a struct whose period field is the span union
+        fields = _Converter(fn.returns).arrow_type
+        return pa.struct([pa.field(f.name, pa.sparse_union(_SPAN_ARROW)) if f.name == "period" else f for f in fields])
     if fn.time_answer == "series":
         fields = [("tick", pa.float64()), ("kind", pa.int8()), ("value", pa.float64())]
         return pa.list_(pa.struct(fields))

@@ -174,7 +174,7 @@ def on_grid(
     else:
         months, length, regular = _inferred_steps(t, rows, obs_offsets, temporal)
         if regular:  # every spacing is one step: the observations are the grid already
-            return _as_grid(times, t, v, rows, obs_offsets, start, months, length)
+            return Grid(Ragged(v, obs_offsets, times.valid), start, months, length, np.arange(len(t)), obs_offsets)
 
     _check_extent(t, obs_offsets, start, length, has_obs)
     bins = _bins(t, rows, start, months, length, has_obs)
@@ -230,20 +230,6 @@ def _check_extent(t: np.ndarray, offsets: np.ndarray, start: np.ndarray, length:
         raise ValueError(
             f"the step makes a grid of {points.max():,.0f} points for one series (at most {MAX_GRID_POINTS:,})"
         )
-
-
-def _as_grid(
-    times: Ragged,
-    t: np.ndarray,
-    v: np.ndarray,
-    rows: np.ndarray,
-    offsets: np.ndarray,
-    start: np.ndarray,
-    months: np.ndarray,
-    length: np.ndarray,
-) -> Grid:
-    """Observations one step apart everywhere: they are the grid."""
-    return Grid(Ragged(v, offsets, times.valid), start, months, length, np.arange(len(t)), offsets)
 
 
 def _steps_within_rows(offsets: np.ndarray, n: int) -> np.ndarray:
