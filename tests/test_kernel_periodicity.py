@@ -315,6 +315,18 @@ def test_rows_without_an_answer_are_nan():
         assert np.isnan(s[key]).all(), key
 
 
+def test_four_values_have_a_period_but_nothing_for_fisher_to_test():
+    # docs/behaviour.md: with 4 values only a period of 2 fits, and that is Nyquist, so Fisher's g
+    # has no ordinate to compare the peak with (m = 0): period and strength, NULL p-value;
+    # a fifth value brings the period of 2.5 into range and a p-value with it
+    x = [1.0, 2.1, 0.9, 2.0]
+    s = seasonality(one(x))
+    assert np.isfinite(s["period"][0]) and np.isfinite(s["strength"][0])
+    assert np.isnan(s["p_value"][0])
+    s5 = seasonality(one(x + [1.1]))
+    assert 0.0 <= s5["p_value"][0] <= 1.0
+
+
 def test_series_with_gaps():
     # reference: the construction (a 12-sample cycle, one value in eight missing); with gaps
     # the period is approximate (zero-filled), the strength is exact on the present values
