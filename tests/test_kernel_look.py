@@ -136,3 +136,14 @@ def test_each_row_is_the_same_alone_or_in_a_mixed_batch():
         together = sparkline(Ragged.from_list(rows), width)
         assert together == [line(x, width) for x in rows]
         assert together == [None if x is None else reference(list(x), width) for x in rows]
+
+
+def test_a_batch_larger_than_one_work_block_draws_every_row_as_alone():
+    # sparkline draws about 2^16 elements at a time (its memory stays small): rows across the
+    # block boundaries, a NULL row and a row longer than a block must come out as drawn alone
+    rng = np.random.default_rng(2)
+    rows = [rng.standard_normal(int(rng.integers(900, 1100))) for _ in range(400)]
+    rows[137] = None
+    rows[251] = rng.standard_normal(300_000)
+    for width in (None, 40):
+        assert sparkline(Ragged.from_list(rows), width) == [line(x, width) for x in rows]

@@ -8,7 +8,10 @@ simple, word-sized graphics".
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+
 import numpy as np
+from numba import njit
 
 from tsql.kernels.ragged import Ragged
 
@@ -18,6 +21,7 @@ __all__ = ["sparkline", "BLOCKS"]
 BLOCKS = "▁▂▃▄▅▆▇█"
 _MIDDLE = 3  # ▄: every element of a constant row
 _SPACE = len(BLOCKS)
+_BLOCK_ELEMENTS = 1 << 16
 _CODES = np.array([ord(c) for c in BLOCKS + " "], dtype="<u4")
 
 
@@ -56,14 +60,34 @@ def sparkline(batch: Ragged, width: int | None = None) -> list[str | None]:
     >>> sparkline(Ragged.from_list([[1, 2, 3, 4, 5, 6]]), width=3)
     ['▁▅█']
     """
-    shown = batch if width is None else _resample(batch, int(width))
-    codes = _CODES[_levels(shown)]
-    offsets = shown.offsets
-    valid = batch.row_valid
-    return [
-        codes[offsets[i] : offsets[i + 1]].tobytes().decode("utf-32-le") if valid[i] else None
-        for i in range(batch.n_rows)
-    ]
+    lines: list[str | None] = []
+    for block in _row_blocks(batch):
+        shown = block if width is None else _resample(block, int(width))
+        codes = _CODES[_levels(shown)]
+        offsets = shown.offsets
+        valid = block.row_valid
+        lines += [
+            codes[offsets[i] : offsets[i + 1]].tobytes().decode("utf-32-le") if valid[i] else None
+            for i in range(block.n_rows)
+        ]
+    return lines
+
+
+def _row_blocks(batch: Ragged, elements: int = _BLOCK_ELEMENTS) -> Iterator[Ragged]:
+    """Runs of consecutive rows of about ``elements`` elements each (views, no copy).
+
+    Each element needs a dozen work arrays of 8 bytes: drawing a block at a time keeps the
+    peak memory of a call small whatever its size. Rows are drawn independently.
+    """
+    offsets = batch.offsets
+    start = 0
+    while start < batch.n_rows:
+        end = int(np.searchsorted(offsets, offsets[start] + elements, side="right")) - 1
+        end = min(max(end, start + 1), batch.n_rows)
+        lo, hi = offsets[start], offsets[end]
+        valid = None if batch.valid is None else batch.valid[start:end]
+        yield Ragged(batch.values[lo:hi], offsets[start : end + 1] - lo, valid)
+        start = end
 
 
 def _resample(batch: Ragged, width: int) -> Ragged:
@@ -91,26 +115,36 @@ def _resample(batch: Ragged, width: int) -> Ragged:
 
 def _levels(shown: Ragged) -> np.ndarray:
     """Index into ``BLOCKS`` per element (``_SPACE`` for a missing one)."""
-    values = shown.values
-    level = np.full(len(values), _SPACE, dtype=np.int64)
-    rows = np.flatnonzero(shown.lengths > 0)
-    if len(rows) == 0:
-        return level
-    finite = np.isfinite(values)
-    # min and max are exact in any order; empty rows are skipped so every segment is non-empty
-    starts = shown.offsets[rows]
-    lo = np.full(shown.n_rows, np.inf)
-    hi = np.full(shown.n_rows, -np.inf)
-    lo[rows] = np.minimum.reduceat(np.where(finite, values, np.inf), starts)
-    hi[rows] = np.maximum.reduceat(np.where(finite, values, -np.inf), starts)
-    lo, hi = lo[shown.row_ids], hi[shown.row_ids]
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+    return _row_levels(shown.values, shown.offsets)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _row_levels(values: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    level = np.empty(len(values), dtype=np.int64)
+    top = len(BLOCKS) - 1
+    for r in range(len(offsets) - 1):
+        a, b = offsets[r], offsets[r + 1]
+        lo, hi = np.inf, -np.inf
+        for i in range(a, b):
+            v = values[i]
+            if np.isfinite(v):
+                lo = min(lo, v)
+                hi = max(hi, v)
         span = hi - lo
-        fraction = (values - lo) / span
-        wide = finite & np.isinf(span)  # a range beyond the largest double: halve first (exact)
-        fraction[wide] = (0.5 * values[wide] - 0.5 * lo[wide]) / (0.5 * hi[wide] - 0.5 * lo[wide])
-        scaled = np.clip(np.floor(8.0 * np.where(finite & (span > 0), fraction, 0.0)), 0, 7)
-    level[finite] = np.where(span[finite] > 0, scaled[finite], _MIDDLE).astype(np.int64)
-    level[values == np.inf] = len(BLOCKS) - 1
-    level[values == -np.inf] = 0
+        # a range beyond the largest double is halved first (exact)
+        wide = np.isinf(span)
+        half_span = 0.5 * hi - 0.5 * lo
+        for i in range(a, b):
+            v = values[i]
+            if np.isnan(v):
+                level[i] = _SPACE
+            elif v == np.inf:
+                level[i] = top
+            elif v == -np.inf:
+                level[i] = 0
+            elif span > 0.0:
+                fraction = (0.5 * v - 0.5 * lo) / half_span if wide else (v - lo) / span
+                level[i] = min(max(int(np.floor(8.0 * fraction)), 0), top)
+            else:
+                level[i] = _MIDDLE
     return level
