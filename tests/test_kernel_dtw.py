@@ -14,6 +14,8 @@ from dtaidistance import dtw as reference
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
+from tsql.kernels import dtw
+from tsql.kernels.cancel import Cancellation, Interrupted, checkpoint, watching
 from tsql.kernels.dtw import dtw_distance, dtw_path, lb_keogh
 from tsql.kernels.ragged import Ragged
 
@@ -381,3 +383,67 @@ def test_unbanded_and_wide_bands_agree():
     np.testing.assert_array_equal(unbanded.offsets, wide.offsets)
     for field in ("i", "j"):
         np.testing.assert_array_equal(unbanded.fields[field], wide.fields[field])
+
+
+# --------------------------------------------------------------------------- #
+# work cut into pieces with a look at interrupt requests between them
+# --------------------------------------------------------------------------- #
+
+
+def chunking_batch(rng) -> tuple[Ragged, Ragged]:
+    """Ragged shapes, 40 pairs of one shape (a full tile of 32 and a padded one of 8) and a few of another."""
+    left = walks(rng, 30, 1, 45) + [np.cumsum(rng.standard_normal(40)) for _ in range(40 + 3)]
+    right = walks(rng, 30, 1, 45) + [np.cumsum(rng.standard_normal(37 if k < 40 else 52)) for k in range(43)]
+    return Ragged.from_list(left), Ragged.from_list(right)
+
+
+@pytest.mark.parametrize("budget", [1, 40, 2_000, 60_000])
+def test_work_in_pieces_gives_the_same_answers_bit_for_bit(monkeypatch, budget):
+    # budget 1: every pair, and every tile of 32 pairs, goes through the programme one row per piece
+    rng = np.random.default_rng(99)
+    a, b = chunking_batch(rng)
+    settings_list = [{}, {"band": 3}, {"band": 0, "cutoff": 6.0}, {"normalize": True, "cutoff": 2.5}]
+    whole = [dtw_distance(a, b, **kw) for kw in settings_list]
+    paths = [dtw_path(a, b, band=band) for band in (None, 2)]
+    monkeypatch.setattr(dtw, "_BUDGET", budget)
+    for kw, expected in zip(settings_list, whole):
+        np.testing.assert_array_equal(dtw_distance(a, b, **kw), expected)
+    for band, expected in zip((None, 2), paths):
+        got = dtw_path(a, b, band=band)
+        np.testing.assert_array_equal(got.offsets, expected.offsets)
+        for field in ("i", "j"):
+            np.testing.assert_array_equal(got.fields[field], expected.fields[field])
+
+
+@pytest.mark.parametrize("kernel", ["distance one pair", "distance tiles", "distance many pairs", "path"])
+def test_a_long_call_looks_for_an_interrupt_between_pieces_and_stops(monkeypatch, kernel):
+    rng = np.random.default_rng(5)
+    if kernel == "distance many pairs":  # 94 tiles of 32 pairs of 25 x 25 cells: pieces of several tiles
+        a, b = Ragged.from_list(walks(rng, 3000, 25, 25)), Ragged.from_list(walks(rng, 3000, 25, 25))
+    elif kernel == "distance tiles":  # 40 pairs of 300 x 300 cells: tiles in blocks of rows
+        a, b = Ragged.from_list(walks(rng, 40, 300, 300)), Ragged.from_list(walks(rng, 40, 300, 300))
+    else:  # one pair of 1,000 x 1,000 cells: blocks of rows
+        a, b = pair(np.cumsum(rng.standard_normal(1000)), np.cumsum(rng.standard_normal(1000)))
+    run = (lambda: dtw_path(a, b)) if kernel == "path" else (lambda: dtw_distance(a, b))
+    monkeypatch.setattr(dtw, "_BUDGET", 20_000)
+    expected = run()
+    looks = []
+    cancel = Cancellation()
+
+    def look(interrupt_at: int | None) -> None:
+        looks.append(1)
+        if len(looks) == interrupt_at:
+            cancel.bump()  # as tsql.interrupt does, from another thread
+        checkpoint()
+
+    monkeypatch.setattr(dtw, "checkpoint", lambda: look(None))
+    got = watching(run, cancel)()
+    # 1,000,000 cells or more, in pieces of about 20,000 units (a cell of a tile of 32 pairs is 4 units)
+    assert len(looks) >= 10
+    if kernel != "path":
+        np.testing.assert_array_equal(got, expected)
+    looks.clear()
+    monkeypatch.setattr(dtw, "checkpoint", lambda: look(3))
+    with pytest.raises(Interrupted, match="interrupted by tsql.interrupt"):
+        watching(run, cancel)()
+    assert len(looks) == 3  # stopped at the first look after the request

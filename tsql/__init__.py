@@ -1,6 +1,6 @@
 """tsql: time-series diagnostics as SQL functions over DuckDB."""
 
-from tsql.binding import connect, register
+from tsql.binding import connect, interrupt, register
 
-__all__ = ["connect", "register", "__version__"]
+__all__ = ["connect", "interrupt", "register", "__version__"]
 __version__ = "0.1.0"

@@ -5,6 +5,14 @@ For each registry entry this creates one vectorised Arrow UDF (internal name
 macros with their named defaults and ``*_agg`` forms. Nothing is written to
 the database file, so a read-only database works.
 
+Two helpers for other connections of the same database. An in-memory catalog
+``tsql_needs_register`` holds one macro per public name that fails with "call
+tsql.register(cursor) first", so that DuckDB's "Did you mean" on an
+unregistered cursor points there. And every UDF of a database closes over one
+:class:`~tsql.kernels.cancel.Cancellation`: :func:`interrupt` bumps it, and long kernels call
+:func:`~tsql.kernels.cancel.checkpoint` between chunks of work, so that a long call stops too
+(DuckDB itself looks at an interrupt only between UDF calls).
+
 This layer owns SQL types, NULLs and argument errors; the kernels own the
 mathematics.
 """
@@ -13,6 +21,9 @@ from __future__ import annotations
 
 import inspect
 import re
+import threading
+import time
+import weakref
 from collections.abc import Callable
 from importlib import resources
 from typing import Any
@@ -22,6 +33,7 @@ import numpy as np
 import pyarrow as pa
 
 from tsql import batch as arrow_batch
+from tsql.kernels.cancel import INTERRUPTED, Cancellation, checkpoint, watching
 from tsql.kernels.ragged import Ragged, RaggedRecords
 from tsql.registry import FUNCTIONS, Function, Param
 
@@ -41,16 +53,132 @@ def register(con: duckdb.DuckDBPyConnection) -> duckdb.DuckDBPyConnection:
 
     The Python UDFs are visible from every cursor of the connection; the TEMP
     macros (the public names) only on the connection or cursor passed here.
+    A cursor without them is told to call ``tsql.register(cursor)`` (see
+    :func:`_add_reminders`).
     """
     from tsql import timed  # it builds on this module
 
+    _cancellation(con, create=True)
     for fn in FUNCTIONS:
         if not fn.special:
             _create_udf(con, fn)
     timed.create_udfs(con)
     for statement in sql_statements():
         con.execute(statement)
+    _add_reminders(con)
     return con
+
+
+#: The in-memory catalog of reminder macros; its name shows in DuckDB's "Did you mean" line.
+REMINDER_CATALOG = "tsql_needs_register"
+_REMINDERS_LOCK = threading.Lock()
+
+
+def reminder(name: str) -> str:
+    """What a tsql function says on a connection or cursor where tsql is not registered."""
+    return (
+        f"{name}: tsql is not registered on this cursor or connection: call tsql.register(cursor) first "
+        "(tsql functions are TEMP macros, which DuckDB keeps per connection, and each con.cursor() is a new one)"
+    )
+
+
+def _add_reminders(con: duckdb.DuckDBPyConnection) -> None:
+    """Attach, once per database, an in-memory catalog with one macro per public name that raises :func:`reminder`.
+
+    An unregistered cursor's ``acf(...)`` then fails with DuckDB's ``Did you mean
+    "tsql_needs_register.acf"?``, and that call (any arguments, named ones too)
+    says what to do. The catalog is shared by every cursor and holds no tables; the
+    user's own database is not touched. Where DuckDB refuses (say, a locked
+    configuration) there are no reminders and nothing else changes.
+    """
+    exists = f"SELECT count(*) FROM duckdb_databases() WHERE database_name = '{REMINDER_CATALOG}'"
+    with _REMINDERS_LOCK:  # cursors registered from several threads at once
+        try:
+            if con.execute(exists).fetchone()[0]:
+                return
+            # READ_WRITE: DuckDB would open it read-only beside a read-only file, and refuse
+            con.execute(f"ATTACH ':memory:' AS {REMINDER_CATALOG} (READ_WRITE)")
+        except duckdb.Error:
+            return
+        signatures = [fn.signature for fn in FUNCTIONS] + [fn.agg_signature for fn in FUNCTIONS if fn.aggregate]
+        macros = [
+            f"CREATE MACRO {REMINDER_CATALOG}.main.{s} AS error('{reminder(s.split('(')[0])}')" for s in signatures
+        ]
+        try:
+            con.execute(";\n".join(macros))
+        except duckdb.Error:
+            try:
+                con.execute(f"DETACH {REMINDER_CATALOG}")
+            except duckdb.Error:
+                pass
+
+
+# --------------------------------------------------------------------------- #
+# interrupting a long call
+# --------------------------------------------------------------------------- #
+
+#: How long after its request :func:`interrupt` stops once more the calls that began meanwhile (s).
+_LATE_START = 0.05
+
+_CANCELLATIONS: weakref.WeakValueDictionary[int, Cancellation] = weakref.WeakValueDictionary()
+_BY_CONNECTION: weakref.WeakKeyDictionary[duckdb.DuckDBPyConnection, Cancellation] = weakref.WeakKeyDictionary()
+_CANCELLATION_UDF = "__tsql_cancellation"
+
+
+def _cancellation(con: duckdb.DuckDBPyConnection, create: bool) -> Cancellation | None:
+    """The :class:`Cancellation` of ``con``'s database: made on its first registration (``create``), else found
+    through the UDF ``__tsql_cancellation()`` (on a new cursor: ``con`` may be busy). None: tsql never registered."""
+    cancel = _BY_CONNECTION.get(con)
+    if cancel is not None:
+        return cancel
+    if create:
+        fresh = Cancellation()
+        _CANCELLATIONS[fresh.key] = fresh
+        try:
+            con.create_function(_CANCELLATION_UDF, lambda: fresh.key, [], "BIGINT")
+            cancel = fresh
+        except (duckdb.NotImplementedException, duckdb.CatalogException) as error:
+            if "already" not in str(error):
+                raise
+    if cancel is None:
+        look = con.cursor()
+        try:
+            cancel = _CANCELLATIONS.get(look.execute(f"SELECT {_CANCELLATION_UDF}()").fetchone()[0])
+        except duckdb.CatalogException:  # no tsql on this database
+            return None
+        finally:
+            look.close()
+    if cancel is not None:
+        _BY_CONNECTION[con] = cancel
+    return cancel
+
+
+def interrupt(con: duckdb.DuckDBPyConnection) -> None:
+    """Stop the query ``con`` is running, also in the middle of a long tsql function call.
+
+    ``con.interrupt()`` alone is seen by DuckDB only between two calls of a
+    Python function, so one long call (a DTW pair of 100,000-point series) runs
+    to its end. This calls it and also makes every tsql call running at that
+    moment on ``con``'s database stop at its next :func:`checkpoint` (within about
+    0.1 s for the DTW kernels), with the error ``interrupted by tsql.interrupt()``
+    if DuckDB has not stopped the query first. That includes the calls of queries
+    on other cursors of the same database: the UDFs cannot tell the connections
+    apart. Calls that begin within 0.05 s are stopped too (DuckDB may have looked
+    at the interrupt just before it came), which is why this returns after about
+    0.05 s; calls that begin after it returns run normally. Safe from another
+    thread or a signal handler; the connection stays usable.
+    """
+    cancel = _cancellation(con, create=False)
+    con.interrupt()
+    if cancel is not None:
+        cancel.bump()
+        time.sleep(_LATE_START)
+        cancel.bump()
+
+
+def was_interrupted(error: BaseException) -> bool:
+    """Whether a query failed because of ``con.interrupt()`` or :func:`interrupt`."""
+    return isinstance(error, duckdb.InterruptException) or INTERRUPTED in str(error)
 
 
 def sql_statements() -> list[str]:
@@ -74,9 +202,13 @@ def _create_udf(con: duckdb.DuckDBPyConnection, fn: Function) -> None:
 
 
 def create_udf(con: duckdb.DuckDBPyConnection, name: str, udf: Callable, param_types: list[str], returns: str) -> None:
-    """Create one vectorised Arrow UDF; one that exists already is left as it is."""
+    """Create one vectorised Arrow UDF; one that exists already is left as it is.
+
+    The UDF notes the database's interrupt counter on each call, for :func:`checkpoint`.
+    """
+    watched = watching(udf, _cancellation(con, create=True))
     try:
-        con.create_function(name, udf, param_types, returns, type="arrow", null_handling="special")
+        con.create_function(name, watched, param_types, returns, type="arrow", null_handling="special")
     except (duckdb.NotImplementedException, duckdb.CatalogException) as error:
         # UDFs belong to the whole connection: a second register() (or a cursor's) finds them there.
         if "already" not in str(error):
@@ -133,6 +265,7 @@ def by_keys(keys: list[tuple], run: Callable[[np.ndarray | None, tuple], pa.Arra
         groups[key].append(i)
     parts, order = [], []
     for key, members in groups.items():
+        checkpoint()
         rows = np.asarray(members, dtype=np.int64)
         parts.append(run(rows, key))
         order.append(rows)

@@ -2,8 +2,9 @@
 
 Statements end with ``;`` and may span lines. Lines starting with ``:`` are the
 shell's own commands (``:help`` lists them). Queries run in a worker thread
-while a SIGINT handler turns Ctrl-C into ``con.interrupt()``, so a cancelled
-query ends with DuckDB's interrupt error and the session goes on.
+while a SIGINT handler turns Ctrl-C into :func:`tsql.interrupt`, so a cancelled
+query ends (also in the middle of one long tsql function call) and the session
+goes on.
 """
 
 from __future__ import annotations
@@ -21,6 +22,7 @@ import duckdb
 import pyarrow as pa
 
 from tsql import __version__
+from tsql.binding import interrupt, was_interrupted
 from tsql.pipeline import UsageError, is_query, out_options, split_statements, write_result
 from tsql.render import error_message, format_arrow
 
@@ -108,8 +110,9 @@ class Shell:
                 outcome["error"] = error
 
         worker = threading.Thread(target=work, name="tsql-query", daemon=True)
-        # While the query runs, Ctrl-C asks DuckDB to stop it (a KeyboardInterrupt here would lose the worker).
-        previous = signal.signal(signal.SIGINT, lambda signum, frame: self.con.interrupt())
+        # While the query runs, Ctrl-C asks DuckDB and tsql's functions to stop it (a KeyboardInterrupt here would
+        # lose the worker).
+        previous = signal.signal(signal.SIGINT, lambda signum, frame: interrupt(self.con))
         started = time.perf_counter()
         try:
             worker.start()
@@ -118,7 +121,7 @@ class Shell:
             signal.signal(signal.SIGINT, previous)
         elapsed = time.perf_counter() - started
         error = outcome.get("error")
-        if isinstance(error, duckdb.InterruptException):
+        if error is not None and was_interrupted(error):
             print("\nquery cancelled", file=sys.stderr)
         elif error is not None:
             print(error_message(error), file=sys.stderr)

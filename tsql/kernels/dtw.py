@@ -25,6 +25,13 @@ that chain, while 32 independent chains fill the vector units. A lane does
 exactly the arithmetic a pair alone does, so an answer never depends on the
 other pairs of the batch. Odd pairs go alone, through the same code.
 
+The work of one call is done in pieces of about 0.1 s (a budget of cells):
+several tiles or pairs at a time, and the programme of a long tile or pair in
+blocks of rows, resumed where the last block stopped, so that the answers are
+the same bit for bit. Between pieces :func:`tsql.kernels.cancel.checkpoint` looks
+for a :func:`tsql.interrupt` request: DuckDB itself sees an interrupt only
+between two calls of a Python function.
+
 Why compiled code: the recurrence is sequential along the rows and along the
 anti-diagonals, so numpy needs at least one call per row or anti-diagonal.
 Across the pairs of a batch that is fine (all pairs of 500 series of 36
@@ -56,6 +63,7 @@ import math
 import numpy as np
 from numba import literally, njit
 
+from tsql.kernels.cancel import checkpoint
 from tsql.kernels.ragged import Ragged, RaggedRecords
 
 __all__ = ["dtw_distance", "dtw_path", "lb_keogh"]
@@ -66,6 +74,13 @@ _NO_BAND = -1
 _LANES = 32
 #: A last tile with fewer pairs than this goes one pair at a time instead.
 _PAD_FROM = 4
+#: Work done between two looks at an interrupt request (:func:`tsql.kernels.cancel.checkpoint`), in units of one
+#: cell of a pair done alone (about 9 ns here): about 0.08 s.
+_BUDGET = 1 << 23
+#: One cell of a tile of ``_LANES`` pairs (about 40 ns), and one cell of a traced pair (about 20 ns: the whole
+#: band is kept), in those units.
+_TILE_COST = 4
+_PATH_COST = 2
 
 
 # ---------------------------------------------------------------------------
@@ -90,8 +105,9 @@ def _row_bounds(i, m, w):
 
 
 @njit(cache=True, nogil=True)
-def _warp(x, y, w, cutoff, store, row_start, period, out, lanes):
-    """Least cumulative squared cost from (0, 0) to (n-1, m-1) within band ``w``.
+def _warp(x, y, w, cutoff, store, row_start, period, out, lanes, first_row, stop_row):
+    """Least cumulative squared cost from (0, 0) to (n-1, m-1) within band ``w``: rows ``first_row`` to
+    ``stop_row - 1`` of the programme; returns the next row to do (``n``: done).
 
     ``lanes`` pairs of one shape are stepped together: ``x`` is (n, lanes),
     ``y`` is (m, lanes), one column per pair, so the innermost loop runs
@@ -102,33 +118,38 @@ def _warp(x, y, w, cutoff, store, row_start, period, out, lanes):
     Row ``i`` of cumulative costs (its cells ``lo..hi``) goes to rows
     ``row_start[i % period]...`` of ``store``: ``period=2`` with two slots
     keeps two rolling rows (distance only), ``period=n`` with every row's start
-    keeps the whole band for backtracking. Each cell is ``c + min(diagonal,
-    above, left)``, computed as ``min(c + min(diagonal, above), c + left)``:
-    the same number (rounding is monotone) with one addition on the
-    sequential chain. ``out`` gets each column's total, or ``inf`` for all
-    columns once the square root of the smallest cost in a row is above
-    ``cutoff``: every path crosses every row, and costs only grow along a path.
-    Row 0 and every fourth row are looked at (a look costs about a row).
+    keeps the whole band for backtracking. A row needs only the row before it,
+    so a programme run in blocks of rows (calls resuming at the row the last
+    one returned, with the same ``store``) does exactly the arithmetic of one
+    call. Each cell is ``c + min(diagonal, above, left)``, computed as
+    ``min(c + min(diagonal, above), c + left)``: the same number (rounding is
+    monotone) with one addition on the sequential chain. ``out`` gets each
+    column's total when the last row is done, or ``inf`` for all columns once
+    the square root of the smallest cost in a row is above ``cutoff``: every
+    path crosses every row, and costs only grow along a path. Row 0 and every
+    fourth row are looked at (a look costs about a row).
     """
     lanes = literally(lanes)
     n, m = x.shape[0], y.shape[0]
     inf = np.inf
     check = cutoff < inf
     lowest = np.empty(lanes if check else 0)
-    lo, hi = _row_bounds(0, m, w)
-    cb = row_start[0]
-    for g in range(lanes):
-        d = x[0, g] - y[0, g]
-        store[cb, g] = d * d
-    for j in range(1, hi + 1):
+    if first_row == 0:
+        lo, hi = _row_bounds(0, m, w)
+        cb = row_start[0]
         for g in range(lanes):
-            d = x[0, g] - y[j, g]
-            store[cb + j, g] = d * d + store[cb + j - 1, g]
-    if check and _abandoned(store, cb, cb + 1, cutoff, lowest, lanes):  # row 0 only grows to the right
-        out[:] = inf
-        return out
-    plo, phi = lo, hi
-    for i in range(1, n):
+            d = x[0, g] - y[0, g]
+            store[cb, g] = d * d
+        for j in range(1, hi + 1):
+            for g in range(lanes):
+                d = x[0, g] - y[j, g]
+                store[cb + j, g] = d * d + store[cb + j - 1, g]
+        if check and _abandoned(store, cb, cb + 1, cutoff, lowest, lanes):  # row 0 only grows to the right
+            out[:] = inf
+            return n
+        first_row = 1
+    for i in range(first_row, stop_row):
+        plo, phi = _row_bounds(i - 1, m, w)
         pb = row_start[(i - 1) % period] - plo  # store row of cell (i - 1, j) is pb + j
         lo, hi = _row_bounds(i, m, w)
         cb = row_start[i % period] - lo  # store row of cell (i, j) is cb + j
@@ -154,11 +175,22 @@ def _warp(x, y, w, cutoff, store, row_start, period, out, lanes):
                 store[cb + j, g] = min(c + store[pb + j - 1, g], c + store[cb + j - 1, g])
         if check and i % 4 == 0 and _abandoned(store, cb + lo, cb + hi + 1, cutoff, lowest, lanes):
             out[:] = inf
-            return out
-        plo, phi = lo, hi
+            return n
+    if stop_row < n:
+        return stop_row
+    lo, _ = _row_bounds(n - 1, m, w)
+    cb = row_start[(n - 1) % period] - lo
     for g in range(lanes):
         out[g] = store[cb + m - 1, g]
-    return out
+    return n
+
+
+@njit(cache=True, nogil=True)
+def _warp_rows(x, y, w, cutoff, store, row_start, period, out, first_row, stop_row):
+    """:func:`_warp` on a tile of ``_LANES`` pairs or on one pair (``x.shape[1]``), from Python."""
+    if x.shape[1] == _LANES:
+        return _warp(x, y, w, cutoff, store, row_start, period, out, _LANES, first_row, stop_row)
+    return _warp(x, y, w, cutoff, store, row_start, period, out, 1, first_row, stop_row)
 
 
 @njit(cache=True, nogil=True)
@@ -202,101 +234,222 @@ def _load(series, column, lane, normalize):
 
 
 @njit(cache=True, nogil=True)
-def _distance_batch(av, aoff, bv, boff, order, group_starts, band, normalize, cutoff, out):
-    """Distances of the rows ``order``, grouped by shape (``group_starts``).
-
-    A group is cut into tiles of ``_LANES`` pairs; a last tile of at least
-    ``_PAD_FROM`` pairs is filled up by repeating its last pair, smaller
-    remainders go one pair at a time.
-    """
-    rolling = np.empty(2, dtype=np.int64)
-    for k in range(len(group_starts) - 1):
-        first, stop = group_starts[k], group_starts[k + 1]
-        r0 = order[first]
-        n, m = aoff[r0 + 1] - aoff[r0], boff[r0 + 1] - boff[r0]
-        w = _half_width(n, m, band)
-        width = min(m, 2 * w + 1)
-        rolling[0], rolling[1] = 0, width
-        if stop - first >= _PAD_FROM:
-            x, y = np.empty((n, _LANES)), np.empty((m, _LANES))
-            store, totals = np.empty((2 * width, _LANES)), np.empty(_LANES)
-        start = first
-        while start < stop:
-            count = min(stop - start, _LANES)
-            if count >= _PAD_FROM:
-                for g in range(_LANES):
-                    r = order[start + min(g, count - 1)]
-                    _load(av[aoff[r] : aoff[r + 1]], x, g, normalize)
-                    _load(bv[boff[r] : boff[r + 1]], y, g, normalize)
-                _warp(x, y, w, cutoff, store, rolling, 2, totals, _LANES)
-                found = totals
-            else:
-                count = 1
-                r = order[start]
-                x1, y1 = np.empty((n, 1)), np.empty((m, 1))
-                _load(av[aoff[r] : aoff[r + 1]], x1, 0, normalize)
-                _load(bv[boff[r] : boff[r + 1]], y1, 0, normalize)
-                found = _warp(x1, y1, w, cutoff, np.empty((2 * width, 1)), rolling, 2, np.empty(1), 1)
-            for g in range(count):
-                distance = math.sqrt(found[g])
-                out[order[start + g]] = distance if distance <= cutoff else np.nan
-            start += count
-    return out
+def _band_cells(n, m, w):
+    """Cells of an n x m programme inside the band ``w`` (about)."""
+    return n * min(m, 2 * w + 1)
 
 
 @njit(cache=True, nogil=True)
-def _path_batch(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths):
-    """Optimal paths, 0-based, written from ``slots[r]`` on.
+def _load_tile(av, aoff, bv, boff, order, start, count, normalize, x, y):
+    """Pairs ``order[start:start + count]`` into the columns of ``x`` and ``y``, the last repeated to fill them."""
+    for g in range(x.shape[1]):
+        r = order[start + min(g, count - 1)]
+        _load(av[aoff[r] : aoff[r + 1]], x, g, normalize)
+        _load(bv[boff[r] : boff[r + 1]], y, g, normalize)
 
-    The whole band of cumulative costs is kept and walked back from the last
-    cell to the cheapest neighbour, preferring on a tie the diagonal, then the
-    cell above (i - 1, j), then the cell to the left (i, j - 1). Each cell
-    holds its cost plus its cheapest neighbour's, so the squared differences
-    along the path, added up from the start, give the last cell exactly.
+
+@njit(cache=True, nogil=True)
+def _put_distances(found, order, start, count, cutoff, out):
+    for g in range(count):
+        distance = math.sqrt(found[g])
+        out[order[start + g]] = distance if distance <= cutoff else np.nan
+
+
+@njit(cache=True, nogil=True)
+def _distance_batch(av, aoff, bv, boff, order, group_starts, band, normalize, cutoff, out, k, start, budget):
+    """Distances of the rows ``order``, grouped by shape (``group_starts``), from group ``k``, position
+    ``start`` on, until about ``budget`` units of work are done; returns where to go on, and whether it stopped
+    at a group whose single tile is more than the budget (:func:`_long_group` does those).
+
+    A group is cut into tiles of ``_LANES`` pairs; a last tile of at least
+    ``_PAD_FROM`` pairs is filled up by repeating its last pair, smaller
+    remainders go one pair at a time. It stops only between tiles, and
+    resumes at the same tile boundaries.
+    """
+    rolling = np.empty(2, dtype=np.int64)
+    spent = 0
+    while k < len(group_starts) - 1:
+        first, stop = group_starts[k], group_starts[k + 1]
+        start = max(start, first)
+        r0 = order[first]
+        n, m = aoff[r0 + 1] - aoff[r0], boff[r0 + 1] - boff[r0]
+        w = _half_width(n, m, band)
+        cells = _band_cells(n, m, w)
+        if cells * _TILE_COST > budget:
+            return k, start, True
+        width = min(m, 2 * w + 1)
+        rolling[0], rolling[1] = 0, width
+        if stop - start >= _PAD_FROM:
+            x, y = np.empty((n, _LANES)), np.empty((m, _LANES))
+            store, totals = np.empty((2 * width, _LANES)), np.empty(_LANES)
+        while start < stop:
+            count = min(stop - start, _LANES)
+            cost = cells * (_TILE_COST if count >= _PAD_FROM else 1)
+            if spent > 0 and spent + cost > budget:
+                return k, start, False
+            spent += cost
+            if count >= _PAD_FROM:
+                _load_tile(av, aoff, bv, boff, order, start, count, normalize, x, y)
+                _warp(x, y, w, cutoff, store, rolling, 2, totals, _LANES, 0, n)
+                found = totals
+            else:
+                count = 1
+                x1, y1 = np.empty((n, 1)), np.empty((m, 1))
+                _load_tile(av, aoff, bv, boff, order, start, 1, normalize, x1, y1)
+                found = np.empty(1)
+                _warp(x1, y1, w, cutoff, np.empty((2 * width, 1)), rolling, 2, found, 1, 0, n)
+            _put_distances(found, order, start, count, cutoff, out)
+            start += count
+        k += 1
+    return k, start, False
+
+
+def _distances(av, aoff, bv, boff, order, group_starts, band, normalize, cutoff, out):
+    """:func:`_distance_batch` in pieces of about ``_BUDGET`` units, with a :func:`checkpoint` between them."""
+    k, start, groups = 0, 0, len(group_starts) - 1
+    while k < groups:
+        k, start, long = _distance_batch(
+            av, aoff, bv, boff, order, group_starts, band, normalize, cutoff, out, k, start, _BUDGET
+        )
+        checkpoint()
+        if long:
+            _long_group(av, aoff, bv, boff, order, group_starts[k], group_starts[k + 1], band, normalize, cutoff, out)
+            k += 1
+    return out
+
+
+def _long_group(av, aoff, bv, boff, order, first, stop, band, normalize, cutoff, out):
+    """The pairs ``order[first:stop]`` (one shape), tiled as :func:`_distance_batch` does, each tile's
+    programme in blocks of rows of about ``_BUDGET`` units, with a :func:`checkpoint` between blocks."""
+    r0 = order[first]
+    n, m = int(aoff[r0 + 1] - aoff[r0]), int(boff[r0 + 1] - boff[r0])
+    w = _half_width(n, m, band)
+    width = min(m, 2 * w + 1)
+    rolling = np.array([0, width], dtype=np.int64)
+    start = first
+    while start < stop:
+        count = min(stop - start, _LANES)
+        lanes = _LANES if count >= _PAD_FROM else 1
+        count = count if lanes == _LANES else 1
+        x, y = np.empty((n, lanes)), np.empty((m, lanes))
+        _load_tile(av, aoff, bv, boff, order, start, count, normalize, x, y)
+        store, found = np.empty((2 * width, lanes)), np.empty(lanes)
+        rows = max(1, _BUDGET // (width * (_TILE_COST if lanes == _LANES else 1)))
+        row = 0
+        while row < n:
+            row = _warp_rows(x, y, w, cutoff, store, rolling, 2, found, row, min(n, row + rows))
+            checkpoint()
+        _put_distances(found, order, start, count, cutoff, out)
+        start += count
+
+
+@njit(cache=True, nogil=True)
+def _path_rows(n, m, w):
+    """Where each row of the whole band starts in the store of a traced pair (``n + 1`` entries)."""
+    row_start = np.empty(n + 1, dtype=np.int64)
+    row_start[0] = 0
+    for i in range(n):
+        lo, hi = _row_bounds(i, m, w)
+        row_start[i + 1] = row_start[i] + hi - lo + 1
+    return row_start
+
+
+@njit(cache=True, nogil=True)
+def _trace(store, row_start, n, m, w, slot, out_i, out_j):
+    """Walk the whole band of cumulative costs back from the last cell; the path, 0-based, from ``slot`` on.
+
+    At each cell the cheapest neighbour, preferring on a tie the diagonal, then
+    the cell above (i - 1, j), then the cell to the left (i, j - 1). Returns its length.
     """
     inf = np.inf
-    for r in range(len(usable)):
+    k = slot + n + m - 2
+    i, j = n - 1, m - 1
+    out_i[k], out_j[k] = i, j
+    while i > 0 or j > 0:
+        lo, hi = _row_bounds(i, m, w)
+        left = store[row_start[i] + j - 1 - lo, 0] if j > lo else inf
+        if i > 0:
+            plo, phi = _row_bounds(i - 1, m, w)
+            above = store[row_start[i - 1] + j - plo, 0] if j <= phi else inf
+            diagonal = store[row_start[i - 1] + j - 1 - plo, 0] if j > plo else inf
+        else:
+            above = diagonal = inf
+        if diagonal <= above and diagonal <= left:
+            i -= 1
+            j -= 1
+        elif above <= left:
+            i -= 1
+        else:
+            j -= 1
+        k -= 1
+        out_i[k], out_j[k] = i, j
+    length = slot + n + m - 1 - k
+    for t in range(length):  # move the path to the front of its slot
+        out_i[slot + t] = out_i[k + t]
+        out_j[slot + t] = out_j[k + t]
+    return length
+
+
+@njit(cache=True, nogil=True)
+def _path_batch(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths, r, budget):
+    """Optimal paths, 0-based, written from ``slots[r]`` on, from row ``r`` on until about ``budget`` units of
+    work are done; returns the row to go on at, and whether it stopped at a pair costing more than the budget
+    alone (:func:`_long_path` does those).
+
+    The whole band of cumulative costs is kept and walked back (:func:`_trace`).
+    Each cell holds its cost plus its cheapest neighbour's, so the squared
+    differences along the path, added up from the start, give the last cell exactly.
+    """
+    spent = 0
+    while r < len(usable):
         if not usable[r]:
             lengths[r] = 0
+            r += 1
             continue
-        x = av[aoff[r] : aoff[r + 1]]
-        y = bv[boff[r] : boff[r + 1]]
-        n, m = len(x), len(y)
+        n, m = aoff[r + 1] - aoff[r], boff[r + 1] - boff[r]
         w = _half_width(n, m, band)
-        row_start = np.empty(n + 1, dtype=np.int64)
-        row_start[0] = 0
-        for i in range(n):
-            lo, hi = _row_bounds(i, m, w)
-            row_start[i + 1] = row_start[i] + hi - lo + 1
+        cost = _band_cells(n, m, w) * _PATH_COST
+        if cost > budget:
+            return r, True
+        if spent > 0 and spent + cost > budget:
+            return r, False
+        spent += cost
+        row_start = _path_rows(n, m, w)
         store = np.empty((row_start[n], 1))
-        _warp(x.copy().reshape((n, 1)), y.copy().reshape((m, 1)), w, inf, store, row_start, n, np.empty(1), 1)
-        k = slots[r] + n + m - 2
-        i, j = n - 1, m - 1
-        out_i[k], out_j[k] = i, j
-        while i > 0 or j > 0:
-            lo, hi = _row_bounds(i, m, w)
-            left = store[row_start[i] + j - 1 - lo, 0] if j > lo else inf
-            if i > 0:
-                plo, phi = _row_bounds(i - 1, m, w)
-                above = store[row_start[i - 1] + j - plo, 0] if j <= phi else inf
-                diagonal = store[row_start[i - 1] + j - 1 - plo, 0] if j > plo else inf
-            else:
-                above = diagonal = inf
-            if diagonal <= above and diagonal <= left:
-                i -= 1
-                j -= 1
-            elif above <= left:
-                i -= 1
-            else:
-                j -= 1
-            k -= 1
-            out_i[k], out_j[k] = i, j
-        length = slots[r] + n + m - 1 - k
-        for t in range(length):  # move the path to the front of its slot
-            out_i[slots[r] + t] = out_i[k + t]
-            out_j[slots[r] + t] = out_j[k + t]
-        lengths[r] = length
+        x = av[aoff[r] : aoff[r + 1]].copy().reshape((n, 1))
+        y = bv[boff[r] : boff[r + 1]].copy().reshape((m, 1))
+        _warp(x, y, w, np.inf, store, row_start, n, np.empty(1), 1, 0, n)
+        lengths[r] = _trace(store, row_start, n, m, w, slots[r], out_i, out_j)
+        r += 1
+    return r, False
+
+
+def _paths(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths):
+    """:func:`_path_batch` in pieces of about ``_BUDGET`` units, with a :func:`checkpoint` between them."""
+    r = 0
+    while r < len(usable):
+        r, long = _path_batch(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths, r, _BUDGET)
+        checkpoint()
+        if long:
+            _long_path(av, aoff, bv, boff, r, band, slots, out_i, out_j, lengths)
+            r += 1
     return lengths
+
+
+def _long_path(av, aoff, bv, boff, r, band, slots, out_i, out_j, lengths):
+    """The path of pair ``r``, its programme in blocks of rows of about ``_BUDGET`` units."""
+    x = av[aoff[r] : aoff[r + 1]].reshape((-1, 1))
+    y = bv[boff[r] : boff[r + 1]].reshape((-1, 1))
+    n, m = len(x), len(y)
+    w = _half_width(n, m, band)
+    row_start = _path_rows(n, m, w)
+    store = np.empty((row_start[n], 1))
+    rows = max(1, _BUDGET // (min(m, 2 * w + 1) * _PATH_COST))
+    row = 0
+    while row < n:
+        row = _warp_rows(x, y, w, np.inf, store, row_start, n, np.empty(1), row, min(n, row + rows))
+        checkpoint()
+    lengths[r] = _trace(store, row_start, n, m, w, slots[r], out_i, out_j)
 
 
 @njit(cache=True, nogil=True)
@@ -479,11 +632,11 @@ def dtw_distance(
     out = np.full(a.n_rows, np.nan)
     if scale is None:
         order, group_starts = _by_shape(a, b, usable)
-        return _distance_batch(av, aoff, bv, boff, order, group_starts, _band_code(band), bool(normalize), limit, out)
+        return _distances(av, aoff, bv, boff, order, group_starts, _band_code(band), bool(normalize), limit, out)
     # scaled pairs: no early abandoning (the cutoff is in the original units), the cutoff applied afterwards
     for pairs, pair_limit in ((usable & (scale == 1), limit), (usable & (scale != 1), np.inf)):
         order, group_starts = _by_shape(a, b, pairs)
-        _distance_batch(av, aoff, bv, boff, order, group_starts, _band_code(band), bool(normalize), pair_limit, out)
+        _distances(av, aoff, bv, boff, order, group_starts, _band_code(band), bool(normalize), pair_limit, out)
     if not normalize:  # a z-normalised distance does not depend on the scale
         with np.errstate(over="ignore"):
             out /= scale
@@ -551,7 +704,7 @@ def dtw_path(a: Ragged, b: Ragged, band: int | None = None) -> RaggedRecords:
     out_i = np.empty(slots[-1], dtype=np.int64)
     out_j = np.empty(slots[-1], dtype=np.int64)
     lengths = np.zeros(a.n_rows, dtype=np.int64)
-    _path_batch(av, aoff, bv, boff, usable, _band_code(band), slots, out_i, out_j, lengths)
+    _paths(av, aoff, bv, boff, usable, _band_code(band), slots, out_i, out_j, lengths)
     offsets = np.zeros(a.n_rows + 1, dtype=np.int64)
     np.cumsum(lengths, out=offsets[1:])
     keep = np.repeat(slots[:-1], lengths) + (np.arange(offsets[-1]) - np.repeat(offsets[:-1], lengths))
