@@ -12,20 +12,28 @@ CREATE OR REPLACE TEMP MACRO __tsql_tick(t) AS
 CREATE OR REPLACE TEMP MACRO __tsql_span(x) AS
     {'text': x::VARCHAR, 'interval': TRY_CAST(x AS INTERVAL), 'number': TRY_CAST(x AS DOUBLE)};
 
+-- A DOUBLE's 64 bits as a number (NULL as NaN), so that two of them make one UHUGEINT.
+CREATE OR REPLACE TEMP MACRO __tsql_bits(x) AS
+    COALESCE(x::DOUBLE, 'NaN'::DOUBLE)::BIT::UBIGINT::UHUGEINT;
+
 -- One group's rows, in no particular order (the grid sorts them: cheaper than ORDER BY here),
--- and its time column's type.
+-- each as one UHUGEINT: the tick's bits above the value's. DuckDB builds a list of one plain type
+-- far faster than a list of {t, v} structs, and a time cannot part from its value (two lists,
+-- list(t) and list(v), have no promise of the same order). Then the time column's type.
 CREATE OR REPLACE TEMP MACRO __tsql_observations(value, time) AS
-    list({'t': __tsql_tick(time), 'v': value::DOUBLE});
+    list((__tsql_bits(__tsql_tick(time)) << 64) | __tsql_bits(value));
 
 CREATE OR REPLACE TEMP MACRO __tsql_time_type(time) AS any_value(typeof(time));
 
--- A grid time from its tick and kind (0: TIMESTAMP, 1: TIMESTAMPTZ, 2: a number).
+-- A grid time from its tick and kind (0: TIMESTAMP, 1: TIMESTAMPTZ, 2: a number). Each value is cast
+-- straight to the union (its type picks the member): no one-member union on the way.
 CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, kind) AS
     CASE kind
-        WHEN 0 THEN union_value("time" := make_timestamp(tick::BIGINT))
-        WHEN 1 THEN union_value(time_tz := to_timestamp(0) + to_microseconds(tick::BIGINT))
-        ELSE union_value(number := tick)
-    END::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE);
+        WHEN 0 THEN make_timestamp(tick::BIGINT)::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
+        WHEN 1 THEN (to_timestamp(0) + to_microseconds(tick::BIGINT))::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ,
+                                                                                number DOUBLE)
+        ELSE tick::DOUBLE::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
+    END;
 
 -- The values on the regular grid from the first to the last time (several values at one point are averaged).
 CREATE OR REPLACE TEMP MACRO on_grid(values, times, step := NULL, fill := 'null') AS

@@ -167,3 +167,30 @@ def test_regular_rows_are_their_own_grid_but_month_ends_are_checked():
     )
     assert odd.months.tolist() == [1]
     assert np.isnan(odd.values.row(0)).tolist() == [False, True, False, False]
+
+
+def test_a_batch_on_one_fixed_step_is_gridded_as_when_it_is_not():
+    """Every spacing one fixed step is settled in two passes; the same rows in a mixed batch give the same grid."""
+    rng = np.random.default_rng(2)
+    day = float(US_PER_DAY)
+    rows = [list(1e15 + day * np.arange(n)) for n in (5, 9, 7)]
+    values = [list(rng.normal(size=len(r))) for r in rows]
+    regular = on_grid(Ragged.from_list(rows), Ragged.from_list(values), temporal=True)
+    mixed = on_grid(
+        Ragged.from_list(rows + [[0.0, day, 3 * day]]), Ragged.from_list(values + [[1.0, 2.0, 3.0]]), temporal=True
+    )
+    assert regular.length.tolist() == mixed.length.tolist()[:3] == [day] * 3
+    assert regular.months.tolist() == mixed.months.tolist()[:3] == [0] * 3
+    assert regular.values.values.tobytes() == mixed.values.take(np.arange(3)).values.tobytes()
+    thirty_days = [list(30 * day * np.arange(6))]  # a calendar step claims this spacing: one month
+    assert on_grid(Ragged.from_list(thirty_days), Ragged.from_list([list(range(6))]), temporal=True).months[0] == 1
+
+
+def test_rows_in_sorted_runs_and_a_last_row_without_times():
+    """Rows arrive as a few sorted runs (one per database thread); a row may have no time at all."""
+    t = [[5.0, 6.0, 7.0, 1.0, 2.0, 3.0, 4.0], [2.0, 1.0], [np.nan, np.nan]]
+    v = [[50.0, 60.0, 70.0, 10.0, 20.0, 30.0, 40.0], [2.0, 1.0], [1.0, 2.0]]
+    grid = on_grid(Ragged.from_list(t), Ragged.from_list(v), temporal=False)
+    assert grid.values.row(0).tolist() == [10.0, 20.0, 30.0, 40.0, 50.0, 60.0, 70.0]
+    assert grid.values.row(1).tolist() == [1.0, 2.0]
+    assert len(grid.values.row(2)) == 0 and grid.length.tolist()[:2] == [1.0, 1.0]

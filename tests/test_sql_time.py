@@ -231,3 +231,81 @@ def test_an_interval_argument_counts_each_groups_own_steps(con):
            FROM (SELECT * FROM hourly UNION ALL SELECT * FROM halfhourly) GROUP BY g ORDER BY g"""
     ).fetchall()
     assert rows == [("half-hourly", 48, 24.0), ("hourly", 24, 24.0)]  # a one-day cycle, in hours
+
+
+# --- how a group's rows reach the UDF, and the pieces the UDF works in ----------------------------
+
+
+def _received(settings: dict, sql: str) -> pa.Array:
+    """The observations column that an *_agg UDF receives for ``sql`` (one threaded scan: rows in table order)."""
+    c = tsql.connect(config={"threads": 1})
+    for name, value in settings.items():
+        c.execute(f"SET {name} = {value}")
+    seen = []
+
+    def keep(observations):
+        seen.append(observations)
+        return pa.array(np.zeros(len(observations)))
+
+    c.create_function("keep_observations", keep, ["UHUGEINT[]"], "DOUBLE", type="arrow")
+    c.execute(sql.replace("OBSERVATIONS", "keep_observations(__tsql_observations(v, t))")).fetchall()
+    c.close()
+    return seen[0]
+
+
+@pytest.mark.parametrize("settings", [{}, {"arrow_lossless_conversion": "true"}, {"arrow_large_buffer_size": "true"}])
+def test_every_value_and_time_arrives_bit_for_bit(settings):
+    """A row travels as one UHUGEINT (tick bits above value bits): awkward doubles come back exact,
+    NULL as NaN, whatever Arrow type the session's settings give it."""
+    from tsql.timed import _observations
+
+    values = ["-0.0", "5e-324", "-1.7976931348623157e308", "'inf'", "'-nan'", "NULL", "0.1", "-2.5"]
+    times = ["-0.0", "1e-300", "2", "3.5", "1e15", "NULL", "-7", "8"]
+    rows = ", ".join(f"({t}::DOUBLE, {v}::DOUBLE)" for t, v in zip(times, values))
+    column = _received(settings, f"SELECT OBSERVATIONS FROM (VALUES {rows}) x(t, v)")
+    ticks, got = _observations(column)
+    expected = duckdb.sql(f"SELECT list(t), list(v) FROM (VALUES {rows}) x(t, v)").fetchall()[0]
+    as_array = [np.array([np.nan if x is None else x for x in xs]) for xs in expected]
+    for ours, theirs in zip((ticks.values, got.values), as_array):
+        missing = np.isnan(theirs)
+        assert np.array_equal(np.isnan(ours), missing)
+        assert ours[~missing].tobytes() == theirs[~missing].tobytes()  # bit for bit: -0.0 stays -0.0
+    assert np.signbit(got.values[4])  # -nan keeps its sign bit: NaN payloads are not rewritten
+
+
+def test_a_batch_whose_last_group_has_no_time_is_not_a_crash(con):
+    rows = con.execute(
+        """SELECT g, autocorrelation_agg(v, t) FROM (VALUES (1, 1.0, 1), (1, 2.0, 2), (1, 3.0, 3), (1, 1.0, 4),
+                                                           (2, 1.0, NULL)) x(g, v, t)
+           GROUP BY ALL ORDER BY g"""
+    ).fetchall()
+    assert rows == [(1, pytest.approx(-0.29545454545454547)), (2, None)]  # numpy's lag-1 ACF of 1, 2, 3, 1
+
+
+def test_the_udf_pieces_do_not_change_any_answer(con, monkeypatch):
+    """The UDF works on pieces of about 65,536 observations, and acf's FFT on buckets of equal lengths:
+    neither tiny pieces nor a group computed alone may change a bit of any answer."""
+    import tsql.timed
+
+    rng = np.random.default_rng(4)
+    n_groups, n_points = 1200, 80  # buckets of equal lengths big enough for numpy to reuse temporaries
+    days = np.tile(np.arange(n_points), n_groups)
+    keep = rng.random(len(days)) > 0.1
+    table = pa.table(
+        {
+            "g": np.repeat(np.arange(n_groups), n_points)[keep],
+            "t": pa.array(np.datetime64("2020-01-01", "D") + days[keep]).cast(pa.date32()),
+            "v": rng.normal(size=len(days))[keep] + np.sin(days[keep] / 2),
+        }
+    )
+    con.register("pieces_table", table)
+    query = """SELECT g, acf_agg(v, t, max_lag := 45), autocorrelation_agg(v, t, lag := 2), seasonality_agg(v, t),
+                      harmonic_smooth_agg(v, t, harmonics := 2)
+               FROM pieces_table GROUP BY g ORDER BY g"""
+    whole = con.execute(query).fetchall()
+    monkeypatch.setattr(tsql.timed, "_PIECE_POINTS", 1000)
+    pieces = con.execute(query).fetchall()
+    alone = [con.execute(query.replace("GROUP BY", f"WHERE g = {g} GROUP BY")).fetchall()[0] for g in (0, 57, 1199)]
+    con.unregister("pieces_table")
+    assert repr(pieces) == repr(whole)  # repr shows every bit of a float
+    assert repr(alone) == repr([whole[0], whole[57], whole[1199]])

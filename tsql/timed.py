@@ -20,6 +20,7 @@ INTERVAL for temporal times; a number counts grid steps, as in the list forms.
 
 from __future__ import annotations
 
+import sys
 from typing import Any
 
 import duckdb
@@ -35,7 +36,10 @@ from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, SPAN, Function, Param
 _DAY_US = 86_400_000_000
 _TEMPORAL = {"DATE", "TIMESTAMP", "TIMESTAMP_S", "TIMESTAMP_MS", "TIMESTAMP_NS", "TIMESTAMP WITH TIME ZONE"}
 _NUMERIC = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "FLOAT", "DOUBLE", "DECIMAL", "U")
-_OBSERVATIONS = "STRUCT(t DOUBLE, v DOUBLE)[]"
+# one group's observations (macro __tsql_observations): per row the bits of its tick (DOUBLE) in the
+# high 64 bits and of its value (DOUBLE, NaN for NULL) in the low 64
+_OBSERVATIONS = "UHUGEINT[]"
+_TICK_WORD, _VALUE_WORD = (0, 1) if sys.byteorder == "big" else (1, 0)
 # how the step and every span argument reach a UDF (macro __tsql_span): its text, as INTERVAL, as DOUBLE
 _SPAN_STRUCT = 'STRUCT("text" VARCHAR, "interval" INTERVAL, number DOUBLE)'
 _SPAN_ARROW = [pa.field("span", pa.month_day_nano_interval()), pa.field("number", pa.float64())]
@@ -43,6 +47,9 @@ _SPAN_ARROW = [pa.field("span", pa.month_day_nano_interval()), pa.field("number"
 # DuckDB builds unions there far faster than it imports Arrow unions
 _WALL, _UTC, _NUMBER = 0, 1, 2
 _SERIES_RECORDS = "STRUCT(tick DOUBLE, kind TINYINT, value DOUBLE)[]"
+# observations per piece of a UDF call (DuckDB hands over 2,048 groups at once): numpy's
+# temporaries then fit in the processor's cache instead of costing fresh pages
+_PIECE_POINTS = 65_536
 
 
 def create_udfs(con: duckdb.DuckDBPyConnection) -> None:
@@ -116,13 +123,31 @@ def _interval(value: Any) -> tuple[int, float]:
 
 
 def _observations(column: Any) -> tuple[Ragged, Ragged]:
+    """Ticks and values of each group: from the macro's packed UHUGEINTs, or from ``{t, v}`` records
+    (the Spark binding's)."""
     arr = arrow_batch._single(column)
+    if not (pa.types.is_list(arr.type) or pa.types.is_large_list(arr.type)):
+        raise TypeError(f"expected a list array of observations, got {arr.type}")
+    offsets = np.asarray(arr.offsets, dtype=np.int64)
+    first = int(offsets[0])
+    records = arr.values.slice(first, int(offsets[-1]) - first)
+    if pa.types.is_struct(records.type):
+        ticks, values = records.field("t"), records.field("v")
+    else:
+        # 16 bytes per observation, whatever Arrow calls them (decimal128, or DuckDB's opaque
+        # extension type around fixed_size_binary[16]); never NULL (NaN stands for NULL)
+        packed = records.storage if isinstance(records, pa.ExtensionArray) else records
+        start, n = packed.offset, len(packed)
+        words = np.frombuffer(packed.buffers()[1], dtype=np.float64, count=2 * (start + n))[2 * start :]
+        ticks = pa.array(np.ascontiguousarray(words[_TICK_WORD::2]))
+        values = pa.array(np.ascontiguousarray(words[_VALUE_WORD::2]))
+    lists = pa.LargeListArray if pa.types.is_large_list(arr.type) else pa.ListArray
+    offsets = pa.array(offsets - first, type=arr.offsets.type)
     mask = arr.is_null() if arr.null_count else None
-    records = arr.values
-    offsets = arr.offsets
-    ticks = pa.ListArray.from_arrays(offsets, records.field("t"), mask=mask)
-    values = pa.ListArray.from_arrays(offsets, records.field("v"), mask=mask)
-    return arrow_batch.to_ragged(ticks), arrow_batch.to_ragged(values)
+    return (
+        arrow_batch.to_ragged(lists.from_arrays(offsets, ticks, mask=mask)),
+        arrow_batch.to_ragged(lists.from_arrays(offsets, values, mask=mask)),
+    )
 
 
 def _grid(function: str, key: tuple, ticks: Ragged, values: Ragged) -> tuple[_Clock, Grid]:
@@ -174,18 +199,37 @@ def make_timed_udf(fn: Function) -> Any:
     def udf(observations: Any, *settings: Any) -> pa.Array:
         obs = arrow_batch._single(observations)
 
-        def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
-            ticks, values = _observations(obs if rows is None else obs.take(pa.array(rows)))
+        def piece(part: pa.Array, key: tuple) -> pa.Array:
+            ticks, values = _observations(part)
             clock, grid = _grid(name, key[:3], ticks, values)
             per_row = [
                 _span_in_steps(fn, p, clock, grid, value) if p.span else value for p, value in zip(fn.params, key[3:])
             ]
             return _per_argument_group(fn, grid, per_row, lambda g, kwargs: answer(fn, clock, g, kwargs))
 
+        def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
+            part = obs if rows is None else obs.take(pa.array(rows))
+            pieces = [piece(part.slice(lo, hi - lo), key) for lo, hi in _pieces(part)]
+            return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)
+
         return by_settings(len(obs), settings, run)
 
     args = ["observations", "time_type", "step", "fill"] + [p.name for p in fn.params]
     return with_arity(udf, f"{fn.udf_name}_on_grid", fn.doc, args)
+
+
+def _pieces(lists: pa.Array) -> list[tuple[int, int]]:
+    """Row ranges of about ``_PIECE_POINTS`` observations each (a row is never split).
+
+    Each group's answer depends on its own rows only, so the pieces change no answer; their
+    arrays stay in the processor's cache and the UDF's memory stays small.
+    """
+    offsets = np.asarray(lists.offsets, dtype=np.int64)
+    if len(offsets) < 2 or offsets[-1] - offsets[0] <= _PIECE_POINTS:
+        return [(0, len(lists))]
+    window = (offsets[:-1] - offsets[0]) // _PIECE_POINTS  # rows starting in one window go together
+    bounds = np.r_[0, np.flatnonzero(np.diff(window)) + 1, len(lists)]
+    return list(zip(bounds[:-1].tolist(), bounds[1:].tolist()))
 
 
 def _span_in_steps(fn: Function, p: Param, clock: _Clock, grid: Grid, span: tuple | None) -> Any:
@@ -216,7 +260,10 @@ def _span_in_steps(fn: Function, p: Param, clock: _Clock, grid: Grid, span: tupl
 def _per_argument_group(fn: Function, grid: Grid, per_row: list[Any], answer: Any) -> pa.Array:
     """Run ``answer`` once per distinct set of (per-row) argument values."""
     n_rows = grid.values.n_rows
-    columns = [a if isinstance(a, np.ndarray) else [a] * n_rows for a in per_row]
+    if n_rows and not any(isinstance(a, np.ndarray) for a in per_row):  # the same arguments on every row
+        columns = [[a] for a in per_row]
+    else:
+        columns = [a if isinstance(a, np.ndarray) else [a] * n_rows for a in per_row]
     keys = [tuple(None if (isinstance(x, float) and np.isnan(x)) else x for x in row) for row in zip(*columns)]
 
     def call(rows: np.ndarray | None, key: tuple) -> pa.Array:
@@ -324,7 +371,9 @@ def _segments(fn: Function) -> Any:
 def _series(fn: Function) -> Any:
     def answer(fn: Function, clock: _Clock, grid: Grid, kwargs: dict) -> pa.Array:
         smooth: Ragged = fn.kernel(grid.values, **kwargs)
-        ticks = grid.ticks[np.repeat(smooth.row_valid, grid.values.lengths)]  # NULL rows have no values
+        ticks = grid.ticks
+        if not smooth.row_valid.all():
+            ticks = ticks[np.repeat(smooth.row_valid, grid.values.lengths)]  # NULL rows have no values
         kind = (_UTC if clock.utc else _WALL) if clock.temporal else _NUMBER
         records = pa.StructArray.from_arrays(
             [pa.array(ticks), pa.array(np.full(len(ticks), kind, dtype=np.int8)), _values_of(smooth)],

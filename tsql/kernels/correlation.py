@@ -161,7 +161,10 @@ def _lagged_by_fft(centred: _Centred, max_lag: int) -> tuple[np.ndarray, np.ndar
 
 def _circular_autocorrelation(matrix: np.ndarray, size: int, max_lag: int) -> np.ndarray:
     spectrum = fft.rfft(matrix, n=size, axis=1)
-    return fft.irfft(spectrum * spectrum.conj(), n=size, axis=1)[:, 1 : max_lag + 1]
+    # a named conjugate: numpy would otherwise reuse a large temporary and multiply conj(X) * X, which
+    # rounds differently from X * conj(X) (fused multiply-adds), so a row's answer would depend on its bucket's size
+    conjugate = spectrum.conj()
+    return fft.irfft(np.multiply(spectrum, conjugate), n=size, axis=1)[:, 1 : max_lag + 1]
 
 
 def ljung_box(batch: Ragged, lags: int = 10) -> dict[str, np.ndarray]:

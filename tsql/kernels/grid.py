@@ -89,6 +89,8 @@ class Grid:
         """The time of every grid point, flat, in ticks."""
         v = self.values
         k = v.positions.astype(np.float64)
+        if not (self.months > 0).any():  # fixed steps only: the same sums, without gathers
+            return np.repeat(self.start, v.lengths) + k * np.repeat(self.length, v.lengths)
         rows = v.row_ids
         start, months, length = self.start[rows], self.months[rows], self.length[rows]
         out = start + k * length
@@ -232,13 +234,6 @@ def _check_extent(t: np.ndarray, offsets: np.ndarray, start: np.ndarray, length:
         )
 
 
-def _steps_within_rows(offsets: np.ndarray, n: int) -> np.ndarray:
-    """Mask of the n - 1 steps between neighbours of the same row."""
-    inside = np.ones(max(n - 1, 0), dtype=bool)
-    inside[offsets[1:-1][offsets[1:-1] > 0] - 1] = False
-    return inside
-
-
 def _bins(
     t: np.ndarray, rows: np.ndarray, start: np.ndarray, months: np.ndarray, length: np.ndarray, has_obs: np.ndarray
 ) -> np.ndarray:
@@ -295,39 +290,67 @@ def _sorted_observations(times: Ragged, values: Ragged) -> tuple[np.ndarray, ...
     Only rows out of order are sorted, and only rows with repeated times are also ordered by
     value: that makes the averages of repeated times independent of the order rows arrived in.
     """
-    rows, t, v = times.row_ids, times.values, values.values
-    keep = ~np.isnan(t)
-    if not keep.all():
-        rows, t, v = rows[keep], t[keep], v[keep]
+    t, v, offsets = times.values, values.values, times.offsets
+    rows = None
+    no_time = np.isnan(t)
+    if no_time.any():
+        keep = ~no_time
+        rows, t, v = times.row_ids[keep], t[keep], v[keep]
+        offsets = _offsets(np.bincount(rows, minlength=times.n_rows))
+    across = _steps_across_rows(offsets, len(t))
     for by_value in (False, True):
-        same_row = rows[1:] == rows[:-1]
-        wrong = same_row & ((t[1:] == t[:-1]) if by_value else (t[1:] < t[:-1]))
+        if len(t) < 2:
+            break
+        wrong = (t[1:] == t[:-1]) if by_value else (t[1:] < t[:-1])
+        wrong[across] = False
         if not wrong.any():
             continue
+        if rows is None:
+            rows = _row_ids(offsets)
         flagged = np.zeros(times.n_rows, dtype=bool)
         flagged[rows[1:][wrong]] = True
-        touched = np.flatnonzero(flagged[rows])
-        order = (
-            np.lexsort((v[touched], t[touched], rows[touched])) if by_value else _time_order(rows[touched], t[touched])
-        )
-        # the order keeps every element in its row (rows are sorted), so only times and values move
-        if len(touched) < len(t):
-            whole = np.arange(len(t))
-            whole[touched] = touched[order]
-            order = whole
+        if flagged.all():
+            order = np.lexsort((v, t, rows)) if by_value else _time_order(rows, t)
+        else:
+            touched = np.flatnonzero(flagged[rows])
+            in_touched = (
+                np.lexsort((v[touched], t[touched], rows[touched]))
+                if by_value
+                else _time_order(rows[touched], t[touched])
+            )
+            # the order keeps every element in its row (rows are sorted), so only times and values move
+            order = np.arange(len(t))
+            order[touched] = touched[in_touched]
         t, v = t[order], v[order]
-    counts = np.bincount(rows, minlength=times.n_rows)
-    offsets = np.zeros(times.n_rows + 1, dtype=np.int64)
-    np.cumsum(counts, out=offsets[1:])
+    if rows is None:
+        rows = _row_ids(offsets)
     return t, v, rows, offsets
+
+
+def _offsets(counts: np.ndarray) -> np.ndarray:
+    offsets = np.zeros(len(counts) + 1, dtype=np.int64)
+    np.cumsum(counts, out=offsets[1:])
+    return offsets
+
+
+def _row_ids(offsets: np.ndarray) -> np.ndarray:
+    return np.repeat(np.arange(len(offsets) - 1, dtype=np.int64), np.diff(offsets))
+
+
+def _steps_across_rows(offsets: np.ndarray, n: int) -> np.ndarray:
+    """Indices, among the n - 1 steps between neighbours, of those from one row to the next."""
+    starts = offsets[1:-1]
+    return starts[(starts > 0) & (starts < n)] - 1
 
 
 def _time_order(rows: np.ndarray, t: np.ndarray) -> np.ndarray:
     """The order by (row, time): one integer sort when the times are whole numbers (microseconds)."""
     low, high = t.min(), t.max()
     span = high - low + 1
-    if np.all(t == np.floor(t)) and span * (rows.max() - rows.min() + 1) < 2.0**62:
-        key = (rows - rows.min()) * np.int64(span) + (t - low).astype(np.int64)
+    first_row, last_row = rows[0], rows[-1]  # rows are in order
+    if span * (last_row - first_row + 1) < 2.0**62 and np.array_equal(t, np.floor(t)):
+        key = (t - low).astype(np.int64)
+        key += (rows - first_row) * np.int64(span)
         return np.argsort(key, kind="stable")
     return np.lexsort((t, rows))
 
@@ -348,8 +371,14 @@ def _inferred_steps(
     if len(t) < 2:
         return months, length, False
     gap = np.diff(t)
+    across = _steps_across_rows(offsets, len(t))
+    step = _one_fixed_step(gap, across, temporal)
+    if step:  # what the search below finds for such a batch, in two passes
+        length[:] = step
+        return months, length, True
     gap_row = rows[1:]
-    within = _steps_within_rows(offsets, len(t))
+    within = np.ones(len(gap), dtype=bool)
+    within[across] = False
     usable = (gap > 0) & within
     repeats = not np.array_equal(usable, within)
     if not usable.all():
@@ -389,6 +418,22 @@ def _inferred_steps(
         chosen = chosen[np.r_[True, gap_row[chosen][1:] != gap_row[chosen][:-1]]]
         length[gap_row[chosen]] = gap[chosen]
     return months, length, False
+
+
+def _one_fixed_step(gap: np.ndarray, across: np.ndarray, temporal: bool) -> float:
+    """The spacing when every spacing inside the rows is exactly the same positive fixed length
+    (not one a calendar step would claim); else 0."""
+    inside = np.ones(len(gap), dtype=bool)
+    inside[across] = False
+    first = int(np.argmax(inside))
+    step = float(gap[first])
+    if not inside[first] or not step > 0:
+        return 0.0
+    if temporal and _CALENDAR_MONTHS[min(int(step // _DAY_US), len(_CALENDAR_MONTHS) - 1)]:
+        return 0.0
+    same = gap == step
+    same[across] = True
+    return step if same.all() else 0.0
 
 
 def _keys(gap: np.ndarray, temporal: bool, scale: float) -> np.ndarray:
