@@ -115,3 +115,22 @@ def scalar_parameter(arr: ArrowInput) -> Sequence:
     if pa.types.is_struct(arr.type):
         return [None if r is None else tuple(r.values()) for r in arr.to_pylist()]
     return arr.to_pylist()
+
+
+def row_pieces(columns: list[pa.Array], points: int) -> list[tuple[int, int]]:
+    """Row ranges of about ``points`` list elements each (all columns counted; a row is never split).
+
+    A row's answer depends on its own elements only, so working piece by piece changes no
+    answer; the pieces' numpy temporaries stay in the processor's cache and a call's memory
+    stays small.
+    """
+    n_rows = len(columns[0])
+    counts = np.zeros(n_rows + 1, dtype=np.int64)
+    for column in columns:
+        offsets = np.asarray(column.offsets, dtype=np.int64)
+        counts += offsets - offsets[0]
+    if n_rows < 2 or counts[-1] <= points:
+        return [(0, n_rows)]
+    window = counts[:-1] // points  # rows starting in one window go together
+    bounds = np.r_[0, np.flatnonzero(np.diff(window)) + 1, n_rows]
+    return list(zip(bounds[:-1].tolist(), bounds[1:].tolist()))

@@ -209,27 +209,13 @@ def make_timed_udf(fn: Function) -> Any:
 
         def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
             part = obs if rows is None else obs.take(pa.array(rows))
-            pieces = [piece(part.slice(lo, hi - lo), key) for lo, hi in _pieces(part)]
+            pieces = [piece(part.slice(lo, hi - lo), key) for lo, hi in arrow_batch.row_pieces([part], _PIECE_POINTS)]
             return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)
 
         return by_settings(len(obs), settings, run)
 
     args = ["observations", "time_type", "step", "fill"] + [p.name for p in fn.params]
     return with_arity(udf, f"{fn.udf_name}_on_grid", fn.doc, args)
-
-
-def _pieces(lists: pa.Array) -> list[tuple[int, int]]:
-    """Row ranges of about ``_PIECE_POINTS`` observations each (a row is never split).
-
-    Each group's answer depends on its own rows only, so the pieces change no answer; their
-    arrays stay in the processor's cache and the UDF's memory stays small.
-    """
-    offsets = np.asarray(lists.offsets, dtype=np.int64)
-    if len(offsets) < 2 or offsets[-1] - offsets[0] <= _PIECE_POINTS:
-        return [(0, len(lists))]
-    window = (offsets[:-1] - offsets[0]) // _PIECE_POINTS  # rows starting in one window go together
-    bounds = np.r_[0, np.flatnonzero(np.diff(window)) + 1, len(lists)]
-    return list(zip(bounds[:-1].tolist(), bounds[1:].tolist()))
 
 
 def _span_in_steps(fn: Function, p: Param, clock: _Clock, grid: Grid, span: tuple | None) -> Any:

@@ -23,6 +23,7 @@ from tsql.kernels.ragged import Ragged, in_safe_range
 
 #: Above this many lags one FFT per bucket is cheaper than one pass per lag.
 _DIRECT_MAX_LAGS = 40
+_BLOCK_ELEMENTS = 1 << 16  # elements of a bucket worked on at once
 
 _EPS = np.finfo(np.float64).eps
 _TINY = np.finfo(np.float64).tiny
@@ -75,14 +76,17 @@ class _Centred:
 def _buckets(batch: Ragged) -> Iterator[tuple[np.ndarray, _Centred, np.ndarray]]:
     """(row indices, centred bucket, usable rows) for each length present."""
     valid = batch.row_valid
-    for n, rows, matrix in batch.by_length():
+    for n, all_rows, whole in batch.by_length():
         if n == 0:
             continue
-        infinite = np.isinf(matrix).any(axis=1)
-        if infinite.any():  # no answer for a row holding an infinity: treat it as wholly missing
-            matrix = np.where(infinite[:, None], np.nan, matrix)
-        centred = _Centred(in_safe_range(matrix))
-        yield rows, centred, centred.usable() & valid[rows]
+        step = max(1, _BLOCK_ELEMENTS // n)  # rows at a time: the work arrays stay in the processor's cache
+        for start in range(0, len(all_rows), step):
+            rows, matrix = all_rows[start : start + step], whole[start : start + step]
+            infinite = np.isinf(matrix).any(axis=1)
+            if infinite.any():  # no answer for a row holding an infinity: treat it as wholly missing
+                matrix = np.where(infinite[:, None], np.nan, matrix)
+            centred = _Centred(in_safe_range(matrix))
+            yield rows, centred, centred.usable() & valid[rows]
 
 
 def autocorrelation(batch: Ragged, lag: int = 1) -> np.ndarray:
