@@ -194,3 +194,123 @@ def test_rows_in_sorted_runs_and_a_last_row_without_times():
     assert grid.values.row(0).tolist() == [10.0, 20.0, 30.0, 40.0, 50.0, 60.0, 70.0]
     assert grid.values.row(1).tolist() == [1.0, 2.0]
     assert len(grid.values.row(2)) == 0 and grid.length.tolist()[:2] == [1.0, 1.0]
+
+
+# --- a row's grid depends on its own observations only, whatever else is in the batch ---------------
+
+
+def _alone_and_among(rows, others, temporal, values=None):
+    """The grid of ``rows`` alone, and the same rows' part of a grid of the batch ``others + rows``."""
+    values = values or [list(np.arange(len(r), dtype=float)) for r in rows]
+    other_values = [list(np.arange(len(r), dtype=float)) for r in others]
+    alone = on_grid(Ragged.from_list(rows), Ragged.from_list(values), temporal)
+    among = on_grid(Ragged.from_list(others + rows), Ragged.from_list(other_values + values), temporal)
+    mine = len(others) + np.arange(len(rows))
+    return alone, among.take(mine), among
+
+
+def _same_grid(a, b):
+    assert a.values.values.tobytes() == b.values.values.tobytes()
+    assert a.values.offsets.tolist() == b.values.offsets.tolist()
+    assert a.start.tobytes() == b.start.tobytes()
+    assert a.months.tolist() == b.months.tolist()
+    assert a.length.tobytes() == b.length.tobytes()
+    assert a.ticks.tobytes() == b.ticks.tobytes()
+
+
+@pytest.mark.parametrize("other", [[0.0, 1e6], [0.0, 1e6, 3e6], [-5e8, -4e8]])
+def test_near_equal_numeric_spacings_are_judged_by_the_row_alone(other):
+    """Spacings 1.000001, 0.999999, 1, 1: distinct to nine digits of this row's own times, the most common
+    is 1; a batch holding far larger times must not merge them into one spacing."""
+    row = [0.0, 1.000001, 2.0, 3.0, 4.0]
+    alone, among, _ = _alone_and_among([row], [other], temporal=False)
+    assert alone.length.tolist() == [1.0]
+    _same_grid(alone, among)
+
+
+def test_decimal_tenths_keep_their_own_first_spacing_in_a_regular_batch():
+    """Every spacing is one step to nine digits in each row, but the rows' first spacings differ in the
+    last bits: each row keeps its own, as it does in a batch that is not regular."""
+    tenths = list(np.cumsum(np.full(8, 0.1)))  # 0.1, 0.2, 0.30000000000000004, ...
+    shifted = [x + 0.2 for x in tenths]
+    alone, among, _ = _alone_and_among([shifted], [tenths], temporal=False)
+    _, mixed, _ = _alone_and_among([shifted], [tenths, [0.0, 0.5, 0.7]], temporal=False)
+    assert alone.length[0] == shifted[1] - shifted[0] != tenths[1] - tenths[0]
+    _same_grid(alone, among)
+    _same_grid(alone, mixed)
+
+
+@pytest.mark.parametrize(
+    ("others", "temporal"),
+    [
+        ([list(US_PER_DAY * np.arange(6.0))], True),  # every spacing one fixed step
+        ([ticks(month_starts("2020-01", 9))], True),  # every spacing one calendar month
+        ([list(np.arange(6.0))], False),
+        ([list(np.arange(6.0) * 0.1)], False),
+        ([list(US_PER_DAY * np.array([0.0, 1, 3]))], True),  # not regular
+        ([[0.0, 1.0, 3.0]], False),
+    ],
+)
+def test_a_row_with_one_observation_has_no_step_whatever_the_batch(others, temporal):
+    """One observation has no spacing: step 0 (neither months nor a length), in a batch of one row, in a
+    batch the two-pass shortcut settles and in any other batch."""
+    single = [[float(7 * US_PER_DAY)], [float(9 * US_PER_DAY)], [np.nan, 3.0 * US_PER_DAY]]
+    alone, among, whole = _alone_and_among(single, others, temporal)
+    assert alone.months.tolist() == [0, 0, 0] and alone.length.tolist() == [0.0, 0.0, 0.0]
+    _same_grid(alone, among)
+    assert (whole.months[:-3] + whole.length[:-3] > 0).all()  # the other rows do have a step
+    assert np.isnan(whole.steps(0, US_PER_DAY)[-3:]).all()
+
+
+def test_rounded_decimal_times_stay_one_point_per_step_in_any_batch():
+    """Thirds rounded to nine decimals: every spacing is one step, though the later times drift from the
+    first time plus whole first spacings by more than the binning tolerance. Alone the row is its own grid;
+    beside an irregular row (which takes the general path) it must be too."""
+    row = list(np.round((np.arange(1000) + 1) / 3, 9))
+    alone, among, _ = _alone_and_among([row], [[0.0, 1.0, 3.0]], temporal=False)
+    assert len(alone.values.row(0)) == 1000 and not np.isnan(alone.values.row(0)).any()
+    _same_grid(alone, among)
+
+
+def test_zero_and_nan_values_keep_their_bits_next_to_a_row_that_averages():
+    """-0.0 (and a NaN's sign bit) at a grid point with one observation stays as it is, even when another
+    row of the batch has several observations at one point to average."""
+    row, values = [0.0, 1.0, 2.0], [-0.0, 1.0, -np.nan]
+    alone, among, _ = _alone_and_among([row], [[0.0, 0.0, 1.0]], temporal=False, values=[values])
+    assert np.signbit(alone.values.values).tolist() == [True, False, True]
+    _same_grid(alone, among)
+
+
+def test_huge_whole_number_times_are_sorted_exactly():
+    """Times beyond 2**53 apart cannot be shifted to integers exactly: the order must still be right."""
+    from tsql.kernels.grid import _sorted_observations
+
+    big = 2.0**60
+    times = Ragged.from_list([[big + 256, big, -big]])
+    t, _, _, _ = _sorted_observations(times, Ragged.from_list([[1.0, 2.0, 3.0]]))
+    assert t.tolist() == [-big, big, big + 256]
+
+
+def test_every_row_is_gridded_as_alone_in_a_random_batch():
+    """Many kinds of rows (regular, gaps, repeats, one observation, decimals, months), alone and together."""
+    rng = np.random.default_rng(11)
+    for temporal in (True, False):
+        rows = []
+        for _ in range(60):
+            n = int(rng.choice([1, 2, 4, 12]))
+            if temporal:
+                kind = rng.integers(3)
+                if kind == 0:
+                    t = 1.6e15 + US_PER_DAY * np.cumsum(rng.choice([1, 1, 2], n))
+                elif kind == 1:
+                    t = np.array(ticks(month_starts(str(2000 + rng.integers(20)) + "-01", n)))
+                else:
+                    t = 1.6e15 + 60e6 * np.cumsum(rng.integers(0, 4, n))
+            else:
+                t = np.cumsum(np.full(n, 0.1)) * rng.choice([1.0, 7.0, 1e6]) + rng.choice([0.0, 0.05, 1e3])
+            rows.append(list(rng.permutation(t)))
+        values = [list(rng.normal(size=len(r))) for r in rows]
+        whole = on_grid(Ragged.from_list(rows), Ragged.from_list(values), temporal)
+        for i in range(len(rows)):
+            alone = on_grid(Ragged.from_list([rows[i]]), Ragged.from_list([values[i]]), temporal)
+            _same_grid(alone, whole.take(np.array([i])))

@@ -309,3 +309,48 @@ def test_the_udf_pieces_do_not_change_any_answer(con, monkeypatch):
     con.unregister("pieces_table")
     assert repr(pieces) == repr(whole)  # repr shows every bit of a float
     assert repr(alone) == repr([whole[0], whole[57], whole[1199]])
+
+
+# --- a group's answer does not depend on the other groups of its batch ------------------------------
+
+
+def _outcome(con, sql: str) -> list:
+    """The rows of ``sql``, or the error it raises (either must not depend on the other groups)."""
+    try:
+        return con.execute(sql).fetchall()
+    except duckdb.Error as error:
+        return [str(error).split("\n")[0]]
+
+
+def test_near_equal_spacings_are_judged_within_the_group():
+    """Spacings 1.000001, 0.999999, 1, 1 are three spacings to nine digits of the group's own times (the
+    most common is 1); another group with far larger times in the same batch must not merge them."""
+    c = tsql.connect(config={"threads": 1})
+    c.execute(
+        """CREATE TABLE near AS SELECT 'a' AS g, t, t AS v FROM unnest([0, 1.000001, 2, 3, 4]::DOUBLE[]) u(t)
+           UNION ALL SELECT 'b', t, t FROM unnest([0, 1e6, 2e6, 4e6]::DOUBLE[]) u(t)"""
+    )
+    query = "SELECT g, [r.time FOR r IN harmonic_smooth_agg(v, t, harmonics := 1)] FROM near {} GROUP BY g ORDER BY g"
+    together = c.execute(query.format("")).fetchall()
+    alone = c.execute(query.format("WHERE g = 'a'")).fetchall()
+    c.close()
+    assert alone == [("a", [0.0, 1.0, 2.0, 3.0, 4.0])]
+    assert together[0] == alone[0]
+
+
+def test_a_one_row_group_gets_the_same_answer_alone_and_among_regular_groups():
+    """A group of one row has no step; an hourly group beside it must not lend it one."""
+    c = tsql.connect(config={"threads": 1})
+    c.execute(
+        """CREATE TABLE one AS SELECT 1 AS g, TIMESTAMP '2024-01-01' + to_hours(i) AS t, sin(i / 3.0) AS v
+                               FROM range(24 * 7) r(i)
+           UNION ALL SELECT 2, TIMESTAMP '2024-03-01', 1.0"""
+    )
+    query = "SELECT g, harmonic_profile_agg(v, t, INTERVAL 1 DAY) FROM one {} GROUP BY g ORDER BY g"
+    together = _outcome(c, query.format(""))
+    alone = _outcome(c, query.format("WHERE g = 2"))
+    c.close()
+    if isinstance(alone[0], str):  # an error alone: the same error with the other group
+        assert together == alone
+    else:
+        assert together[1] == alone[0]

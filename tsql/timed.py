@@ -230,7 +230,10 @@ def _span_in_steps(fn: Function, p: Param, clock: _Clock, grid: Grid, span: tupl
         raise ValueError(f"{fn.name}_agg: {p.name} must be {what}, got {text!r}")
     months, length = _interval(interval)
     steps = grid.steps(months, length)
-    counted = steps[grid.values.row_valid & (grid.values.lengths > 0)]
+    # a group of one observation has no step (0) and so no span in steps: it gets the NULL meaning of
+    # the argument, whatever the other groups of its batch
+    stepped = (grid.months > 0) | (grid.length > 0)
+    counted = steps[grid.values.row_valid & (grid.values.lengths > 0) & stepped]
     if np.isnan(counted).any():
         raise ValueError(
             f"{fn.name}_agg: {p.name} {text!r} cannot be counted in the grid's steps "

@@ -173,13 +173,17 @@ def on_grid(
         months[:] = step_months
     elif step_length:
         length[:] = step_length
-    else:
+    regular = None
+    if not (step_months or step_length):
         months, length, regular = _inferred_steps(t, rows, obs_offsets, temporal)
-        if regular:  # every spacing is one step: the observations are the grid already
+        if regular is True:  # every spacing is one step: the observations are the grid already
             return Grid(Ragged(v, obs_offsets, times.valid), start, months, length, np.arange(len(t)), obs_offsets)
 
     _check_extent(t, obs_offsets, start, length, has_obs)
     bins = _bins(t, rows, start, months, length, has_obs)
+    if isinstance(regular, np.ndarray):  # such rows are their own grid here too, however their times round
+        mine = regular[rows]
+        bins[mine] = np.arange(len(t))[mine] - first[rows[mine]]
     n_grid = np.zeros(n_rows, dtype=np.int64)
     last = obs_offsets[1:] - 1
     n_grid[has_obs] = bins[last[has_obs]] + 1
@@ -194,11 +198,14 @@ def on_grid(
     gridded = np.full(total, np.nan)
     if np.all(where[1:] > where[:-1]):  # at most one observation per grid point: no averaging
         gridded[where] = v
-    else:
+    else:  # points with one observation keep it as it is (-0.0, a NaN's sign), as in a row without repeats
+        gridded[where] = v
+        several = np.bincount(where, minlength=total) > 1
         present = ~np.isnan(v)
         sums = np.bincount(where[present], weights=v[present], minlength=total)
         counts = np.bincount(where[present], minlength=total)
-        np.divide(sums, counts, out=gridded, where=counts > 0)
+        np.divide(sums, counts, out=gridded, where=several & (counts > 0))
+        gridded[several & (counts == 0)] = np.nan
     gridded = _filled(gridded, grid_offsets, fill)
 
     return Grid(
@@ -348,7 +355,8 @@ def _time_order(rows: np.ndarray, t: np.ndarray) -> np.ndarray:
     low, high = t.min(), t.max()
     span = high - low + 1
     first_row, last_row = rows[0], rows[-1]  # rows are in order
-    if span * (last_row - first_row + 1) < 2.0**62 and np.array_equal(t, np.floor(t)):
+    # t - low is exact for whole numbers less than 2**53 apart
+    if span <= 2.0**53 and span * (last_row - first_row + 1) < 2.0**62 and np.array_equal(t, np.floor(t)):
         key = (t - low).astype(np.int64)
         key += (rows - first_row) * np.int64(span)
         return np.argsort(key, kind="stable")
@@ -357,9 +365,11 @@ def _time_order(rows: np.ndarray, t: np.ndarray) -> np.ndarray:
 
 def _inferred_steps(
     t: np.ndarray, rows: np.ndarray, offsets: np.ndarray, temporal: bool
-) -> tuple[np.ndarray, np.ndarray, bool]:
+) -> tuple[np.ndarray, np.ndarray, bool | np.ndarray | None]:
     """Each row's most common spacing between distinct times (the smallest among equally common ones),
-    and whether every spacing of the batch is exactly one such step.
+    and True when every spacing of the batch is one such step; else, for numbers, which rows have
+    every spacing one step (their times, rounded decimals, may drift from their first time plus
+    whole steps), or None.
 
     A spacing shared by more than half of a row's gaps is its most common one. The median
     spacing of a sample of the batch is usually that for every row, so most batches are settled
@@ -369,55 +379,78 @@ def _inferred_steps(
     months = np.zeros(n_rows, dtype=np.int64)
     length = np.zeros(n_rows)
     if len(t) < 2:
-        return months, length, False
+        return months, length, None
     gap = np.diff(t)
     across = _steps_across_rows(offsets, len(t))
+    first = offsets[:-1]
+    spaced = offsets[1:] - first >= 2  # a single observation has no spacing: its step stays 0
     step = _one_fixed_step(gap, across, temporal)
     if step:  # what the search below finds for such a batch, in two passes
-        length[:] = step
+        length[spaced] = step
         return months, length, True
     gap_row = rows[1:]
     within = np.ones(len(gap), dtype=bool)
     within[across] = False
     usable = (gap > 0) & within
     repeats = not np.array_equal(usable, within)
+    repeated = None
+    if repeats and not temporal:
+        repeated = np.zeros(n_rows, dtype=bool)
+        repeated[gap_row[within & ~usable]] = True
     if not usable.all():
         gap, gap_row = gap[usable], gap_row[usable]
     if len(gap) == 0:
-        return months, length, False
-    scale = 1e9 / (np.abs(t).max() or 1.0)  # numbers: spacings equal to about 9 digits are one spacing
-    sample = _keys(gap[:: max(1, len(gap) // 999)], temporal, scale)
+        return months, length, None
+    thin = max(1, len(gap) // 999)
+    sample = _keys(gap[::thin]) if temporal else gap[::thin]
     candidate = np.partition(sample, len(sample) // 2)[len(sample) // 2]
     if temporal and candidate < 0:  # a calendar step: its whole range of days matches
         m = int(candidate + 100)
         low, high = next((lo, hi) for lo, hi, mm in _CALENDAR if mm == m)
         match = (gap >= low * _DAY_US) & (gap < (high + 1) * _DAY_US)
-    else:
-        match = (gap == candidate) if temporal else (np.rint(gap * scale) == candidate)
+    elif temporal:
+        match = gap == candidate
+    else:  # numbers: spacings equal to about 9 digits of the row's own largest time are one spacing
+        last = np.maximum(offsets[1:] - 1, first)
+        largest = np.zeros(n_rows)
+        largest[spaced] = np.maximum(np.abs(t[first[spaced]]), np.abs(t[last[spaced]]))
+        scale = 1e9 / np.where(largest > 0, largest, 1.0)
+        key = np.rint(gap * scale[gap_row])
+        candidate = np.rint(candidate * scale)  # the candidate spacing in each row's own terms
+        match = key == candidate[gap_row]
     if match.all() and not repeats:  # one step everywhere, unless month ends make a day count mislead
         calendar = temporal and candidate < 0
         if not calendar or np.all(np.diff(_month_index(t))[within] == candidate + 100):
-            months[:] = int(candidate + 100) if calendar else 0
-            length[:] = 0.0 if calendar else gap[0]
+            if calendar:
+                months[spaced] = int(candidate + 100)
+            else:  # each row's own first spacing, as below (numbers' spacings differ in their last digits)
+                length[spaced] = t[first[spaced] + 1] - t[first[spaced]]
             return months, length, True
     gaps_per_row = np.bincount(gap_row, minlength=n_rows)
     settled = 2 * np.bincount(gap_row[match], minlength=n_rows) > gaps_per_row
     best = np.full(n_rows, np.nan)
-    best[settled] = candidate
+    best[settled] = candidate[settled] if not temporal else candidate
     open_rows = ~settled & (gaps_per_row > 0)
     if open_rows.any():
         mine = open_rows[gap_row]
-        best[open_rows] = _most_common(_keys(gap[mine], temporal, scale), gap_row[mine], n_rows)[open_rows]
+        keys = _keys(gap[mine]) if temporal else key[mine]
+        best[open_rows] = _most_common(keys, gap_row[mine], n_rows)[open_rows]
     calendar = best < 0 if temporal else np.zeros(n_rows, dtype=bool)
     months[calendar] = (best[calendar] + 100).astype(np.int64)
     fixed = ~calendar & ~np.isnan(best)
     if temporal:
         length[fixed] = best[fixed]
     elif fixed.any():  # the first gap of each row with its key stands for the spacing
-        chosen = np.flatnonzero(np.rint(gap * scale) == best[gap_row])
+        one_step = key == best[gap_row]
+        chosen = np.flatnonzero(one_step)
         chosen = chosen[np.r_[True, gap_row[chosen][1:] != gap_row[chosen][:-1]]]
         length[gap_row[chosen]] = gap[chosen]
-    return months, length, False
+        regular = fixed.copy()
+        regular[gap_row[~one_step]] = False
+        if repeated is not None:
+            regular &= ~repeated
+        return months, length, regular if regular.any() else None
+    return months, length, None
 
 
 def _one_fixed_step(gap: np.ndarray, across: np.ndarray, temporal: bool) -> float:
@@ -436,10 +469,9 @@ def _one_fixed_step(gap: np.ndarray, across: np.ndarray, temporal: bool) -> floa
     return step if same.all() else 0.0
 
 
-def _keys(gap: np.ndarray, temporal: bool, scale: float) -> np.ndarray:
-    """What counts as one spacing: calendar months as m - 100 (before any length), else the length."""
-    if not temporal:
-        return np.rint(gap * scale)
+def _keys(gap: np.ndarray) -> np.ndarray:
+    """What counts as one spacing of DATE or TIMESTAMP times: calendar months as m - 100 (before any
+    length), else the length."""
     gap_months = _CALENDAR_MONTHS[np.minimum(gap // _DAY_US, len(_CALENDAR_MONTHS) - 1).astype(np.int64)]
     return np.where(gap_months > 0, gap_months - 100.0, gap)
 
