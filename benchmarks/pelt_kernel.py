@@ -1,6 +1,6 @@
 """The PELT kernel against ruptures' exact PELT and against the SQL list-building floor.
 
-    python -m benchmarks.pelt_kernel [--n 3000] [--series 4000] [--points 500] [--repeat 5]
+    python -m benchmarks.pelt_kernel [--n 3000] [--series 4000] [--points 500] [--long 1000000,3000000] [--repeat 5]
 
 1. One series of ``--n`` points, model 'mean', BIC penalty: tsql's change_points against
    ``ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma^2)`` (ruptures'
@@ -9,6 +9,9 @@
    them: kernel time per model, beside DuckDB's ``list_sum(list(v ORDER BY t)) ... GROUP BY g`` on
    the same data (the floor every list function pays), as a ratio of medians; and the same
    kernel on one numba thread, for the gain from running the rows of a batch in parallel.
+3. One series of each ``--long`` length with a single level shift in the middle, model 'mean', BIC
+   penalty: where PELT keeps almost every candidate start of the two long segments and functional
+   pruning (FPOP) keeps a few dozen; seconds per point should stay about flat as n grows.
 
 All figures are medians of wall-clock times measured in this one run.
 """
@@ -100,7 +103,18 @@ def many_series(n_series: int, points: int, repeat: int) -> None:
     for model in ("mean", "trend", "meanvar"):
         kernel(f"kernel change_points(model='{model}')", batches, model)
     worst = [Ragged(np.random.default_rng(1).standard_normal(b.values.size), b.offsets) for b in batches]
-    kernel("worst case: mean on pure noise (nothing to prune)", worst, "mean")
+    kernel("mean on pure noise (no change: PELT's worst case)", worst, "mean")
+
+
+def one_change(lengths: list[int], repeat: int) -> None:
+    print("3. one series with one level shift (1 sigma) in the middle, 'mean', BIC penalty")
+    for n in lengths:
+        rng = np.random.default_rng(1)
+        x = rng.standard_normal(n) + 1.0 * (np.arange(n) >= n // 2)
+        batch = Ragged.from_list([x])
+        found = [int(v) for v in changepoint.change_points(batch).values]
+        seconds = median_seconds(lambda b=batch: changepoint.change_points(b), repeat)
+        print(f"   {n:>10,} points   {seconds:7.3f} s   {seconds / n * 1e9:6.0f} ns/point   changes at {found}")
 
 
 def main() -> None:
@@ -108,6 +122,7 @@ def main() -> None:
     parser.add_argument("--n", type=int, default=3000)
     parser.add_argument("--series", type=int, default=4000)
     parser.add_argument("--points", type=int, default=500)
+    parser.add_argument("--long", default="1000000,3000000", help="comma-separated lengths for part 3")
     parser.add_argument("--repeat", type=int, default=5)
     parser.add_argument("--ruptures-repeat", type=int, default=3)
     args = parser.parse_args()
@@ -116,6 +131,7 @@ def main() -> None:
     print(f"first call (numba: load from cache, or compile): {time.perf_counter() - start:.2f} s")
     single_series(args.n, max(args.repeat, 21), args.ruptures_repeat)
     many_series(args.series, args.points, args.repeat)
+    one_change([int(v) for v in args.long.split(",") if v], args.repeat)
 
 
 if __name__ == "__main__":

@@ -1,8 +1,18 @@
-"""Change points by penalised optimal segmentation (PELT).
+"""Change points by penalised optimal segmentation (PELT, FPOP).
 
 Each series is cut where ``sum of segment costs + penalty x number of
 changes`` is least; the exact minimiser is found by PELT (Killick, Fearnhead
-& Eckley 2012).
+& Eckley 2012). PELT drops a candidate start only once it is worse than the
+optimum so far, which inside a long homogeneous segment rarely happens, so a
+series with one change costs about ``n x segment length``. For 'mean' the
+search prunes functionally instead (FPOP, Maidstone, Hocking, Rigaill &
+Fearnhead 2017): each start keeps an interval of the segment means at which it
+could still be best, narrowed by the starts before and after it, and goes when that is
+empty; a few dozen starts survive (a few hundred with 'mbic', whose length
+term loosens the bounds), so a series with few changes costs little more than
+``n`` (see :func:`_narrow_mean`). The answers are PELT's: both drop only
+starts that cannot be best again (ties kept). 'meanvar' and 'trend', with two
+parameters per segment, keep PELT's rule, and its cost on long segments.
 
 What a segment costs (the model) is kept apart from the search. A model is
 three small pieces:
@@ -55,6 +65,9 @@ References
 ----------
 Killick, R., Fearnhead, P. & Eckley, I. A. (2012). Optimal detection of
 changepoints with a linear computational cost. *JASA* 107(500), 1590–1598.
+Maidstone, R., Hocking, T., Rigaill, G. & Fearnhead, P. (2017). On optimal
+multiple changepoint algorithms for large data. *Statistics and Computing*
+27(2), 519–533.
 Jackson, B. et al. (2005). An algorithm for optimal partitioning of data on an
 interval. *IEEE Signal Processing Letters* 12(2), 105–108.
 Schwarz, G. (1978). Estimating the dimension of a model. *Ann. Statist.* 6(2),
@@ -428,6 +441,10 @@ _BIC, _MBIC, _FIXED = 0, 1, 2
 #: share of ``1 + |F(t)|``: a margin for rounding, so pruning never drops the optimum.
 _PRUNE_MARGIN = 1e-9
 
+#: functional pruning ('mean') also leaves this share of the series' sum of squared
+#: standardised values, a bound on every segment's (some 4,500 ulps of it)
+_SQUARES_MARGIN = 1e-12
+
 #: steps between pruning passes
 PRUNE_EVERY = 4
 
@@ -436,8 +453,113 @@ PRUNE_EVERY = 4
 
 
 @njit(cache=True, error_model="numpy")
+def _narrow_mean(stats, m, rows, starts, f_start, bounds, n, c, f_c, length_term, use_length_term, min_size) -> int:
+    """Functional pruning for 'mean' (FPOP) as start ``c`` becomes usable; returns how many starts it retires.
+
+    With ``g_s(mu, t) = F(s) + sum_{s<i<=t} (z_i - mu)^2``, start ``s`` totals
+    ``min_mu g_s(mu, t)`` at ``t``, reached at ``mu_s(t)``, the mean of
+    ``(s, t]``; if ``s`` is best at ``t`` then ``g_s(mu_s(t), t) <= g_c(mu_s(t), t)``
+    for every other start ``c``. For an older start ``s`` and every ``t`` from
+    now on, ``g_s(mu, t) - g_c(mu, t) = L (mu - a)^2 - gap`` does not depend on
+    ``t`` (``L = c - s``, ``a`` the mean of ``(s, c]``,
+    ``gap = F(c) - F(s) - C(s, c)``). So ``s`` can be best (or tied) again
+    only with ``mu_s(t)`` within ``sqrt(gap / L)`` of ``a``, and ``c`` only
+    with ``mu_c(t)`` not strictly within it. Each start keeps the hull
+    ``[lo, hi]`` (``bounds[0:2]``) of where its mean may still be, cut by every
+    newer start, and one interval where it may not (``bounds[2:4]``: the union
+    of overlapping exclusions by older starts, else the one with the largest
+    ``gap``, mostly that of its own segment's start), cut from the hull; a
+    start whose hull is empty is retired. A hull holds more than the set it
+    bounds, so no start that can be best is dropped.
+
+    Both cuts leave a margin for rounding (``_PRUNE_MARGIN``,
+    ``_SQUARES_MARGIN``). With 'mbic' the length term ``log((t - s) / m)``
+    grows with the segment, which only makes an older start worse, so the first
+    cut holds as it is; the second allows for the most a newer start can gain
+    by it, ``log((L + min_size) / min_size)`` (at ``t = c + min_size``).
+    """
+    a1 = stats[0, c]
+    a2 = stats[1, c]
+    c1 = rows[0]
+    c2 = rows[1]
+    lo = bounds[0]
+    hi = bounds[1]
+    out_lo = bounds[2]
+    out_hi = bounds[3]
+    cf = float(c)
+    # rounding in F and in the costs, now or at any later t, is a few ulps of |F| and of the
+    # sums of squares, at most the series' whole sum
+    base = _PRUNE_MARGIN * (1.0 + abs(f_c)) + _SQUARES_MARGIN * stats[1, m]
+    excl_lo = np.inf
+    excl_hi = -np.inf
+    excl_gap = -np.inf
+    retired = 0
+    for j in range(n):
+        fs = f_start[j]
+        if fs == np.inf:
+            continue
+        length = cf - starts[j]
+        inv = 1.0 / length
+        s1 = a1 - c1[j]
+        mean = s1 * inv
+        gap = f_c - fs - ((a2 - c2[j]) - s1 * mean)
+        margin = base + _PRUNE_MARGIN * abs(fs)
+        room = gap + margin
+        half = math.sqrt(max(room, 0.0) * inv)
+        low = max(lo[j], mean - half)
+        high = min(hi[j], mean + half)
+        if out_lo[j] < low and out_hi[j] > high:
+            low = np.inf
+        elif out_lo[j] < low:
+            low = max(low, out_hi[j])
+        elif out_hi[j] > high:
+            high = min(high, out_lo[j])
+        lo[j] = low
+        hi[j] = high
+        if not (room >= 0.0 and low <= high):
+            f_start[j] = np.inf
+            retired += 1
+        # the open interval where s beats c by more than the margin
+        shut = gap - margin
+        if use_length_term:
+            shut -= length_term[int(length) + min_size] - length_term[min_size]
+        if shut > 0.0:
+            half = math.sqrt(shut * inv)
+            e_lo = mean - half
+            e_hi = mean + half
+            if e_lo < excl_hi and e_hi > excl_lo:
+                excl_lo = min(excl_lo, e_lo)
+                excl_hi = max(excl_hi, e_hi)
+                excl_gap = max(excl_gap, shut)
+            elif shut > excl_gap:
+                excl_lo = e_lo
+                excl_hi = e_hi
+                excl_gap = shut
+    lo[n] = -np.inf
+    hi[n] = np.inf
+    out_lo[n] = excl_lo
+    out_hi[n] = excl_hi
+    return retired
+
+
+@njit(cache=True, error_model="numpy")
 def _pelt(
-    code, n_stats, stats, m, beta, length_term, use_length_term, min_size, F, last, starts, cand, f_start, until, vals
+    code,
+    n_stats,
+    stats,
+    m,
+    beta,
+    length_term,
+    use_length_term,
+    min_size,
+    F,
+    last,
+    starts,
+    cand,
+    f_start,
+    until,
+    vals,
+    bounds,
 ) -> None:
     """PELT over ``m`` present values: fills ``F[t]`` and ``last[t]`` for ``t <= m``.
 
@@ -455,6 +577,12 @@ def _pelt(
     compaction removes it. Keeping a pruned start longer is harmless: from
     ``t + min_size`` on it is strictly worse than the best segmentation with a
     change at ``t``.
+
+    For 'mean' the pruning is functional instead (:func:`_narrow_mean`, with
+    ``bounds`` its four intervals' ends per start): a start is compared with
+    each newer one ``c`` as ``c`` is admitted (at ``t = c + min_size``, where
+    PELT's grace ends) and retired at once when it cannot be best again.
+    PELT's rule is the case where it cannot be best at any segment mean.
     """
     F[0] = -beta
     last[0] = 0
@@ -462,6 +590,7 @@ def _pelt(
         F[t] = np.inf
         last[t] = 0
     rows = (cand[0], cand[1], cand[2], cand[3], cand[4])
+    functional = code == MEAN
     n_cand = 0
     n_pruned = 0
     next_prune = 0
@@ -470,6 +599,10 @@ def _pelt(
         # admit the newest start; F is infinite (never a segment end) for 0 < s < min_size
         s = t - min_size
         if s == 0 or s >= min_size:
+            if functional:
+                n_pruned += _narrow_mean(
+                    stats, m, rows, starts, f_start, bounds, n_cand, s, F[s], length_term, use_length_term, min_size
+                )
             starts[n_cand] = s
             f_start[n_cand] = F[s]
             until[n_cand] = np.inf
@@ -514,7 +647,7 @@ def _pelt(
         last[t] = int(starts[j])
         # prune, every PRUNE_EVERY steps (any step may prune; a pass costs about as much as
         # the costs themselves), and retire the starts whose grace has run out
-        if t >= next_prune:
+        if not functional and t >= next_prune:
             next_prune = t + PRUNE_EVERY
             tf = float(t)
             bound = F[t] + _PRUNE_MARGIN * (1.0 + abs(F[t]))
@@ -537,6 +670,8 @@ def _pelt(
                     until[kept] = until[j]
                     for k in range(n_stats):
                         cand[k, kept] = cand[k, j]
+                    for k in range(4):
+                        bounds[k, kept] = bounds[k, j]
                     kept += 1
             n_cand = kept
             n_pruned = 0
@@ -651,6 +786,7 @@ def _segment_row(
                 np.empty(m + 1),
                 np.empty(m + 1),
                 np.empty(m + 1),
+                np.empty((4, m + 1)),
             )
             # walk back from the end: the starts of the optimum's segments, last first
             n_seg = 0
@@ -862,7 +998,8 @@ def segments(batch: Ragged, model: str = "mean", penalty: str | float = "bic", m
 
     The segmentation minimises ``sum_i C(segment_i) + beta * (number of
     changes)`` exactly, by PELT (Killick, Fearnhead & Eckley 2012) with
-    ``K = 0``. With ``y`` the ``m`` present values of a row, ``L`` a
+    ``K = 0``, for 'mean' with functional pruning (FPOP, Maidstone et al.
+    2017), so that few changes in a long series cost about ``n``. With ``y`` the ``m`` present values of a row, ``L`` a
     segment's number of present values and "0" meaning at most 1000 ulps of
     ``max |y|`` (rounding, not noise), the costs are:
 
