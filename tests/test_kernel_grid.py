@@ -314,3 +314,19 @@ def test_every_row_is_gridded_as_alone_in_a_random_batch():
         for i in range(len(rows)):
             alone = on_grid(Ragged.from_list([rows[i]]), Ragged.from_list([values[i]]), temporal)
             _same_grid(alone, whole.take(np.array([i])))
+
+
+def test_a_stray_time_that_would_need_a_huge_grid_makes_only_its_row_null():
+    # docs/behaviour.md: the most common spacing (1) with one time 10^9 away would need 10^9 grid
+    # points; that row gets no grid (NULL), the other rows of the batch theirs, and a given step
+    # that fine is still an error
+    stray = list(range(1000)) + [1e9]
+    times = Ragged.from_list([stray, [0.0, 2.0, 4.0]])
+    values = Ragged.from_list([[1.0] * 1001, [1.0, 2.0, 3.0]])
+    grid = on_grid(times, values, temporal=False)
+    assert grid.values.row_valid.tolist() == [False, True]
+    assert grid.values.row(1).tolist() == [1.0, 2.0, 3.0]
+    alone = on_grid(Ragged.from_list([[0.0, 2.0, 4.0]]), Ragged.from_list([[1.0, 2.0, 3.0]]), temporal=False)
+    assert np.array_equal(alone.values.values, grid.values.row(1)) and alone.length[0] == grid.length[1]
+    with pytest.raises(ValueError, match="grid of"):
+        on_grid(times, values, temporal=False, step_length=1.0)

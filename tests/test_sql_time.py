@@ -354,3 +354,21 @@ def test_a_one_row_group_gets_the_same_answer_alone_and_among_regular_groups():
         assert together == alone
     else:
         assert together[1] == alone[0]
+
+
+def test_a_group_with_a_stray_far_time_is_null_and_the_others_are_answered(con):
+    # docs/behaviour.md: group 'a' is hourly apart from one row 2,000 years on, so its own step
+    # (an hour) would need about 17.5 million grid points (at most 10 million): 'a' gets NULL,
+    # 'b' its answer
+    rows = con.execute(
+        """
+        SELECT g, dominant_period_agg(v, t) FROM (
+            SELECT 'a' AS g, TIMESTAMP '2000-01-01' + to_hours(i) AS t, sin(i / 7.0 * 2 * pi()) AS v
+            FROM range(400) r(i)
+            UNION ALL SELECT 'a', TIMESTAMP '4000-01-01', 0.0
+            UNION ALL SELECT 'b', TIMESTAMP '2000-01-01' + to_hours(i), sin(i / 7.0 * 2 * pi()) FROM range(400) r(i)
+        ) GROUP BY g ORDER BY g
+        """
+    ).fetchall()
+    assert rows[0] == ("a", None)
+    assert rows[1][0] == "b" and rows[1][1] is not None

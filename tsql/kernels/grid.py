@@ -35,7 +35,8 @@ __all__ = ["FILLS", "MAX_GRID_POINTS", "Grid", "on_grid"]
 
 FILLS = ("null", "zero", "linear", "previous")
 MAX_GRID_POINTS = 10_000_000
-"""Per series. A step far finer than the data would make a grid of this many points: an error."""
+"""Per series. A given step far finer than the data that would make more points is an error; a
+series whose own most common spacing would (a stray time far away) gets no grid (NULL)."""
 
 _DAY_US = 86_400_000_000.0
 # (shortest, longest spacing in days, months) recognised as calendar steps
@@ -179,6 +180,11 @@ def on_grid(
         if regular is True:  # every spacing is one step: the observations are the grid already
             return Grid(Ragged(v, obs_offsets, times.valid), start, months, length, np.arange(len(t)), obs_offsets)
 
+        # a step inferred from a row's own times that would need too many points (a stray time
+        # centuries away, say) gives that row no grid (NULL), not an error for the whole batch
+        huge = _too_many_points(t, obs_offsets, start, length, has_obs)
+        if huge.any():
+            return on_grid(_as_null_rows(times, huge), values, temporal, fill=fill)
     _check_extent(t, obs_offsets, start, length, has_obs)
     bins = _bins(t, rows, start, months, length, has_obs)
     if isinstance(regular, np.ndarray):  # such rows are their own grid here too, however their times round
@@ -225,20 +231,36 @@ def _without_infinite_times(times: Ragged) -> Ragged:
         return times
     hit = np.zeros(times.n_rows, dtype=bool)
     hit[times.row_ids[infinite]] = True
+    return _as_null_rows(times, hit)
+
+
+def _as_null_rows(times: Ragged, hit: np.ndarray) -> Ragged:
+    """``times`` with the rows marked in ``hit`` turned into NULL rows (their times dropped)."""
     values = np.where(hit[times.row_ids], np.nan, times.values)
     return Ragged(values, times.offsets, times.row_valid & ~hit)
 
 
-def _check_extent(t: np.ndarray, offsets: np.ndarray, start: np.ndarray, length: np.ndarray, has_obs: np.ndarray):
-    """Refuse fixed steps that would make too many grid points, before any count is cast to an integer."""
+def _too_many_points(
+    t: np.ndarray, offsets: np.ndarray, start: np.ndarray, length: np.ndarray, has_obs: np.ndarray
+) -> np.ndarray:
+    """Rows whose fixed step would make a grid of more than MAX_GRID_POINTS points.
+
+    Calendar steps cannot: a month is so long that the whole range of timestamps holds fewer.
+    """
+    huge = np.zeros(len(start), dtype=bool)
     fixed = has_obs & (length > 0)
-    if not fixed.any():
-        return
-    points = (t[offsets[1:][fixed] - 1] - start[fixed]) / length[fixed] + 1
-    if points.max() > MAX_GRID_POINTS:
-        raise ValueError(
-            f"the step makes a grid of {points.max():,.0f} points for one series (at most {MAX_GRID_POINTS:,})"
-        )
+    if fixed.any():
+        huge[fixed] = (t[offsets[1:][fixed] - 1] - start[fixed]) / length[fixed] + 1 > MAX_GRID_POINTS
+    return huge
+
+
+def _check_extent(t: np.ndarray, offsets: np.ndarray, start: np.ndarray, length: np.ndarray, has_obs: np.ndarray):
+    """Refuse a given step that would make too many grid points, before any count is cast to an integer."""
+    huge = _too_many_points(t, offsets, start, length, has_obs)
+    if huge.any():
+        fixed = has_obs & (length > 0)
+        points = ((t[offsets[1:][fixed] - 1] - start[fixed]) / length[fixed] + 1).max()
+        raise ValueError(f"the step makes a grid of {points:,.0f} points for one series (at most {MAX_GRID_POINTS:,})")
 
 
 def _bins(
