@@ -124,7 +124,11 @@ def in_safe_range(matrix: np.ndarray) -> np.ndarray:
     """
     if matrix.size == 0:
         return matrix
-    magnitude = np.where(np.isfinite(matrix), np.abs(matrix), 0.0).max(axis=1)
+    magnitude = np.fmax.reduce(np.abs(matrix), axis=1)  # fmax skips NaN; an infinity needs a second look
+    infinite = np.isinf(magnitude)
+    if infinite.any():
+        rows = matrix[infinite]
+        magnitude[infinite] = np.where(np.isfinite(rows), np.abs(rows), 0.0).max(axis=1)
     _, exponent = np.frexp(magnitude)
     out_of_range = (magnitude > 0) & ((exponent > 400) | (exponent < -400))
     if not out_of_range.any():
