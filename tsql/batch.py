@@ -13,7 +13,7 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 import pyarrow as pa
 
-from tsql.kernels.ragged import Ragged, RaggedRecords
+from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords, row_ranges
 
 ArrowInput = pa.Array | pa.ChunkedArray
 _DOUBLE = pa.float64()
@@ -117,20 +117,10 @@ def scalar_parameter(arr: ArrowInput) -> Sequence:
     return arr.to_pylist()
 
 
-def row_pieces(columns: list[pa.Array], points: int) -> list[tuple[int, int]]:
-    """Row ranges of about ``points`` list elements each (all columns counted; a row is never split).
-
-    A row's answer depends on its own elements only, so working piece by piece changes no
-    answer; the pieces' numpy temporaries stay in the processor's cache and a call's memory
-    stays small.
-    """
-    n_rows = len(columns[0])
-    counts = np.zeros(n_rows + 1, dtype=np.int64)
+def row_pieces(columns: list[pa.Array], elements: int = CACHE_ELEMENTS) -> list[tuple[int, int]]:
+    """Row ranges of about ``elements`` list elements each, all columns counted (see :func:`row_ranges`)."""
+    counts = np.zeros(len(columns[0]) + 1, dtype=np.int64)
     for column in columns:
         offsets = np.asarray(column.offsets, dtype=np.int64)
         counts += offsets - offsets[0]
-    if n_rows < 2 or counts[-1] <= points:
-        return [(0, n_rows)]
-    window = counts[:-1] // points  # rows starting in one window go together
-    bounds = np.r_[0, np.flatnonzero(np.diff(window)) + 1, n_rows]
-    return list(zip(bounds[:-1].tolist(), bounds[1:].tolist()))
+    return row_ranges(counts, elements)

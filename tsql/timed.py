@@ -30,7 +30,7 @@ import pyarrow as pa
 from tsql import batch as arrow_batch
 from tsql.binding import _Converter, by_keys, by_settings, check_argument, checked_arguments, create_udf, with_arity
 from tsql.kernels.grid import Grid, on_grid
-from tsql.kernels.ragged import Ragged, RaggedRecords
+from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
 from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, SPAN, Function, Param
 
 _DAY_US = 86_400_000_000
@@ -47,9 +47,8 @@ _SPAN_ARROW = [pa.field("span", pa.month_day_nano_interval()), pa.field("number"
 # DuckDB builds unions there far faster than it imports Arrow unions
 _WALL, _UTC, _NUMBER = 0, 1, 2
 _SERIES_RECORDS = "STRUCT(tick DOUBLE, kind TINYINT, value DOUBLE)[]"
-# observations per piece of a UDF call (DuckDB hands over 2,048 groups at once): numpy's
-# temporaries then fit in the processor's cache instead of costing fresh pages
-_PIECE_POINTS = 65_536
+# observations per piece of a UDF call (a group is never split)
+_PIECE_POINTS = CACHE_ELEMENTS
 
 
 def create_udfs(con: duckdb.DuckDBPyConnection) -> None:

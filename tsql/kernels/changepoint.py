@@ -999,9 +999,10 @@ def segments(batch: Ragged, model: str = "mean", penalty: str | float = "bic", m
     The segmentation minimises ``sum_i C(segment_i) + beta * (number of
     changes)`` exactly, by PELT (Killick, Fearnhead & Eckley 2012) with
     ``K = 0``, for 'mean' with functional pruning (FPOP, Maidstone et al.
-    2017), so that few changes in a long series cost about ``n``. With ``y`` the ``m`` present values of a row, ``L`` a
-    segment's number of present values and "0" meaning at most 1000 ulps of
-    ``max |y|`` (rounding, not noise), the costs are:
+    2017), so that few changes in a long series cost about ``n``. With ``y``
+    the ``m`` present values of a row, ``L`` a segment's number of present
+    values and "0" meaning at most 1000 ulps of ``max |y|`` (rounding, not
+    noise), the costs are:
 
     * ``'mean'``: Gaussian shifts of the mean, common variance:
       ``RSS / sigma^2`` about the segment mean, with

@@ -19,11 +19,10 @@ from collections.abc import Iterator
 import numpy as np
 from scipy import fft, special
 
-from tsql.kernels.ragged import Ragged, in_safe_range
+from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, in_safe_range
 
 #: Above this many lags one FFT per bucket is cheaper than one pass per lag.
 _DIRECT_MAX_LAGS = 40
-_BLOCK_ELEMENTS = 1 << 16  # elements of a bucket worked on at once
 
 _EPS = np.finfo(np.float64).eps
 _TINY = np.finfo(np.float64).tiny
@@ -79,7 +78,7 @@ def _buckets(batch: Ragged) -> Iterator[tuple[np.ndarray, _Centred, np.ndarray]]
     for n, all_rows, whole in batch.by_length():
         if n == 0:
             continue
-        step = max(1, _BLOCK_ELEMENTS // n)  # rows at a time: the work arrays stay in the processor's cache
+        step = max(1, CACHE_ELEMENTS // n)  # rows at a time: the work arrays stay in the processor's cache
         for start in range(0, len(all_rows), step):
             rows, matrix = all_rows[start : start + step], whole[start : start + step]
             infinite = np.isinf(matrix).any(axis=1)

@@ -13,7 +13,7 @@ from collections.abc import Iterator
 import numpy as np
 from numba import njit
 
-from tsql.kernels.ragged import Ragged
+from tsql.kernels.ragged import Ragged, row_ranges
 
 __all__ = ["sparkline", "BLOCKS"]
 
@@ -21,7 +21,6 @@ __all__ = ["sparkline", "BLOCKS"]
 BLOCKS = "▁▂▃▄▅▆▇█"
 _MIDDLE = 3  # ▄: every element of a constant row
 _SPACE = len(BLOCKS)
-_BLOCK_ELEMENTS = 1 << 16
 _CODES = np.array([ord(c) for c in BLOCKS + " "], dtype="<u4")
 
 
@@ -73,21 +72,13 @@ def sparkline(batch: Ragged, width: int | None = None) -> list[str | None]:
     return lines
 
 
-def _row_blocks(batch: Ragged, elements: int = _BLOCK_ELEMENTS) -> Iterator[Ragged]:
-    """Runs of consecutive rows of about ``elements`` elements each (views, no copy).
-
-    Each element needs a dozen work arrays of 8 bytes: drawing a block at a time keeps the
-    peak memory of a call small whatever its size. Rows are drawn independently.
-    """
+def _row_blocks(batch: Ragged) -> Iterator[Ragged]:
+    """Runs of consecutive rows of about CACHE_ELEMENTS elements (views, no copy): the work arrays of
+    a call stay small whatever its size. Rows are drawn independently."""
     offsets = batch.offsets
-    start = 0
-    while start < batch.n_rows:
-        end = int(np.searchsorted(offsets, offsets[start] + elements, side="right")) - 1
-        end = min(max(end, start + 1), batch.n_rows)
-        lo, hi = offsets[start], offsets[end]
-        valid = None if batch.valid is None else batch.valid[start:end]
-        yield Ragged(batch.values[lo:hi], offsets[start : end + 1] - lo, valid)
-        start = end
+    for lo, hi in row_ranges(offsets - offsets[0]):
+        valid = None if batch.valid is None else batch.valid[lo:hi]
+        yield Ragged(batch.values[offsets[lo] : offsets[hi]], offsets[lo : hi + 1] - offsets[lo], valid)
 
 
 def _resample(batch: Ragged, width: int) -> Ragged:

@@ -115,6 +115,25 @@ class Ragged:
             yield n, group, matrix
 
 
+#: Elements worked on at once by the numpy kernels and the agg forms' grid: their temporaries then
+#: stay in the processor's cache instead of costing fresh memory pages (DuckDB hands over 2,048 rows).
+CACHE_ELEMENTS = 1 << 16
+
+
+def row_ranges(counts: np.ndarray, elements: int = CACHE_ELEMENTS) -> list[tuple[int, int]]:
+    """Runs of consecutive rows of about ``elements`` elements each, from the rows' cumulative element
+    counts (``counts[0] == 0``, one more entry than rows); a row is never split.
+
+    A row's answer depends on its own elements only, so working run by run changes no answer.
+    """
+    n_rows = len(counts) - 1
+    if n_rows < 2 or counts[-1] <= elements:
+        return [(0, max(n_rows, 0))]
+    window = counts[:-1] // elements  # rows starting in one window go together
+    bounds = np.r_[0, np.flatnonzero(np.diff(window)) + 1, n_rows]
+    return list(zip(bounds[:-1].tolist(), bounds[1:].tolist()))
+
+
 def in_safe_range(matrix: np.ndarray) -> np.ndarray:
     """The rows of ``matrix``, each row whose magnitude would overflow or underflow a sum of squares
     (beyond about 1e120 or below 1e-120) multiplied by a power of two that brings it near 1.
