@@ -123,10 +123,12 @@ def seasonality(batch: Ragged, min_period: float = 2.0, max_period: float | None
             :func:`dominant_period`.
         ``strength``
             ``1 - RSS / TSS`` in [0, 1], where TSS is the sum of squares of the detrended
-            present values and RSS the residual sum of squares after a least-squares fit of
-            cos/sin pairs at frequencies ``j / period``, ``j = 1..H``, with
-            ``H = min(3, floor(period / 2))`` (at least 1), to the detrended present values
-            (exactly over the present values, gaps included).
+            present values and RSS the residual sum of squares of one least-squares fit of a
+            constant, a linear trend and cos/sin pairs at frequencies ``j / period``,
+            ``j = 1..H``, with ``H = min(3, floor(period / 2))`` (at least 1), to the present
+            values (exactly over the present values, gaps included). Trend and harmonics are
+            fitted together, so the strength does not depend on the cycle's phase (a line
+            fitted first would take part of a sine's variance but not of a cosine's).
         ``p_value``
             Fisher's g test for the periodogram maximum, ``g = max_k I(f_k) / sum_k I(f_k)``,
             over the Fourier frequencies ``f_k = k / n`` of the allowed range (periods in
@@ -600,11 +602,15 @@ def _fit_from_sums(c: np.ndarray, s: np.ndarray, omega: np.ndarray, n: np.ndarra
 
 
 def _harmonic_strength(sums: _Sums, groups: list[_Group], period: np.ndarray, tss: np.ndarray) -> np.ndarray:
-    """``1 - RSS / TSS`` of cos/sin pairs at ``j / period``, ``j = 1..H``, ``H = min(3, floor(p / 2))``.
+    """``1 - RSS / TSS`` of cos/sin pairs at ``j / period``, ``j = 1..H``, ``H = min(3, floor(p / 2))``,
+    fitted jointly with a constant and a line.
 
     Regressors in the order cos 1..3, sin 1..3. Without gaps the Gram matrix is closed-form
     (``sum cos(a w u) cos(b w u) = (D((a-b) w) + D((a+b) w)) / 2``, sin with the difference,
-    cos * sin summing to 0); with gaps it is summed over the present elements.
+    cos * sin summing to 0); with gaps it is summed over the present elements. The residuals are
+    already orthogonal to ``Z = [1, u]``, so the joint fit explains ``b' (H' M H)^+ b`` beyond the
+    line, ``M = I - Z (Z'Z)^-1 Z'``: the Gram matrix loses ``A (Z'Z)^-1 A'``, ``A = H' Z``
+    (closed form without gaps: ``sum cos(j w u) = D(j w)``, ``sum u sin(j w u) = -D'(j w)``).
     """
     harmonics = np.clip(np.floor(period / 2.0), 1, 3)
     j = np.arange(1, 4, dtype=np.float64)
@@ -618,16 +624,28 @@ def _harmonic_strength(sums: _Sums, groups: list[_Group], period: np.ndarray, ts
     gram = np.zeros((len(period), 6, 6))
     gram[:, :3, :3] = 0.5 * (diff + summ)
     gram[:, 3:, 3:] = 0.5 * (diff - summ)
+    n = sums.n[:, None]
+    cross = np.zeros((len(period), 6, 2))  # A = H' [1, u]
+    cross[:, :3, 0] = _dirichlet(j * w[:, :, 0], n)
+    cross[:, 3:, 1] = -_dirichlet_slope(j * w[:, :, 0], n)
+    line = np.zeros((len(period), 2, 2))  # Z'Z
+    line[:, 0, 0] = sums.n
+    line[:, 1, 1] = sums.n * (sums.n * sums.n - 1.0) / 12.0
     for i, group in enumerate(groups):
         if group.present is not None:
             lo, hi = sums.bounds[i], sums.bounds[i + 1]
-            _gram_with_gaps(gram[lo:hi], group, 2.0 * np.pi / period[lo:hi])
+            _gram_with_gaps(gram[lo:hi], cross[lo:hi], line[lo:hi], group, 2.0 * np.pi / period[lo:hi])
+    det = line[:, 0, 0] * line[:, 1, 1] - line[:, 0, 1] * line[:, 1, 0]
+    inverse = np.stack([line[:, 1, 1], -line[:, 0, 1], -line[:, 1, 0], line[:, 0, 0]], axis=1)
+    inverse = inverse.reshape(-1, 2, 2) / det[:, None, None]
+    gram -= cross @ inverse @ cross.transpose(0, 2, 1)
     explained = _explained(gram, b, np.concatenate([used, used], axis=1))
     return np.clip(explained / tss, 0.0, 1.0)
 
 
-def _gram_with_gaps(gram: np.ndarray, group: _Group, omega: np.ndarray) -> None:
-    """Turn the full-grid Gram matrices of rows with gaps into sums over their present elements.
+def _gram_with_gaps(gram: np.ndarray, cross: np.ndarray, line: np.ndarray, group: _Group, omega: np.ndarray) -> None:
+    """Turn the full-grid Gram matrices ``H'H``, ``H'Z`` and ``Z'Z`` (``Z = [1, u]``) of rows with
+    gaps into sums over their present elements.
 
     A row missing at most half its elements subtracts the sum over its missing elements from the
     closed form; a sparser row sums over its present elements directly (no cancellation).
@@ -637,7 +655,8 @@ def _gram_with_gaps(gram: np.ndarray, group: _Group, omega: np.ndarray) -> None:
     n = group.n
     by_missing = 2 * np.count_nonzero(~present, axis=1) <= n
     row, t = np.nonzero(np.where(by_missing[:, None], ~present, present))
-    angle = omega[row] * (t - 0.5 * (n - 1.0))
+    u = t - 0.5 * (n - 1.0)
+    angle = omega[row] * u
     c1, s1 = np.cos(angle), np.sin(angle)
     c2, s2 = c1 * c1 - s1 * s1, 2.0 * s1 * c1
     c3, s3 = c2 * c1 - s2 * s1, s2 * c1 + c2 * s1
@@ -650,6 +669,15 @@ def _gram_with_gaps(gram: np.ndarray, group: _Group, omega: np.ndarray) -> None:
             total = np.bincount(row, weights=design[a] * design[b], minlength=rows)
             gram[:, a, b] = base[:, a, b] + sign * total
             gram[:, b, a] = gram[:, a, b]
+    base = np.where(by_missing[:, None, None], cross, 0.0)
+    for a in range(6):
+        for z, weight in enumerate((None, u)):
+            term = design[a] if weight is None else design[a] * weight
+            cross[:, a, z] = base[:, a, z] + sign * np.bincount(row, weights=term, minlength=rows)
+    base = np.where(by_missing[:, None, None], line, 0.0)
+    for (a, b), weight in zip(((0, 0), (0, 1), (1, 1)), (np.ones_like(u), u, u * u), strict=True):
+        line[:, a, b] = base[:, a, b] + sign * np.bincount(row, weights=weight, minlength=rows)
+        line[:, b, a] = line[:, a, b]
 
 
 def _explained(gram: np.ndarray, b: np.ndarray, used: np.ndarray) -> np.ndarray:
