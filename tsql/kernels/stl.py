@@ -24,6 +24,7 @@ import numpy as np
 from numba import njit
 
 from tsql.kernels.cancel import checkpoint
+from tsql.kernels.gaps import fill_inside
 from tsql.kernels.ragged import Ragged, full
 
 __all__ = ["stl_decompose", "stl_strength", "stl_windows"]
@@ -208,37 +209,10 @@ def _check_period(period, name: str) -> int:
 def _prepare(batch: Ragged, period: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Flat values with interior gaps filled, each row's span ``[first, last]`` (flat indices of its
     first and last present values) and whether the row gets an answer."""
-    values = batch.values
-    total = len(values)
-    starts, ends = batch.offsets[:-1], batch.offsets[1:]
-    if total == 0:
-        none = np.zeros(batch.n_rows, dtype=np.int64)
-        return values, none, none - 1, np.zeros(batch.n_rows, dtype=bool)
-    present = batch.present
-    index = np.arange(total, dtype=np.int64)
-    previous = np.maximum.accumulate(np.where(present, index, -1))  # last present at or before
-    following = np.minimum.accumulate(np.where(present, index, total)[::-1])[::-1]  # first at or after
-    nonempty = ends > starts
-    first = np.where(nonempty, following[np.minimum(starts, total - 1)], starts)
-    last = np.where(nonempty, previous[np.maximum(ends - 1, 0)], starts - 1)
-    span = last - first + 1
-    count = batch.segment_sum(present.astype(np.float64))
-    answer = batch.row_valid & nonempty & (first < ends) & (span >= 2 * period)
-    answer &= span - count <= _MAX_MISSING_SHARE * span
-    if not batch.has_missing and np.isfinite(values).all():
-        return values, first, last, answer
-    answer &= batch.segment_sum(np.isinf(values).astype(np.float64)) == 0
-    row_start = np.repeat(starts, batch.lengths)
-    row_end = np.repeat(ends, batch.lengths)
-    where = np.flatnonzero(~present & (previous >= row_start) & (following < row_end))
-    lo, hi = previous[where], following[where]
-    long_gap = np.zeros(batch.n_rows, dtype=bool)
-    long_gap[batch.row_ids[where[hi - lo - 1 >= period]]] = True
-    answer &= ~long_gap
-    filled = values.copy()
-    with np.errstate(invalid="ignore"):
-        filled[where] = values[lo] + (where - lo) / (hi - lo) * (values[hi] - values[lo])
-    return filled, first, last, answer
+    spans = fill_inside(batch)
+    answer = (spans.length >= 2 * period) & (spans.longest_gap < period) & ~spans.infinite
+    answer &= spans.missing_share() <= _MAX_MISSING_SHARE
+    return spans.values, spans.first, spans.last, answer
 
 
 def _run(
