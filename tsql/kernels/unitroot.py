@@ -1,0 +1,338 @@
+"""Unit-root tests: does a series wander (augmented Dickey-Fuller) or stay put around a level or a
+line (KPSS)?
+
+Both take the span from a row's first to its last present value; missing elements inside it are
+filled by linear interpolation (:mod:`tsql.kernels.gaps`), and a row with more than a quarter of
+its span missing, an infinite value, or all present values equal gets no answer. Rows of one length
+are worked on together: the regressions of the augmented Dickey-Fuller test are batched QR
+factorisations, the KPSS sums are row reductions of one matrix.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy.special import ndtr
+
+from tsql.kernels.gaps import fill_inside
+from tsql.kernels.ragged import Ragged, full
+
+__all__ = ["adf_test", "kpss_test", "mackinnon_p_value"]
+
+_MAX_MISSING_SHARE = 0.25
+_ADF_TRENDS = {"n": 0, "c": 1, "ct": 2, "ctt": 3}
+
+# MacKinnon (1994), table 3 (one variable, N = 1): the tau statistic's cut-offs and the
+# coefficients of p = Phi(c0 + c1 tau + c2 tau^2 [+ c3 tau^3]) below and above tau_star
+# (the published scaled coefficients, scaling applied).
+_MACKINNON = {
+    #       tau_min, tau_star, tau_max, small-p coefficients, large-p coefficients
+    "n": (-19.04, -1.04, math.inf, (0.6344, 1.2378, 0.032496), (0.4797, 0.93557, -0.06999, 0.033066)),
+    "c": (-18.83, -1.61, 2.74, (2.1659, 1.4412, 0.038269), (1.7339, 0.93202, -0.12745, -0.010368)),
+    "ct": (-16.18, -2.89, 0.70, (3.2512, 1.6047, 0.049588), (2.5261, 0.61654, -0.37956, -0.060285)),
+    "ctt": (-17.17, -3.21, 0.54, (4.0003, 1.658, 0.048288), (3.0778, 0.49529, -0.41477, -0.059359)),
+}
+
+# Kwiatkowski et al. (1992), table 1: upper-tail critical values of the KPSS statistic at the
+# 10 %, 5 %, 2.5 % and 1 % levels.
+_KPSS_LEVELS = np.array([0.10, 0.05, 0.025, 0.01])
+_KPSS_CRITICAL = {"c": np.array([0.347, 0.463, 0.574, 0.739]), "ct": np.array([0.119, 0.146, 0.176, 0.216])}
+
+
+def adf_test(batch: Ragged, max_lag: int | None = None, regression: str = "c") -> dict[str, np.ndarray]:
+    """Augmented Dickey-Fuller test of a unit root, the lag chosen by AIC.
+
+    Parameters
+    ----------
+    batch : Ragged
+        The series, one per row, equally spaced; NaN elements are missing.
+    max_lag : int or None
+        Largest number of lagged differences tried (>= 0). ``None``: ``ceil(12 (n / 100)^(1/4))``
+        (Schwert 1989), capped at ``n // 2 - d - 1`` for ``d`` deterministic terms.
+    regression : {'c', 'ct', 'ctt', 'n'}
+        Deterministic terms of the test regression: constant; constant and trend; constant,
+        trend and squared trend; none.
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+        One value per row, NaN where there is no answer (see the module notes; also a span too
+        short for ``max_lag``, i.e. ``max_lag > n // 2 - d - 1``, or a regression without
+        residual degrees of freedom):
+
+        ``statistic``
+            The t-statistic of the lagged level in the regression of ``diff(x)`` on the
+            deterministic terms, the lagged level and ``used_lag`` lagged differences.
+        ``p_value``
+            MacKinnon's approximate asymptotic p-value of the statistic (:func:`mackinnon_p_value`).
+        ``used_lag``
+            The number of lagged differences with the smallest AIC, the candidates 0..max_lag all
+            fitted on the same observations (the last ``n - 1 - max_lag``); then the test
+            regression is refitted on every observation the chosen lag allows.
+
+    Notes
+    -----
+    Small p-values reject the unit root (the series reverts to its level or line). The answer
+    equals ``statsmodels.tsa.stattools.adfuller(x, maxlag=max_lag, regression=regression,
+    autolag='AIC')``'s statistic, p-value and lag to rounding.
+
+    References
+    ----------
+    D. A. Dickey and W. A. Fuller, "Distribution of the estimators for autoregressive time series
+    with a unit root", Journal of the American Statistical Association 74, 427-431 (1979).
+    S. E. Said and D. A. Dickey, "Testing for unit roots in autoregressive-moving average models
+    of unknown order", Biometrika 71(3), 599-607 (1984).
+    G. W. Schwert, "Tests for unit roots: a Monte Carlo investigation", Journal of Business &
+    Economic Statistics 7(2), 147-159 (1989).
+    J. G. MacKinnon, "Approximate asymptotic distribution functions for unit-root and
+    cointegration tests", Journal of Business & Economic Statistics 12(2), 167-176 (1994).
+
+    See Also
+    --------
+    kpss_test : the test with the opposite null hypothesis.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(0)
+    >>> walk, noise = np.cumsum(rng.standard_normal(300)), rng.standard_normal(300)
+    >>> r = adf_test(Ragged.from_list([walk, noise]))
+    >>> bool(r["p_value"][0] > 0.1), bool(r["p_value"][1] < 0.01)
+    (True, True)
+    """
+    if regression not in _ADF_TRENDS:
+        raise ValueError(f"adf_test: regression must be one of 'c', 'ct', 'ctt', 'n', got {regression!r}")
+    if max_lag is not None and (isinstance(max_lag, bool) or int(max_lag) != max_lag or max_lag < 0):
+        raise ValueError(f"adf_test: max_lag must be a whole number >= 0 or NULL, got {max_lag!r}")
+    result = {key: full(batch.n_rows) for key in ("statistic", "p_value", "used_lag")}
+    terms = _ADF_TRENDS[regression]
+    for rows, x in _buckets(batch):
+        n = x.shape[1]
+        cap = n // 2 - terms - 1
+        p = min(cap, math.ceil(12.0 * (n / 100.0) ** 0.25)) if max_lag is None else int(max_lag)
+        if p < 0 or p > cap:
+            continue
+        lag = _aic_lag(x, p, terms)
+        for chosen in np.unique(lag):
+            pick = lag == chosen
+            stat = _adf_statistic(x[pick], int(chosen), terms)
+            result["statistic"][rows[pick]] = stat
+            result["used_lag"][rows[pick]] = np.where(np.isfinite(stat), chosen, np.nan)
+    result["p_value"] = mackinnon_p_value(result["statistic"], regression)
+    return result
+
+
+def kpss_test(batch: Ragged, regression: str = "c") -> dict[str, np.ndarray]:
+    """KPSS test of stationarity around a level (or a line), the lag chosen from the data.
+
+    Parameters
+    ----------
+    batch : Ragged
+        The series, one per row, equally spaced; NaN elements are missing.
+    regression : {'c', 'ct'}
+        The null hypothesis: stationary around a constant, or around a linear trend.
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+        One value per row, NaN where there is no answer (see the module notes; also fewer than
+        3 values):
+
+        ``statistic``
+            ``sum_t S_t^2 / (n^2 s^2(l))`` with ``S_t`` the partial sums of the residuals from the
+            mean (or the least-squares line) and ``s^2(l)`` the Newey-West long-run variance with
+            Bartlett weights ``1 - i / (l + 1)``, ``i = 1..l``.
+        ``p_value``
+            Interpolated linearly in the published table of critical values (10 %, 5 %, 2.5 %,
+            1 %) and bounded by it: a statistic below the 10 % value gives 0.10 (the true p-value
+            is larger), one above the 1 % value gives 0.01 (the true p-value is smaller).
+
+    Notes
+    -----
+    Small p-values reject stationarity. The lag ``l`` is Hobijn, Franses and Ooms' (1998)
+    automatic choice: with ``m = floor(n^(2/9))`` autocovariance lags,
+    ``l = floor(1.1447 (s1 / s0)^(2/3) n^(1/3))``, ``s0 = c_0 + 2 sum_{i<=m} c_i``,
+    ``s1 = 2 sum_{i<=m} i c_i`` (``c_i`` the residuals' autocovariances), at most ``n - 1``.
+    The answer equals ``statsmodels.tsa.stattools.kpss(x, regression, nlags='auto')``'s statistic
+    and p-value to rounding.
+
+    References
+    ----------
+    D. Kwiatkowski, P. C. B. Phillips, P. Schmidt and Y. Shin, "Testing the null hypothesis of
+    stationarity against the alternative of a unit root", Journal of Econometrics 54, 159-178
+    (1992).
+    B. Hobijn, P. H. Franses and M. Ooms, "Generalizations of the KPSS-test for stationarity",
+    Econometric Institute report 9802/A, Erasmus University Rotterdam (1998).
+    W. K. Newey and K. D. West, "A simple, positive semi-definite, heteroskedasticity and
+    autocorrelation consistent covariance matrix", Econometrica 55(3), 703-708 (1987).
+
+    See Also
+    --------
+    adf_test : the test with the opposite null hypothesis.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(0)
+    >>> walk, noise = np.cumsum(rng.standard_normal(300)), rng.standard_normal(300)
+    >>> r = kpss_test(Ragged.from_list([walk, noise]))
+    >>> float(r["p_value"][0]), float(r["p_value"][1])
+    (0.01, 0.1)
+    """
+    if regression not in _KPSS_CRITICAL:
+        raise ValueError(f"kpss_test: regression must be 'c' or 'ct', got {regression!r}")
+    statistic = full(batch.n_rows)
+    for rows, x in _buckets(batch):
+        n = x.shape[1]
+        if n < 3:
+            continue
+        if regression == "c":
+            resid = x - (x.sum(axis=1) / n)[:, None]
+        else:
+            resid = _line_residuals(x)
+        covlags = int(n ** (2.0 / 9.0))
+        s0 = (resid * resid).sum(axis=1) / n
+        s1 = np.zeros(len(rows))
+        for i in range(1, covlags + 1):
+            product = (resid[:, i:] * resid[:, : n - i]).sum(axis=1) / (n / 2.0)
+            s0 = s0 + product
+            s1 = s1 + i * product
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ratio = s1 / s0
+            gamma = 1.1447 * np.power(ratio * ratio, 1.0 / 3.0)
+            lags = np.floor(gamma * n ** (1.0 / 3.0))
+        lags = np.where(np.isfinite(lags), np.minimum(lags, n - 1), 0).astype(np.int64)
+        eta = (np.cumsum(resid, axis=1) ** 2).sum(axis=1) / (n * n)
+        s_hat = (resid * resid).sum(axis=1)
+        for i in range(1, int(lags.max()) + 1):
+            product = (resid[:, i:] * resid[:, : n - i]).sum(axis=1)
+            s_hat = s_hat + np.where(i <= lags, 2.0 * product * (1.0 - i / (lags + 1.0)), 0.0)
+        s_hat = s_hat / n
+        with np.errstate(invalid="ignore", divide="ignore"):
+            statistic[rows] = np.where(s_hat > 0, eta / s_hat, np.nan)
+    p_value = np.full(batch.n_rows, np.nan)
+    ok = np.isfinite(statistic)
+    p_value[ok] = np.interp(statistic[ok], _KPSS_CRITICAL[regression], _KPSS_LEVELS)
+    return {"statistic": statistic, "p_value": p_value}
+
+
+def mackinnon_p_value(tau: np.ndarray, regression: str = "c") -> np.ndarray:
+    """MacKinnon's approximate asymptotic p-value of the Dickey-Fuller tau statistic (one series).
+
+    ``p = Phi(c0 + c1 tau + c2 tau^2)`` at or below ``tau_star`` and
+    ``Phi(c0 + c1 tau + c2 tau^2 + c3 tau^3)`` above it, with the published coefficients of the
+    regression's deterministic terms; 0 below ``tau_min`` and 1 above ``tau_max``, where the
+    approximation ends.
+
+    Parameters
+    ----------
+    tau : array_like
+        The statistics; NaN stays NaN.
+    regression : {'c', 'ct', 'ctt', 'n'}
+        The deterministic terms of the test regression.
+
+    References
+    ----------
+    J. G. MacKinnon, "Approximate asymptotic distribution functions for unit-root and
+    cointegration tests", Journal of Business & Economic Statistics 12(2), 167-176 (1994).
+
+    Examples
+    --------
+    >>> float(np.round(mackinnon_p_value(np.array([-2.8615]))[0], 3))
+    0.05
+    """
+    tau = np.asarray(tau, dtype=np.float64)
+    tau_min, tau_star, tau_max, small, large = _MACKINNON[regression]
+    small_z = small[0] + tau * (small[1] + tau * small[2])
+    large_z = large[0] + tau * (large[1] + tau * (large[2] + tau * large[3]))
+    p = ndtr(np.where(tau <= tau_star, small_z, large_z))
+    p = np.where(tau > tau_max, 1.0, np.where(tau < tau_min, 0.0, p))
+    return np.where(np.isnan(tau), np.nan, p)
+
+
+# --------------------------------------------------------------------------------------------
+# shared pieces
+# --------------------------------------------------------------------------------------------
+
+
+def _buckets(batch: Ragged):
+    """``(row indices, matrix)`` per span length of the rows that can be tested."""
+    spans = fill_inside(batch)
+    ok = ~spans.infinite & (spans.length >= 3) & (spans.missing_share() <= _MAX_MISSING_SHARE)
+    rows = np.flatnonzero(ok)
+    if len(rows) == 0:
+        return
+    filled = spans.batch(rows)
+    for _, group, x in filled.by_length():
+        changing = x.max(axis=1) > x.min(axis=1)
+        if changing.any():
+            yield rows[group[changing]], x[changing]
+
+
+def _line_residuals(x: np.ndarray) -> np.ndarray:
+    """Residuals about each row's least-squares line."""
+    n = x.shape[1]
+    u = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
+    slope = (x * u).sum(axis=1) / (u * u).sum()
+    return x - (x.sum(axis=1) / n)[:, None] - slope[:, None] * u
+
+
+def _deterministic(nobs: int, terms: int) -> np.ndarray:
+    """Constant, trend and squared trend columns (``t = 1..nobs``, scaled: the fit is the same)."""
+    t = np.arange(1, nobs + 1, dtype=np.float64) / nobs
+    return np.column_stack([np.ones(nobs), t, t * t][:terms]) if terms else np.empty((nobs, 0))
+
+
+def _design(x: np.ndarray, lag: int, p: int, terms: int, level_last: bool) -> tuple[np.ndarray, np.ndarray]:
+    """The ADF regression on the last ``n - 1 - p`` differences: ``(y, X)`` with ``X`` the
+    deterministic terms, then the lagged level and ``lag`` lagged differences (or the level last)."""
+    m, n = x.shape
+    dx = np.diff(x, axis=1)
+    nobs = n - 1 - p
+    y = dx[:, p:]
+    level = x[:, p : n - 1]
+    lagged = [dx[:, p - j : p - j + nobs] for j in range(1, lag + 1)]
+    columns = [level, *lagged] if not level_last else [*lagged, level]
+    design = np.empty((m, nobs, terms + 1 + lag))
+    design[:, :, :terms] = _deterministic(nobs, terms)
+    for k, column in enumerate(columns):
+        design[:, :, terms + k] = column
+    return y, design
+
+
+def _aic_lag(x: np.ndarray, p: int, terms: int) -> np.ndarray:
+    """The lag 0..p of smallest AIC, all fitted on the last ``n - 1 - p`` observations (nested
+    least squares from one QR factorisation: column ``k`` removes ``(Q'y)_k^2`` from the RSS)."""
+    if p == 0:
+        return np.zeros(len(x), dtype=np.int64)
+    y, design = _design(x, p, p, terms, level_last=False)
+    nobs = y.shape[1]
+    q, _ = np.linalg.qr(design)
+    qy = (q * y[:, :, None]).sum(axis=1)  # (m, K)
+    fitted = (q * qy[:, None, :]).sum(axis=2)
+    rss_full = ((y - fitted) ** 2).sum(axis=1)
+    tail = np.cumsum((qy * qy)[:, ::-1], axis=1)[:, ::-1]  # tail[:, k] = sum_{i >= k} (Q'y)_i^2
+    lags = np.arange(p + 1)
+    used = terms + 1 + lags
+    rss = rss_full[:, None] + np.concatenate([tail[:, terms + 1 :], np.zeros((len(x), 1))], axis=1)
+    with np.errstate(divide="ignore"):
+        aic = nobs * (np.log(2 * np.pi) + np.log(rss / nobs) + 1.0) + 2.0 * used
+    return np.argmin(aic, axis=1)
+
+
+def _adf_statistic(x: np.ndarray, lag: int, terms: int) -> np.ndarray:
+    """t-statistic of the lagged level, fitted on every observation ``lag`` allows: with the level
+    the last column, ``t = sign(R_kk) (Q'y)_k / s``."""
+    y, design = _design(x, lag, lag, terms, level_last=True)
+    nobs, k = design.shape[1], design.shape[2]
+    if nobs <= k:
+        return np.full(len(x), np.nan)
+    q, r = np.linalg.qr(design)
+    qy = (q * y[:, :, None]).sum(axis=1)
+    fitted = (q * qy[:, None, :]).sum(axis=2)
+    rss = ((y - fitted) ** 2).sum(axis=1)
+    r_kk = r[:, k - 1, k - 1]
+    scale = np.sqrt((design[:, :, k - 1] ** 2).sum(axis=1))
+    s = np.sqrt(rss / (nobs - k))
+    ok = (np.abs(r_kk) > 1e-10 * scale) & (s > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(ok, np.sign(r_kk) * qy[:, k - 1] / s, np.nan)
