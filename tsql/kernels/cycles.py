@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from tsql.kernels.cancel import checkpoint
 from tsql.kernels.periodicity import _allowed_bins, _Group, _refine, _Sums, fisher_g_pvalue
-from tsql.kernels.ragged import Ragged, RaggedRecords, in_safe_range
+from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords, in_safe_range
 
 __all__ = ["periods"]
 
@@ -59,8 +60,9 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
 
     Notes
     -----
-    A candidate within half a Fourier bin of ``P / j`` (in frequency) (``j >= 2``) for a reported cycle ``P`` is
-    its harmonic, part of that cycle's shape, and never reported; a longer cycle whose harmonic
+    A candidate whose Fourier bin is the nearest to a harmonic ``j / P`` (``j >= 2``, within half
+    a bin) of a reported cycle ``P`` is part of that cycle's shape, never a new cycle, and is
+    left out of later searches and tests; a longer cycle whose harmonic
     was reported (a week after a day in hourly data) is a new cycle. So a daily cycle found
     after a stronger weekly one would count as the weekly cycle's seventh harmonic: in hourly
     load the daily cycle is the stronger one.
@@ -106,7 +108,10 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
         if len(bins) == 0 or not keep.any():
             continue
         rows, matrix = rows[keep], in_safe_range(matrix[keep])
-        found[rows] = _search(matrix, bins, k, min_period, max_period)
+        step = max(1, CACHE_ELEMENTS // n)  # the fits hold about 2 + 6 k vectors per row
+        for lo in range(0, len(rows), step):
+            found[rows[lo : lo + step]] = _search(matrix[lo : lo + step], bins, k, min_period, max_period)
+            checkpoint()
     counts = np.isfinite(found[:, :, 0]).sum(axis=1)
     offsets = np.zeros(batch.n_rows + 1, dtype=np.int64)
     np.cumsum(counts, out=offsets[1:])
@@ -161,11 +166,15 @@ def _search(matrix: np.ndarray, bins: np.ndarray, k: int, min_period: float, max
         # the cycle joins the fit
         harmonics = np.clip(np.floor(period / 2.0), 1, _HARMONICS)
         columns = np.zeros((m, 2 * _HARMONICS, n))
+        angle = 2.0 * np.pi * np.outer(np.where(live, 1.0 / np.where(live, period, 1.0), 0.0), t)
+        c1, s1 = np.cos(angle), np.sin(angle)
+        cj, sj = c1, s1
         for j in range(1, _HARMONICS + 1):
-            angle = 2.0 * np.pi * j * np.outer(np.where(live, 1.0 / np.where(live, period, 1.0), 0.0), t)
+            if j > 1:  # the j-th harmonic by rotation: one cos/sin pass for all three
+                cj, sj = cj * c1 - sj * s1, sj * c1 + cj * s1
             on = ((j <= harmonics) & live)[:, None] * w
-            columns[:, 2 * j - 2] = np.cos(angle) * on
-            columns[:, 2 * j - 1] = np.sin(angle) * on
+            columns[:, 2 * j - 2] = cj * on
+            columns[:, 2 * j - 1] = sj * on
         basis = _extend(basis, columns)
         new_resid = y - _project(basis, y)
         new_rss = (new_resid * new_resid).sum(axis=1)
@@ -201,14 +210,26 @@ def _refined_period(resid, present, spectrum, peak, n, f_lo, min_period, p_hi) -
 def _extend(basis: np.ndarray, columns: np.ndarray) -> np.ndarray:
     """``basis`` (per row, orthonormal vectors as rows: ``(rows, K, n)``) extended by the
     directions of ``columns`` (``(rows, c, n)``) it lacks; a direction shorter than ``_RANK_TOL``
-    of the longest column is dropped (a zero column, or one already in the span)."""
+    of the longest column is dropped (a zero column, or one already in the span).
+
+    Classical Gram-Schmidt against the basis, repeated when a column lost more than half its length
+    ("twice is enough"), then the new directions orthonormalised through the eigenvectors of their
+    small Gram matrix, twice (the second pass sees a nearly orthonormal set)."""
     lengths = np.sqrt((columns * columns).sum(axis=2))  # (m, c)
-    for _ in range(2):  # orthogonalise twice: one pass loses orthogonality to rounding
-        if basis.shape[1]:
+    if basis.shape[1]:
+        for _ in range(2):
+            before = (columns * columns).sum(axis=2)
             columns = columns - (columns @ basis.transpose(0, 2, 1)) @ basis
-    u, s, _ = np.linalg.svd(columns.transpose(0, 2, 1), full_matrices=False)
-    keep = s > _RANK_TOL * np.maximum(lengths.max(axis=1, keepdims=True), 1e-300)
-    return np.concatenate([basis, (u * keep[:, None, :]).transpose(0, 2, 1)], axis=1)
+            if not ((columns * columns).sum(axis=2) < 0.25 * before).any():
+                break
+    floor = (_RANK_TOL * np.maximum(lengths.max(axis=1), 1e-300)) ** 2
+    for _ in range(2):
+        values, vectors = np.linalg.eigh(columns @ columns.transpose(0, 2, 1))  # (m, c), (m, c, c)
+        keep = values > floor[:, None]
+        scale = np.where(keep, 1.0 / np.sqrt(np.where(keep, values, 1.0)), 0.0)
+        columns = (vectors * scale[:, None, :]).transpose(0, 2, 1) @ columns
+        floor = np.full(len(columns), 0.25)  # kept directions now have length 1, dropped ones 0
+    return np.concatenate([basis, columns], axis=1)
 
 
 def _project(basis: np.ndarray, y: np.ndarray) -> np.ndarray:
