@@ -3,9 +3,10 @@ line (KPSS)?
 
 Both take the span from a row's first to its last present value; missing elements inside it are
 filled by linear interpolation (:mod:`tsql.kernels.gaps`), and a row with more than a quarter of
-its span missing, an infinite value, or all present values equal gets no answer. Rows of one length
-are worked on together: the regressions of the augmented Dickey-Fuller test are batched QR
-factorisations, the KPSS sums are row reductions of one matrix.
+its span missing, an infinite value, or all present values equal gets no answer. The KPSS sums are
+row reductions of one matrix per length; the augmented Dickey-Fuller regressions run row by row in
+compiled code (one Householder QR gives the residual sums of squares of every candidate lag, a
+second one the test regression), which is faster here than a batched LAPACK QR of tall matrices.
 """
 
 from __future__ import annotations
@@ -13,14 +14,17 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from numba import njit
 from scipy.special import ndtr
 
+from tsql.kernels.cancel import checkpoint
 from tsql.kernels.gaps import fill_inside
 from tsql.kernels.ragged import Ragged, full
 
 __all__ = ["adf_test", "kpss_test", "mackinnon_p_value"]
 
 _MAX_MISSING_SHARE = 0.25
+_ADF_WORK = 1 << 22  # design elements regressed between two looks at cancellation
 _ADF_TRENDS = {"n": 0, "c": 1, "ct": 2, "ctt": 3}
 
 # MacKinnon (1994), table 3 (one variable, N = 1): the tau statistic's cut-offs and the
@@ -112,12 +116,13 @@ def adf_test(batch: Ragged, max_lag: int | None = None, regression: str = "c") -
         p = min(cap, math.ceil(12.0 * (n / 100.0) ** 0.25)) if max_lag is None else int(max_lag)
         if p < 0 or p > cap:
             continue
-        lag = _aic_lag(x, p, terms)
-        for chosen in np.unique(lag):
-            pick = lag == chosen
-            stat = _adf_statistic(x[pick], int(chosen), terms)
-            result["statistic"][rows[pick]] = stat
-            result["used_lag"][rows[pick]] = np.where(np.isfinite(stat), chosen, np.nan)
+        step = max(1, _ADF_WORK // (n * (p + terms + 2)))
+        for lo in range(0, len(rows), step):
+            out = np.full((min(step, len(rows) - lo), 2), np.nan)
+            _adf_rows(np.ascontiguousarray(x[lo : lo + step]), p, terms, out)
+            result["statistic"][rows[lo : lo + step]] = out[:, 0]
+            result["used_lag"][rows[lo : lo + step]] = out[:, 1]
+            checkpoint()
     result["p_value"] = mackinnon_p_value(result["statistic"], regression)
     return result
 
@@ -276,63 +281,131 @@ def _line_residuals(x: np.ndarray) -> np.ndarray:
     return x - (x.sum(axis=1) / n)[:, None] - slope[:, None] * u
 
 
-def _deterministic(nobs: int, terms: int) -> np.ndarray:
-    """Constant, trend and squared trend columns (``t = 1..nobs``, scaled: the fit is the same)."""
-    t = np.arange(1, nobs + 1, dtype=np.float64) / nobs
-    return np.column_stack([np.ones(nobs), t, t * t][:terms]) if terms else np.empty((nobs, 0))
+# --------------------------------------------------------------------------------------------
+# the ADF regressions, row by row (compiled): Householder QR, nested residual sums of squares
+# --------------------------------------------------------------------------------------------
 
 
-def _design(x: np.ndarray, lag: int, p: int, terms: int, level_last: bool) -> tuple[np.ndarray, np.ndarray]:
-    """The ADF regression on the last ``n - 1 - p`` differences: ``(y, X)`` with ``X`` the
-    deterministic terms, then the lagged level and ``lag`` lagged differences (or the level last)."""
-    m, n = x.shape
-    dx = np.diff(x, axis=1)
+@njit(cache=True, error_model="numpy")
+def _adf_rows(x, p, terms, out):
+    """``out[r] = (statistic, used lag)`` of each row of ``x`` (NaN, NaN without an answer)."""
+    for r in range(x.shape[0]):
+        lag = _aic_lag(x[r], p, terms)
+        out[r, 0] = _adf_statistic(x[r], lag, terms)
+        out[r, 1] = np.nan if np.isnan(out[r, 0]) else lag
+
+
+@njit(cache=True, error_model="numpy")
+def _design(x, lag, p, terms, level_last):
+    """The ADF regression on the last ``n - 1 - p`` differences: ``y`` and the columns (one per
+    row of the result): the deterministic terms (constant, ``t / nobs``, ``(t / nobs)^2``, which
+    span the same space as ``1, t, t^2``), then the lagged level and ``lag`` lagged differences (or
+    the level last)."""
+    n = len(x)
     nobs = n - 1 - p
-    y = dx[:, p:]
-    level = x[:, p : n - 1]
-    lagged = [dx[:, p - j : p - j + nobs] for j in range(1, lag + 1)]
-    columns = [level, *lagged] if not level_last else [*lagged, level]
-    design = np.empty((m, nobs, terms + 1 + lag))
-    design[:, :, :terms] = _deterministic(nobs, terms)
-    for k, column in enumerate(columns):
-        design[:, :, terms + k] = column
-    return y, design
+    k = terms + 1 + lag
+    a = np.empty((k, nobs))
+    y = np.empty(nobs)
+    for i in range(nobs):
+        t = p + i  # y_i = x[t + 1] - x[t]
+        y[i] = x[t + 1] - x[t]
+        tau = (i + 1.0) / nobs
+        if terms >= 1:
+            a[0, i] = 1.0
+        if terms >= 2:
+            a[1, i] = tau
+        if terms >= 3:
+            a[2, i] = tau * tau
+        level = terms + lag if level_last else terms
+        a[level, i] = x[t]
+        for j in range(1, lag + 1):
+            a[terms + j - (1 if level_last else 0), i] = x[t - j + 1] - x[t - j]
+    return a, y
 
 
-def _aic_lag(x: np.ndarray, p: int, terms: int) -> np.ndarray:
-    """The lag 0..p of smallest AIC, all fitted on the last ``n - 1 - p`` observations (nested
-    least squares from one QR factorisation: column ``k`` removes ``(Q'y)_k^2`` from the RSS)."""
+@njit(cache=True, error_model="numpy")
+def _householder(a, y):
+    """Householder QR of the columns ``a`` (one per row, overwritten), applied to ``y`` (overwritten).
+
+    Returns ``R``'s diagonal and the column norms; afterwards ``y[:k]`` is ``Q'y`` and
+    ``sum(y[k:]^2)`` the residual sum of squares of the full fit."""
+    k, m = a.shape
+    diag = np.zeros(k)
+    norms = np.zeros(k)
+    for j in range(k):
+        s = 0.0
+        for i in range(m):
+            s += a[j, i] * a[j, i]
+        norms[j] = math.sqrt(s)
+    for j in range(k):
+        s = 0.0
+        for i in range(j, m):
+            s += a[j, i] * a[j, i]
+        norm = math.sqrt(s)
+        if norm == 0.0:
+            continue
+        old = a[j, j]
+        alpha = -norm if old >= 0 else norm
+        a[j, j] = old - alpha
+        vv = s - old * old + a[j, j] * a[j, j]  # |v|^2: the column with its first entry changed
+        diag[j] = alpha
+        if vv == 0.0:
+            continue
+        for c in range(j + 1, k):
+            d = 0.0
+            for i in range(j, m):
+                d += a[j, i] * a[c, i]
+            f = 2.0 * d / vv
+            for i in range(j, m):
+                a[c, i] -= f * a[j, i]
+        d = 0.0
+        for i in range(j, m):
+            d += a[j, i] * y[i]
+        f = 2.0 * d / vv
+        for i in range(j, m):
+            y[i] -= f * a[j, i]
+    return diag, norms
+
+
+@njit(cache=True, error_model="numpy")
+def _aic_lag(x, p, terms):
+    """The lag 0..p of smallest AIC, all fitted on the last ``n - 1 - p`` observations: nested
+    least squares from one QR (column ``k`` removes ``(Q'y)_k^2`` from the residual sum)."""
     if p == 0:
-        return np.zeros(len(x), dtype=np.int64)
-    y, design = _design(x, p, p, terms, level_last=False)
-    nobs = y.shape[1]
-    q, _ = np.linalg.qr(design)
-    qy = (q * y[:, :, None]).sum(axis=1)  # (m, K)
-    fitted = (q * qy[:, None, :]).sum(axis=2)
-    rss_full = ((y - fitted) ** 2).sum(axis=1)
-    tail = np.cumsum((qy * qy)[:, ::-1], axis=1)[:, ::-1]  # tail[:, k] = sum_{i >= k} (Q'y)_i^2
-    lags = np.arange(p + 1)
-    used = terms + 1 + lags
-    rss = rss_full[:, None] + np.concatenate([tail[:, terms + 1 :], np.zeros((len(x), 1))], axis=1)
-    with np.errstate(divide="ignore"):
-        aic = nobs * (np.log(2 * np.pi) + np.log(rss / nobs) + 1.0) + 2.0 * used
-    return np.argmin(aic, axis=1)
+        return 0
+    a, y = _design(x, p, p, terms, False)
+    k, nobs = a.shape
+    _householder(a, y)
+    rss = 0.0
+    for i in range(k, nobs):
+        rss += y[i] * y[i]
+    best, best_aic = p, np.inf
+    for lag in range(p, -1, -1):  # from the largest model down; ties go to the smaller lag
+        used = terms + 1 + lag
+        if lag < p:
+            rss += y[used] * y[used]
+        aic = nobs * (math.log(2.0 * math.pi) + math.log(rss / nobs) + 1.0) + 2.0 * used
+        if aic <= best_aic:
+            best, best_aic = lag, aic
+    return best
 
 
-def _adf_statistic(x: np.ndarray, lag: int, terms: int) -> np.ndarray:
+@njit(cache=True, error_model="numpy")
+def _adf_statistic(x, lag, terms):
     """t-statistic of the lagged level, fitted on every observation ``lag`` allows: with the level
     the last column, ``t = sign(R_kk) (Q'y)_k / s``."""
-    y, design = _design(x, lag, lag, terms, level_last=True)
-    nobs, k = design.shape[1], design.shape[2]
+    a, y = _design(x, lag, lag, terms, True)
+    k, nobs = a.shape
     if nobs <= k:
-        return np.full(len(x), np.nan)
-    q, r = np.linalg.qr(design)
-    qy = (q * y[:, :, None]).sum(axis=1)
-    fitted = (q * qy[:, None, :]).sum(axis=2)
-    rss = ((y - fitted) ** 2).sum(axis=1)
-    r_kk = r[:, k - 1, k - 1]
-    scale = np.sqrt((design[:, :, k - 1] ** 2).sum(axis=1))
-    s = np.sqrt(rss / (nobs - k))
-    ok = (np.abs(r_kk) > 1e-10 * scale) & (s > 0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(ok, np.sign(r_kk) * qy[:, k - 1] / s, np.nan)
+        return np.nan
+    diag, norms = _householder(a, y)
+    rss = 0.0
+    for i in range(k, nobs):
+        rss += y[i] * y[i]
+    for j in range(k):
+        if not abs(diag[j]) > 1e-10 * norms[j]:
+            return np.nan  # a column in the span of the others: the fit is not determined
+    s = math.sqrt(rss / (nobs - k))
+    if not s > 0.0:
+        return np.nan
+    return (1.0 if diag[k - 1] > 0 else -1.0) * y[k - 1] / s
