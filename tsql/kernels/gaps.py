@@ -40,6 +40,8 @@ class Spans:
         lengths = self.length[rows]
         offsets = np.zeros(len(rows) + 1, dtype=np.int64)
         np.cumsum(lengths, out=offsets[1:])
+        if offsets[-1] == len(self.values) and (self.first[rows] == offsets[:-1]).all():
+            return Ragged(self.values, offsets)  # the spans are the whole flat array, in order
         flat = np.repeat(self.first[rows] - offsets[:-1], lengths) + np.arange(offsets[-1])
         return Ragged(self.values[flat], offsets)
 
@@ -54,6 +56,13 @@ def fill_inside(batch: Ragged) -> Spans:
     zero = np.zeros(n_rows, dtype=np.int64)
     if total == 0:
         return Spans(values, starts.copy(), starts - 1, zero, zero, np.zeros(n_rows, dtype=bool))
+    infinite = np.zeros(n_rows, dtype=bool)
+    if not np.isfinite(values).all():
+        infinite[batch.row_ids[np.isinf(values)]] = True
+    if not batch.has_missing:  # every row is its own span
+        has = batch.row_valid & (ends > starts)
+        first, last = starts.copy(), np.where(has, ends - 1, starts - 1)
+        return Spans(values, first, last, np.where(has, ends - starts, 0), zero, infinite)
     present = batch.present
     index = np.arange(total, dtype=np.int64)
     previous = np.maximum.accumulate(np.where(present, index, -1))  # last present at or before
@@ -64,11 +73,7 @@ def fill_inside(batch: Ragged) -> Spans:
     empty = first >= ends
     first, last = np.where(empty, starts, first), np.where(empty, starts - 1, last)
     count = np.bincount(batch.row_ids[present], minlength=n_rows).astype(np.int64)
-    infinite = np.zeros(n_rows, dtype=bool)
-    infinite[batch.row_ids[np.isinf(values)]] = True
     longest = zero.copy()
-    if not batch.has_missing:
-        return Spans(values, first, last, count, longest, infinite)
     row_start = np.repeat(starts, batch.lengths)
     row_end = np.repeat(ends, batch.lengths)
     where = np.flatnonzero(~present & (previous >= row_start) & (following < row_end))
