@@ -40,8 +40,9 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
     RaggedRecords
         Per row, up to ``k`` records ``(period, strength, p_value)`` in the order found (each the
         strongest periodogram peak left); fewer when the range has no Fourier period left that is
-        not a harmonic of a reported cycle. A row with fewer than 4 present values, an infinite
-        value, or constant after its line is removed has no records; an invalid row is invalid.
+        not a harmonic of a reported cycle. A row with no answer (invalid, fewer than 4 present
+        values, an infinite value, constant after its line is removed, no Fourier period in the
+        range) is invalid, with no records.
 
         ``period``
             In samples, refined off the Fourier grid within one bin of the peak.
@@ -117,7 +118,8 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
     np.cumsum(counts, out=offsets[1:])
     taken = np.isfinite(found[:, :, 0])
     fields = {name: found[:, :, i][taken] for i, name in enumerate(("period", "strength", "p_value"))}
-    return RaggedRecords(fields, offsets, batch.valid)
+    answered = counts > 0
+    return RaggedRecords(fields, offsets, None if answered.all() else answered)
 
 
 def _search(matrix: np.ndarray, bins: np.ndarray, k: int, min_period: float, max_period: float | None) -> np.ndarray:

@@ -25,13 +25,14 @@ from numba import njit
 
 from tsql.kernels.cancel import checkpoint
 from tsql.kernels.gaps import fill_inside
+from tsql.kernels.periodicity import dominant_period
 from tsql.kernels.ragged import Ragged, full
 
 __all__ = ["stl_decompose", "stl_strength", "stl_windows"]
 
 _SEASONAL = 7  # length of the seasonal smoother (odd, >= 3)
 _MAX_MISSING_SHARE = 0.25  # more of the span missing than this: no answer
-_ROWS_PER_CALL = 1 << 14  # elements decomposed between two looks at cancellation
+_ELEMENTS_PER_CALL = 1 << 14  # elements decomposed between two looks at cancellation
 
 
 def stl_windows(period: int, seasonal: int = _SEASONAL) -> tuple[int, int]:
@@ -172,8 +173,6 @@ def stl_strength(batch: Ragged, period: int | None = None) -> dict[str, np.ndarr
     """
     result = {key: full(batch.n_rows) for key in ("period", "trend", "seasonal")}
     if period is None:
-        from tsql.kernels.periodicity import dominant_period
-
         found = np.round(dominant_period(batch))
         settings = np.unique(found[np.isfinite(found) & (found >= 2)])
         row_period = found
@@ -229,7 +228,7 @@ def _run(
     span = last[rows] - first[rows] + 1
     done = 0
     while done < len(rows):
-        take = max(1, int(np.searchsorted(np.cumsum(span[done:]), _ROWS_PER_CALL)))
+        take = max(1, int(np.searchsorted(np.cumsum(span[done:]), _ELEMENTS_PER_CALL)))
         piece = rows[done : done + take]
         _decompose_rows(filled, first[piece], last[piece], period, _SEASONAL, nt, nl, inner, outer, trend, seasonal)
         done += take
