@@ -92,10 +92,11 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 from numba import njit, prange
+from scipy.stats import chi2
 
 from tsql.kernels.ragged import Ragged, RaggedRecords
 
-__all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "change_points", "segments"]
+__all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
 
 # --------------------------------------------------------------------------- models
 
@@ -110,6 +111,18 @@ VARIANCE_FLOOR = 1e-4
 #: A noise scale at most this many ulps of the largest |value| is rounding, not noise:
 #: differences of decimal inputs such as 5.1 - 5.0 leave residues of ~1e-16.
 ROUNDING_ULPS = 1000.0
+
+#: Share of the squared differences the semivariogram keeps (the smallest ones).
+TRIM_KEEP = 0.9
+
+#: 1 / E[X | X <= its 90 % quantile] for X ~ chi2(1): the trimmed mean of squared
+#: Gaussian differences times this is their variance (x f_1(x) is the chi2(3) density).
+TRIM_CONSISTENCY = TRIM_KEEP / chi2.cdf(chi2.ppf(TRIM_KEEP, 1), 3)
+
+#: Largest lag-one autocorrelation the long-run factor believes: a series whose robust
+#: semivariogram grows faster than an AR(1)'s (drift, random walk, smooth trend) is
+#: treated as this persistent, so only shifts far beyond its wandering count.
+LONG_RUN_RHO = 0.99
 
 #: Most cumulative sums any model keeps (rows of the ``stats`` table).
 MAX_STATS = 5
@@ -188,32 +201,6 @@ def _median(a: np.ndarray, n: int) -> float:
 
 
 @njit(cache=True, error_model="numpy")
-def _mad_sigma(r: np.ndarray, k: int, work: np.ndarray) -> float:
-    """1.4826 * median(|r - median(r)|) of ``r[:k]``, or 0 when k == 0; reorders ``r``."""
-    if k == 0:
-        return 0.0
-    med = _median(r, k)
-    for i in range(k):
-        work[i] = abs(r[i] - med)
-    return MAD_SCALE * _median(work, k)
-
-
-@njit(cache=True, error_model="numpy")
-def _rms_sigma(r: np.ndarray, k: int) -> float:
-    """Standard deviation (ddof 0) of ``r[:k]``."""
-    if k == 0:
-        return 0.0
-    mean = 0.0
-    for i in range(k):
-        mean += r[i]
-    mean /= k
-    acc = 0.0
-    for i in range(k):
-        acc += (r[i] - mean) ** 2
-    return math.sqrt(acc / k)
-
-
-@njit(cache=True, error_model="numpy")
 def _std(y: np.ndarray, m: int) -> tuple[float, float]:
     """Mean and standard deviation (ddof 0) of ``y[:m]``."""
     mean = 0.0
@@ -236,53 +223,75 @@ def _rounding(y: np.ndarray, m: int) -> float:
 
 
 @njit(cache=True, error_model="numpy")
-def _first_difference_sigma(y: np.ndarray, m: int, work: np.ndarray) -> float:
-    """Noise scale from first differences of neighbouring present values.
-
-    ``1.4826 * MAD(diff(y)) / sqrt(2)``; if that is 0 (most differences equal,
-    e.g. piecewise-constant data) the standard deviation of the differences
-    over sqrt(2); if that is 0 too (a straight ramp), the standard deviation of
-    ``y`` itself; if that is 0 too, 0. Here "0" means at most ROUNDING_ULPS
-    ulps of ``max |y|``.
-    """
-    k = m - 1
-    r = work[m:]
-    for i in range(k):
-        r[i] = y[i + 1] - y[i]
-    tiny = _rounding(y, m)
-    sigma = _mad_sigma(r, k, work) / math.sqrt(2.0)
-    if sigma <= tiny:
-        sigma = _rms_sigma(r, k) / math.sqrt(2.0)
-    if sigma <= tiny:
-        sigma = _std(y, m)[1]
-    return sigma if sigma > tiny else 0.0
+def _line_residual_sd(y: np.ndarray, p: np.ndarray, m: int) -> tuple[float, float, float]:
+    """Mean of ``y[:m]``, least-squares slope against the positions ``p``, and the residuals' sd (ddof 0)."""
+    my = 0.0
+    mp = 0.0
+    for i in range(m):
+        my += y[i]
+        mp += p[i]
+    my /= m
+    mp /= m
+    sxy = 0.0
+    sxx = 0.0
+    syy = 0.0
+    for i in range(m):
+        dp = p[i] - mp
+        dy = y[i] - my
+        sxy += dp * dy
+        sxx += dp * dp
+        syy += dy * dy
+    slope = sxy / sxx if sxx > 0.0 else 0.0
+    rss = max(syy - slope * sxy, 0.0)
+    return my, slope, math.sqrt(rss / m)
 
 
 @njit(cache=True, error_model="numpy")
-def _second_difference_sigma(y: np.ndarray, p: np.ndarray, m: int, work: np.ndarray) -> float:
-    """Noise scale from second differences, blind to any straight line.
+def _difference_scale(y: np.ndarray, m: int, lag: int, centred: bool, work: np.ndarray) -> float:
+    """Trimmed semivariogram at ``lag``: half the mean of the smallest 90 % of ``(d - c)^2``.
 
-    For each present value, its residual from the line through its two present
-    neighbours, divided by that residual's standard deviation in units of the
-    noise (``sqrt(1 + w0^2 + w2^2)``, the interpolation weights); on an even
-    grid this is ``diff(y, 2) / sqrt(6)``. A change of slope disturbs one
-    residual only. Then ``1.4826 * MAD``, with the same fallbacks as
-    :func:`_first_difference_sigma`.
+    ``d = y[i + lag] - y[i]``; ``c`` is the median of ``d`` when ``centred``
+    (blind to a straight line), else 0 (a trend then counts as drift). The
+    largest tenth, where the level shifts' differences are, is left out; the
+    factor TRIM_CONSISTENCY makes the rest a consistent Gaussian estimate.
+    Reorders ``work[:2 m]``.
     """
-    k = m - 2
-    r = work[m:]
+    k = m - lag
+    d = work[m:]
     for i in range(k):
-        gap = p[i + 2] - p[i]
-        w0 = (p[i + 2] - p[i + 1]) / gap
-        w2 = (p[i + 1] - p[i]) / gap
-        r[i] = (y[i + 1] - w0 * y[i] - w2 * y[i + 2]) / math.sqrt(1.0 + w0 * w0 + w2 * w2)
-    tiny = _rounding(y, m)
-    sigma = _mad_sigma(r, k, work)
-    if sigma <= tiny:
-        sigma = _rms_sigma(r, k)
-    if sigma <= tiny:
-        sigma = _std(y, m)[1]
-    return sigma if sigma > tiny else 0.0
+        d[i] = y[i + lag] - y[i]
+    centre = _median(d, k) if centred else 0.0
+    for i in range(k):
+        work[i] = (d[i] - centre) ** 2
+    keep = max(1, int(math.ceil(TRIM_KEEP * k)))
+    bound = _select(work, keep - 1, k)
+    total = 0.0
+    for i in range(keep - 1):
+        total += work[i]
+    total += bound
+    return 0.5 * TRIM_CONSISTENCY * total / keep
+
+
+@njit(cache=True, error_model="numpy")
+def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work: np.ndarray) -> float:
+    """How much serial dependence inflates the noise: ``max(1, s2_LR / variance)``, at most 1e6.
+
+    AR(1) read off a robust semivariogram (see :func:`segments`, Notes):
+    ``gamma(k) = gamma0 (1 - rho^k)``, so ``rho = gamma(2) / gamma(1) - 1``,
+    clipped to [0, LONG_RUN_RHO]; the long-run variance is
+    ``gamma0 (1 + rho) / (1 - rho) = gamma(1) (1 + rho) / (1 - rho)^2``.
+    Level shifts barely move the medians of the differences; drift, trends
+    and autocorrelation raise ``gamma(2)`` above ``gamma(1)``.
+    """
+    if m < 4 or not variance > 0.0:
+        return 1.0
+    g1 = _difference_scale(y, m, 1, centred, work)
+    g2 = _difference_scale(y, m, 2, centred, work)
+    if not g1 > 0.0:
+        return 1.0
+    rho = min(max(g2 / g1 - 1.0, 0.0), LONG_RUN_RHO)
+    long_run = g1 * (1.0 + rho) / ((1.0 - rho) * (1.0 - rho))
+    return min(max(long_run / variance, 1.0), 1e6)
 
 
 # --------------------------------------------------------------------------- 'mean'
@@ -305,11 +314,10 @@ def _standardised_sums(y, m, centre, scale, stats) -> None:
 
 @njit(cache=True, error_model="numpy")
 def _prepare_mean(y, p, m, stats, work) -> bool:
-    sigma = _first_difference_sigma(y, m, work)
-    if not sigma > 0.0:
+    centre, sd = _std(y, m)
+    if not sd > _rounding(y, m):
         return False
-    centre = _std(y, m)[0]
-    _standardised_sums(y, m, centre, sigma, stats)
+    _standardised_sums(y, m, centre, sd, stats)
     return True
 
 
@@ -359,10 +367,9 @@ def _cost_meanvar(stats, rows, starts, base, m, t, out) -> None:
 
 @njit(cache=True, error_model="numpy")
 def _prepare_trend(y, p, m, stats, work) -> bool:
-    sigma = _second_difference_sigma(y, p, m, work)
-    if not sigma > 0.0:
+    centre, _, sigma = _line_residual_sd(y, p, m)
+    if not sigma > _rounding(y, m):
         return False
-    centre = _std(y, m)[0]
     st = 0.0
     stt = 0.0
     sx = 0.0
@@ -429,11 +436,38 @@ def _prepare(code, y, p, m, stats, work) -> bool:
     return _prepare_trend(y, p, m, stats, work)
 
 
+@njit(cache=True, error_model="numpy")
+def _noise_factor(code, y, p, m, work) -> float:
+    """The long-run factor (>= 1) that multiplies a named penalty for model ``code``.
+
+    Against the variance the cost is scaled by: the series' own for 'mean' and
+    'meanvar' (trends count as drift), the residuals' about the series' line for
+    'trend' (its semivariogram centred, blind to the line).
+    """
+    if code == TREND:
+        variance = _line_residual_sd(y, p, m)[2] ** 2
+        return _long_run_factor(y, m, variance, True, work)
+    variance = _std(y, m)[1] ** 2
+    return _long_run_factor(y, m, variance, False, work)
+
+
 #: smallest ``min_size`` each model accepts
 MIN_SIZE: dict[str, int] = {name: model.min_size for name, model in MODELS.items()}
 
 #: named penalties; a finite number >= 0 is also accepted
 PENALTIES = ("bic", "mbic")
+
+#: named choices for ``seasonal``; a period in samples (>= 2) is also accepted
+SEASONAL = ("auto", "none")
+
+#: 'auto' removes a cycle whose Fisher's g p-value is below this
+SEASONAL_LEVEL = 0.01
+
+#: most harmonics of a period a removed cycle has (all of them, up to Nyquist, for periods up to 13)
+MAX_HARMONICS = 6
+
+#: elements per piece when fitting cycles (bounds the design matrices' memory)
+CYCLE_ELEMENTS = 1 << 16
 
 _BIC, _MBIC, _FIXED = 0, 1, 2
 
@@ -677,6 +711,181 @@ def _pelt(
             n_pruned = 0
 
 
+# --------------------------------------------------------------------------- at most k changes
+
+
+@njit(cache=True, error_model="numpy")
+def _neighbourhood(code, stats, m, length_term, use_length_term, min_size, k_max, D, back) -> None:
+    """Segment neighbourhood (Auger & Lawrence 1989): the least cost with exactly j changes.
+
+    ``D[j, t]`` is the least total segment cost of the first ``t`` values cut
+    into ``j + 1`` segments of at least ``min_size`` (inf where impossible),
+    ``back[j, t]`` where the last of them starts (the earliest among equal
+    totals). No penalty and no pruning: ``O(k_max m^2)`` segment costs.
+    """
+    D[:, :] = np.inf
+    back[:, :] = 0
+    place = np.arange(m + 1).astype(np.float64)
+    vals = np.empty(m + 1)
+    zero = np.zeros(m + 1)
+    for j in range(k_max + 1):
+        for t in range((j + 1) * min_size, m + 1):
+            lo = j * min_size if j > 0 else 0
+            hi = t - min_size if j > 0 else 0
+            count = hi - lo + 1
+            base = D[j - 1, lo:] if j > 0 else zero
+            rows = (stats[0, lo:], stats[1, lo:], stats[2, lo:], stats[3, lo:], stats[4, lo:])
+            if code == MEAN:
+                _cost_mean(stats, rows, place[lo:], base, count, t, vals)
+            elif code == MEANVAR:
+                _cost_meanvar(stats, rows, place[lo:], base, count, t, vals)
+            else:
+                _cost_trend(stats, rows, place[lo:], base, count, t, vals)
+            best = np.inf
+            arg = lo
+            for i in range(count):
+                v = vals[i] + (length_term[t - lo - i] if use_length_term else 0.0)
+                if v < best:
+                    best = v
+                    arg = lo + i
+            D[j, t] = best
+            back[j, t] = arg
+
+
+@njit(cache=True, error_model="numpy")
+def _walk_back(back, j, m, last) -> None:
+    """Chain ``last[t]`` (start of the segment ending at ``t``) along the ``j``-change optimum."""
+    t = m
+    while j >= 0:
+        s = back[j, t]
+        last[t] = s
+        t = s
+        j -= 1
+
+
+@njit(cache=True, error_model="numpy")
+def _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_changes, last) -> None:
+    """The least ``cost + beta * changes`` over segmentations with at most ``max_changes`` changes.
+
+    Fills ``last`` along that optimum (see :func:`_walk_back`); among equal totals the
+    fewest changes win.
+    """
+    k_max = min(max_changes, m // min_size - 1)
+    D = np.empty((k_max + 1, m + 1))
+    back = np.empty((k_max + 1, m + 1), dtype=np.int64)
+    _neighbourhood(code, stats, m, length_term, use_length_term, min_size, k_max, D, back)
+    best = np.inf
+    chosen = 0
+    for j in range(k_max + 1):
+        v = D[j, m] + beta * j
+        if v < best:
+            best = v
+            chosen = j
+    _walk_back(back, chosen, m, last)
+
+
+@njit(cache=True, error_model="numpy")
+def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok):
+    """The optimal segmentations of row ``r`` as the penalty runs over [0, inf), at most ``k_max`` changes.
+
+    Row ``r`` writes records from ``r * (k_max + 1)`` and positions from
+    ``r * k_max * (k_max + 1) / 2`` on (``places`` holds a record's 1-based change
+    positions, each record ``changes`` of them, in record order).
+    """
+    counts[r] = 0
+    row_ok[r] = False
+    if not valid[r]:
+        return
+    lo = offsets[r]
+    n = offsets[r + 1] - lo
+    y = np.empty(n)
+    p = np.empty(n, dtype=np.int64)
+    m = 0
+    finite = True
+    for i in range(n):
+        v = values[lo + i]
+        if not np.isnan(v):
+            finite = finite and np.isfinite(v)
+            y[m] = v
+            p[m] = i
+            m += 1
+    if m == 0 or not finite:
+        return
+    row_ok[r] = True
+    slot = r * (k_max + 1)
+    spot = r * (k_max * (k_max + 1) // 2)
+    changes[slot] = 0
+    cost[slot] = np.nan
+    p_from[slot] = 0.0
+    p_to[slot] = np.inf
+    counts[r] = 1
+    lowest = y[0]
+    highest = y[0]
+    for i in range(m):
+        lowest = min(lowest, y[i])
+        highest = max(highest, y[i])
+    if m < 2 * min_size or not lowest < highest:
+        return
+    work = np.empty(2 * m + 2)
+    stats = np.empty((MAX_STATS, m + 1))
+    if not _prepare(code, y, p, m, stats, work):
+        return
+    k_eff = min(k_max, m // min_size - 1)
+    D = np.empty((k_eff + 1, m + 1))
+    back = np.empty((k_eff + 1, m + 1), dtype=np.int64)
+    _neighbourhood(code, stats, m, np.zeros(m + 1), False, min_size, k_eff, D, back)
+    # the lower convex hull of (j, C_j) up to the least C_j (fewest changes among equal ones)
+    top = 0
+    for j in range(1, k_eff + 1):
+        if D[j, m] < D[top, m]:
+            top = j
+    hull = np.empty(k_eff + 1, dtype=np.int64)
+    h = 0
+    for j in range(top + 1):
+        c = D[j, m]
+        if not c < np.inf:
+            continue
+        while h >= 2:
+            a = hull[h - 2]
+            b = hull[h - 1]
+            # drop b unless it lies strictly below the chord from a to j
+            if (D[b, m] - D[a, m]) * (j - a) >= (c - D[a, m]) * (b - a):
+                h -= 1
+            else:
+                break
+        hull[h] = j
+        h += 1
+    last = np.empty(m + 1, dtype=np.int64)
+    for i in range(h):
+        j = hull[i]
+        w = slot + i
+        changes[w] = j
+        cost[w] = D[j, m]
+        p_to[w] = np.inf if i == 0 else (D[hull[i - 1], m] - D[j, m]) / (j - hull[i - 1])
+        p_from[w] = 0.0 if i == h - 1 else (D[j, m] - D[hull[i + 1], m]) / (hull[i + 1] - j)
+        _walk_back(back, j, m, last)
+        t = m
+        for k in range(j, 0, -1):
+            t = last[t]
+            places[spot + k - 1] = p[t] + 1
+        spot += j
+    counts[r] = h
+
+
+@njit(cache=True, error_model="numpy", parallel=True)
+def _path_rows(values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok):
+    """:func:`_path_row` for every row, the rows in parallel."""
+    for r in prange(len(offsets) - 1):
+        _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok)
+
+
+@njit(cache=True, error_model="numpy")
+def _path_rows_in_order(values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok):
+    """:func:`_path_rows` on this thread alone, for where numba's parallel layer cannot run."""
+    for r in range(len(offsets) - 1):
+        _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok)
+
+
 @njit(cache=True, error_model="numpy")
 def _segment_stats(y, p, lo, hi) -> tuple[float, float]:
     """Mean and least-squares slope (per sample) of ``y[lo:hi]`` at positions ``p``."""
@@ -709,6 +918,7 @@ def _segment_row(
     penalty_kind,
     penalty_value,
     min_size,
+    max_changes,
     out_first,
     out_last,
     out_mean,
@@ -756,38 +966,42 @@ def _segment_row(
         stats = np.empty((MAX_STATS, m + 1))
         if _prepare(code, y, p, m, stats, work):
             log_m = math.log(m)
+            # a named penalty grows with the serial dependence of the noise (see segments, Notes)
+            factor = 1.0 if penalty_kind == _FIXED else _noise_factor(code, y, p, m, work)
             if penalty_kind == _BIC:
-                beta = params_per_change * log_m
+                beta = params_per_change * log_m * factor
             elif penalty_kind == _MBIC:
-                beta = 3.0 * log_m
+                beta = 3.0 * log_m * factor
             else:
                 beta = penalty_value
             use_length_term = penalty_kind == _MBIC
             length_term = np.empty(m + 1)
-            if use_length_term:
-                length_term[0] = 0.0
-                for k in range(1, m + 1):
-                    length_term[k] = math.log(k) - log_m
+            length_term[0] = 0.0
+            for k in range(1, m + 1):
+                length_term[k] = (math.log(k) - log_m) * factor if use_length_term else 0.0
             F = np.empty(m + 1)
             last = np.empty(m + 1, dtype=np.int64)
-            _pelt(
-                code,
-                n_stats,
-                stats,
-                m,
-                beta,
-                length_term,
-                use_length_term,
-                min_size,
-                F,
-                last,
-                np.empty(m + 1),
-                np.empty((MAX_STATS, m + 1)),
-                np.empty(m + 1),
-                np.empty(m + 1),
-                np.empty(m + 1),
-                np.empty((4, m + 1)),
-            )
+            if max_changes >= 0:
+                _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_changes, last)
+            else:
+                _pelt(
+                    code,
+                    n_stats,
+                    stats,
+                    m,
+                    beta,
+                    length_term,
+                    use_length_term,
+                    min_size,
+                    F,
+                    last,
+                    np.empty(m + 1),
+                    np.empty((MAX_STATS, m + 1)),
+                    np.empty(m + 1),
+                    np.empty(m + 1),
+                    np.empty(m + 1),
+                    np.empty((4, m + 1)),
+                )
             # walk back from the end: the starts of the optimum's segments, last first
             n_seg = 0
             t = m
@@ -824,6 +1038,7 @@ def _segment_rows(
     penalty_kind,
     penalty_value,
     min_size,
+    max_changes,
     out_first,
     out_last,
     out_mean,
@@ -844,6 +1059,7 @@ def _segment_rows(
             penalty_kind,
             penalty_value,
             min_size,
+            max_changes,
             out_first,
             out_last,
             out_mean,
@@ -864,6 +1080,7 @@ def _segment_rows_in_order(
     penalty_kind,
     penalty_value,
     min_size,
+    max_changes,
     out_first,
     out_last,
     out_mean,
@@ -884,6 +1101,7 @@ def _segment_rows_in_order(
             penalty_kind,
             penalty_value,
             min_size,
+            max_changes,
             out_first,
             out_last,
             out_mean,
@@ -923,29 +1141,42 @@ if hasattr(os, "register_at_fork"):
 # --------------------------------------------------------------------------- public
 
 
+def _penalty(penalty: str | float) -> tuple[int, float]:
+    if isinstance(penalty, str):
+        if penalty not in PENALTIES:
+            raise ValueError(f"penalty must be one of {PENALTIES} or a number >= 0, not {penalty!r}")
+        return (_BIC if penalty == "bic" else _MBIC), 0.0
+    value = float(penalty)
+    if not (math.isfinite(value) and value >= 0):
+        raise ValueError(f"a numeric penalty must be finite and >= 0, not {penalty!r}")
+    return _FIXED, value
+
+
+def _check(model: str, min_size: int, seasonal: str | float, max_changes: int | None) -> CostModel:
+    if model not in MODELS:
+        raise ValueError(f"model must be one of {sorted(MODELS)}, not {model!r}")
+    spec = MODELS[model]
+    if int(min_size) != min_size or min_size < spec.min_size:
+        raise ValueError(f"min_size must be an integer >= {spec.min_size} for model {model!r}, not {min_size!r}")
+    if isinstance(seasonal, str):
+        if seasonal not in SEASONAL:
+            raise ValueError(f"seasonal must be one of {SEASONAL} or a period >= 2 (in samples), not {seasonal!r}")
+    elif not (math.isfinite(float(seasonal)) and float(seasonal) >= 2.0):
+        raise ValueError(f"a numeric seasonal period must be finite and >= 2 (samples), not {seasonal!r}")
+    if max_changes is not None and (int(max_changes) != max_changes or max_changes < 0):
+        raise ValueError(f"max_changes must be an integer >= 0 or None (no limit), not {max_changes!r}")
+    return spec
+
+
 def _run(
-    batch: Ragged, model: str, penalty: str | float, min_size: int
+    batch: Ragged, spec: CostModel, kind: int, value: float, min_size: int, max_changes: int | None
 ) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray]:
-    """Validate the arguments and segment the batch.
+    """Segment the batch as it is (no cycle removed).
 
     Returns the segment columns as the kernel left them (row r's ``counts[r]``
     segments from ``slots[r]`` on, with unused space between rows), ``counts``,
     ``slots`` and the rows' validity.
     """
-    if model not in MODELS:
-        raise ValueError(f"model must be one of {sorted(MODELS)}, not {model!r}")
-    spec = MODELS[model]
-    if isinstance(penalty, str):
-        if penalty not in PENALTIES:
-            raise ValueError(f"penalty must be one of {PENALTIES} or a number >= 0, not {penalty!r}")
-        kind, value = (_BIC if penalty == "bic" else _MBIC), 0.0
-    else:
-        value = float(penalty)
-        if not (math.isfinite(value) and value >= 0):
-            raise ValueError(f"a numeric penalty must be finite and >= 0, not {penalty!r}")
-        kind = _FIXED
-    if int(min_size) != min_size or min_size < spec.min_size:
-        raise ValueError(f"min_size must be an integer >= {spec.min_size} for model {model!r}, not {min_size!r}")
     values = np.ascontiguousarray(batch.values, dtype=np.float64)
     offsets = np.ascontiguousarray(batch.offsets, dtype=np.int64)
     valid = np.ascontiguousarray(batch.row_valid, dtype=np.bool_)
@@ -972,6 +1203,7 @@ def _run(
             kind,
             value,
             int(min_size),
+            -1 if max_changes is None else int(max_changes),
             fields["first"],
             fields["last"],
             fields["mean"],
@@ -993,109 +1225,189 @@ def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return packed, source
 
 
-def segments(batch: Ragged, model: str = "mean", penalty: str | float = "bic", min_size: int = 2) -> RaggedRecords:
-    """The segments of each series' optimal segmentation.
+# --------------------------------------------------------------------------- cycles
 
-    The segmentation minimises ``sum_i C(segment_i) + beta * (number of
-    changes)`` exactly, by PELT (Killick, Fearnhead & Eckley 2012) with
-    ``K = 0``, for 'mean' with functional pruning (FPOP, Maidstone et al.
-    2017), so that few changes in a long series cost about ``n``. With ``y``
-    the ``m`` present values of a row, ``L`` a segment's number of present
-    values and "0" meaning at most 1000 ulps of ``max |y|`` (rounding, not
-    noise), the costs are:
 
-    * ``'mean'``: Gaussian shifts of the mean, common variance:
-      ``RSS / sigma^2`` about the segment mean, with
-      ``sigma = 1.4826 * MAD(diff(y)) / sqrt(2)``, which the shifts
-      themselves barely move (Hampel 1974; differences as in Rice 1984). If
-      that is 0 (e.g. piecewise-constant data): ``std(diff(y)) / sqrt(2)``;
-      if that is 0 too (a straight ramp): ``std(y)``.
-    * ``'meanvar'``: mean and variance both change:
-      ``L * log(var / V + 1e-4)``, with ``var`` the segment's
-      maximum-likelihood variance and ``V`` the whole row's: a floor of 1e-4 of
-      ``V``, added rather than a ``max`` so the cost stays sub-additive
-      (K = 0). Two-point segments have very noisy variances; ``min_size`` of
-      5 or more is advisable.
-    * ``'trend'``: piecewise linear, own intercept and slope per segment:
-      ``RSS`` of the segment's least-squares line against the positions,
-      ``/ sigma^2``, with ``sigma`` = 1.4826 * MAD of the second differences,
-      each normalised to unit noise variance (``diff(y, 2) / sqrt(6)`` on an
-      even grid; with gaps, each value's residual from the line through its
-      present neighbours): unlike first differences they do not see the
-      slope, and a change of slope disturbs only one of them. Fallbacks as for
-      'mean', with their standard deviation, then ``std(y)``.
+def _fitted(batch: Ragged, fields: dict[str, np.ndarray], counts: np.ndarray, slots: np.ndarray, trend: bool):
+    """Each element's segment level (and line, for 'trend') from a first segmentation; NaN outside valid rows."""
+    offsets, source = _gather(counts, slots)
+    row_of_segment = np.repeat(np.arange(batch.n_rows), counts)
+    first = fields["first"][source] - 1 + batch.offsets[row_of_segment]
+    last = fields["last"][source] + batch.offsets[row_of_segment]
+    fit = np.full(len(batch.values), np.nan)
+    lengths = last - first
+    element = np.repeat(np.arange(len(source)), lengths)
+    where = np.repeat(first, lengths) + (np.arange(lengths.sum()) - np.repeat(np.cumsum(lengths) - lengths, lengths))
+    fit[where] = fields["mean"][source][element]
+    if trend:
+        present = ~np.isnan(batch.values[where])
+        position = where.astype(np.float64)
+        count = np.bincount(element, weights=present, minlength=len(source))
+        centre = np.bincount(element, weights=np.where(present, position, 0.0), minlength=len(source))
+        centre = centre / np.maximum(count, 1.0)
+        slope = np.nan_to_num(fields["slope"][source])
+        fit[where] += slope[element] * (position - centre[element])
+    return fit
 
-    Penalty ``beta``, in the cost's units (twice a negative log-likelihood):
 
-    * ``'bic'`` (Schwarz 1978): (parameters a change adds) x ``log m``:
-      ``2 log m`` for 'mean' (position, mean), ``3 log m`` for 'meanvar'
-      (position, mean, variance) and 'trend' (position, intercept, slope).
-    * ``'mbic'`` (Zhang & Siegmund 2007): ``3 log m`` per change, plus
-      ``sum_i log(L_i / m)`` over the segments. That second part is not a
-      price per change but a sum over segments, so it is folded into each
-      segment's cost, ``C'(s, t) = C(s, t) + log((t - s) / m)``, which is
-      still sub-additive (``L1 L2 <= m (L1 + L2)``), so K = 0 holds. The same
-      form is used for every model; as the length term is <= 0, it is
-      stricter than 'bic' for 'mean' but more lenient for 'meanvar' and
-      'trend', whose 'bic' is already ``3 log m``.
-    * a number: ``beta`` itself, added per change.
+def _harmonics(period: float) -> int:
+    return int(min(max(math.floor(period / 2.0), 1), MAX_HARMONICS))
 
-    Ties (equal totals) go to the segmentation whose last segment starts
-    earliest, and so on backwards.
 
-    Parameters
-    ----------
-    batch : Ragged
-        The series; NaN elements are missing.
-    model : {'mean', 'meanvar', 'trend'}
-    penalty : {'bic', 'mbic'} or float >= 0
-    min_size : int
-        Least number of present values in a segment: >= 1 for 'mean', >= 2 for
-        'meanvar' (a variance needs two values) and 'trend' (a line needs two).
+def _cycle(values: np.ndarray, periods: np.ndarray) -> np.ndarray:
+    """Least-squares sum of ``H`` harmonics of ``period`` for each row of a length bucket (NaN = missing).
 
-    Returns
-    -------
-    RaggedRecords
-        Per row, one record per segment, in order: ``first`` and ``last``
-        (int64, 1-based, inclusive; the first segment starts at 1 and the last
-        ends at the list's length, so missing elements at either end belong
-        to them), ``mean`` of the segment's present values, and ``slope``, the
-        least-squares slope per sample against their positions (NaN with fewer
-        than two present values). NULL, empty and all-missing rows, and rows
-        with an infinite value, are invalid. A row with fewer than
-        ``2 * min_size`` present values, or whose values are all equal (up to
-        rounding), is one segment.
-
-    Examples
-    --------
-    >>> s = segments(Ragged.from_list([[0.0, 0.1, -0.1, 0.0, 5.0, 5.1, 4.9, 5.0]]))
-    >>> s.row(0)["first"], s.row(0)["last"]
-    (array([1, 5]), array([4, 8]))
+    ``values`` is (rows, n); returns the fitted cycle at every position (missing ones included),
+    without a constant (the cycle's mean over the row is not forced to 0: the level is the
+    segments' to say, the cycle is fitted to what the segments leave).
     """
-    fields, counts, slots, row_ok = _run(batch, model, penalty, min_size)
+    rows, n = values.shape
+    t = np.arange(n, dtype=np.float64)
+    j = np.arange(1, MAX_HARMONICS + 1, dtype=np.float64)
+    used = j[None, :] <= np.array([_harmonics(p) for p in periods])[:, None]
+    angle = 2.0 * np.pi * (periods[:, None, None] ** -1) * j[None, None, :] * t[None, :, None]  # (rows, n, H)
+    design = np.concatenate([np.cos(angle), np.sin(angle)], axis=2)  # (rows, n, 2H)
+    keep = np.concatenate([used, used], axis=1)
+    # a sine at Nyquist vanishes on the grid: drop columns that are (numerically) all zero
+    norms = np.sqrt(np.matmul(design.transpose(0, 2, 1)[:, :, None, :], design.transpose(0, 2, 1)[:, :, :, None]))
+    keep &= norms[:, :, 0, 0] > 1e-6 * math.sqrt(n)
+    design = np.where(keep[:, None, :], design, 0.0)
+    present = ~np.isnan(values)
+    weighted = np.where(present[:, :, None], design, 0.0)
+    gram = np.matmul(weighted.transpose(0, 2, 1), design)
+    gram += np.eye(design.shape[2])[None] * (~keep)[:, :, None]
+    rhs = np.matmul(weighted.transpose(0, 2, 1), np.where(present, values, 0.0)[:, :, None])
+    coef = np.linalg.solve(gram, rhs)
+    return np.matmul(design, coef)[:, :, 0]
+
+
+def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> np.ndarray:
+    """The batch's values minus, in rows with a finite period, the cycle fitted to ``residual``."""
+    out = np.array(batch.values, dtype=np.float64, copy=True)
+    work = Ragged(residual, batch.offsets, batch.valid)
+    for n, rows, matrix in work.by_length():
+        rows = rows[np.isfinite(periods[rows])]
+        if n == 0 or len(rows) == 0:
+            continue
+        # rows of one length, in pieces of about CYCLE_ELEMENTS elements (a row is never split)
+        step = max(1, CYCLE_ELEMENTS // n)
+        for lo in range(0, len(rows), step):
+            part = rows[lo : lo + step]
+            fitted = _cycle(np.stack([work.row(r) for r in part]), periods[part])
+            for k, r in enumerate(part):
+                a, b = batch.offsets[r], batch.offsets[r + 1]
+                out[a:b] -= fitted[k]
+    return out
+
+
+def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: str | float) -> np.ndarray:
+    """The period to remove from each row (NaN: none)."""
+    n_rows = batch.n_rows
+    if seasonal == "none":
+        return np.full(n_rows, np.nan)
+    lengths = batch.lengths
+    if not isinstance(seasonal, str):
+        period = float(seasonal)
+        return np.where(row_ok & (lengths >= 2.0 * period), period, np.nan)
+    # imported here: periodicity is only needed for 'auto'
+    from tsql.kernels.periodicity import seasonality
+
+    found = seasonality(Ragged(residual, batch.offsets, batch.valid))
+    significant = row_ok & (found["p_value"] < SEASONAL_LEVEL)
+    return np.where(significant, found["period"], np.nan)
+
+
+def _segment(batch, model, penalty, min_size, seasonal, max_changes):
+    """Check the arguments, remove cycles as ``seasonal`` says and segment; the packed pieces of the answer."""
+    spec = _check(model, min_size, seasonal, max_changes)
+    kind, value = _penalty(penalty)
+    fields, counts, slots, row_ok = _run(batch, spec, kind, value, min_size, max_changes)
+    if seasonal != "none" and batch.n_rows:
+        fit = _fitted(batch, fields, counts, slots, spec.code == TREND)
+        residual = batch.values - fit
+        periods = _periods(batch, residual, row_ok, seasonal)
+        cyclic = np.flatnonzero(np.isfinite(periods))
+        if len(cyclic):
+            adjusted = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid).take(cyclic)
+            again, counts2, slots2, _ = _run(adjusted, spec, kind, value, min_size, max_changes)
+            shift = len(fields["first"])
+            fields = {name: np.concatenate([column, again[name]]) for name, column in fields.items()}
+            counts = counts.copy()
+            slots = slots.copy()
+            counts[cyclic] = counts2
+            slots[cyclic] = slots2 + shift
+    return fields, counts, slots, row_ok
+
+
+def segments(
+    batch: Ragged,
+    model: str = "mean",
+    penalty: str | float = "bic",
+    min_size: int = 2,
+    seasonal: str | float = "auto",
+    max_changes: int | None = None,
+) -> RaggedRecords:
+    """The segments of each series' optimal segmentation."""
+    fields, counts, slots, row_ok = _segment(batch, model, penalty, min_size, seasonal, max_changes)
     offsets, source = _gather(counts, slots)
     return RaggedRecords({name: column[source] for name, column in fields.items()}, offsets, row_ok)
 
 
-def change_points(batch: Ragged, model: str = "mean", penalty: str | float = "bic", min_size: int = 2) -> Ragged:
-    """Positions where each series' optimal segmentation starts a new segment.
-
-    The same segmentation as :func:`segments` (see there for the costs, the
-    penalties and the rules for short, constant and missing data).
-
-    Returns
-    -------
-    Ragged
-        Per row, the 1-based positions (float64, integral, increasing) of the
-        first element of every segment but the first; empty when there is no
-        change; ``row_valid`` False for NULL, empty and all-missing rows.
-
-    Examples
-    --------
-    >>> change_points(Ragged.from_list([[0.0, 0.1, -0.1, 0.0, 5.0, 5.1, 4.9, 5.0]])).values
-    array([5.])
-    """
-    fields, counts, slots, row_ok = _run(batch, model, penalty, min_size)
+def change_points(
+    batch: Ragged,
+    model: str = "mean",
+    penalty: str | float = "bic",
+    min_size: int = 2,
+    seasonal: str | float = "auto",
+    max_changes: int | None = None,
+) -> Ragged:
+    """Positions where each series' optimal segmentation starts a new segment."""
+    fields, counts, slots, row_ok = _segment(batch, model, penalty, min_size, seasonal, max_changes)
     # every segment but a row's first starts a change
     offsets, source = _gather(np.maximum(counts - 1, 0), slots + 1)
     return Ragged(fields["first"][source].astype(np.float64), offsets, row_ok)
+
+
+def change_points_path(
+    batch: Ragged, model: str = "mean", max_changes: int = 10, min_size: int = 2, seasonal: str | float = "auto"
+) -> tuple[RaggedRecords, Ragged]:
+    """Every optimal segmentation of each series as the penalty runs from 0 to infinity."""
+    spec = _check(model, min_size, seasonal, max_changes)
+    k_max = int(max_changes)
+    if seasonal != "none" and batch.n_rows:
+        fields, counts, slots, row_ok = _run(batch, spec, _BIC, 0.0, min_size, None)
+        residual = batch.values - _fitted(batch, fields, counts, slots, spec.code == TREND)
+        periods = _periods(batch, residual, row_ok, seasonal)
+        if np.isfinite(periods).any():
+            batch = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid)
+    n_rows = batch.n_rows
+    values = np.ascontiguousarray(batch.values, dtype=np.float64)
+    offsets = np.ascontiguousarray(batch.offsets, dtype=np.int64)
+    valid = np.ascontiguousarray(batch.row_valid, dtype=np.bool_)
+    per_row = k_max + 1
+    per_row_places = k_max * (k_max + 1) // 2
+    changes = np.empty(n_rows * per_row, dtype=np.int64)
+    cost = np.empty(n_rows * per_row)
+    p_from = np.empty(n_rows * per_row)
+    p_to = np.empty(n_rows * per_row)
+    places = np.empty(n_rows * per_row_places, dtype=np.int64)
+    counts = np.empty(n_rows, dtype=np.int64)
+    row_ok = np.empty(n_rows, dtype=np.bool_)
+    kernel = _path_rows_in_order if _FORKED_AFTER_OPENMP else _path_rows
+    with _KERNEL_LOCK:
+        kernel(values, offsets, valid, spec.code, int(min_size), k_max, changes, cost, p_from, p_to, places, counts, row_ok)
+    record_offsets, source = _gather(counts, np.arange(n_rows, dtype=np.int64) * per_row)
+    records = RaggedRecords(
+        {"changes": changes[source], "cost": cost[source], "penalty_from": p_from[source], "penalty_to": p_to[source]},
+        record_offsets,
+        row_ok,
+    )
+    # a record's positions: its row's place block, records one after another
+    n_changes = changes[source]
+    place_offsets = np.zeros(len(source) + 1, dtype=np.int64)
+    np.cumsum(n_changes, out=place_offsets[1:])
+    row_of_record = np.repeat(np.arange(n_rows), counts)
+    first_in_row = np.repeat(place_offsets[record_offsets[:-1]], counts)
+    start = row_of_record * per_row_places + (place_offsets[:-1] - first_in_row)
+    flat = np.repeat(start - place_offsets[:-1], n_changes) + np.arange(place_offsets[-1])
+    return records, Ragged(places[flat].astype(np.float64), place_offsets)
