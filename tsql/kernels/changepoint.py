@@ -119,6 +119,10 @@ TRIM_KEEP = 0.9
 #: Gaussian differences times this is their variance (x f_1(x) is the chi2(3) density).
 TRIM_CONSISTENCY = TRIM_KEEP / chi2.cdf(chi2.ppf(TRIM_KEEP, 1), 3)
 
+#: Fewest present values from which the long-run factor is estimated (below: 1): two
+#: lags of a handful of differences say nothing about dependence.
+LONG_RUN_MIN = 20
+
 #: Largest lag-one autocorrelation the long-run factor believes: a series whose robust
 #: semivariogram grows faster than an AR(1)'s (drift, random walk, smooth trend) is
 #: treated as this persistent, so only shifts far beyond its wandering count.
@@ -283,7 +287,7 @@ def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work
     Level shifts barely move the medians of the differences; drift, trends
     and autocorrelation raise ``gamma(2)`` above ``gamma(1)``.
     """
-    if m < 4 or not variance > 0.0:
+    if m < LONG_RUN_MIN or not variance > 0.0:
         return 1.0
     g1 = _difference_scale(y, m, 1, centred, work)
     g2 = _difference_scale(y, m, 2, centred, work)
@@ -463,11 +467,15 @@ SEASONAL = ("auto", "none")
 #: 'auto' removes a cycle whose Fisher's g p-value is below this
 SEASONAL_LEVEL = 0.01
 
+#: fewest whole cycles in the record for 'auto' to take a cycle as one (residuals of a drift
+#: have their power at the longest periods, where Fisher's white-noise null does not hold)
+SEASONAL_CYCLES = 4
+
 #: most harmonics of a period a removed cycle has (all of them, up to Nyquist, for periods up to 13)
 MAX_HARMONICS = 6
 
 #: elements per piece when fitting cycles (bounds the design matrices' memory)
-CYCLE_ELEMENTS = 1 << 16
+CYCLE_ELEMENTS = 1 << 13
 
 _BIC, _MBIC, _FIXED = 0, 1, 2
 
@@ -1241,7 +1249,7 @@ def _fitted(batch: Ragged, fields: dict[str, np.ndarray], counts: np.ndarray, sl
     fit[where] = fields["mean"][source][element]
     if trend:
         present = ~np.isnan(batch.values[where])
-        position = where.astype(np.float64)
+        position = (where - np.repeat(batch.offsets[row_of_segment], lengths)).astype(np.float64)
         count = np.bincount(element, weights=present, minlength=len(source))
         centre = np.bincount(element, weights=np.where(present, position, 0.0), minlength=len(source))
         centre = centre / np.maximum(count, 1.0)
@@ -1255,30 +1263,30 @@ def _harmonics(period: float) -> int:
 
 
 def _cycle(values: np.ndarray, periods: np.ndarray) -> np.ndarray:
-    """Least-squares sum of ``H`` harmonics of ``period`` for each row of a length bucket (NaN = missing).
+    """Least-squares sum of the harmonics of ``period`` for each row of a length bucket (NaN = missing).
 
-    ``values`` is (rows, n); returns the fitted cycle at every position (missing ones included),
-    without a constant (the cycle's mean over the row is not forced to 0: the level is the
-    segments' to say, the cycle is fitted to what the segments leave).
+    ``values`` is (rows, n); returns the fitted cycle at every position, missing ones included.
+    There is no constant: the cycle is fitted to what a first segmentation leaves, whose levels
+    are the segments' to say. Every sum runs along a row's own last axis, so a row's cycle does
+    not depend on the other rows.
     """
     rows, n = values.shape
     t = np.arange(n, dtype=np.float64)
     j = np.arange(1, MAX_HARMONICS + 1, dtype=np.float64)
-    used = j[None, :] <= np.array([_harmonics(p) for p in periods])[:, None]
-    angle = 2.0 * np.pi * (periods[:, None, None] ** -1) * j[None, None, :] * t[None, :, None]  # (rows, n, H)
-    design = np.concatenate([np.cos(angle), np.sin(angle)], axis=2)  # (rows, n, 2H)
-    keep = np.concatenate([used, used], axis=1)
-    # a sine at Nyquist vanishes on the grid: drop columns that are (numerically) all zero
-    norms = np.sqrt(np.matmul(design.transpose(0, 2, 1)[:, :, None, :], design.transpose(0, 2, 1)[:, :, :, None]))
-    keep &= norms[:, :, 0, 0] > 1e-6 * math.sqrt(n)
-    design = np.where(keep[:, None, :], design, 0.0)
+    count = np.array([_harmonics(p) for p in periods])
+    angle = (2.0 * np.pi / periods)[:, None, None] * j[None, :, None] * t[None, None, :]  # (rows, H, n)
+    design = np.concatenate([np.cos(angle), np.sin(angle)], axis=1)  # (rows, 2H, n)
+    used = np.tile(j[None, :] <= count[:, None], 2)
+    # a sine at Nyquist vanishes on the grid: leave out columns that are (numerically) all zero
+    used &= np.sqrt((design * design).sum(axis=2)) > 1e-6 * math.sqrt(n)
+    design *= used[:, :, None]
     present = ~np.isnan(values)
-    weighted = np.where(present[:, :, None], design, 0.0)
-    gram = np.matmul(weighted.transpose(0, 2, 1), design)
-    gram += np.eye(design.shape[2])[None] * (~keep)[:, :, None]
-    rhs = np.matmul(weighted.transpose(0, 2, 1), np.where(present, values, 0.0)[:, :, None])
-    coef = np.linalg.solve(gram, rhs)
-    return np.matmul(design, coef)[:, :, 0]
+    weighted = design * present[:, None, :]
+    gram = (weighted[:, :, None, :] * design[:, None, :, :]).sum(axis=3)
+    gram += np.eye(design.shape[1])[None] * ~used[:, :, None]
+    rhs = (weighted * np.where(present, values, 0.0)[:, None, :]).sum(axis=2)
+    coef = np.linalg.solve(gram, rhs[:, :, None])[:, :, 0]
+    return (design.transpose(0, 2, 1) * coef[:, None, :]).sum(axis=2)
 
 
 def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> np.ndarray:
@@ -1313,7 +1321,8 @@ def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: 
     from tsql.kernels.periodicity import seasonality
 
     found = seasonality(Ragged(residual, batch.offsets, batch.valid))
-    significant = row_ok & (found["p_value"] < SEASONAL_LEVEL)
+    # a cycle repeats: at least SEASONAL_CYCLES of it in the record, else it is a slow wander
+    significant = row_ok & (found["p_value"] < SEASONAL_LEVEL) & (found["period"] * SEASONAL_CYCLES <= lengths)
     return np.where(significant, found["period"], np.nan)
 
 
