@@ -53,7 +53,7 @@ def semivariogram(y: np.ndarray, lag: int, centred: bool) -> float:
 
 def long_run_factor(model: str, y: np.ndarray, t: np.ndarray) -> float:
     """max(1, AR(1) long-run variance / the cost's variance), rho = gamma(2) / gamma(1) - 1 in [0, 0.99];
-    1 below 20 values."""
+    1 below 20 values, at most len(y) / 20 (never fewer than 20 effective values)."""
     variance = sigma_second(y, t) ** 2 if model == "trend" else float(np.var(y))
     if len(y) < 20 or variance <= 0:
         return 1.0
@@ -62,7 +62,7 @@ def long_run_factor(model: str, y: np.ndarray, t: np.ndarray) -> float:
     if g1 <= 0:
         return 1.0
     rho = min(max(g2 / g1 - 1, 0.0), 0.99)
-    return min(max(g1 * (1 + rho) / (1 - rho) ** 2 / variance, 1.0), 1e6)
+    return min(max(g1 * (1 + rho) / (1 - rho) ** 2 / variance, 1.0), max(1.0, len(y) / 20))
 
 
 def segment_cost(model: str, y: np.ndarray, t: np.ndarray, scale: float) -> float:

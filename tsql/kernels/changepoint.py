@@ -123,6 +123,8 @@ TRIM_CONSISTENCY = TRIM_KEEP / chi2.cdf(chi2.ppf(TRIM_KEEP, 1), 3)
 #: lags of a handful of differences say nothing about dependence.
 LONG_RUN_MIN = 20
 
+EFFECTIVE_MIN = 5.0
+
 #: Largest lag-one autocorrelation the long-run factor believes: a series whose robust
 #: semivariogram grows faster than an AR(1)'s (drift, random walk, smooth trend) is
 #: treated as this persistent, so only shifts far beyond its wandering count.
@@ -278,7 +280,7 @@ def _difference_scale(y: np.ndarray, m: int, lag: int, centred: bool, work: np.n
 
 @njit(cache=True, error_model="numpy")
 def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work: np.ndarray) -> float:
-    """How much serial dependence inflates the noise: ``max(1, s2_LR / variance)``, at most 1e6.
+    """How much serial dependence inflates the noise: ``max(1, s2_LR / variance)``, at most ``m / 20``.
 
     AR(1) read off a robust semivariogram (see :func:`segments`, Notes):
     ``gamma(k) = gamma0 (1 - rho^k)``, so ``rho = gamma(2) / gamma(1) - 1``,
@@ -295,7 +297,7 @@ def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work
         return 1.0
     rho = min(max(g2 / g1 - 1.0, 0.0), LONG_RUN_RHO)
     long_run = g1 * (1.0 + rho) / ((1.0 - rho) * (1.0 - rho))
-    return min(max(long_run / variance, 1.0), 1e6)
+    return min(max(long_run / variance, 1.0), max(1.0, m / LONG_RUN_MIN))
 
 
 # --------------------------------------------------------------------------- 'mean'
