@@ -119,11 +119,10 @@ TRIM_KEEP = 0.9
 #: Gaussian differences times this is their variance (x f_1(x) is the chi2(3) density).
 TRIM_CONSISTENCY = TRIM_KEEP / chi2.cdf(chi2.ppf(TRIM_KEEP, 1), 3)
 
-#: Fewest present values from which the long-run factor is estimated (below: 1): two
-#: lags of a handful of differences say nothing about dependence.
+#: Fewest present values from which the long-run factor is estimated (below it: 1), and
+#: the fewest effective observations it may leave (``m / factor``): a series is never
+#: taken for less evidence than this many independent values.
 LONG_RUN_MIN = 20
-
-EFFECTIVE_MIN = 5.0
 
 #: Largest lag-one autocorrelation the long-run factor believes: a series whose robust
 #: semivariogram grows faster than an AR(1)'s (drift, random walk, smooth trend) is
