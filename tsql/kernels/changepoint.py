@@ -1,85 +1,29 @@
-"""Change points by penalised optimal segmentation (PELT, FPOP).
+"""Change points: where a series' level, spread or trend changes, by exact penalised segmentation.
 
-Each series is cut where ``sum of segment costs + penalty x number of
-changes`` is least; the exact minimiser is found by PELT (Killick, Fearnhead
-& Eckley 2012). PELT drops a candidate start only once it is worse than the
-optimum so far, which inside a long homogeneous segment rarely happens, so a
-series with one change costs about ``n x segment length``. For 'mean' the
-search prunes functionally instead (FPOP, Maidstone, Hocking, Rigaill &
-Fearnhead 2017): each start keeps an interval of the segment means at which it
-could still be best, narrowed by the starts before and after it, and goes when that is
-empty; a few dozen starts survive (a few hundred with 'mbic', whose length
-term loosens the bounds), so a series with few changes costs little more than
-``n`` (see :func:`_narrow_mean`). The answers are PELT's: both drop only
-starts that cannot be best again (ties kept). 'meanvar' and 'trend', with two
-parameters per segment, keep PELT's rule, and its cost on long segments.
+A series is cut where ``sum of segment costs + penalty x number of changes``
+is least. The search (PELT, with functional pruning for 'mean') is exact and
+kept apart from the cost models; :func:`segments` and :func:`change_points`
+give the optimum at one penalty (optionally with at most ``max_changes``
+changes), :func:`change_points_path` every optimum as the penalty varies.
+Cycles are removed first (``seasonal``). How the costs, noise scale and
+penalties are defined and chosen is in :func:`segments`, Notes.
 
-What a segment costs (the model) is kept apart from the search. A model is
-three small pieces:
+Adding a model: ``_prepare_x`` (cumulative sums ``stats[k, i]`` over the first
+``i`` present values of the scaled series; False if it has no scale),
+``_cost_x`` (``base[j] + C(s_j, t)`` for all candidate starts at once) and a
+:class:`CostModel` entry, plus one branch in :func:`_prepare`, in the step of
+:func:`_pelt` and in :func:`_neighbourhood`. Every cost satisfies
+``C(a, b) + C(b, c) <= C(a, c)`` (PELT prunes with ``K = 0``) and is in units
+of twice a negative Gaussian log-likelihood. The models and the search share
+one module because numba's cache checks only the source file of the function
+it loads.
 
-* ``_prepare_x``: from a series' present values ``y`` and their positions
-  ``p``, fill a table of cumulative sums ``stats[k, i]`` (over the first ``i``
-  present values) and say whether the series has a scale at all;
-* ``_cost_x``: ``base[j] + C(s_j, t)``, the cost of the segment of present
-  values ``s_j .. t - 1`` added to a base (the search's ``F(s_j)``), for all
-  candidate starts ``s_j`` at once, from ``stats[:, t]`` and the candidates'
-  copies of ``stats[:, s_j]`` (``rows[k][j]``, contiguous per statistic, so
-  the loop vectorises);
-* a :class:`CostModel` entry: name, how many parameters a change adds (the BIC
-  penalty), smallest sensible segment.
-
-Adding a model: write those, and add one branch to :func:`_prepare` and one to
-the step of :func:`_pelt` (the branch sits in the search loop because a call
-through a dispatching function costs more than a short candidate list).
-
-Every cost here satisfies ``C(a, b) + C(b, c) <= C(a, c)``, so PELT prunes
-with ``K = 0``. Costs are in units of twice a negative Gaussian
-log-likelihood, so penalties of ``k log n`` are BIC's.
-
-The models and the search are in one module on purpose: numba's on-disk cache
-checks only the source file of the function it loads, so a compiled search
-would keep running the old code of a cost edited in another file.
-
-Rows are independent: each is read, segmented and written by itself, with
-work buffers of its own and an output slot fixed by its position in the batch
-(a row of ``n`` values has at most ``n`` segments), so the rows run in parallel
-(``numba.prange``) and an answer depends neither on the other rows of the batch
-nor on the number of threads or the order in which they take the rows. Calls
-from several Python threads take turns (a lock: numba releases the GIL inside a
-parallel region, and its 'workqueue' threading layer must not be entered twice
-at once). In a process forked after numba's OpenMP layer was loaded, where
-OpenMP cannot run, the same rows run on the calling thread.
-
-Rules for a row (``m`` = number of present, non-NaN values):
-
-* NULL row, empty list, ``m == 0``, or any infinite value: no answer
-  (``row_valid`` False).
-* ``m < 2 * min_size``, or all present values equal, or no noise scale (see
-  :func:`segments`): no change point, a single segment.
-* otherwise: PELT on the present values. Missing elements are skipped by the
-  costs; a change point is the original position of the first present value
-  of a new segment, and a segment runs up to the element before the next
-  segment's first, so segments cover the list with no gap.
-
-References
-----------
-Killick, R., Fearnhead, P. & Eckley, I. A. (2012). Optimal detection of
-changepoints with a linear computational cost. *JASA* 107(500), 1590–1598.
-Maidstone, R., Hocking, T., Rigaill, G. & Fearnhead, P. (2017). On optimal
-multiple changepoint algorithms for large data. *Statistics and Computing*
-27(2), 519–533.
-Jackson, B. et al. (2005). An algorithm for optimal partitioning of data on an
-interval. *IEEE Signal Processing Letters* 12(2), 105–108.
-Schwarz, G. (1978). Estimating the dimension of a model. *Ann. Statist.* 6(2),
-461–464.
-Zhang, N. R. & Siegmund, D. O. (2007). A modified Bayes information criterion
-with applications to the analysis of comparative genomic hybridization data.
-*Biometrics* 63(1), 22–32.
-Hampel, F. R. (1974). The influence curve and its role in robust estimation.
-*JASA* 69(346), 383–393 (the MAD and its consistency factor 1.4826).
-Rice, J. (1984). Bandwidth choice for nonparametric regression. *Ann. Statist.*
-12(4), 1215–1230 (noise scale from differences of neighbouring values).
-Hoare, C. A. R. (1961). Algorithm 65: Find. *Comm. ACM* 4(7), 321–322.
+Rows are independent: each row is read, segmented and written by itself, into
+output slots fixed by its position, so rows run in parallel (``numba.prange``)
+and an answer depends neither on the other rows nor on the threads. Calls from
+several Python threads take turns (a lock: numba's 'workqueue' layer must not
+be entered twice at once); in a process forked after OpenMP was loaded the rows
+run on the calling thread.
 """
 
 from __future__ import annotations
@@ -1321,32 +1265,80 @@ def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: 
     # imported here: periodicity is only needed for 'auto'
     from tsql.kernels.periodicity import seasonality
 
-    found = seasonality(Ragged(residual, batch.offsets, batch.valid))
+    out = np.full(n_rows, np.nan)
+    rows = np.flatnonzero(row_ok & (_fisher_screen(Ragged(residual, batch.offsets, batch.valid)) < 2 * SEASONAL_LEVEL))
+    if len(rows) == 0:
+        return out
+    found = seasonality(Ragged(residual, batch.offsets, batch.valid).take(rows))
     # a cycle repeats: at least SEASONAL_CYCLES of it in the record, else it is a slow wander
-    significant = row_ok & (found["p_value"] < SEASONAL_LEVEL) & (found["period"] * SEASONAL_CYCLES <= lengths)
-    return np.where(significant, found["period"], np.nan)
+    significant = (found["p_value"] < SEASONAL_LEVEL) & (found["period"] * SEASONAL_CYCLES <= lengths[rows])
+    out[rows] = np.where(significant, found["period"], np.nan)
+    return out
 
 
-def _segment(batch, model, penalty, min_size, seasonal, max_changes):
-    """Check the arguments, remove cycles as ``seasonal`` says and segment; the packed pieces of the answer."""
+def _fisher_screen(batch: Ragged) -> np.ndarray:
+    """Fisher's g p-value of each row as :func:`~tsql.kernels.periodicity.seasonality` computes it, up to rounding.
+
+    Only a screen: rows well above the level are left out before the full analysis (which also
+    refines the period), and the decision is the full analysis' own.
+    """
+    from tsql.kernels.periodicity import _detrend, fisher_g_pvalue
+
+    p = np.ones(batch.n_rows)
+    for n, rows, matrix in batch.by_length():
+        if n < 5:
+            continue
+        present = ~np.isnan(matrix)
+        resid = _detrend(matrix, None if present.all() else present)[0]
+        power = np.abs(np.fft.rfft(resid, axis=1)) ** 2
+        ordinates = power[:, 2 : (n - 1) // 2 + 1]  # periods n / k for 2 <= k < n / 2
+        if ordinates.shape[1] == 0:
+            continue
+        total = ordinates.sum(axis=1)
+        g = np.where(total > 0, ordinates.max(axis=1) / np.where(total > 0, total, 1.0), 0.0)
+        p[rows] = fisher_g_pvalue(g, np.full(len(rows), float(ordinates.shape[1])))
+    return p
+
+
+def _segment(batch, model, penalty, min_size, seasonal, max_changes, skip_first: bool):
+    """Check the arguments, remove cycles as ``seasonal`` says and segment.
+
+    Returns the packed columns of every row's segments (all but each row's first when
+    ``skip_first``: the change points), their row offsets and the rows' validity.
+    """
     spec = _check(model, min_size, seasonal, max_changes)
     kind, value = _penalty(penalty)
     fields, counts, slots, row_ok = _run(batch, spec, kind, value, min_size, max_changes)
+    cyclic = np.empty(0, dtype=np.int64)
     if seasonal != "none" and batch.n_rows:
-        fit = _fitted(batch, fields, counts, slots, spec.code == TREND)
-        residual = batch.values - fit
+        residual = batch.values - _fitted(batch, fields, counts, slots, spec.code == TREND)
         periods = _periods(batch, residual, row_ok, seasonal)
         cyclic = np.flatnonzero(np.isfinite(periods))
-        if len(cyclic):
-            adjusted = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid).take(cyclic)
-            again, counts2, slots2, _ = _run(adjusted, spec, kind, value, min_size, max_changes)
-            shift = len(fields["first"])
-            fields = {name: np.concatenate([column, again[name]]) for name, column in fields.items()}
-            counts = counts.copy()
-            slots = slots.copy()
-            counts[cyclic] = counts2
-            slots[cyclic] = slots2 + shift
-    return fields, counts, slots, row_ok
+    skip = int(skip_first)
+    if len(cyclic) == 0:
+        offsets, source = _gather(np.maximum(counts - skip, 0), slots + skip)
+        return {name: column[source] for name, column in fields.items()}, offsets, row_ok
+    # the rows with a cycle are segmented again without it; the others keep the first answer
+    adjusted = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid).take(cyclic)
+    again, counts2, slots2, _ = _run(adjusted, spec, kind, value, min_size, max_changes)
+    first_counts = np.maximum(counts - skip, 0)
+    first_counts[cyclic] = 0
+    second_counts = np.maximum(counts2 - skip, 0)
+    total = first_counts.copy()
+    total[cyclic] = second_counts
+    offsets = np.zeros(len(total) + 1, dtype=np.int64)
+    np.cumsum(total, out=offsets[1:])
+    off1, src1 = _gather(first_counts, slots + skip)
+    off2, src2 = _gather(second_counts, slots2 + skip)
+    dest1 = np.arange(off1[-1]) + np.repeat(offsets[:-1] - off1[:-1], first_counts)
+    dest2 = np.arange(off2[-1]) + np.repeat(offsets[cyclic] - off2[:-1], second_counts)
+    out = {}
+    for name, column in fields.items():
+        packed = np.empty(offsets[-1], dtype=column.dtype)
+        packed[dest1] = column[src1]
+        packed[dest2] = again[name][src2]
+        out[name] = packed
+    return out, offsets, row_ok
 
 
 def segments(
@@ -1357,10 +1349,159 @@ def segments(
     seasonal: str | float = "auto",
     max_changes: int | None = None,
 ) -> RaggedRecords:
-    """The segments of each series' optimal segmentation."""
-    fields, counts, slots, row_ok = _segment(batch, model, penalty, min_size, seasonal, max_changes)
-    offsets, source = _gather(counts, slots)
-    return RaggedRecords({name: column[source] for name, column in fields.items()}, offsets, row_ok)
+    """The segments of each series' optimal segmentation, each with its level and slope.
+
+    Which model answers which question:
+
+    * ``'mean'``: where did the level move? Levels of a count or an amount
+      (units sold, calls per hour, a sensor's reading).
+    * ``'meanvar'``: where did the spread change? Volatility of returns or of
+      any series that wanders about a steady level (give it returns, not
+      prices).
+    * ``'trend'``: where did a trend turn? Piecewise-linear paths (a price's
+      trend, a growing user count).
+
+    Parameters
+    ----------
+    batch : Ragged
+        The series; NaN elements are missing.
+    model : {'mean', 'meanvar', 'trend'}
+    penalty : {'bic', 'mbic'} or float >= 0
+        The price of one change: a named penalty (see Notes; it grows with
+        the series' serial dependence) or a number in the cost's units.
+    min_size : int
+        Least number of present values in a segment: >= 1 for 'mean', >= 2
+        for 'meanvar' (a variance needs two values) and 'trend' (a line needs
+        two). For 'meanvar' 5 or more is advisable.
+    seasonal : {'auto', 'none'} or float >= 2
+        'auto' removes a significant cycle first (see Notes), 'none' searches
+        the values as they are, a number removes the harmonics of that period
+        (in samples) from every row at least two periods long.
+    max_changes : int >= 0 or None
+        At most this many changes: the segmentation with the least
+        ``cost + penalty x changes`` among those with at most ``max_changes``
+        changes; with ``penalty=0`` the best segmentation with exactly
+        ``min(max_changes, possible)`` changes. None: no limit.
+
+    Returns
+    -------
+    RaggedRecords
+        Per row, one record per segment, in order: ``first`` and ``last``
+        (int64, 1-based, inclusive; the first segment starts at 1 and the last
+        ends at the list's length, so missing elements at either end belong
+        to them), ``mean`` of the segment's present values and ``slope``, the
+        least-squares slope per sample against their positions (NaN with
+        fewer than two present values), both after the removed cycle (the
+        level without the season). NULL, empty and all-missing rows, and rows
+        with an infinite value, are invalid. A row with fewer than
+        ``2 * min_size`` present values, or whose values are all equal (up to
+        1000 ulps of ``max |y|``), is one segment.
+
+    Notes
+    -----
+    **Search.** The least ``sum_i C(segment_i) + beta * changes`` is found
+    exactly by PELT [1]_ with ``K = 0``, for 'mean' with functional pruning
+    (FPOP [2]_); with ``max_changes`` by segment neighbourhood [3]_ (a dynamic
+    programme over the number of changes, ``O(max_changes m^2)``). Ties go to
+    the segmentation whose last segment starts earliest, and so on backwards;
+    with ``max_changes``, to fewer changes. A change point is the original
+    position of the first present value of a new segment; missing elements
+    are skipped by the costs.
+
+    **Costs**, with ``y`` the ``m`` present values and ``L`` a segment's
+    number of them, in units of twice a negative Gaussian log-likelihood:
+
+    * 'mean': ``RSS / s^2`` about the segment mean, ``s`` the standard
+      deviation of the whole series: the series is standardised, as the
+      benchmark of [6]_ does for its default PELT.
+    * 'meanvar': ``L log(var / V + 1e-4)``, ``var`` the segment's
+      maximum-likelihood variance and ``V`` the series' (a floor of 1e-4 of
+      ``V``, added so the cost stays sub-additive).
+    * 'trend': ``RSS / s^2`` about the segment's least-squares line, ``s`` the
+      standard deviation of the residuals about the whole series' line.
+
+    **Penalties.** 'bic' [4]_: (parameters a change adds) x ``log m``, i.e.
+    ``2 log m`` for 'mean', ``3 log m`` for 'meanvar' and 'trend'. 'mbic'
+    [5]_: ``3 log m`` per change plus ``sum_i log(L_i / m)`` over the
+    segments, folded into each segment's cost (still sub-additive). A named
+    penalty (the length term included) is multiplied by the long-run factor
+    ``f`` below; a number is used as it is.
+
+    **The long-run factor.** BIC is calibrated for independent noise; on
+    drifting, trending, autocorrelated or seasonal series every wander looks
+    like a shift. ``f = max(1, s_LR^2 / s^2)`` with ``s_LR^2`` the long-run
+    variance of an AR(1) read off a robust semivariogram, as in [7]_:
+    ``gamma(k) = gamma0 (1 - rho^k)`` gives ``rho = gamma(2) / gamma(1) - 1``
+    (clipped to [0, 0.99]) and ``s_LR^2 = gamma(1) (1 + rho) / (1 - rho)^2``.
+    ``gamma(k)`` is half the mean of the smallest 90 % of the squared lag-k
+    differences times the Gaussian consistency factor 1.605 (the largest
+    tenth, where level shifts put their differences, is left out); for
+    'trend' the differences are centred at their median (blind to the
+    line). Level shifts leave ``gamma`` almost untouched, so a shifting
+    white-noise series keeps ``f = 1``; a drift or random walk raises
+    ``gamma(2)`` to about ``2 gamma(1)`` and ``f`` to its cap ``m / 20``:
+    a series is never taken for fewer than 20 independent values, and below
+    20 values ``f = 1``.
+
+    **How the defaults were chosen.** On the part of the Turing Change Point
+    Dataset [6]_ in the test data (20 annotated real series; the tests score
+    with the benchmark's F1 and covering metrics), the earlier noise scale
+    from first differences collapsed on smooth series and put hundreds of
+    changes where annotators mark two. The whole-series standard deviation
+    (the benchmark's default PELT) removed that; the long-run factor made
+    drifting series quiet; the cap of 20 effective values was chosen among
+    5, 10 and 20 on those series. On the 18 series with a published default
+    PELT score: mean F1 0.789 and cover 0.757 against 0.748 and 0.732
+    (answering "no change": 0.712 and 0.625). Seeded simulations in the tests:
+    white noise of 50-5,000 values gets no change in at least 95 % of runs;
+    a 2-sigma shift in 200 values is found within 3 positions in about 95 %.
+
+    **Cycles** ('auto'). A first segmentation (no cycle removed) gives each
+    value's segment level (or line); :func:`tsql.kernels.periodicity.seasonality`
+    on what is left gives the dominant period and Fisher's g p-value [8]_. A
+    cycle with p < 0.01 that repeats at least 4 times in the record (the
+    residue of a drift has its power at the longest periods, where Fisher's
+    white-noise null fails) is removed: its first ``min(floor(P / 2), 6)``
+    harmonics, fitted by least squares to that residue, are subtracted and
+    the search runs again on the rest. Other rows keep the first answer.
+
+    References
+    ----------
+    .. [1] R. Killick, P. Fearnhead and I. A. Eckley, "Optimal detection of
+       changepoints with a linear computational cost", JASA 107(500),
+       1590-1598 (2012).
+    .. [2] R. Maidstone, T. Hocking, G. Rigaill and P. Fearnhead, "On optimal
+       multiple changepoint algorithms for large data", Statistics and
+       Computing 27(2), 519-533 (2017).
+    .. [3] I. E. Auger and C. E. Lawrence, "Algorithms for the optimal
+       identification of segment neighborhoods", Bulletin of Mathematical
+       Biology 51(1), 39-54 (1989).
+    .. [4] G. Schwarz, "Estimating the dimension of a model", Annals of
+       Statistics 6(2), 461-464 (1978).
+    .. [5] N. R. Zhang and D. O. Siegmund, "A modified Bayes information
+       criterion with applications to the analysis of comparative genomic
+       hybridization data", Biometrics 63(1), 22-32 (2007).
+    .. [6] G. J. J. van den Burg and C. K. I. Williams, "An evaluation of
+       change point detection algorithms", arXiv:2003.06222 (2020).
+    .. [7] S. Chakar, E. Lebarbier, C. Levy-Leduc and S. Robin, "A robust
+       approach for estimating change-points in the mean of an AR(1)
+       process", Bernoulli 23(2), 1408-1447 (2017).
+    .. [8] R. A. Fisher, "Tests of significance in harmonic analysis",
+       Proc. Royal Society A 125, 54-59 (1929).
+
+    See Also
+    --------
+    change_points : the same segmentation, as the positions where segments start.
+    change_points_path : every optimal segmentation as the penalty varies.
+
+    Examples
+    --------
+    >>> s = segments(Ragged.from_list([[0.0, 0.1, -0.1, 0.0, 5.0, 5.1, 4.9, 5.0]]))
+    >>> s.row(0)["first"], s.row(0)["last"]
+    (array([1, 5]), array([4, 8]))
+    """
+    fields, offsets, row_ok = _segment(batch, model, penalty, min_size, seasonal, max_changes, False)
+    return RaggedRecords(fields, offsets, row_ok)
 
 
 def change_points(
@@ -1371,17 +1512,127 @@ def change_points(
     seasonal: str | float = "auto",
     max_changes: int | None = None,
 ) -> Ragged:
-    """Positions where each series' optimal segmentation starts a new segment."""
-    fields, counts, slots, row_ok = _segment(batch, model, penalty, min_size, seasonal, max_changes)
+    """Positions where each series' optimal segmentation starts a new segment.
+
+    The same segmentation as :func:`segments` (see there for the models, the
+    noise scale, the penalties, cycles and the rules for short, constant and
+    missing data): 'mean' for the level of a count, 'meanvar' for the
+    volatility of returns, 'trend' for the turns of a price's trend.
+
+    Parameters
+    ----------
+    batch : Ragged
+        The series; NaN elements are missing.
+    model : {'mean', 'meanvar', 'trend'}
+    penalty : {'bic', 'mbic'} or float >= 0
+    min_size : int
+    seasonal : {'auto', 'none'} or float >= 2
+    max_changes : int >= 0 or None
+        As for :func:`segments`.
+
+    Returns
+    -------
+    Ragged
+        Per row, the 1-based positions (float64, integral, increasing) of the
+        first element of every segment but the first; empty when there is no
+        change; ``row_valid`` False for NULL, empty and all-missing rows and
+        rows with an infinite value.
+
+    See Also
+    --------
+    segments : the segments themselves, with their levels and slopes.
+    change_points_path : the 1, 2, 3... most important changes, for every penalty.
+
+    Examples
+    --------
+    >>> change_points(Ragged.from_list([[0.0, 0.1, -0.1, 0.0, 5.0, 5.1, 4.9, 5.0]])).values
+    array([5.])
+    """
     # every segment but a row's first starts a change
-    offsets, source = _gather(np.maximum(counts - 1, 0), slots + 1)
-    return Ragged(fields["first"][source].astype(np.float64), offsets, row_ok)
+    fields, offsets, row_ok = _segment(batch, model, penalty, min_size, seasonal, max_changes, True)
+    return Ragged(fields["first"].astype(np.float64), offsets, row_ok)
 
 
 def change_points_path(
     batch: Ragged, model: str = "mean", max_changes: int = 10, min_size: int = 2, seasonal: str | float = "auto"
 ) -> tuple[RaggedRecords, Ragged]:
-    """Every optimal segmentation of each series as the penalty runs from 0 to infinity."""
+    """Every optimal segmentation of each series as the penalty runs from 0 to infinity.
+
+    For each row, the segmentations that minimise ``cost + penalty x changes``
+    for some penalty ``>= 0`` among those with at most ``max_changes``
+    changes, from none (large penalties) to the most (penalty 0): the answer
+    to "what are the 1, 2, 3... most important changes?" without choosing a
+    penalty (CROPS [1]_ computes the same path by repeated PELT runs; here it
+    is exact from the segment-neighbourhood costs [2]_).
+
+    Parameters
+    ----------
+    batch : Ragged
+        The series; NaN elements are missing.
+    model : {'mean', 'meanvar', 'trend'}
+        As for :func:`segments` (the level of a count, the volatility of
+        returns, the turns of a trend).
+    max_changes : int >= 0
+        Most changes a segmentation on the path may have.
+    min_size : int
+        Least number of present values in a segment (as for :func:`segments`).
+    seasonal : {'auto', 'none'} or float >= 2
+        As for :func:`segments`; 'auto' decides on the cycle with the default
+        'bic' segmentation.
+
+    Returns
+    -------
+    records : RaggedRecords
+        Per row, one record per segmentation on the path, by increasing number
+        of changes: ``changes`` (int64), ``cost`` (float64: its total segment
+        cost, in the units of a numeric penalty of :func:`segments`; NaN when
+        the row has no noise scale: fewer than ``2 * min_size`` present
+        values, or all equal), ``penalty_from`` and ``penalty_to`` (float64:
+        it is optimal for penalties in ``[penalty_from, penalty_to]``; the
+        first record's ``penalty_to`` is inf, the last one's ``penalty_from``
+        0, and each record's ``penalty_from`` is the next one's
+        ``penalty_to``, so the ranges tile ``[0, inf)``). Invalid rows as for
+        :func:`segments`.
+    positions : Ragged
+        One row per record, in the records' flat order: the record's change
+        positions (1-based, float64, increasing), as :func:`change_points`
+        gives them. (For Arrow: a list field of the records' struct, with
+        ``positions.offsets`` as its offsets.)
+
+    Notes
+    -----
+    With ``C_j`` the least cost with exactly ``j`` changes (segment
+    neighbourhood, exact, ``O(max_changes m^2)`` per row), the path is the
+    lower convex hull of the points ``(j, C_j)``, ``j <= max_changes``, up to
+    the least ``C_j``: the segmentation with ``j`` changes is optimal for the
+    penalties between the slopes of the hull on either side of it. A
+    ``j`` that lies on or above a chord of the hull is optimal for no
+    penalty and is left out. Where the unconstrained optimum (PELT with a
+    numeric penalty) has at most ``max_changes`` changes, it is the path's
+    record for that penalty; below the last record's ``penalty_to`` a
+    segmentation with more than ``max_changes`` changes may do better.
+
+    References
+    ----------
+    .. [1] K. Haynes, I. A. Eckley and P. Fearnhead, "Computationally
+       efficient changepoint detection for a range of penalties", Journal of
+       Computational and Graphical Statistics 26(1), 134-143 (2017).
+    .. [2] I. E. Auger and C. E. Lawrence, "Algorithms for the optimal
+       identification of segment neighborhoods", Bulletin of Mathematical
+       Biology 51(1), 39-54 (1989).
+
+    See Also
+    --------
+    change_points : the optimum at one penalty, optionally with ``max_changes``.
+    segments : its segments, levels and slopes.
+
+    Examples
+    --------
+    >>> x = [0.0, 0.2, -0.1, 0.1, 5.0, 5.2, 4.9, 5.1, 2.0, 2.1, 1.9, 2.0]
+    >>> records, positions = change_points_path(Ragged.from_list([x]), max_changes=2)
+    >>> records.row(0)["changes"], positions.row(2)
+    (array([0, 1, 2]), array([5., 9.]))
+    """
     spec = _check(model, min_size, seasonal, max_changes)
     k_max = int(max_changes)
     if seasonal != "none" and batch.n_rows:
