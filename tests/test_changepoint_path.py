@@ -73,9 +73,7 @@ def test_max_changes_is_the_best_with_at_most_k_changes(model, min_size):
                 beta = {"bic": {"mean": 2, "meanvar": 3, "trend": 3}[model] * math.log(m), "mbic": 3 * math.log(m)}
                 beta = beta.get(penalty, penalty)
                 options = [
-                    (cuts, cost + beta * len(cuts))
-                    for cuts, cost in every[penalty == "mbic"][i]
-                    if len(cuts) <= k
+                    (cuts, cost + beta * len(cuts)) for cuts, cost in every[penalty == "mbic"][i] if len(cuts) <= k
                 ]
                 expected = min(options, key=lambda o: (o[1], len(o[0])))[0]
                 assert [int(v) for v in got.row(i)] == expected, (model, min_size, k, penalty, i)
@@ -108,7 +106,9 @@ def test_every_point_of_the_path_is_exact(model, min_size):
                 totals = {c: best[c][1] + beta * c for c in best if c <= k_max}
                 assert min(totals, key=lambda c: (totals[c], c)) == changes, (i, j, beta)
             # and where the unconstrained optimum has at most k_max changes it is that optimum
-            unconstrained = change_points(Ragged.from_list([x]), model, float((lo + min(hi, lo + 50.0)) / 2), min_size, "none")
+            unconstrained = change_points(
+                Ragged.from_list([x]), model, float((lo + min(hi, lo + 50.0)) / 2), min_size, "none"
+            )
             if len(unconstrained.row(0)) <= k_max:
                 assert [int(v) for v in unconstrained.row(0)] == cuts
         record += n

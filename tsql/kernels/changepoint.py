@@ -833,7 +833,9 @@ def _path_rows(values, offsets, valid, code, min_size, k_max, changes, cost, p_f
 
 
 @njit(cache=True, error_model="numpy")
-def _path_rows_in_order(values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok):
+def _path_rows_in_order(
+    values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok
+):
     """:func:`_path_rows` on this thread alone, for where numba's parallel layer cannot run."""
     for r in range(len(offsets) - 1):
         _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok)
@@ -1239,17 +1241,16 @@ def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> 
     out = np.array(batch.values, dtype=np.float64, copy=True)
     work = Ragged(residual, batch.offsets, batch.valid)
     for n, rows, matrix in work.by_length():
-        rows = rows[np.isfinite(periods[rows])]
-        if n == 0 or len(rows) == 0:
+        keep = np.isfinite(periods[rows])
+        if n == 0 or not keep.any():
             continue
+        rows, matrix = rows[keep], matrix[keep]
         # rows of one length, in pieces of about CYCLE_ELEMENTS elements (a row is never split)
         step = max(1, CYCLE_ELEMENTS // n)
         for lo in range(0, len(rows), step):
             part = rows[lo : lo + step]
-            fitted = _cycle(np.stack([work.row(r) for r in part]), periods[part])
-            for k, r in enumerate(part):
-                a, b = batch.offsets[r], batch.offsets[r + 1]
-                out[a:b] -= fitted[k]
+            fitted = _cycle(matrix[lo : lo + step], periods[part])
+            out[batch.offsets[part][:, None] + np.arange(n)] -= fitted
     return out
 
 
@@ -1656,7 +1657,9 @@ def change_points_path(
     row_ok = np.empty(n_rows, dtype=np.bool_)
     kernel = _path_rows_in_order if _FORKED_AFTER_OPENMP else _path_rows
     with _KERNEL_LOCK:
-        kernel(values, offsets, valid, spec.code, int(min_size), k_max, changes, cost, p_from, p_to, places, counts, row_ok)
+        kernel(
+            values, offsets, valid, spec.code, int(min_size), k_max, changes, cost, p_from, p_to, places, counts, row_ok
+        )
     record_offsets, source = _gather(counts, np.arange(n_rows, dtype=np.int64) * per_row)
     records = RaggedRecords(
         {"changes": changes[source], "cost": cost[source], "penalty_from": p_from[source], "penalty_to": p_to[source]},
