@@ -801,6 +801,7 @@ n = 1_000_000
 rng = np.random.default_rng(1)
 x = rng.standard_normal(n) + 1.0 * (np.arange(n) >= n // 2)
 con = tsql.connect()
+con.execute("SET enable_progress_bar = false")  # a slow machine would print one into stdout
 con.register("big", pa.table({"a": pa.array([x], pa.list_(pa.float64()))}))
 print(con.execute("SELECT change_points(a) FROM big").fetchall()[0][0])
 """

@@ -1301,12 +1301,47 @@ def _fisher_screen(batch: Ragged) -> np.ndarray:
     return p
 
 
+def _in_range(batch: Ragged) -> tuple[Ragged, np.ndarray | None]:
+    """The batch with each row beyond about 1e120 or below 1e-120 scaled by a power of two near 1, and the
+    per-row factors that scale answers in the series' units back (None: no row needed it).
+
+    Scaling by a power of two is exact, so positions, and levels and slopes once scaled back, are those of
+    ordinary magnitudes; the costs' sums of squares neither overflow nor underflow.
+    """
+    values = np.asarray(batch.values, dtype=np.float64)
+    if len(values) == 0:
+        return batch, None
+    finite = np.where(np.isfinite(values), np.abs(values), 0.0)
+    lengths = batch.lengths
+    magnitude = np.zeros(batch.n_rows)
+    filled = lengths > 0
+    magnitude[filled] = np.maximum.reduceat(finite, batch.offsets[:-1][filled])
+    _, exponent = np.frexp(magnitude)
+    out_of_range = (magnitude > 0) & ((exponent > 400) | (exponent < -400))
+    if not out_of_range.any():
+        return batch, None
+    shift = np.where(out_of_range, np.clip(exponent, -1020, 1020), 0)
+    scaled = values * np.repeat(np.ldexp(1.0, -shift), lengths)
+    return Ragged(scaled, batch.offsets, batch.valid), np.ldexp(1.0, shift)
+
+
 def _segment(batch, model, penalty, min_size, seasonal, max_changes, skip_first: bool):
     """Check the arguments, remove cycles as ``seasonal`` says and segment.
 
     Returns the packed columns of every row's segments (all but each row's first when
     ``skip_first``: the change points), their row offsets and the rows' validity.
     """
+    batch, factors = _in_range(batch)
+    fields, offsets, row_ok = _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, skip_first)
+    if factors is not None:
+        back = np.repeat(factors, np.diff(offsets))
+        fields["mean"] = fields["mean"] * back
+        fields["slope"] = fields["slope"] * back
+    return fields, offsets, row_ok
+
+
+def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, skip_first: bool):
+    """:func:`_segment` on a batch whose magnitudes are in range."""
     spec = _check(model, min_size, seasonal, max_changes)
     kind, value = _penalty(penalty)
     fields, counts, slots, row_ok = _run(batch, spec, kind, value, min_size, max_changes)
@@ -1636,6 +1671,7 @@ def change_points_path(
     """
     spec = _check(model, min_size, seasonal, max_changes)
     k_max = int(max_changes)
+    batch = _in_range(batch)[0]  # the path has no answer in the series' units
     if seasonal != "none" and batch.n_rows:
         fields, counts, slots, row_ok = _run(batch, spec, _BIC, 0.0, min_size, None)
         residual = batch.values - _fitted(batch, fields, counts, slots, spec.code == TREND)
