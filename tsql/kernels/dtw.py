@@ -81,6 +81,9 @@ _BUDGET = 1 << 23
 #: band is kept), in those units.
 _TILE_COST = 4
 _PATH_COST = 2
+#: Largest band (in cells) of a shape whose paths are traced a tile at a time: the tile's store is ``_LANES``
+#: times that, 8 bytes a cell (4 MiB).
+_TILE_PATH_CELLS = 1 << 14
 
 
 # ---------------------------------------------------------------------------
@@ -361,17 +364,23 @@ def _trace(store, row_start, n, m, w, slot, out_i, out_j):
     At each cell the cheapest neighbour, preferring on a tie the diagonal, then
     the cell above (i - 1, j), then the cell to the left (i, j - 1). Returns its length.
     """
+    return _trace_lane(store, row_start, n, m, w, slot, out_i, out_j, 0)
+
+
+@njit(cache=True, nogil=True)
+def _trace_lane(store, row_start, n, m, w, slot, out_i, out_j, lane):
+    """:func:`_trace` on column ``lane`` of ``store`` (one pair of a tile)."""
     inf = np.inf
     k = slot + n + m - 2
     i, j = n - 1, m - 1
     out_i[k], out_j[k] = i, j
     while i > 0 or j > 0:
         lo, hi = _row_bounds(i, m, w)
-        left = store[row_start[i] + j - 1 - lo, 0] if j > lo else inf
+        left = store[row_start[i] + j - 1 - lo, lane] if j > lo else inf
         if i > 0:
             plo, phi = _row_bounds(i - 1, m, w)
-            above = store[row_start[i - 1] + j - plo, 0] if j <= phi else inf
-            diagonal = store[row_start[i - 1] + j - 1 - plo, 0] if j > plo else inf
+            above = store[row_start[i - 1] + j - plo, lane] if j <= phi else inf
+            diagonal = store[row_start[i - 1] + j - 1 - plo, lane] if j > plo else inf
         else:
             above = diagonal = inf
         if diagonal <= above and diagonal <= left:
@@ -424,15 +433,81 @@ def _path_batch(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths, 
     return r, False
 
 
+@njit(cache=True, nogil=True)
+def _path_tiles(av, aoff, bv, boff, order, group_starts, band, slots, out_i, out_j, lengths, k, start, budget):
+    """Paths of the rows ``order``, grouped by shape (``group_starts``), from group ``k``, position ``start``
+    on, until about ``budget`` units of work are done; returns where to go on, and whether it stopped at a
+    group whose pairs are each more than the budget (:func:`_long_path` does those).
+
+    As :func:`_distance_batch`, pairs of one shape are stepped through the
+    programme ``_LANES`` at a time, each lane keeping its whole band (a tile's
+    store is ``_LANES`` times a pair's, so only shapes of at most
+    ``_TILE_PATH_CELLS`` band cells are tiled); each lane is then walked back
+    (:func:`_trace_lane`). A lane's costs are those of the pair alone, so the
+    paths are too.
+    """
+    spent = 0
+    while k < len(group_starts) - 1:
+        first, stop = group_starts[k], group_starts[k + 1]
+        start = max(start, first)
+        r0 = order[first]
+        n, m = aoff[r0 + 1] - aoff[r0], boff[r0 + 1] - boff[r0]
+        w = _half_width(n, m, band)
+        cells = _band_cells(n, m, w)
+        if cells * _PATH_COST > budget:
+            return k, start, True
+        row_start = _path_rows(n, m, w)
+        tiled = row_start[n] <= _TILE_PATH_CELLS
+        if tiled and stop - start >= _PAD_FROM:
+            x, y = np.empty((n, _LANES)), np.empty((m, _LANES))
+            store, totals = np.empty((row_start[n], _LANES)), np.empty(_LANES)
+        while start < stop:
+            count = min(stop - start, _LANES)
+            lanes = _LANES if tiled and count >= _PAD_FROM else 1
+            count = count if lanes == _LANES else 1
+            cost = cells * (_TILE_COST if lanes == _LANES else _PATH_COST)
+            if spent > 0 and spent + cost > budget:
+                return k, start, False
+            spent += cost
+            if lanes == _LANES:
+                _load_tile(av, aoff, bv, boff, order, start, count, False, x, y)
+                _warp(x, y, w, np.inf, store, row_start, n, totals, _LANES, 0, n)
+                for g in range(count):
+                    r = order[start + g]
+                    lengths[r] = _trace_lane(store, row_start, n, m, w, slots[r], out_i, out_j, g)
+            else:
+                r = order[start]
+                x1, y1 = np.empty((n, 1)), np.empty((m, 1))
+                _load_tile(av, aoff, bv, boff, order, start, 1, False, x1, y1)
+                store1 = np.empty((row_start[n], 1))
+                _warp(x1, y1, w, np.inf, store1, row_start, n, np.empty(1), 1, 0, n)
+                lengths[r] = _trace(store1, row_start, n, m, w, slots[r], out_i, out_j)
+            start += count
+        k += 1
+    return k, start, False
+
+
 def _paths(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths):
-    """:func:`_path_batch` in pieces of about ``_BUDGET`` units, with a :func:`checkpoint` between them."""
-    r = 0
-    while r < len(usable):
-        r, long = _path_batch(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths, r, _BUDGET)
+    """:func:`_path_tiles` over the usable pairs grouped by shape, in pieces of about ``_BUDGET`` units, with a
+    :func:`checkpoint` between them; ``lengths`` of the other rows are 0."""
+    lengths[~usable] = 0
+    a_len, b_len = np.diff(aoff), np.diff(boff)
+    rows = np.flatnonzero(usable)
+    order = rows[np.lexsort((b_len[rows], a_len[rows]))].astype(np.int64)
+    na, nb = a_len[order], b_len[order]
+    change = np.flatnonzero((np.diff(na) != 0) | (np.diff(nb) != 0)) + 1
+    group_starts = np.concatenate(([0], change, [len(order)])).astype(np.int64) if len(order) else np.zeros(1, np.int64)
+    k, start, groups = 0, 0, len(group_starts) - 1
+    while k < groups:
+        k, start, long = _path_tiles(
+            av, aoff, bv, boff, order, group_starts, band, slots, out_i, out_j, lengths, k, start, _BUDGET
+        )
         checkpoint()
         if long:
-            _long_path(av, aoff, bv, boff, r, band, slots, out_i, out_j, lengths)
-            r += 1
+            for r in order[group_starts[k] : group_starts[k + 1]]:
+                _long_path(av, aoff, bv, boff, r, band, slots, out_i, out_j, lengths)
+                checkpoint()
+            k += 1
     return lengths
 
 
