@@ -487,6 +487,16 @@ def _path_tiles(av, aoff, bv, boff, order, group_starts, band, slots, out_i, out
     return k, start, False
 
 
+@njit(cache=True, nogil=True)
+def _one_based(out_i, out_j, slots, offsets, i, j):
+    """Each path from the front of its slot to ``offsets``, 1-based."""
+    for r in range(len(offsets) - 1):
+        start = slots[r]
+        for k in range(offsets[r + 1] - offsets[r]):
+            i[offsets[r] + k] = out_i[start + k] + 1
+            j[offsets[r] + k] = out_j[start + k] + 1
+
+
 def _paths(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths):
     """:func:`_path_tiles` over the usable pairs grouped by shape, in pieces of about ``_BUDGET`` units, with a
     :func:`checkpoint` between them; ``lengths`` of the other rows are 0."""
@@ -782,8 +792,8 @@ def dtw_path(a: Ragged, b: Ragged, band: int | None = None) -> RaggedRecords:
     _paths(av, aoff, bv, boff, usable, _band_code(band), slots, out_i, out_j, lengths)
     offsets = np.zeros(a.n_rows + 1, dtype=np.int64)
     np.cumsum(lengths, out=offsets[1:])
-    keep = np.repeat(slots[:-1], lengths) + (np.arange(offsets[-1]) - np.repeat(offsets[:-1], lengths))
-    fields = {"i": out_i[keep] + 1, "j": out_j[keep] + 1}
+    fields = {"i": np.empty(offsets[-1], dtype=np.int64), "j": np.empty(offsets[-1], dtype=np.int64)}
+    _one_based(out_i, out_j, slots, offsets, fields["i"], fields["j"])
     return RaggedRecords(fields, offsets, None if usable.all() else usable)
 
 
