@@ -270,6 +270,7 @@ def _distance_batch(av, aoff, bv, boff, order, group_starts, band, normalize, cu
     resumes at the same tile boundaries.
     """
     rolling = np.empty(2, dtype=np.int64)
+    zero, one, two = np.int64(0), np.int64(1), np.int64(2)  # not literals: one compiled _warp for every caller
     spent = 0
     while k < len(group_starts) - 1:
         first, stop = group_starts[k], group_starts[k + 1]
@@ -293,14 +294,14 @@ def _distance_batch(av, aoff, bv, boff, order, group_starts, band, normalize, cu
             spent += cost
             if count >= _PAD_FROM:
                 _load_tile(av, aoff, bv, boff, order, start, count, normalize, x, y)
-                _warp(x, y, w, cutoff, store, rolling, 2, totals, _LANES, 0, n)
+                _warp_rows(x, y, w, cutoff, store, rolling, two, totals, zero, n)
                 found = totals
             else:
                 count = 1
                 x1, y1 = np.empty((n, 1)), np.empty((m, 1))
-                _load_tile(av, aoff, bv, boff, order, start, 1, normalize, x1, y1)
+                _load_tile(av, aoff, bv, boff, order, start, one, normalize, x1, y1)
                 found = np.empty(1)
-                _warp(x1, y1, w, cutoff, np.empty((2 * width, 1)), rolling, 2, found, 1, 0, n)
+                _warp_rows(x1, y1, w, cutoff, np.empty((2 * width, 1)), rolling, two, found, zero, n)
             _put_distances(found, order, start, count, cutoff, out)
             start += count
         k += 1
@@ -364,7 +365,7 @@ def _trace(store, row_start, n, m, w, slot, out_i, out_j):
     At each cell the cheapest neighbour, preferring on a tie the diagonal, then
     the cell above (i - 1, j), then the cell to the left (i, j - 1). Returns its length.
     """
-    return _trace_lane(store, row_start, n, m, w, slot, out_i, out_j, 0)
+    return _trace_lane(store, row_start, n, m, w, slot, out_i, out_j, np.int64(0))
 
 
 @njit(cache=True, nogil=True)
@@ -427,7 +428,7 @@ def _path_batch(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths, 
         store = np.empty((row_start[n], 1))
         x = av[aoff[r] : aoff[r + 1]].copy().reshape((n, 1))
         y = bv[boff[r] : boff[r + 1]].copy().reshape((m, 1))
-        _warp(x, y, w, np.inf, store, row_start, n, np.empty(1), 1, 0, n)
+        _warp_rows(x, y, w, np.inf, store, row_start, n, np.empty(1), np.int64(0), n)
         lengths[r] = _trace(store, row_start, n, m, w, slots[r], out_i, out_j)
         r += 1
     return r, False
@@ -446,6 +447,7 @@ def _path_tiles(av, aoff, bv, boff, order, group_starts, band, slots, out_i, out
     (:func:`_trace_lane`). A lane's costs are those of the pair alone, so the
     paths are too.
     """
+    zero, one, off = np.int64(0), np.int64(1), np.bool_(False)  # not literals: one compiled _warp for every caller
     spent = 0
     while k < len(group_starts) - 1:
         first, stop = group_starts[k], group_starts[k + 1]
@@ -470,17 +472,17 @@ def _path_tiles(av, aoff, bv, boff, order, group_starts, band, slots, out_i, out
                 return k, start, False
             spent += cost
             if lanes == _LANES:
-                _load_tile(av, aoff, bv, boff, order, start, count, False, x, y)
-                _warp(x, y, w, np.inf, store, row_start, n, totals, _LANES, 0, n)
+                _load_tile(av, aoff, bv, boff, order, start, count, off, x, y)
+                _warp_rows(x, y, w, np.inf, store, row_start, n, totals, zero, n)
                 for g in range(count):
                     r = order[start + g]
                     lengths[r] = _trace_lane(store, row_start, n, m, w, slots[r], out_i, out_j, g)
             else:
                 r = order[start]
                 x1, y1 = np.empty((n, 1)), np.empty((m, 1))
-                _load_tile(av, aoff, bv, boff, order, start, 1, False, x1, y1)
+                _load_tile(av, aoff, bv, boff, order, start, one, off, x1, y1)
                 store1 = np.empty((row_start[n], 1))
-                _warp(x1, y1, w, np.inf, store1, row_start, n, np.empty(1), 1, 0, n)
+                _warp_rows(x1, y1, w, np.inf, store1, row_start, n, np.empty(1), zero, n)
                 lengths[r] = _trace(store1, row_start, n, m, w, slots[r], out_i, out_j)
             start += count
         k += 1

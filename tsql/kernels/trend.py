@@ -54,7 +54,6 @@ References
 from __future__ import annotations
 
 import math
-from collections import namedtuple
 
 import numpy as np
 from numba import njit
@@ -103,14 +102,13 @@ def _sort_count(key, idx, work_key, work_idx):
         for s in range(0, n, 2 * width):
             mid, end = min(s + width, n), min(s + 2 * width, n)
             a, b, o = s, mid, s
-            while a < mid and b < end:
-                if src_k[b] < src_k[a]:
-                    dst_k[o], dst_i[o] = src_k[b], src_i[b]
-                    inv += mid - a
-                    b += 1
-                else:
-                    dst_k[o], dst_i[o] = src_k[a], src_i[a]
-                    a += 1
+            while a < mid and b < end:  # without branches on the data: arithmetic on the comparison
+                right = np.int64(src_k[b] < src_k[a])
+                src = a + right * (b - a)
+                dst_k[o], dst_i[o] = src_k[src], src_i[src]
+                inv += right * (mid - a)
+                a += 1 - right
+                b += right
                 o += 1
             while a < mid:
                 dst_k[o], dst_i[o] = src_k[a], src_i[a]
@@ -155,11 +153,44 @@ def _splitmix(state):
 
 
 @njit(cache=True, nogil=True)
+def _select(v, k):
+    """Reorder ``v`` in place so that ``v[k]`` is its ``k``-th smallest
+    (0-based), none larger before it and none smaller after; returns it.
+    Hoare's partition around a median of three (no sorting routine: a short
+    compile)."""
+    lo, hi = 0, len(v) - 1
+    while lo < hi:
+        a, b, c = v[lo], v[(lo + hi) // 2], v[hi]
+        pivot = max(min(a, b), min(max(a, b), c))
+        i, j = lo, hi
+        while i <= j:
+            while v[i] < pivot:
+                i += 1
+            while v[j] > pivot:
+                j -= 1
+            if i <= j:
+                v[i], v[j] = v[j], v[i]
+                i += 1
+                j -= 1
+        if k <= j:
+            hi = j
+        elif k >= i:
+            lo = i
+        else:
+            break
+    return v[k]
+
+
+@njit(cache=True, nogil=True)
 def _kth(values, count, k):
-    """The ``k``-th smallest (0-based) of ``values[:count]`` and the next one up."""
-    part = np.partition(values[:count], k)
-    upper = part[k + 1 :].min() if k + 1 < count else np.inf
-    return part[k], upper
+    """The ``k``-th smallest (0-based) of ``values[:count]`` and the next one
+    up (``values`` is reordered)."""
+    v = values[:count]
+    lower = _select(v, k)
+    upper = np.inf
+    for p in range(k + 1, count):
+        upper = min(upper, v[p])
+    return lower, upper
 
 
 @njit(cache=True, nogil=True)
@@ -175,10 +206,10 @@ def _delta(umax, tmax, theta_abs):
 
 
 @njit(cache=True, nogil=True)
-def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi, listing):
+def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
     """Sort the order ``idx`` (inversion count ``count``) by ``u - theta * tau``
     by insertion, in O(n + exchanges); returns the new inversion count and,
-    with ``listing``, per exchanged pair (each pair whose order changes,
+    when ``r_lo < r_hi``, per exchanged pair (each pair whose order changes,
     once): how many were inverted before, how many have a slope <= ``r_lo``
     and the slopes in ``(r_lo, r_hi]`` (as theilslopes computes them)."""
     n = len(idx)
@@ -186,6 +217,7 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi, listing):
         key[p] = u[idx[p]] - theta * tau[idx[p]]
     only_before = 0
     below = 0
+    listing = r_lo < r_hi
     found = np.empty(256 if listing else 0)
     nfound = 0
     for p in range(1, n):
@@ -227,7 +259,7 @@ def _all_pairs(x, t, buf):
 
 
 @njit(cache=True, nogil=True)
-def _sen(x, t, disc, ties, order0, k_final, w):
+def _sen(x, t, disc, ties, order0, k_final, fw, iw, sample_buf):
     """Exact median pairwise slope of one row by counting and selection.
 
     ``disc`` and ``disc + ties`` are the exact numbers of slopes < 0 and
@@ -246,8 +278,8 @@ def _sen(x, t, disc, ties, order0, k_final, w):
     k1, k2 = (N + 1) // 2, N // 2 + 1  # 1-based ranks of the middle slopes
     if disc < k1 and disc + ties >= k2:
         return 0.0
-    u, tau = w.u[:n], w.tau[:n]
-    order_lo, order_hi = w.order_lo[:n], w.order_hi[:n]
+    u, tau = fw[0, :n], fw[1, :n]
+    order_lo, order_hi = iw[2, :n], iw[3, :n]
     xmin, xmax = x.min(), x.max()
     c = 0.5 * xmin + 0.5 * xmax
     t0 = 0.5 * (t[0] + t[n - 1])
@@ -277,10 +309,10 @@ def _sen(x, t, disc, ties, order0, k_final, w):
     elif disc >= k2:
         hi, chi = 0.0, disc
         order_hi[:] = order0
-    br = np.array([lo, hi])
-    bc = np.array([clo, chi])
+    br, bc = np.empty(2), np.empty(2, dtype=np.int64)  # the bracket's ends and their counts
+    br[0], br[1], bc[0], bc[1] = lo, hi, clo, chi
     # a fixed sample of pair slopes estimates the count at any slope
-    sample = w.sample[: min(N, max(1024, n))]  # depends on n only
+    sample = sample_buf[: min(N, max(1024, n))]  # depends on n only
     s = len(sample)
     state = np.uint64(n)
     for q in range(s):
@@ -296,8 +328,8 @@ def _sen(x, t, disc, ties, order0, k_final, w):
     # on the other side, by the sample's error at that distance, doubled
     # each time it falls short
     rank = min(s - 1, int(s * (k1 - 0.5) / N))
-    theta = np.partition(sample, rank)[rank]
-    c = _probe(theta, float(k1), br, bc, k1, k2, x, t, u, tau, w, order_lo, order_hi)
+    theta = _select(sample, rank)
+    c = _probe(theta, float(k1), br, bc, k1, k2, x, t, fw, iw)
     z = 2.0
     for _ in range(8):
         if bc[1] - bc[0] <= 8 * n + 64:
@@ -309,10 +341,10 @@ def _sen(x, t, disc, ties, order0, k_final, w):
         rank = rank + step if c < k1 else rank - step
         if rank < 0 or rank >= s:
             break
-        theta = np.partition(sample, rank)[rank]
+        theta = _select(sample, rank)
         if not (br[0] < theta < br[1]):
             break
-        c = _probe(theta, N * (rank + 0.5) / s, br, bc, k1, k2, x, t, u, tau, w, order_lo, order_hi)
+        c = _probe(theta, N * (rank + 0.5) / s, br, bc, k1, k2, x, t, fw, iw)
         z *= 2
     first = True
     kprev = np.inf
@@ -323,12 +355,14 @@ def _sen(x, t, disc, ties, order0, k_final, w):
         tiny = hi - lo <= 8 * d
         stalled = kprev < 1.5 * K
         if K <= 8 * n + 64 or ((stalled or tiny) and K <= k_final):
-            return _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, w.key[:n])
+            return _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, fw[2, :n])
         if tiny:  # a cluster: one sampled slope in it
-            sample.sort()
-            a = np.searchsorted(sample, lo - d, "left")
-            b = np.searchsorted(sample, hi + d, "left")
-            return sample[(a + b - 1) // 2] if b > a else 0.5 * (lo + hi)
+            m = 0
+            for q in range(s):  # the sampled slopes in [lo - d, hi + d), to their middle one
+                if lo - d <= sample[q] < hi + d:
+                    sample[m] = sample[q]
+                    m += 1
+            return _select(sample[:m], (m - 1) // 2) if m > 0 else 0.5 * (lo + hi)
         # two points where linear interpolation of the counts puts the middle
         # ranks, widened by its expected error; a stalled bracket is cut in thirds
         gamma = 0.06 if first else 0.005
@@ -339,32 +373,34 @@ def _sen(x, t, disc, ties, order0, k_final, w):
         if stalled:
             p1, e1 = lo + (hi - lo) / 3, clo + K / 3
             p2, e2 = hi - (hi - lo) / 3, chi - K / 3
-        for theta, expect in ((p1, e1), (p2, e2)):
-            if br[0] < theta < br[1]:
-                _probe(theta, expect, br, bc, k1, k2, x, t, u, tau, w, order_lo, order_hi)
+        if br[0] < p1 < br[1]:
+            _probe(p1, e1, br, bc, k1, k2, x, t, fw, iw)
+        if br[0] < p2 < br[1]:
+            _probe(p2, e2, br, bc, k1, k2, x, t, fw, iw)
         kprev = K
         first = False
     return np.nan
 
 
 @njit(cache=True, nogil=True)
-def _probe(theta, expect, br, bc, k1, k2, x, t, u, tau, w, order_lo, order_hi):
+def _probe(theta, expect, br, bc, k1, k2, x, t, fw, iw):
     """Count the slopes <= theta (within the rounding margin) and tighten the
     bracket ``br`` (ends) / ``bc`` (their counts); ``expect`` is the count
     expected there.  By insertion from the nearer end's order when few
     slopes should lie between, else by a merge sort."""
-    n = len(u)
-    key, idx = w.key[:n], w.idx[:n]
+    n = len(x)
+    u, tau, key, idx = fw[0, :n], fw[1, :n], fw[2, :n], iw[0, :n]
+    order_lo, order_hi = iw[2, :n], iw[3, :n]
     from_lo, from_hi = expect - bc[0], bc[1] - expect
     if min(from_lo, from_hi) <= 24 * n + 256:
         lower = from_lo <= from_hi
         idx[:] = order_lo if lower else order_hi
-        c, _, _, _, _ = _resort(theta, u, tau, idx, key, bc[0] if lower else bc[1], x, t, 0.0, 0.0, False)
+        c, _, _, _, _ = _resort(theta, u, tau, idx, key, bc[0] if lower else bc[1], x, t, np.inf, -np.inf)
     else:
         for p in range(n):
             key[p] = u[p] - theta * tau[p]
             idx[p] = p
-        c = _sort_count(key, idx, w.wk[:n], w.wi[:n])
+        c = _sort_count(key, idx, fw[3, :n], iw[1, :n])
     if c < k1:
         br[0], bc[0] = theta, c
         order_lo[:] = idx
@@ -390,17 +426,14 @@ def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
     d0 = _delta(umax, tmax, max(abs(lo), abs(hi)))
     a, b = lo - 3 * d0, hi + 3 * d0
     d = _delta(umax, tmax, max(abs(a), abs(b)))
-    count_a, _, _, _, _ = _resort(a, u, tau, order_lo, key, clo, x, t, 0.0, 0.0, False)
-    _, only_a, below, found, nr = _resort(b, u, tau, order_lo, key, count_a, x, t, a + d, b - d, True)
+    count_a, _, _, _, _ = _resort(a, u, tau, order_lo, key, clo, x, t, np.inf, -np.inf)
+    _, only_a, below, found, nr = _resort(b, u, tau, order_lo, key, count_a, x, t, a + d, b - d)
     base = count_a - only_a + below
     l1, l2 = k1 - base, k2 - base  # 1-based ranks inside R
     if l1 < 1 or l2 > nr:
         return np.nan
     lower, upper = _kth(found, nr, l1 - 1)
     return lower if l2 == l1 else (lower + upper) / 2
-
-
-_Work = namedtuple("_Work", "u tau key idx wk wi order_lo order_hi sample")
 
 
 @njit(cache=True, nogil=True)
@@ -410,28 +443,20 @@ def _rows(xs, ts, starts, counts, rows, pairwise_max, k_final, S, t2, t3, slope)
     longest = 1
     for r in rows:
         longest = max(longest, counts[r])
-    w = _Work(
-        np.empty(longest),
-        np.empty(longest),
-        np.empty(longest),
-        np.empty(longest, dtype=np.int64),
-        np.empty(longest),
-        np.empty(longest, dtype=np.int64),
-        np.empty(longest, dtype=np.int64),
-        np.empty(longest, dtype=np.int64),
-        np.empty(max(1024, longest)),
-    )
+    fw = np.empty((4, longest))  # u, tau, key, merge work
+    iw = np.empty((4, longest), dtype=np.int64)  # order, merge work, order at lo, order at hi
+    sample = np.empty(max(1024, longest))
     order0 = np.empty(longest, dtype=np.int64)
     pair_buf = np.empty(pairwise_max * (pairwise_max - 1) // 2 if pairwise_max > 1 else 0)
     for r in rows:
         n = counts[r]
         x = xs[starts[r] : starts[r] + n]
         t = ts[starts[r] : starts[r] + n]
-        kv, iv = w.key[:n], w.idx[:n]
+        kv, iv = fw[2, :n], iw[0, :n]
         for p in range(n):
             kv[p] = x[p]
             iv[p] = p
-        disc = _sort_count(kv, iv, w.wk[:n], w.wi[:n])
+        disc = _sort_count(kv, iv, fw[3, :n], iw[1, :n])
         tie2, tie3 = 0, 0
         a = 0
         while a < n:  # tie groups: runs of the sorted values
@@ -451,7 +476,7 @@ def _rows(xs, ts, starts, counts, rows, pairwise_max, k_final, S, t2, t3, slope)
             slope[r] = _all_pairs(x, t, pair_buf)
             continue
         order0[:n] = iv
-        slope[r] = _sen(x, t, disc, tie2, order0[:n], k_final, w)
+        slope[r] = _sen(x, t, disc, tie2, order0[:n], k_final, fw, iw, sample)
     return 0
 
 
