@@ -332,7 +332,7 @@ def _sen(x, t, disc, ties, order0, k_final, fw, iw, sample_buf):
     c = _probe(theta, float(k1), br, bc, k1, k2, x, t, fw, iw)
     z = 2.0
     for _ in range(8):
-        if bc[1] - bc[0] <= 8 * n + 64:
+        if bc[1] - bc[0] <= n + 64:
             break
         if c >= k1 and c < k2:  # between the middle ranks: no side
             break
@@ -354,7 +354,7 @@ def _sen(x, t, disc, ties, order0, k_final, fw, iw, sample_buf):
         d = _delta(umax, tmax, max(abs(lo), abs(hi)))
         tiny = hi - lo <= 8 * d
         stalled = kprev < 1.5 * K
-        if K <= 8 * n + 64 or ((stalled or tiny) and K <= k_final):
+        if K <= n + 64 or ((stalled or tiny) and K <= k_final):
             return _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, fw[2, :n])
         if tiny:  # a cluster: one sampled slope in it
             m = 0
