@@ -23,7 +23,10 @@ are stepped through the programme together, 32 at a time, one pair per vector
 lane: each cell depends on its left neighbour, so a single pair is bound by
 that chain, while 32 independent chains fill the vector units. A lane does
 exactly the arithmetic a pair alone does, so an answer never depends on the
-other pairs of the batch. Odd pairs go alone, through the same code.
+other pairs of the batch. Odd pairs go alone, through the same code. The
+optimal path is found the same way: each lane keeps its whole band of
+cumulative costs (shapes of up to ``_TILE_PATH_CELLS`` cells, so that a tile's
+store stays small), and each pair's path is walked back from its own lane.
 
 The work of one call is done in pieces of about 0.1 s (a budget of cells):
 several tiles or pairs at a time, and the programme of a long tile or pair in
@@ -781,6 +784,12 @@ def dtw_path(a: Ragged, b: Ragged, band: int | None = None) -> RaggedRecords:
     References
     ----------
     Sakoe, H. & Chiba, S. (1978). IEEE Trans. ASSP 26(1), 43–49.
+
+    Examples
+    --------
+    >>> p = dtw_path(Ragged.from_list([[0.0, 1, 2]]), Ragged.from_list([[0.0, 1, 1, 2]]))
+    >>> p.fields["i"].tolist(), p.fields["j"].tolist()
+    ([1, 2, 2, 3], [1, 2, 3, 4])
     """
     usable = _usable(a, b)
     _check_path_size(a.lengths[usable], b.lengths[usable], band)
