@@ -437,21 +437,34 @@ def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
 
 
 @njit(cache=True, nogil=True)
-def _rows(xs, ts, starts, counts, rows, pairwise_max, k_final, S, t2, t3, slope):
-    """Mann–Kendall S, tie sums and Sen's slope for ``rows`` (present values
-    ``xs[starts[r] : starts[r] + counts[r]]`` at times ``ts[...]``)."""
+def _rows(values, offsets, rows, pairwise_max, k_final, counts, S, t2, t3, slope):
+    """Mann–Kendall S, tie sums and Sen's slope for ``rows`` of the flat
+    ``values`` (row ``r`` is ``values[offsets[r] : offsets[r + 1]]``; NaN is
+    missing).  ``counts`` gets each row's number of present values, or -1
+    for a row holding an infinite value (no answer)."""
     longest = 1
     for r in rows:
-        longest = max(longest, counts[r])
+        longest = max(longest, offsets[r + 1] - offsets[r])
+    xb, tb = np.empty(longest), np.empty(longest)
     fw = np.empty((4, longest))  # u, tau, key, merge work
     iw = np.empty((4, longest), dtype=np.int64)  # order, merge work, order at lo, order at hi
     sample = np.empty(max(1024, longest))
     order0 = np.empty(longest, dtype=np.int64)
     pair_buf = np.empty(pairwise_max * (pairwise_max - 1) // 2 if pairwise_max > 1 else 0)
     for r in rows:
-        n = counts[r]
-        x = xs[starts[r] : starts[r] + n]
-        t = ts[starts[r] : starts[r] + n]
+        n = 0
+        for p in range(offsets[r], offsets[r + 1]):
+            v = values[p]
+            if np.isinf(v):
+                n = -1
+                break
+            if not np.isnan(v):  # present: keeps its position as time
+                xb[n], tb[n] = v, p - offsets[r]
+                n += 1
+        counts[r] = n
+        if n < 3:
+            continue
+        x, t = xb[:n], tb[:n]
         kv, iv = fw[2, :n], iw[0, :n]
         for p in range(n):
             kv[p] = x[p]
@@ -480,14 +493,16 @@ def _rows(xs, ts, starts, counts, rows, pairwise_max, k_final, S, t2, t3, slope)
     return 0
 
 
-def _fall_back(xs, ts, starts, counts, rows, t2, slope) -> None:
+def _fall_back(values, offsets, counts, rows, t2, slope) -> None:
     """All pairs for a row whose exact selection failed (ruled out by the
     rounding margin, kept as a guard)."""
     for r in rows[np.isnan(slope[rows]) & (t2[rows] < counts[rows] * (counts[rows] - 1) // 2)]:
-        n = int(counts[r])
+        row = values[offsets[r] : offsets[r + 1]]
+        t = np.flatnonzero(~np.isnan(row)).astype(np.float64)
+        x = row[~np.isnan(row)]
+        n = len(x)
         if n * (n - 1) // 2 > _K_FINAL * 8:
             raise RuntimeError("trend_test: exact slope selection failed")
-        x, t = xs[starts[r] : starts[r] + n], ts[starts[r] : starts[r] + n]
         slope[r] = _all_pairs(x, t, np.empty(n * (n - 1) // 2))
 
 
@@ -550,26 +565,20 @@ def trend_test(batch: Ragged) -> dict[str, np.ndarray]:
     """
     n_rows = batch.n_rows
     tau, p_value, slope = full(n_rows), full(n_rows), full(n_rows)
-    values = np.asarray(batch.values, dtype=np.float64)
-    present = ~np.isnan(values)
-    row_ids = batch.row_ids
-    counts = np.bincount(row_ids[present], minlength=n_rows).astype(np.int64)
-    has_inf = np.bincount(row_ids[np.isinf(values)], minlength=n_rows) > 0
-    ok = batch.row_valid & (counts >= 3) & ~has_inf
-    xs = np.ascontiguousarray(values[present])
-    ts = batch.positions[present].astype(np.float64)
-    starts = np.zeros(n_rows, dtype=np.int64)
-    np.cumsum(counts[:-1], out=starts[1:])
-    S, t2, t3 = (np.zeros(n_rows, dtype=np.int64) for _ in range(3))
-    rows = np.flatnonzero(ok).astype(np.int64)
-    done = np.cumsum(counts[rows])
+    values = np.ascontiguousarray(batch.values, dtype=np.float64)
+    offsets = np.ascontiguousarray(batch.offsets, dtype=np.int64)
+    lengths = np.diff(offsets)
+    rows = np.flatnonzero(batch.row_valid & (lengths >= 3)).astype(np.int64)
+    counts, S, t2, t3 = (np.zeros(n_rows, dtype=np.int64) for _ in range(4))
+    done = np.cumsum(lengths[rows])
     begin = 0
     while begin < len(rows):  # pieces of about _PIECE values, a checkpoint between them
-        stop = max(begin + 1, int(np.searchsorted(done, done[begin] - counts[rows[begin]] + _PIECE, "right")))
-        _rows(xs, ts, starts, counts, rows[begin:stop], int(PAIRWISE_MAX), int(_K_FINAL), S, t2, t3, slope)
+        stop = max(begin + 1, int(np.searchsorted(done, done[begin] - lengths[rows[begin]] + _PIECE, "right")))
+        _rows(values, offsets, rows[begin:stop], int(PAIRWISE_MAX), int(_K_FINAL), counts, S, t2, t3, slope)
         checkpoint()
         begin = stop
-    _fall_back(xs, ts, starts, counts, rows, t2, slope)
+    rows = np.flatnonzero(counts >= 3)
+    _fall_back(values, offsets, counts, rows, t2, slope)
     n = counts[rows]
     n0 = n * (n - 1) // 2
     live = t2[rows] < n0
