@@ -371,6 +371,18 @@ def test_equal_shapes_stepped_together_agree_with_each_alone(count):
     # reference: dtaidistance.dtw.distance_fast; the unequal lengths here need no band
     expected = [reference.distance_fast(x, y, use_pruning=False) for x, y in zip(xs, ys)]
     np.testing.assert_allclose(dtw_distance(a, b), expected, rtol=RTOL)
+    # paths are traced side by side too, each from its own lane
+    for band in (None, 4):
+        together = dtw_path(a, b, band=band)
+        for r, (x, y) in enumerate(zip(xs, ys)):
+            one = dtw_path(*pair(x, y), band=band)
+            for field in ("i", "j"):
+                np.testing.assert_array_equal(together.row(r)[field], one.row(0)[field])
+    # reference: dtaidistance.dtw.warping_path (0-based cells); Gaussian values leave no tied paths
+    paths = dtw_path(a, b)
+    for r, (x, y) in enumerate(zip(xs, ys)):
+        cells = list(zip(paths.row(r)["i"] - 1, paths.row(r)["j"] - 1))
+        assert cells == [tuple(c) for c in reference.warping_path(x, y)]
 
 
 def test_unbanded_and_wide_bands_agree():

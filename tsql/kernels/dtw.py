@@ -23,7 +23,10 @@ are stepped through the programme together, 32 at a time, one pair per vector
 lane: each cell depends on its left neighbour, so a single pair is bound by
 that chain, while 32 independent chains fill the vector units. A lane does
 exactly the arithmetic a pair alone does, so an answer never depends on the
-other pairs of the batch. Odd pairs go alone, through the same code.
+other pairs of the batch. Odd pairs go alone, through the same code. The
+optimal path is found the same way: each lane keeps its whole band of
+cumulative costs (shapes of up to ``_TILE_PATH_CELLS`` cells, so that a tile's
+store stays small), and each pair's path is walked back from its own lane.
 
 The work of one call is done in pieces of about 0.1 s (a budget of cells):
 several tiles or pairs at a time, and the programme of a long tile or pair in
@@ -81,6 +84,9 @@ _BUDGET = 1 << 23
 #: band is kept), in those units.
 _TILE_COST = 4
 _PATH_COST = 2
+#: Largest band (in cells) of a shape whose paths are traced a tile at a time: the tile's store is ``_LANES``
+#: times that, 8 bytes a cell (4 MiB).
+_TILE_PATH_CELLS = 1 << 14
 
 
 # ---------------------------------------------------------------------------
@@ -267,6 +273,7 @@ def _distance_batch(av, aoff, bv, boff, order, group_starts, band, normalize, cu
     resumes at the same tile boundaries.
     """
     rolling = np.empty(2, dtype=np.int64)
+    zero, one, two = np.int64(0), np.int64(1), np.int64(2)  # not literals: one compiled _warp for every caller
     spent = 0
     while k < len(group_starts) - 1:
         first, stop = group_starts[k], group_starts[k + 1]
@@ -290,14 +297,14 @@ def _distance_batch(av, aoff, bv, boff, order, group_starts, band, normalize, cu
             spent += cost
             if count >= _PAD_FROM:
                 _load_tile(av, aoff, bv, boff, order, start, count, normalize, x, y)
-                _warp(x, y, w, cutoff, store, rolling, 2, totals, _LANES, 0, n)
+                _warp_rows(x, y, w, cutoff, store, rolling, two, totals, zero, n)
                 found = totals
             else:
                 count = 1
                 x1, y1 = np.empty((n, 1)), np.empty((m, 1))
-                _load_tile(av, aoff, bv, boff, order, start, 1, normalize, x1, y1)
+                _load_tile(av, aoff, bv, boff, order, start, one, normalize, x1, y1)
                 found = np.empty(1)
-                _warp(x1, y1, w, cutoff, np.empty((2 * width, 1)), rolling, 2, found, 1, 0, n)
+                _warp_rows(x1, y1, w, cutoff, np.empty((2 * width, 1)), rolling, two, found, zero, n)
             _put_distances(found, order, start, count, cutoff, out)
             start += count
         k += 1
@@ -361,17 +368,23 @@ def _trace(store, row_start, n, m, w, slot, out_i, out_j):
     At each cell the cheapest neighbour, preferring on a tie the diagonal, then
     the cell above (i - 1, j), then the cell to the left (i, j - 1). Returns its length.
     """
+    return _trace_lane(store, row_start, n, m, w, slot, out_i, out_j, np.int64(0))
+
+
+@njit(cache=True, nogil=True)
+def _trace_lane(store, row_start, n, m, w, slot, out_i, out_j, lane):
+    """:func:`_trace` on column ``lane`` of ``store`` (one pair of a tile)."""
     inf = np.inf
     k = slot + n + m - 2
     i, j = n - 1, m - 1
     out_i[k], out_j[k] = i, j
     while i > 0 or j > 0:
         lo, hi = _row_bounds(i, m, w)
-        left = store[row_start[i] + j - 1 - lo, 0] if j > lo else inf
+        left = store[row_start[i] + j - 1 - lo, lane] if j > lo else inf
         if i > 0:
             plo, phi = _row_bounds(i - 1, m, w)
-            above = store[row_start[i - 1] + j - plo, 0] if j <= phi else inf
-            diagonal = store[row_start[i - 1] + j - 1 - plo, 0] if j > plo else inf
+            above = store[row_start[i - 1] + j - plo, lane] if j <= phi else inf
+            diagonal = store[row_start[i - 1] + j - 1 - plo, lane] if j > plo else inf
         else:
             above = diagonal = inf
         if diagonal <= above and diagonal <= left:
@@ -418,21 +431,98 @@ def _path_batch(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths, 
         store = np.empty((row_start[n], 1))
         x = av[aoff[r] : aoff[r + 1]].copy().reshape((n, 1))
         y = bv[boff[r] : boff[r + 1]].copy().reshape((m, 1))
-        _warp(x, y, w, np.inf, store, row_start, n, np.empty(1), 1, 0, n)
+        _warp_rows(x, y, w, np.inf, store, row_start, n, np.empty(1), np.int64(0), n)
         lengths[r] = _trace(store, row_start, n, m, w, slots[r], out_i, out_j)
         r += 1
     return r, False
 
 
+@njit(cache=True, nogil=True)
+def _path_tiles(av, aoff, bv, boff, order, group_starts, band, slots, out_i, out_j, lengths, k, start, budget):
+    """Paths of the rows ``order``, grouped by shape (``group_starts``), from group ``k``, position ``start``
+    on, until about ``budget`` units of work are done; returns where to go on, and whether it stopped at a
+    group whose pairs are each more than the budget (:func:`_long_path` does those).
+
+    As :func:`_distance_batch`, pairs of one shape are stepped through the
+    programme ``_LANES`` at a time, each lane keeping its whole band (a tile's
+    store is ``_LANES`` times a pair's, so only shapes of at most
+    ``_TILE_PATH_CELLS`` band cells are tiled); each lane is then walked back
+    (:func:`_trace_lane`). A lane's costs are those of the pair alone, so the
+    paths are too.
+    """
+    zero, one, off = np.int64(0), np.int64(1), np.bool_(False)  # not literals: one compiled _warp for every caller
+    spent = 0
+    while k < len(group_starts) - 1:
+        first, stop = group_starts[k], group_starts[k + 1]
+        start = max(start, first)
+        r0 = order[first]
+        n, m = aoff[r0 + 1] - aoff[r0], boff[r0 + 1] - boff[r0]
+        w = _half_width(n, m, band)
+        cells = _band_cells(n, m, w)
+        if cells * _PATH_COST > budget:
+            return k, start, True
+        row_start = _path_rows(n, m, w)
+        tiled = row_start[n] <= _TILE_PATH_CELLS
+        if tiled and stop - start >= _PAD_FROM:
+            x, y = np.empty((n, _LANES)), np.empty((m, _LANES))
+            store, totals = np.empty((row_start[n], _LANES)), np.empty(_LANES)
+        while start < stop:
+            count = min(stop - start, _LANES)
+            lanes = _LANES if tiled and count >= _PAD_FROM else 1
+            count = count if lanes == _LANES else 1
+            cost = cells * (_TILE_COST if lanes == _LANES else _PATH_COST)
+            if spent > 0 and spent + cost > budget:
+                return k, start, False
+            spent += cost
+            if lanes == _LANES:
+                _load_tile(av, aoff, bv, boff, order, start, count, off, x, y)
+                _warp_rows(x, y, w, np.inf, store, row_start, n, totals, zero, n)
+                for g in range(count):
+                    r = order[start + g]
+                    lengths[r] = _trace_lane(store, row_start, n, m, w, slots[r], out_i, out_j, g)
+            else:
+                r = order[start]
+                x1, y1 = np.empty((n, 1)), np.empty((m, 1))
+                _load_tile(av, aoff, bv, boff, order, start, one, off, x1, y1)
+                store1 = np.empty((row_start[n], 1))
+                _warp_rows(x1, y1, w, np.inf, store1, row_start, n, np.empty(1), zero, n)
+                lengths[r] = _trace(store1, row_start, n, m, w, slots[r], out_i, out_j)
+            start += count
+        k += 1
+    return k, start, False
+
+
+@njit(cache=True, nogil=True)
+def _one_based(out_i, out_j, slots, offsets, i, j):
+    """Each path from the front of its slot to ``offsets``, 1-based."""
+    for r in range(len(offsets) - 1):
+        start = slots[r]
+        for k in range(offsets[r + 1] - offsets[r]):
+            i[offsets[r] + k] = out_i[start + k] + 1
+            j[offsets[r] + k] = out_j[start + k] + 1
+
+
 def _paths(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths):
-    """:func:`_path_batch` in pieces of about ``_BUDGET`` units, with a :func:`checkpoint` between them."""
-    r = 0
-    while r < len(usable):
-        r, long = _path_batch(av, aoff, bv, boff, usable, band, slots, out_i, out_j, lengths, r, _BUDGET)
+    """:func:`_path_tiles` over the usable pairs grouped by shape, in pieces of about ``_BUDGET`` units, with a
+    :func:`checkpoint` between them; ``lengths`` of the other rows are 0."""
+    lengths[~usable] = 0
+    a_len, b_len = np.diff(aoff), np.diff(boff)
+    rows = np.flatnonzero(usable)
+    order = rows[np.lexsort((b_len[rows], a_len[rows]))].astype(np.int64)
+    na, nb = a_len[order], b_len[order]
+    change = np.flatnonzero((np.diff(na) != 0) | (np.diff(nb) != 0)) + 1
+    group_starts = np.concatenate(([0], change, [len(order)])).astype(np.int64) if len(order) else np.zeros(1, np.int64)
+    k, start, groups = 0, 0, len(group_starts) - 1
+    while k < groups:
+        k, start, long = _path_tiles(
+            av, aoff, bv, boff, order, group_starts, band, slots, out_i, out_j, lengths, k, start, _BUDGET
+        )
         checkpoint()
         if long:
-            _long_path(av, aoff, bv, boff, r, band, slots, out_i, out_j, lengths)
-            r += 1
+            for r in order[group_starts[k] : group_starts[k + 1]]:
+                _long_path(av, aoff, bv, boff, r, band, slots, out_i, out_j, lengths)
+                checkpoint()
+            k += 1
     return lengths
 
 
@@ -694,6 +784,12 @@ def dtw_path(a: Ragged, b: Ragged, band: int | None = None) -> RaggedRecords:
     References
     ----------
     Sakoe, H. & Chiba, S. (1978). IEEE Trans. ASSP 26(1), 43–49.
+
+    Examples
+    --------
+    >>> p = dtw_path(Ragged.from_list([[0.0, 1, 2]]), Ragged.from_list([[0.0, 1, 1, 2]]))
+    >>> p.fields["i"].tolist(), p.fields["j"].tolist()
+    ([1, 2, 2, 3], [1, 2, 3, 4])
     """
     usable = _usable(a, b)
     _check_path_size(a.lengths[usable], b.lengths[usable], band)
@@ -707,8 +803,8 @@ def dtw_path(a: Ragged, b: Ragged, band: int | None = None) -> RaggedRecords:
     _paths(av, aoff, bv, boff, usable, _band_code(band), slots, out_i, out_j, lengths)
     offsets = np.zeros(a.n_rows + 1, dtype=np.int64)
     np.cumsum(lengths, out=offsets[1:])
-    keep = np.repeat(slots[:-1], lengths) + (np.arange(offsets[-1]) - np.repeat(offsets[:-1], lengths))
-    fields = {"i": out_i[keep] + 1, "j": out_j[keep] + 1}
+    fields = {"i": np.empty(offsets[-1], dtype=np.int64), "j": np.empty(offsets[-1], dtype=np.int64)}
+    _one_based(out_i, out_j, slots, offsets, fields["i"], fields["j"])
     return RaggedRecords(fields, offsets, None if usable.all() else usable)
 
 
