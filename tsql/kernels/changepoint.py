@@ -998,8 +998,10 @@ def _pelt(
     ``until`` when to narrow it next): a start is compared with newer ones
     ``c`` as they are admitted (at ``t = c + min_size``, where PELT's grace
     ends) and retired at once when it cannot be best again. PELT's rule is the
-    case where it cannot be best at any segment parameters. Both searches give
-    the same answer, bit for bit; ``functional=False`` is kept for the
+    case where it cannot be best at any segment parameters. Both give the
+    exact optimum's answer, except that PELT's margin can be smaller than the
+    rounding of 'trend' costs on exact lines (zero residuals, penalty 0),
+    where it may drop an optimal start; ``functional=False`` is kept for the
     benchmark and the tests that compare them.
     """
     F[0] = -beta
