@@ -1,6 +1,7 @@
 """The PELT kernel against ruptures' exact PELT and against the SQL list-building floor.
 
     python -m benchmarks.pelt_kernel [--n 3000] [--series 4000] [--points 500] [--long 1000000,3000000] [--repeat 5]
+                                     [--calm 100000] [--calm-long 1000000] [--old-repeat 3]
 
 1. One series of ``--n`` points, model 'mean', BIC penalty: tsql's change_points against
    ``ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma^2)`` (ruptures'
@@ -12,6 +13,10 @@
 3. One series of each ``--long`` length with a single level shift in the middle, model 'mean', BIC
    penalty: where PELT keeps almost every candidate start of the two long segments and functional
    pruning (FPOP) keeps a few dozen; seconds per point should stay about flat as n grows.
+4. One series of ``--calm`` points with a single level shift (1 sigma) in the middle, models
+   'meanvar' and 'trend', BIC penalty: the search with geometric functional pruning (the kernel
+   as shipped) against plain PELT on the same sums, in turns (same answer checked), medians; then
+   ``--calm-long`` points with the pruning alone.
 
 All figures are medians of wall-clock times measured in this one run.
 """
@@ -20,13 +25,14 @@ from __future__ import annotations
 
 import argparse
 import math
+import statistics
 import time
 
 import numba
 import numpy as np
 
 from benchmarks.data import piecewise
-from benchmarks.harness import median_seconds
+from benchmarks.harness import interleaved, median_seconds, timed
 from benchmarks.loops import mad_sigma as sigma_first
 from tsql.kernels import changepoint
 from tsql.kernels.ragged import Ragged
@@ -117,6 +123,60 @@ def one_change(lengths: list[int], repeat: int) -> None:
         print(f"   {n:>10,} points   {seconds:7.3f} s   {seconds / n * 1e9:6.0f} ns/point   changes at {found}")
 
 
+def pelt_search(x: np.ndarray, model: str, functional: bool) -> np.ndarray:
+    """The kernel's sums and search for one series without gaps, BIC penalty; the last-segment starts."""
+    spec = changepoint.MODELS[model]
+    m = len(x)
+    stats = np.empty((changepoint.MAX_STATS, m + 1))
+    changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, stats, np.empty(2 * m + 2))
+    last = np.empty(m + 1, dtype=np.int64)
+    changepoint._pelt(
+        spec.code,
+        spec.n_stats,
+        stats,
+        m,
+        spec.params_per_change * math.log(m),
+        np.empty(m + 1),
+        False,
+        2,
+        np.empty(m + 1),
+        last,
+        np.empty(m + 1),
+        np.empty((changepoint.MAX_STATS, m + 1)),
+        np.empty(m + 1),
+        np.empty(m + 1),
+        np.empty(m + 1),
+        np.empty((changepoint._BOX_ROWS, m + 1)),
+        functional,
+    )
+    return last
+
+
+def calm(n: int, n_long: int, repeat: int, old_repeat: int) -> None:
+    print("4. one series with one level shift (1 sigma) in the middle, BIC penalty: pruning vs plain PELT")
+    for model in ("meanvar", "trend"):
+        rng = np.random.default_rng(1)
+        x = rng.standard_normal(n) + 1.0 * (np.arange(n) >= n // 2)
+        same = np.array_equal(pelt_search(x, model, True), pelt_search(x, model, False))
+        runs = {
+            "pruned": lambda x=x, model=model: pelt_search(x, model, True),
+            "plain": lambda x=x, model=model: pelt_search(x, model, False),
+        }
+        times = interleaved(runs, old_repeat)
+        pruned = statistics.median(times["pruned"] + [timed(runs["pruned"]) for _ in range(repeat - old_repeat)])
+        plain = statistics.median(times["plain"])
+        found = [int(v) for v in changepoint.change_points(Ragged.from_list([x]), model).values]
+        print(f"   '{model}' {n:,} points: same search result {same}; changes at {found}")
+        print(f"      geometric pruning {pruned:8.3f} s   plain PELT {plain:8.3f} s   ratio {plain / pruned:,.0f}x")
+        if n_long:
+            batch = Ragged.from_list([rng.standard_normal(n_long) + 1.0 * (np.arange(n_long) >= n_long // 2)])
+            seconds = median_seconds(lambda b=batch, model=model: changepoint.change_points(b, model), repeat)
+            found = [int(v) for v in changepoint.change_points(batch, model).values]
+            print(
+                f"      {n_long:,} points: {seconds:.3f} s ({seconds / n_long * 1e9:.0f} ns/point), changes at {found}"
+            )
+
+
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--n", type=int, default=3000)
@@ -124,14 +184,24 @@ def main() -> None:
     parser.add_argument("--points", type=int, default=500)
     parser.add_argument("--long", default="1000000,3000000", help="comma-separated lengths for part 3")
     parser.add_argument("--repeat", type=int, default=5)
+    parser.add_argument("--calm", type=int, default=100000, help="length for part 4 (0: skip)")
+    parser.add_argument("--calm-long", type=int, default=1000000, help="longer length for part 4, pruning only")
+    parser.add_argument("--old-repeat", type=int, default=3, help="runs of plain PELT in part 4")
+    parser.add_argument("--parts", default="1,2,3,4")
     parser.add_argument("--ruptures-repeat", type=int, default=3)
     args = parser.parse_args()
     start = time.perf_counter()
     changepoint.change_points(Ragged.from_list([np.arange(10.0) % 3]))
     print(f"first call (numba: load from cache, or compile): {time.perf_counter() - start:.2f} s")
-    single_series(args.n, max(args.repeat, 21), args.ruptures_repeat)
-    many_series(args.series, args.points, args.repeat)
-    one_change([int(v) for v in args.long.split(",") if v], args.repeat)
+    parts = set(args.parts.split(","))
+    if "1" in parts:
+        single_series(args.n, max(args.repeat, 21), args.ruptures_repeat)
+    if "2" in parts:
+        many_series(args.series, args.points, args.repeat)
+    if "3" in parts:
+        one_change([int(v) for v in args.long.split(",") if v], args.repeat)
+    if "4" in parts and args.calm:
+        calm(args.calm, args.calm_long, args.repeat, args.old_repeat)
 
 
 if __name__ == "__main__":

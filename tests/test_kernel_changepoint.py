@@ -553,3 +553,239 @@ def test_a_forked_process_gets_the_same_answers():
         child.join()
     assert child.exitcode == 0
     assert receiver.poll() and receiver.recv() == expected
+
+
+# --------------------------------------------------------------------------- geometric functional pruning
+
+
+def search(x, model: str, penalty, min_size: int, functional: bool = True):
+    """The kernel's own standardised sums of a series' present values, then its search: (F, last, stats).
+
+    ``functional=False`` is plain PELT (Killick et al. 2012, K = 0), which drops a start only once
+    it is worse than the optimum so far: the search the pruning must agree with bit for bit.
+    """
+    spec = changepoint.MODELS[model]
+    x = np.asarray(x, dtype=float)
+    keep = ~np.isnan(x)
+    y = x[keep].copy()
+    p = np.flatnonzero(keep).astype(np.int64)
+    m = len(y)
+    stats = np.empty((changepoint.MAX_STATS, m + 1))
+    assert changepoint._prepare(spec.code, y, p, m, stats, np.empty(2 * m + 2))
+    log_m = math.log(m)
+    beta = spec.params_per_change * log_m if penalty == "bic" else 3 * log_m if penalty == "mbic" else float(penalty)
+    length_term = np.r_[0.0, np.log(np.arange(1, m + 1)) - log_m]
+    F = np.empty(m + 1)
+    last = np.empty(m + 1, dtype=np.int64)
+    changepoint._pelt(
+        spec.code,
+        spec.n_stats,
+        stats,
+        m,
+        beta,
+        length_term,
+        penalty == "mbic",
+        min_size,
+        F,
+        last,
+        np.empty(m + 1),
+        np.empty((changepoint.MAX_STATS, m + 1)),
+        np.empty(m + 1),
+        np.empty(m + 1),
+        np.empty(m + 1),
+        np.empty((changepoint._BOX_ROWS, m + 1)),
+        functional,
+    )
+    return F, last, stats, beta
+
+
+def search_reference(stats, model: str, beta: float, mbic: bool, min_size: int):
+    """Optimal partitioning (Jackson et al. 2005) on the same sums, every start for each end: O(m^2).
+
+    The costs as segments() defines them, written out in numpy: 'meanvar' L log(var + 1e-4) of the
+    standardised values, 'trend' the RSS of the least-squares line against the positions.
+    """
+    m = stats.shape[1] - 1
+    best = np.full(m + 1, np.inf)
+    best[0] = -beta
+    last = np.zeros(m + 1, dtype=int)
+    for end in range(min_size, m + 1):
+        start = np.arange(end - min_size + 1)
+        length = (end - start).astype(float)
+        if model == "meanvar":
+            mean = (stats[0, end] - stats[0, start]) / length
+            var = np.maximum((stats[1, end] - stats[1, start]) / length - mean**2, 0.0)
+            cost = length * np.log(var + FLOOR)
+        else:
+            d = stats[:, end, None] - stats[:, start]
+            tt = length * d[1] - d[0] ** 2
+            tx = length * d[4] - d[0] * d[2]
+            xx = length * d[3] - d[2] ** 2
+            with np.errstate(divide="ignore", invalid="ignore"):
+                cost = np.where(tt > 0, np.maximum((xx * tt - tx**2) / (tt * length), 0.0), 0.0)
+        total = best[start] + cost + (np.log(length / m) if mbic else 0.0)
+        last[end] = int(np.argmin(total))  # the first of equal totals: the earliest start
+        best[end] = total[last[end]] + beta
+    return best, last
+
+
+def chain(last) -> list[int]:
+    starts, end = [], len(last) - 1
+    while end > 0:
+        end = int(last[end])
+        starts.append(end)
+    return sorted(starts)[1:]
+
+
+def hard_series(rng, kind: str, n: int, model: str) -> np.ndarray:
+    """Series chosen to stress the pruning: long calm stretches, many changes, ties, constants, gaps."""
+    t = np.arange(n, dtype=float)
+    if kind == "calm":  # one change in a long homogeneous series
+        x = rng.standard_normal(n) + (1.0 if model == "meanvar" else 0.0) * (t >= n // 2)
+        return x * (1 + 2 * (t >= n // 2)) if model == "meanvar" else x + 0.02 * np.maximum(t - n // 2, 0)
+    if kind == "many":
+        return piecewise(rng, n, n // 15, model)
+    if kind == "ties":  # exact repeats: many segmentations cost exactly the same
+        return np.tile([0.0, 0.0, 1.0, 1.0, 0.0, 3.0], n // 6 + 1)[:n]
+    if kind == "constant":  # constant stretches (the variance floor binds) between noisy ones
+        x = rng.standard_normal(n)
+        x[n // 5 : 2 * n // 5] = 4.0
+        x[3 * n // 5 : 4 * n // 5] = -1.0 + 0.5 * t[3 * n // 5 : 4 * n // 5] * (model == "trend")
+        return x
+    if kind == "offset":  # a large offset and a steep trend, with gaps
+        x = 1e4 + 3.0 * t + rng.standard_normal(n) * 2 + 40 * (t > n / 3)
+        x[rng.integers(0, n, n // 10)] = np.nan
+        return x
+    raise ValueError(kind)
+
+
+@pytest.mark.parametrize("model", ["meanvar", "trend"])
+def test_geometric_pruning_equals_optimal_partitioning(model):
+    # reference: search_reference above (numpy, no pruning at all) on the kernel's own sums, so the
+    # check is of the search alone, whatever noise scale the model uses; every kind of hard series,
+    # numeric penalties from 0, 'bic', 'mbic', min_size up to 7
+    rng = np.random.default_rng({"meanvar": 41, "trend": 42}[model])
+    checked = identical = 0
+    for kind in ("calm", "many", "ties", "constant", "offset"):
+        x = hard_series(rng, kind, int(rng.integers(400, 900)), model)
+        if kind == "many":
+            x[rng.integers(0, len(x), 30)] = np.nan
+        for penalty, min_size in ((0.0, 2), (0.5, 3), (5.0, 2), ("bic", 2), ("bic", 7), ("mbic", 2), ("mbic", 5)):
+            F, last, stats, beta = search(x, model, penalty, min_size)
+            F_ref, last_ref = search_reference(stats, model, beta, penalty == "mbic", min_size)
+            where = f"{kind} {penalty} {min_size}"
+            np.testing.assert_allclose(F[min_size:], F_ref[min_size:], rtol=1e-12, atol=1e-9, err_msg=where)
+            if (last[min_size:] == last_ref[min_size:]).all():
+                identical += 1
+            else:
+                # only exact ties (a constant stretch cut anywhere costs the same under the floor)
+                # may go either way, by the rounding of numba's arithmetic against numpy's
+                assert kind == "constant" and penalty == 0.0, where
+            # plain PELT on the same sums, where it found the optimum too: the same numbers, bit for bit
+            F_old, last_old, _, _ = search(x, model, penalty, min_size, functional=False)
+            if (last_old[min_size:] == last_ref[min_size:]).all():
+                np.testing.assert_array_equal(last, last_old, err_msg=where)
+                np.testing.assert_array_equal(F, F_old, err_msg=where)
+            checked += len(chain(last))
+    assert checked > 500 and identical >= 33
+
+
+def test_boxes_keep_the_optimum_on_an_exact_line_with_penalty_zero():
+    # reference: search_reference above. On an exact line (zero residuals, costs that are rounding
+    # noise) with penalty 0, a margin smaller than the rounding of the 'trend' costs would drop
+    # optimal starts (plain PELT's 1e-9 (1 + |F|) can, depending on the scale); the boxes leave one
+    x = hard_series(np.random.default_rng(42), "constant", 1288, "trend")
+    F, last, stats, beta = search(x, "trend", 0.0, 2)
+    F_ref, last_ref = search_reference(stats, "trend", beta, False, 2)
+    np.testing.assert_array_equal(last, last_ref)
+
+
+@pytest.mark.parametrize("model", ["meanvar", "trend"])
+def test_geometric_pruning_on_long_calm_series(model):
+    # reference: plain PELT on the same sums, 10,000 points with one change: where plain PELT keeps
+    # thousands of starts and the boxes keep a few hundred; a series of white noise alone as well
+    rng = np.random.default_rng(45)
+    for x in (hard_series(rng, "calm", 10000, model), rng.standard_normal(10000)):
+        for penalty in ("bic", 3.0):
+            F_new, last_new, _, _ = search(x, model, penalty, 2)
+            F_old, last_old, _, _ = search(x, model, penalty, 2, functional=False)
+            np.testing.assert_array_equal(last_new, last_old)
+            np.testing.assert_array_equal(F_new, F_old)
+
+
+def test_meanvar_cost_is_a_least_sum_of_point_losses():
+    # the premise of the pruning: L log(var + floor) = min over (mu, v) of
+    # sum of log v + ((z - mu)^2 + floor) / v - 1; checked with scipy's optimiser (an outside minimiser)
+    from scipy.optimize import minimize
+
+    rng = np.random.default_rng(46)
+    for z in (rng.normal(0.3, 0.7, 9), np.full(5, 2.0), rng.normal(0, 0.005, 12)):
+
+        def total(theta, z=z):
+            mu, w = theta
+            return float(np.sum(w + ((z - mu) ** 2 + FLOOR) * np.exp(-w) - 1.0))
+
+        found = minimize(total, x0=[0.0, 0.0], method="Nelder-Mead", options={"xatol": 1e-10, "fatol": 1e-12})
+        assert found.fun == pytest.approx(len(z) * math.log(np.var(z) + FLOOR), abs=1e-7)
+
+
+def test_log_variance_range_brackets_the_roots():
+    # reference: scipy.optimize.brentq on u + expm1(-u) - g (u + exp(-u) = 1 + g; its roots are
+    # 1 + g + W(-exp(-1 - g)) on Lambert W's branches 0 and -1, which scipy's lambertw loses near
+    # the branch point for small g)
+    from scipy.optimize import brentq
+
+    for g in (1e-12, 1e-9, 1e-6, 1e-3, 0.05, 0.25, 0.26, 1.0, 3.0, 40.0, 700.0, 1e5):
+        lo, hi = changepoint._log_variance_range(g)
+
+        def f(u, g=g):
+            return u + math.expm1(-u) - g
+
+        right = brentq(f, 0.0, 2.0 + g, xtol=1e-300, rtol=1e-15)
+        left = brentq(f, -math.log1p(g) - 2.0, 0.0, xtol=1e-300, rtol=1e-15)
+        assert lo <= left < 0 < right <= hi, g
+        # and close: a few Newton steps from good starts
+        assert hi - right <= 1e-3 * right and left - lo <= 1e-3 * -left, g
+
+
+def test_box_clipping_and_cutting_against_sampled_points():
+    # reference: a dense grid of points of the box; _clip_ellipse must keep every point of the box in
+    # the ellipse (and be tight), _cut_ellipse every point of the box outside it
+    rng = np.random.default_rng(47)
+    for _ in range(120):
+        centre = rng.normal(0, 1, 2)
+        root = rng.normal(0, 1, (2, 2))
+        a = root @ root.T + 0.05 * np.eye(2)
+        r = rng.exponential(1.0)
+        lo = rng.normal(0, 1, 2) - rng.exponential(1.0, 2)
+        hi = lo + rng.exponential(1.5, 2)
+        grid = np.linspace(0.0, 1.0, 201)
+        pts = lo + np.stack(np.meshgrid(grid, grid), axis=-1).reshape(-1, 2) * (hi - lo)
+        inside = np.einsum("ij,jk,ik->i", pts - centre, a, pts - centre) <= r
+        args = (centre[0], centre[1], a[0, 0], a[0, 1], a[1, 1], r)
+        box = np.array([[lo[0]], [hi[0]], [lo[1]], [hi[1]]])
+        met = changepoint._clip_ellipse(box, 0, *args)
+        if inside.any():
+            assert met
+            kept = pts[inside]
+            assert (kept[:, 0] >= box[0, 0]).all() and (kept[:, 0] <= box[1, 0]).all()
+            assert (kept[:, 1] >= box[2, 0]).all() and (kept[:, 1] <= box[3, 0]).all()
+            # tight: just inside each side of the clipped box, the ellipse's cross-section (in closed
+            # form) still meets the old box's range of the other parameter
+            det = a[0, 0] * a[1, 1] - a[0, 1] ** 2
+            for k, side in ((0, box[0, 0]), (0, box[1, 0]), (1, box[2, 0]), (1, box[3, 0])):
+                other = 1 - k
+                x = side + (1e-6 if side in (box[0, 0], box[2, 0]) else -1e-6) * (hi[k] - lo[k])
+                d = x - centre[k]
+                reach = (r - det / a[other, other] * d * d) / a[other, other]
+                assert reach >= 0
+                mid = centre[other] - a[0, 1] / a[other, other] * d
+                assert mid - math.sqrt(reach) <= hi[other] and mid + math.sqrt(reach) >= lo[other]
+        box = np.array([[lo[0]], [hi[0]], [lo[1]], [hi[1]]])
+        gone = changepoint._cut_ellipse(box, 0, *args)
+        outside = pts[~inside]
+        if gone:
+            assert len(outside) == 0
+        else:
+            assert (outside[:, 0] >= box[0, 0]).all() and (outside[:, 0] <= box[1, 0]).all()
+            assert (outside[:, 1] >= box[2, 0]).all() and (outside[:, 1] <= box[3, 0]).all()

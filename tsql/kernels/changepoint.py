@@ -1,8 +1,11 @@
 """Change points: where a series' level, spread or trend changes, by exact penalised segmentation.
 
 A series is cut where ``sum of segment costs + penalty x number of changes``
-is least. The search (PELT, with functional pruning for 'mean') is exact and
-kept apart from the cost models; :func:`segments` and :func:`change_points`
+is least. The search is exact and kept apart from the cost models: PELT
+(Killick, Fearnhead & Eckley 2012), pruned functionally for 'mean' (FPOP,
+Maidstone et al. 2017) and geometrically for 'meanvar' and 'trend' (boxes of
+the parameters where a start can still be best; Pishchagina, Rigaill & Runge
+2024), so one change in a long series costs little more than its length; :func:`segments` and :func:`change_points`
 give the optimum at one penalty (optionally with at most ``max_changes``
 changes), :func:`change_points_path` every optimum as the penalty varies.
 Cycles are removed first (``seasonal``). How the costs, noise scale and
@@ -435,6 +438,18 @@ _SQUARES_MARGIN = 1e-12
 #: steps between pruning passes
 PRUNE_EVERY = 4
 
+#: geometric functional pruning ('meanvar', 'trend'): a start of age ``a`` is narrowed again
+#: after ``a * _REVISIT`` steps (young starts every step: they go soonest; old ones change little)
+_REVISIT = 1.0 / 8.0
+
+#: ... and each time tested against this many older starts' regions of victory: the one it
+#: remembers and others drawn by a fixed rule from those kept
+_EXCLUSIONS = 3
+
+#: geometric functional pruning ('meanvar', 'trend') widens its boxes by this share, for
+#: rounding in their own arithmetic
+_BOX_SLACK = 1e-9
+
 
 # --------------------------------------------------------------------------- search
 
@@ -529,6 +544,395 @@ def _narrow_mean(stats, m, rows, starts, f_start, bounds, n, c, f_c, length_term
     return retired
 
 
+# Geometric functional pruning for the two-parameter models. Both costs are a minimum over a
+# segment's parameters theta of a sum of per-point losses (for 'meanvar' with
+# l(z; mu, v) = log v + ((z - mu)^2 + floor) / v - 1, whose minimum over a segment is
+# L log(var + floor)), so with g_s(theta, t) = F(s) + sum_{s<=i<t} l(z_i; theta) the difference
+# g_s - g_c = D_sc(theta) = F(s) - F(c) + sum_{s<=i<c} l(z_i; theta) of an older start s and a
+# newer c does not depend on t. If s is best (or tied) at t, then at its own optimum theta_s(t),
+# g_s <= min g_c <= g_c: theta_s(t) lies in every R_sc = {D_sc <= 0} (s needs c's parameters to
+# be beaten by its own), and outside every {D_es < 0} of an older e (where e beats s). Each
+# start keeps a box holding what is left of its parameter plane, and goes when it is empty.
+
+#: rows of the pruning state per start: the box (4), an older start, its region (6), position
+_BOX_ROWS = 12
+
+
+@njit(cache=True, error_model="numpy")
+def _rounding_scale(code, stats, m) -> float:
+    """A bound on rounding in any computed segment cost: a share of the totals it is computed from.
+
+    Cumulative sums carry errors of a few ulps of their totals; 'meanvar' divides them by a
+    variance of at least VARIANCE_FLOOR, and 'trend' multiplies the values' sums with the
+    positions' (Cauchy-Schwarz: ``|sum p z| <= sqrt(sum p^2 sum z^2)``).
+    """
+    if code == MEAN:
+        return _SQUARES_MARGIN * stats[1, m]
+    if code == MEANVAR:
+        return _SQUARES_MARGIN * stats[1, m] / VARIANCE_FLOOR
+    return _SQUARES_MARGIN * (stats[3, m] + math.sqrt(stats[3, m] * stats[1, m]))
+
+
+@njit(cache=True, error_model="numpy")
+def _log_variance_range(g) -> tuple[float, float]:
+    """Outer bounds on the two roots of ``u + exp(-u) = 1 + g``, ``g >= 0``.
+
+    ``f(u) = u + exp(-u) - 1 - g`` is convex with least value ``-g`` at 0, so Newton's
+    steps from a point outside a root (``f >= 0``) stay outside it. Starts: on the left
+    ``max(-sqrt(2 g), -log(1 + g) - 1)`` (there ``exp(-u) >= 1 - u + u^2/2``, and
+    ``exp(-u) >= e (1 + g)``); on the right ``r (1 + r)`` with ``r = sqrt(2 g)`` for
+    ``g <= 1/4`` (``exp(-u) >= 1 - u + u^2/2 - u^3/6``), else ``1 + g``. Every iterate is
+    a bound; the last is widened for rounding.
+    """
+    if not g > 0.0:
+        return -1e-12, 1e-12
+    r = math.sqrt(2.0 * g)
+    hi = r * (1.0 + r) if g <= 0.25 else 1.0 + g
+    lo = max(-r, -math.log1p(g) - 1.0)
+    for _ in range(3):
+        hi -= max((hi + math.expm1(-hi) - g) / -math.expm1(-hi), 0.0)
+        lo -= min((lo + math.expm1(-lo) - g) / -math.expm1(-lo), 0.0)
+    return lo - (_BOX_SLACK * (1.0 - lo) + 1e-12), hi + (_BOX_SLACK * (1.0 + hi) + 1e-12)
+
+
+@njit(cache=True, error_model="numpy")
+def _meanvar_fit(length, s1, s2) -> tuple[float, float, float]:
+    """Mean, variance + floor and cost ``L log(var + floor)`` of a segment, as :func:`_cost_meanvar` computes them."""
+    inv = 1.0 / length
+    mean = s1 * inv
+    v = max(s2 * inv - mean * mean, 0.0) + VARIANCE_FLOOR
+    return mean, v, length * math.log(v)
+
+
+@njit(cache=True, error_model="numpy")
+def _trend_fit(length, dt, dtt, dx, dxx, dtx) -> tuple[float, float, float, float, float]:
+    """Mean position, mean value, slope, ``sum (p - mean p)^2`` and RSS of a segment from its sums.
+
+    RSS as :func:`_cost_trend` computes it; slope 0 and spread 0 for one value.
+    """
+    tt = length * dtt - dt * dt
+    tx = length * dtx - dt * dx
+    xx = length * dxx - dx * dx
+    if tt > 0.0:
+        return dt / length, dx / length, tx / tt, tt / length, max((xx * tt - tx * tx) / (tt * length), 0.0)
+    return dt / length, dx / length, 0.0, 0.0, 0.0
+
+
+@njit(cache=True, error_model="numpy")
+def _clip_interval(box, j, k, lo, hi) -> bool:
+    """Side ``k`` of box ``j`` cut to ``[lo, hi]``; False if nothing is left."""
+    box[k, j] = max(box[k, j], lo)
+    box[k + 1, j] = min(box[k + 1, j], hi)
+    return box[k, j] <= box[k + 1, j]
+
+
+@njit(cache=True, error_model="numpy")
+def _cut_interval(box, j, k, p, q) -> bool:
+    """``[p, q]`` cut from side ``k`` of box ``j`` where it reaches an end; True if nothing is left."""
+    lo = box[k, j]
+    hi = box[k + 1, j]
+    if not p <= q:
+        return False
+    if p <= lo and hi <= q:
+        return True
+    if p <= lo <= q:
+        box[k, j] = q
+    elif p <= hi <= q:
+        box[k + 1, j] = p
+    return False
+
+
+@njit(cache=True, error_model="numpy")
+def _clip_ellipse(box, j, c0, c1, a00, a01, a11, r) -> bool:
+    """Box ``j`` shrunk to the bounding box of its meet with ``(x - c)' A (x - c) <= r``; False if empty.
+
+    Over the box's range of ``x1`` the least ``x0`` of the ellipse,
+    ``c0 - a01 / a00 d - sqrt((r - det / a00 d^2) / a00)`` with ``d = x1 - c1``, is convex
+    in ``d``: least at the ellipse's leftmost point or at the range's nearer end. Likewise
+    the greatest, and the same for ``x1``. ``A`` positive definite.
+    """
+    det = a00 * a11 - a01 * a01
+    lo0 = box[0, j]
+    hi0 = box[1, j]
+    lo1 = box[2, j]
+    hi1 = box[3, j]
+    widen = 1.0 + _BOX_SLACK
+    reach = widen * math.sqrt(r * a00 / det)
+    d_lo = max(lo1 - c1, -reach)
+    d_hi = min(hi1 - c1, reach)
+    if d_lo > d_hi:
+        return False
+    turn = a01 * math.sqrt(r / (a11 * det))
+    d = min(max(turn, d_lo), d_hi)
+    new_lo0 = c0 - a01 / a00 * d - widen * math.sqrt(max(r - det / a00 * d * d, 0.0) / a00)
+    d = min(max(-turn, d_lo), d_hi)
+    new_hi0 = c0 - a01 / a00 * d + widen * math.sqrt(max(r - det / a00 * d * d, 0.0) / a00)
+    reach = widen * math.sqrt(r * a11 / det)
+    d_lo = max(lo0 - c0, -reach)
+    d_hi = min(hi0 - c0, reach)
+    if d_lo > d_hi:
+        return False
+    turn = a01 * math.sqrt(r / (a00 * det))
+    d = min(max(turn, d_lo), d_hi)
+    new_lo1 = c1 - a01 / a11 * d - widen * math.sqrt(max(r - det / a11 * d * d, 0.0) / a11)
+    d = min(max(-turn, d_lo), d_hi)
+    new_hi1 = c1 - a01 / a11 * d + widen * math.sqrt(max(r - det / a11 * d * d, 0.0) / a11)
+    pad0 = _BOX_SLACK * (abs(new_lo0) + abs(new_hi0))
+    pad1 = _BOX_SLACK * (abs(new_lo1) + abs(new_hi1))
+    return _clip_interval(box, j, 0, new_lo0 - pad0, new_hi0 + pad0) and _clip_interval(
+        box, j, 2, new_lo1 - pad1, new_hi1 + pad1
+    )
+
+
+@njit(cache=True, error_model="numpy")
+def _cut_ellipse(box, j, c0, c1, a00, a01, a11, r) -> bool:
+    """The ellipse ``(x - c)' A (x - c) < r`` cut out of box ``j``; True if nothing is left.
+
+    A cross-section of the box lies in the (convex) ellipse when both its ends do, so
+    the box's edges decide: the strip of the box where both are inside goes.
+    """
+    det = a00 * a11 - a01 * a01
+    if not (r > 0.0 and det > 0.0):
+        return False
+    shrink = 1.0 - _BOX_SLACK
+    d_a = box[2, j] - c1
+    d_b = box[3, j] - c1
+    h_a = r - det / a00 * d_a * d_a
+    h_b = r - det / a00 * d_b * d_b
+    if h_a > 0.0 and h_b > 0.0:
+        h_a = shrink * math.sqrt(h_a / a00)
+        h_b = shrink * math.sqrt(h_b / a00)
+        m_a = c0 - a01 / a00 * d_a
+        m_b = c0 - a01 / a00 * d_b
+        pad = _BOX_SLACK * (abs(m_a) + abs(m_b))
+        if _cut_interval(box, j, 0, max(m_a - h_a, m_b - h_b) + pad, min(m_a + h_a, m_b + h_b) - pad):
+            return True
+    d_a = box[0, j] - c0
+    d_b = box[1, j] - c0
+    h_a = r - det / a11 * d_a * d_a
+    h_b = r - det / a11 * d_b * d_b
+    if h_a > 0.0 and h_b > 0.0:
+        h_a = shrink * math.sqrt(h_a / a11)
+        h_b = shrink * math.sqrt(h_b / a11)
+        m_a = c1 - a01 / a11 * d_a
+        m_b = c1 - a01 / a11 * d_b
+        pad = _BOX_SLACK * (abs(m_a) + abs(m_b))
+        return _cut_interval(box, j, 2, max(m_a - h_a, m_b - h_b) + pad, min(m_a + h_a, m_b + h_b) - pad)
+    return False
+
+
+@njit(cache=True, error_model="numpy")
+def _trend_ellipse(length, p_mean, z_mean, slope, spread, x0) -> tuple[float, float, float, float, float]:
+    """Centre and matrix of ``sum (z - level - b (p - x0))^2 - RSS`` in (level at ``x0``, slope ``b``).
+
+    About the fitted line it is ``L (level + b h - mean z)^2 + S (b - slope)^2``, ``h`` the
+    mean position's distance from ``x0`` and ``S = sum (p - mean p)^2``.
+    """
+    lever = p_mean - x0
+    a01 = length * lever
+    return z_mean - slope * lever, slope, length, a01, spread + a01 * lever
+
+
+@njit(cache=True, error_model="numpy")
+def _clip_meanvar(box, j, mean, v, g) -> bool:
+    """Box ``j`` (mean, log variance) shrunk to the bounding box of its meet with ``R``; False if empty.
+
+    ``R``: ``u + (1 + d^2 / V) e^-u <= 1 + g`` with ``d = mu - mean``, ``u = w - log V``.
+    Over the box's means (``|d| >= d_min``) ``w`` lies within ``log V + log k`` plus the
+    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_range`); over
+    its log variances ``d^2 <= V (e^u (1 + g - u) - 1)``, unimodal in ``u``, peak at ``g``.
+    """
+    lo0 = box[0, j]
+    hi0 = box[1, j]
+    d_min = lo0 - mean if lo0 > mean else (mean - hi0 if hi0 < mean else 0.0)
+    shift = math.log1p(d_min * d_min / v)
+    if not g - shift >= 0.0:
+        return False
+    u_lo, u_hi = _log_variance_range(g - shift)
+    log_v = math.log(v)
+    pad = _BOX_SLACK * abs(log_v)
+    u = min(max(g, box[2, j] - log_v), box[3, j] - log_v)
+    room = math.expm1(u) + math.exp(u) * (g - u)
+    if not room >= 0.0:
+        return False
+    half = (1.0 + _BOX_SLACK) * math.sqrt(v * room) + _BOX_SLACK * abs(mean)
+    return _clip_interval(box, j, 0, mean - half, mean + half) and _clip_interval(
+        box, j, 2, log_v + shift + u_lo - pad, log_v + shift + u_hi + pad
+    )
+
+
+@njit(cache=True, error_model="numpy")
+def _cut_meanvar(box, j, mean, v, log_v, length, room) -> bool:
+    """The region where ``sum over L values of l - L log V < room`` cut from box ``j``; True if nothing is left.
+
+    There ``d^2 < V (e^u (1 + g - u) - 1)`` (``g = room / L``, ``u = w - log V``), an
+    interval of means for each ``w``, and an interval of ``w`` for each mean (convex in
+    ``w``): the box's two ``w`` edges decide which means go; ``w`` is left as it is.
+    """
+    if not (room > 0.0 and box[2, j] > -np.inf and box[3, j] < np.inf):
+        return False
+    g = room / length
+    u_a = box[2, j] - log_v
+    u_b = box[3, j] - log_v
+    h = min(math.exp(u_a) * (1.0 + g - u_a), math.exp(u_b) * (1.0 + g - u_b)) - 1.0
+    # below that the cut is too thin to be worth its rounding
+    if not h > 1e-6:
+        return False
+    half = (1.0 - _BOX_SLACK) * math.sqrt(v * h) - _BOX_SLACK * abs(mean)
+    return _cut_interval(box, j, 0, mean - half, mean + half)
+
+
+@njit(cache=True, error_model="numpy")
+def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
+    """Keep in ``box[4:11, k]`` where older start ``e`` beats ``s`` (slot ``k``), and ``s``'s first position.
+
+    ``box[10]``: ``F(s) - F(e) - C(e, s)`` less the margin, the room of the region.
+    """
+    x0 = stats[0, s + 1] - stats[0, s]
+    box[11, k] = x0
+    box[4, k] = e
+    if e < 0:
+        return
+    length = float(s - e)
+    if code == TREND:
+        p_mean, z_mean, slope, spread, cost = _trend_fit(
+            length,
+            stats[0, s] - stats[0, e],
+            stats[1, s] - stats[1, e],
+            stats[2, s] - stats[2, e],
+            stats[3, s] - stats[3, e],
+            stats[4, s] - stats[4, e],
+        )
+        c0, c1, a00, a01, a11 = _trend_ellipse(length, p_mean, z_mean, slope, spread, x0)
+        box[5, k] = c0
+        box[6, k] = c1
+        box[7, k] = a00
+        box[8, k] = a01
+        box[9, k] = a11
+    else:
+        mean, v, cost = _meanvar_fit(length, stats[0, s] - stats[0, e], stats[1, s] - stats[1, e])
+        box[5, k] = mean
+        box[6, k] = v
+        box[7, k] = length
+        box[8, k] = math.log(v)
+    box[10, k] = F[s] - F[e] - cost - (_PRUNE_MARGIN * (2.0 + abs(F[s]) + abs(F[e])) + rounding)
+
+
+@njit(cache=True, error_model="numpy")
+def _narrow_box(
+    code, rows, starts, f_start, box, visit, n, c, f_c, stats_c, t, length_term, use_length_term, rounding
+) -> tuple[int, int]:
+    """Geometric functional pruning (Pishchagina, Rigaill & Runge 2024) for 'meanvar' and 'trend', by start ``c``.
+
+    Each kept start ``s`` has a box (``box[0:4]``) holding the parameters at which it can
+    still be best: for 'meanvar' (segment mean, log of variance + floor), for 'trend'
+    (the line's level at ``s``'s first position, slope). ``c`` (usable from step ``t``
+    on, newer than every start here) shrinks the box to the bounding box of its meet
+    with ``R_sc`` (:func:`_clip_trend` / :func:`_clip_meanvar`; the room is
+    ``gap = F(c) - F(s) - C(s, c)``); then the regions where two older starts beat ``s``
+    are cut out (:func:`_cut_ellipse` / :func:`_cut_meanvar`): the one remembered
+    (``box[4:11]``, :func:`_remember_region`) and one drawn by a fixed rule from the
+    starts kept. A start whose box is empty can never be best again and is retired.
+
+    Margins as in :func:`_narrow_mean`, with ``rounding`` (:func:`_rounding_scale`) for
+    the costs. With 'mbic' an older start only loses more by its length term, so the
+    first cut holds as it is; in the second a newer start gains at most
+    ``log((t - e) / (t - s))`` from step ``t`` on.
+
+    Returns how many starts it retired and the slot of the start whose region of victory
+    over ``c`` is largest (-1 if none), for ``c`` to remember.
+    """
+    base = _PRUNE_MARGIN * (1.0 + abs(f_c)) + rounding
+    cf = float(c)
+    a0 = stats_c[0]
+    a1 = stats_c[1]
+    a2 = stats_c[2]
+    a3 = stats_c[3]
+    a4 = stats_c[4]
+    c0 = rows[0]
+    c1 = rows[1]
+    c2 = rows[2]
+    c3 = rows[3]
+    c4 = rows[4]
+    trend = code == TREND
+    best = -1
+    best_shut = 0.0
+    retired = 0
+    tf = float(t)
+    for j in range(n):
+        fs = f_start[j]
+        if fs == np.inf or tf < visit[j]:
+            continue
+        length = cf - starts[j]
+        visit[j] = tf + 1.0 + _REVISIT * length
+        margin = base + _PRUNE_MARGIN * abs(fs)
+        if trend:
+            p_mean, z_mean, slope, spread, cost = _trend_fit(
+                length, a0 - c0[j], a1 - c1[j], a2 - c2[j], a3 - c3[j], a4 - c4[j]
+            )
+        else:
+            z_mean, v, cost = _meanvar_fit(length, a0 - c0[j], a1 - c1[j])
+        gap = f_c - fs - cost
+        room = gap + margin
+        if not room >= 0.0:
+            live = False
+        elif trend and spread > 0.0:
+            e0, e1, e00, e01, e11 = _trend_ellipse(length, p_mean, z_mean, slope, spread, box[11, j])
+            live = _clip_ellipse(box, j, e0, e1, e00, e01, e11, room)
+        elif trend:  # one value: the level within sqrt(room) of it, any slope
+            half = (1.0 + _BOX_SLACK) * math.sqrt(room) + _BOX_SLACK * abs(z_mean)
+            live = _clip_interval(box, j, 0, z_mean - half, z_mean + half)
+        else:
+            live = _clip_meanvar(box, j, z_mean, v, room / length)
+        s = int(starts[j])
+        for pick in range(_EXCLUSIONS):
+            if not live:
+                break
+            if pick == 0:
+                e = int(box[4, j])
+                if e < 0:
+                    continue
+                r = box[10, j]
+                if use_length_term:
+                    r -= length_term[t - e] - length_term[t - s]
+                if trend:
+                    live = not _cut_ellipse(box, j, box[5, j], box[6, j], box[7, j], box[8, j], box[9, j], r)
+                else:
+                    live = not _cut_meanvar(box, j, box[5, j], box[6, j], box[8, j], box[7, j], r)
+                continue
+            if j == 0:
+                break
+            i = (c * 40503 + j * 7919 + pick * 104729) % j
+            fe = f_start[i]
+            if fe == np.inf:
+                continue
+            e = int(starts[i])
+            e_len = float(s - e)
+            r = fs - fe - (_PRUNE_MARGIN * (2.0 + abs(fs) + abs(fe)) + rounding)
+            if use_length_term:
+                r -= length_term[t - e] - length_term[t - s]
+            if trend:
+                p_mean, z_mean, slope, spread, cost = _trend_fit(
+                    e_len, c0[j] - c0[i], c1[j] - c1[i], c2[j] - c2[i], c3[j] - c3[i], c4[j] - c4[i]
+                )
+                e0, e1, e00, e01, e11 = _trend_ellipse(e_len, p_mean, z_mean, slope, spread, box[11, j])
+                live = not _cut_ellipse(box, j, e0, e1, e00, e01, e11, r - cost)
+            else:
+                mean, v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
+                live = not _cut_meanvar(box, j, mean, v, math.log(v), e_len, r - cost)
+        if not live:
+            f_start[j] = np.inf
+            retired += 1
+        # where s beats c by more than the margin (and the most 'mbic' lets c gain back)
+        shut = gap - margin
+        if use_length_term:
+            shut -= length_term[t - s] - length_term[t - c]
+        if shut > best_shut:
+            best_shut = shut
+            best = j
+    return retired, best
+
+
 @njit(cache=True, error_model="numpy")
 def _pelt(
     code,
@@ -547,6 +951,7 @@ def _pelt(
     until,
     vals,
     bounds,
+    functional=True,
 ) -> None:
     """PELT over ``m`` present values: fills ``F[t]`` and ``last[t]`` for ``t <= m``.
 
@@ -565,11 +970,18 @@ def _pelt(
     ``t + min_size`` on it is strictly worse than the best segmentation with a
     change at ``t``.
 
-    For 'mean' the pruning is functional instead (:func:`_narrow_mean`, with
-    ``bounds`` its four intervals' ends per start): a start is compared with
-    each newer one ``c`` as ``c`` is admitted (at ``t = c + min_size``, where
-    PELT's grace ends) and retired at once when it cannot be best again.
-    PELT's rule is the case where it cannot be best at any segment mean.
+    With ``functional`` (the default) the pruning is functional instead, for
+    'mean' by :func:`_narrow_mean` (``bounds[0:4]`` its four intervals' ends
+    per start), for 'meanvar' and 'trend' by :func:`_narrow_box` (``bounds``
+    a box, an older start's region and the start's first position per start;
+    ``until`` when to narrow it next): a start is compared with newer ones
+    ``c`` as they are admitted (at ``t = c + min_size``, where PELT's grace
+    ends) and retired at once when it cannot be best again. PELT's rule is the
+    case where it cannot be best at any segment parameters. Both give the
+    exact optimum's answer, except that PELT's margin can be smaller than the
+    rounding of 'trend' costs on exact lines (zero residuals, penalty 0),
+    where it may drop an optimal start; ``functional=False`` is kept for the
+    benchmark and the tests that compare them.
     """
     F[0] = -beta
     last[0] = 0
@@ -577,7 +989,7 @@ def _pelt(
         F[t] = np.inf
         last[t] = 0
     rows = (cand[0], cand[1], cand[2], cand[3], cand[4])
-    functional = code == MEAN
+    rounding = _rounding_scale(code, stats, m)
     n_cand = 0
     n_pruned = 0
     next_prune = 0
@@ -586,13 +998,39 @@ def _pelt(
         # admit the newest start; F is infinite (never a segment end) for 0 < s < min_size
         s = t - min_size
         if s == 0 or s >= min_size:
-            if functional:
+            if functional and code == MEAN:
                 n_pruned += _narrow_mean(
                     stats, m, rows, starts, f_start, bounds, n_cand, s, F[s], length_term, use_length_term, min_size
                 )
+            elif functional:
+                # the region of defeat the newest start remembers: that of the start that beats
+                # it most, found by a pass, else that of the start of its own last segment
+                retired, beater = _narrow_box(
+                    code,
+                    rows,
+                    starts,
+                    f_start,
+                    bounds,
+                    until,
+                    n_cand,
+                    s,
+                    F[s],
+                    stats[:, s],
+                    t,
+                    length_term,
+                    use_length_term,
+                    rounding,
+                )
+                n_pruned += retired
+                excluder = int(starts[beater]) if beater >= 0 else (last[s] if s > 0 else -1)
+                bounds[0, n_cand] = -np.inf
+                bounds[1, n_cand] = np.inf
+                bounds[2, n_cand] = -np.inf
+                bounds[3, n_cand] = np.inf
+                _remember_region(code, stats, F, excluder, s, bounds, n_cand, rounding)
             starts[n_cand] = s
             f_start[n_cand] = F[s]
-            until[n_cand] = np.inf
+            until[n_cand] = 0.0 if functional else np.inf
             for k in range(n_stats):
                 cand[k, n_cand] = stats[k, s]
             n_cand += 1
@@ -657,7 +1095,7 @@ def _pelt(
                     until[kept] = until[j]
                     for k in range(n_stats):
                         cand[k, kept] = cand[k, j]
-                    for k in range(4):
+                    for k in range(_BOX_ROWS):
                         bounds[k, kept] = bounds[k, j]
                     kept += 1
             n_cand = kept
@@ -955,7 +1393,7 @@ def _segment_row(
                     np.empty(m + 1),
                     np.empty(m + 1),
                     np.empty(m + 1),
-                    np.empty((4, m + 1)),
+                    np.empty((_BOX_ROWS, m + 1)),
                 )
             # walk back from the end: the starts of the optimum's segments, last first
             n_seg = 0
