@@ -316,3 +316,14 @@ def test_register_on_a_cursor():
         cursor.execute("SELECT acf([1, 2, 3, 1, 2, 3])")
     tsql.register(cursor)
     assert cursor.execute("SELECT acf([1, 2, 3, 1, 2, 3], max_lag := 2)").fetchone()[0] is not None
+
+
+@pytest.mark.parametrize("target", ["connection", "cursor"])
+def test_registering_again_leaves_no_unfinished_result(target):
+    # DuckDB keeps a result open until a fetch returns no rows; an unfinished one blocks the next call
+    con = tsql.connect()
+    again = con if target == "connection" else con.cursor()
+    tsql.register(again)
+    tsql.register(again)
+    again.register("t", pa.table({"x": [1.0, 2.0, 1.0, 2.0]}))
+    assert again.execute("SELECT autocorrelation(list(x)) FROM t").fetchall()[0][0] == pytest.approx(-0.75)

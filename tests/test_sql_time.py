@@ -188,6 +188,10 @@ def test_explicit_steps(con, sst):
         ("SELECT on_grid([1, 2], [DATE '2020-01-01', DATE '2021-02-01'], step := '1 month 2 days')", "not both"),
         ("SELECT on_grid([1, 2], ['a', 'b'])", "time must be DATE, TIMESTAMP, TIMESTAMPTZ or a number, got VARCHAR"),
         (
+            "SELECT acf_agg(v, uuid()) FROM (VALUES (1), (2), (3)) x(v)",
+            "acf_agg: time must be DATE, TIMESTAMP, TIMESTAMPTZ or a number, got UUID",
+        ),
+        (
             "SELECT dominant_period_agg(v, t, fill := 'nearest') FROM (VALUES (1, 1), (2, 2)) x(v, t)",
             "dominant_period_agg: fill must be one of",
         ),

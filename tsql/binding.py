@@ -94,7 +94,7 @@ def _add_reminders(con: duckdb.DuckDBPyConnection) -> None:
     exists = f"SELECT count(*) FROM duckdb_databases() WHERE database_name = '{REMINDER_CATALOG}'"
     with _REMINDERS_LOCK:  # cursors registered from several threads at once
         try:
-            if con.execute(exists).fetchone()[0]:
+            if con.execute(exists).fetchall()[0][0]:
                 return
             # READ_WRITE: DuckDB would open it read-only beside a read-only file, and refuse
             con.execute(f"ATTACH ':memory:' AS {REMINDER_CATALOG} (READ_WRITE)")
@@ -143,7 +143,7 @@ def _cancellation(con: duckdb.DuckDBPyConnection, create: bool) -> Cancellation 
     if cancel is None:
         look = con.cursor()
         try:
-            cancel = _CANCELLATIONS.get(look.execute(f"SELECT {_CANCELLATION_UDF}()").fetchone()[0])
+            cancel = _CANCELLATIONS.get(look.execute(f"SELECT {_CANCELLATION_UDF}()").fetchall()[0][0])
         except duckdb.CatalogException:  # no tsql on this database
             return None
         finally:
