@@ -36,8 +36,19 @@ from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, SPAN, Function, Param
 _DAY_US = 86_400_000_000
 _TEMPORAL = {"DATE", "TIMESTAMP", "TIMESTAMP_S", "TIMESTAMP_MS", "TIMESTAMP_NS", "TIMESTAMP WITH TIME ZONE"}
 _NUMERIC = (
-    "TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER", "UBIGINT", "UHUGEINT",
-    "FLOAT", "DOUBLE", "DECIMAL",
+    "TINYINT",
+    "SMALLINT",
+    "INTEGER",
+    "BIGINT",
+    "HUGEINT",
+    "UTINYINT",
+    "USMALLINT",
+    "UINTEGER",
+    "UBIGINT",
+    "UHUGEINT",
+    "FLOAT",
+    "DOUBLE",
+    "DECIMAL",
 )
 # one group's observations (macro __tsql_observations): per row the bits of its tick (DOUBLE) in the
 # high 64 bits and of its value (DOUBLE, NaN for NULL) in the low 64
