@@ -2,7 +2,6 @@
 
 import hashlib
 import re
-from importlib import resources
 from pathlib import Path
 
 import duckdb
@@ -11,7 +10,9 @@ import pyarrow as pa
 import pytest
 
 import tsql
-from tsql.binding import make_udf
+from tsql.binding import sql_statements
+from tsql.forms.answers import PERIOD, SAME
+from tsql.forms.list_form import list_udf as make_udf
 from tsql.registry import FUNCTIONS, markdown_table
 
 SINGLE = [f for f in FUNCTIONS if len(f.series) == 1]
@@ -40,12 +41,11 @@ SETTINGS.update(
     }
 )
 #: Functions whose *_agg form answers in times (tests/test_sql_change.py, tests/test_sql_time.py).
-TIME_ANSWERS = {f.name for f in FUNCTIONS if f.time_answer not in ("same", "period")}
-ARROW_PARAM_TYPES = {"DOUBLE": pa.float64(), "VARCHAR": pa.string(), "BOOLEAN": pa.bool_()}
+TIME_ANSWERS = {f.name for f in FUNCTIONS if f.answer not in (SAME, PERIOD)}
 
 
 def param_columns(fn, kwargs, n):
-    return [pa.array([kwargs[p.name]] * n, type=ARROW_PARAM_TYPES[p.sql_type]) for p in fn.params]
+    return [pa.array([kwargs[p.name]] * n, type=p.sql_type.arrow) for p in fn.params]
 
 
 @pytest.fixture(scope="module")
@@ -123,7 +123,7 @@ def test_aggregate_form_equals_list_form(con, fn):
     rows = con.execute(query).fetchall()
     assert len(rows) == 7
     for _, a, b in rows:
-        if fn.time_answer == "period":  # the rows of a group are 7 apart: the period in time units
+        if fn.answer == PERIOD:  # the rows of a group are 7 apart: the period in time units
             if isinstance(b, dict):
                 b = dict(b, period=b["period"] * 7)
             else:
@@ -287,8 +287,7 @@ def test_batch_boundaries_do_not_change_answers(ragged_table):
 
 
 def test_macros_and_registry_are_in_step(con):
-    text = "\n".join(p.read_text() for p in resources.files("tsql.sql").iterdir() if p.name.endswith(".sql"))
-    text = re.sub(r"\s+", " ", text)  # a long signature may wrap
+    text = re.sub(r"\s+", " ", "\n".join(sql_statements()))  # a long signature may wrap
     defined = {m for m in re.findall(r"CREATE OR REPLACE TEMP MACRO (\w+)\(", text) if not m.startswith("__tsql_")}
     expected = {f.name for f in FUNCTIONS} | {f"{f.name}_agg" for f in FUNCTIONS if f.aggregate}
     assert defined == expected

@@ -261,13 +261,13 @@ def _received(settings: dict, sql: str) -> pa.Array:
 def test_every_value_and_time_arrives_bit_for_bit(settings):
     """A row travels as one UHUGEINT (tick bits above value bits): awkward doubles come back exact,
     NULL as NaN, whatever Arrow type the session's settings give it."""
-    from tsql.timed import _observations
+    from tsql.binding import observations
 
     values = ["-0.0", "5e-324", "-1.7976931348623157e308", "'inf'", "'-nan'", "NULL", "0.1", "-2.5"]
     times = ["-0.0", "1e-300", "2", "3.5", "1e15", "NULL", "-7", "8"]
     rows = ", ".join(f"({t}::DOUBLE, {v}::DOUBLE)" for t, v in zip(times, values))
     column = _received(settings, f"SELECT OBSERVATIONS FROM (VALUES {rows}) x(t, v)")
-    ticks, got = _observations(column)
+    ticks, got = observations(column)
     expected = duckdb.sql(f"SELECT list(t), list(v) FROM (VALUES {rows}) x(t, v)").fetchall()[0]
     as_array = [np.array([np.nan if x is None else x for x in xs]) for xs in expected]
     for ours, theirs in zip((ticks.values, got.values), as_array):
@@ -289,7 +289,7 @@ def test_a_batch_whose_last_group_has_no_time_is_not_a_crash(con):
 def test_the_udf_pieces_do_not_change_any_answer(con, monkeypatch):
     """The UDF works on pieces of about 65,536 observations, and acf's FFT on buckets of equal lengths:
     neither tiny pieces nor a group computed alone may change a bit of any answer."""
-    import tsql.timed
+    import tsql.forms.agg
 
     rng = np.random.default_rng(4)
     n_groups, n_points = 1200, 80  # buckets of equal lengths big enough for numpy to reuse temporaries
@@ -307,7 +307,7 @@ def test_the_udf_pieces_do_not_change_any_answer(con, monkeypatch):
                       harmonic_smooth_agg(v, t, harmonics := 2)
                FROM pieces_table GROUP BY g ORDER BY g"""
     whole = con.execute(query).fetchall()
-    monkeypatch.setattr(tsql.timed, "_PIECE_POINTS", 1000)
+    monkeypatch.setattr(tsql.forms.agg, "PIECE_POINTS", 1000)
     pieces = con.execute(query).fetchall()
     alone = [con.execute(query.replace("GROUP BY", f"WHERE g = {g} GROUP BY")).fetchall()[0] for g in (0, 57, 1199)]
     con.unregister("pieces_table")

@@ -12,6 +12,11 @@ import importlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
+from tsql.forms.answers import PERIOD, SAME, SEGMENTS, SERIES, STARTS, Answer
+from tsql.forms.types import BOOLEAN, DOUBLE, INTEGER, VARCHAR, ListOf, SqlType, struct
+from tsql.kernels.changepoint import MIN_SIZE
+from tsql.kernels.grid import FILLS
+
 
 @dataclass(frozen=True)
 class Param:
@@ -26,7 +31,7 @@ class Param:
     """
 
     name: str
-    sql_type: str = "DOUBLE"
+    sql_type: SqlType = DOUBLE
     default: str | None = None
     minimum: float | None = None
     maximum: float | None = None
@@ -45,7 +50,7 @@ class Function:
 
     name: str
     family: str
-    returns: str
+    returns: SqlType
     kernel_path: str
     doc: str
     example: str
@@ -57,12 +62,14 @@ class Function:
     """Checks between two parameters: (smaller, larger, message)."""
     check: Callable[[dict], str | None] | None = None
     """A last check over all arguments; returns what is wrong, or None."""
-    time_answer: str = "same"
-    """How the ``*_agg`` form answers in time terms: 'same' (as the list form), 'period' (the
-    result, or its ``period`` field, becomes a span of time), 'starts' (positions become the times
-    where segments start), 'segments' (first/last become times), 'series' (a list of (time, value))."""
+    answer: Answer = SAME
+    """How the ``*_agg`` form answers in time terms (:mod:`tsql.forms.answers`): as the list form,
+    ``PERIOD`` (a span of time), ``STARTS`` (times where segments start), ``SEGMENTS`` (first and
+    last become times), ``SERIES`` (a list of (time, value))."""
     special: bool = False
-    """Registered by :mod:`tsql.timed` rather than the generic binding."""
+    sql_body: str | None = None
+    """The list macro's body when it is more than the UDF call."""
+    """Not a kernel over lists: ``on_grid``, whose hosts call :func:`tsql.forms.agg.on_grid_values`."""
 
     @property
     def kernel(self) -> Callable:
@@ -87,39 +94,25 @@ class Function:
         return f"{self.name}_agg({', '.join(args)})"
 
     @property
-    def agg_returns(self) -> str:
-        if self.time_answer == "period":
-            return self.returns.replace("period DOUBLE", f"period {SPAN}") if "STRUCT" in self.returns else SPAN
-        if self.time_answer == "starts":
-            return "time[]"
-        if self.time_answer == "segments":
-            return self.returns.replace("first INTEGER, last INTEGER", "first time, last time")
-        if self.time_answer == "series":
-            return f"STRUCT(time {MOMENT}, value DOUBLE)[]"
-        return self.returns
+    def agg_returns(self) -> SqlType:
+        return self.answer.agg_returns(self.returns)
 
 
-SPAN = "UNION(span INTERVAL, number DOUBLE)"
-"""A period in time terms: an INTERVAL for DATE/TIMESTAMP times, a number for numeric times."""
-MOMENT = 'UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)'
-"""A grid time: TIMESTAMP for DATE/TIMESTAMP times, TIMESTAMPTZ for TIMESTAMPTZ, else a number."""
-FILL_CHOICES = ("null", "zero", "linear", "previous")
-GRID_PARAMS = (
-    Param(
-        "step",
-        sql_type="VARCHAR",
-        default="NULL",
-        none_ok=True,
-        help="grid step: an INTERVAL (DATE/TIMESTAMP times) or a number (default: the most common spacing)",
-    ),
-    Param(
-        "fill",
-        sql_type="VARCHAR",
-        default="'null'",
-        choices=FILL_CHOICES,
-        help="grid points without a value: 'null', 'zero' (counts), 'linear', 'previous'",
-    ),
+STEP = Param(
+    "step",
+    sql_type=VARCHAR,
+    default="NULL",
+    none_ok=True,
+    help="grid step: an INTERVAL (DATE/TIMESTAMP times) or a number (default: the most common spacing)",
 )
+FILL = Param(
+    "fill",
+    sql_type=VARCHAR,
+    default="'null'",
+    choices=FILLS,
+    help="grid points without a value: 'null', 'zero' (counts), 'linear', 'previous'",
+)
+GRID_PARAMS = (STEP, FILL)
 
 
 MAX_LIST = 10_000_000
@@ -144,31 +137,31 @@ FUNCTIONS: tuple[Function, ...] = (
     Function(
         name="dominant_period",
         family="periodicity",
-        returns="DOUBLE",
+        returns=DOUBLE,
         kernel_path="periodicity:dominant_period",
         doc="Period of the strongest cycle, in samples, refined off the Fourier grid.",
         example="SELECT dominant_period([1, 5, 9, 5, 1, 5, 9, 5, 1, 5, 9, 5]) AS period;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
         params=PERIOD_PARAMS,
         relations=PERIOD_RELATIONS,
-        time_answer="period",
+        answer=PERIOD,
     ),
     Function(
         name="seasonality",
         family="periodicity",
-        returns="STRUCT(period DOUBLE, strength DOUBLE, p_value DOUBLE)",
+        returns=struct(period=DOUBLE, strength=DOUBLE, p_value=DOUBLE),
         kernel_path="periodicity:seasonality",
         doc="Dominant period, share of variance its harmonics explain, and Fisher's g p-value.",
         example="SELECT seasonality([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2]) AS s;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
         params=PERIOD_PARAMS,
         relations=PERIOD_RELATIONS,
-        time_answer="period",
+        answer=PERIOD,
     ),
     Function(
         name="autocorrelation",
         family="correlation",
-        returns="DOUBLE",
+        returns=DOUBLE,
         kernel_path="correlation:autocorrelation",
         doc="Sample autocorrelation at one lag (standard biased estimator).",
         example="SELECT autocorrelation([2, 4, 3, 5, 4, 6, 5, 7], lag := 2) AS r2;",
@@ -178,7 +171,7 @@ FUNCTIONS: tuple[Function, ...] = (
     Function(
         name="acf",
         family="correlation",
-        returns="DOUBLE[]",
+        returns=ListOf(DOUBLE),
         kernel_path="correlation:acf",
         doc="Sample autocorrelations at lags 1..max_lag.",
         example="SELECT acf([2, 4, 3, 5, 4, 6, 5, 7], max_lag := 3) AS r;",
@@ -188,7 +181,7 @@ FUNCTIONS: tuple[Function, ...] = (
     Function(
         name="ljung_box",
         family="correlation",
-        returns="STRUCT(q DOUBLE, p_value DOUBLE)",
+        returns=struct(q=DOUBLE, p_value=DOUBLE),
         kernel_path="correlation:ljung_box",
         doc="Ljung-Box test that the first lags show no autocorrelation.",
         example="SELECT ljung_box([2, 4, 3, 5, 4, 6, 5, 7, 6, 8, 7, 9], lags := 3) AS lb;",
@@ -207,7 +200,7 @@ FUNCTIONS: tuple[Function, ...] = (
     Function(
         name="trend_test",
         family="correlation",
-        returns="STRUCT(tau DOUBLE, p_value DOUBLE, slope DOUBLE)",
+        returns=struct(tau=DOUBLE, p_value=DOUBLE, slope=DOUBLE),
         kernel_path="trend:trend_test",
         doc="Mann-Kendall trend test (tau-b, two-sided p) and Sen's slope per sample.",
         example="SELECT trend_test([3, 4, 4, 6, 5, 7, 8, 8, 10, 9]) AS t;",
@@ -221,7 +214,7 @@ FUNCTIONS += (
     Function(
         name="dtw_distance",
         family="similarity",
-        returns="DOUBLE",
+        returns=DOUBLE,
         kernel_path="dtw:dtw_distance",
         doc="Dynamic time warping distance: root of the least summed squared difference over warping paths.",
         example="SELECT dtw_distance([1, 2, 3, 5, 3], [1, 1, 2, 3, 5, 3], band := 2) AS d;",
@@ -238,7 +231,7 @@ FUNCTIONS += (
             ),
             Param(
                 "normalize",
-                sql_type="BOOLEAN",
+                sql_type=BOOLEAN,
                 default="false",
                 help="z-normalise each series first, to compare shape rather than level and scale",
             ),
@@ -255,7 +248,7 @@ FUNCTIONS += (
     Function(
         name="dtw_path",
         family="similarity",
-        returns="STRUCT(i INTEGER, j INTEGER)[]",
+        returns=ListOf(struct(i=INTEGER, j=INTEGER)),
         kernel_path="dtw:dtw_path",
         doc="An optimal warping path, 1-based (i, j) pairs from (1, 1) to (n, m).",
         example="SELECT dtw_path([1, 2, 3], [1, 2, 2, 3]) AS path;",
@@ -276,7 +269,7 @@ FUNCTIONS += (
     Function(
         name="lb_keogh",
         family="similarity",
-        returns="DOUBLE",
+        returns=DOUBLE,
         kernel_path="dtw:lb_keogh",
         doc="LB_Keogh lower bound of dtw_distance(a, b, band := band): a cheap pre-filter.",
         example="SELECT lb_keogh([1, 2, 3, 5, 3], [1, 1, 2, 3, 5], 1) AS bound;",
@@ -287,11 +280,9 @@ FUNCTIONS += (
     ),
 )
 
-CHANGE_MIN_SIZE = {"mean": 1, "meanvar": 2, "trend": 2}
-
 
 def _min_size_fits_model(args: dict) -> str | None:
-    least = CHANGE_MIN_SIZE[args["model"]]
+    least = MIN_SIZE[args["model"]]
     if args["min_size"] < least:
         return f"min_size must be >= {least} for model {args['model']!r}, got {args['min_size']}"
     return None
@@ -300,14 +291,14 @@ def _min_size_fits_model(args: dict) -> str | None:
 CHANGE_PARAMS = (
     Param(
         "model",
-        sql_type="VARCHAR",
+        sql_type=VARCHAR,
         default="'mean'",
-        choices=tuple(CHANGE_MIN_SIZE),
+        choices=tuple(MIN_SIZE),
         help="'mean' (level shifts), 'meanvar' (level and spread), 'trend' (piecewise lines)",
     ),
     Param(
         "penalty",
-        sql_type="VARCHAR",
+        sql_type=VARCHAR,
         default="'bic'",
         choices=("bic", "mbic"),
         number_ok=True,
@@ -322,26 +313,26 @@ FUNCTIONS += (
     Function(
         name="change_points",
         family="change",
-        returns="INTEGER[]",
+        returns=ListOf(INTEGER),
         kernel_path="changepoint:change_points",
         doc="Exact PELT change points: 1-based position of the first element of each new segment.",
         example="SELECT change_points([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS starts;",
         null_rows=CHANGE_NULL_ROWS,
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
-        time_answer="starts",
+        answer=STARTS,
     ),
     Function(
         name="segments",
         family="change",
-        returns="STRUCT(first INTEGER, last INTEGER, mean DOUBLE, slope DOUBLE)[]",
+        returns=ListOf(struct(first=INTEGER, last=INTEGER, mean=DOUBLE, slope=DOUBLE)),
         kernel_path="changepoint:segments",
         doc="The PELT segments with inclusive 1-based bounds, mean and least-squares slope per sample.",
         example="SELECT segments([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS regimes;",
         null_rows=CHANGE_NULL_ROWS.replace("an empty list", "one segment"),
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
-        time_answer="segments",
+        answer=SEGMENTS,
     ),
 )
 
@@ -349,7 +340,7 @@ FUNCTIONS += (
     Function(
         name="harmonic_smooth",
         family="smoothing",
-        returns="DOUBLE[]",
+        returns=ListOf(DOUBLE),
         kernel_path="smoothing:harmonic_smooth",
         doc="Least-squares fit of a mean, a trend and the first harmonics: the smooth curve, same length.",
         example="SELECT harmonic_smooth([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], harmonics := 1, period := 4) AS smooth;",
@@ -365,12 +356,12 @@ FUNCTIONS += (
                 help="period of the harmonics in samples, at least 2 (default: the record length)",
             ),
         ),
-        time_answer="series",
+        answer=SERIES,
     ),
     Function(
         name="harmonic_profile",
         family="smoothing",
-        returns="DOUBLE[]",
+        returns=ListOf(DOUBLE),
         kernel_path="smoothing:harmonic_profile",
         doc="One cycle of the fitted pattern (level plus harmonics), phase 0 = the first element's phase.",
         example="SELECT harmonic_profile([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], 4, harmonics := 1) AS cycle;",
@@ -389,7 +380,7 @@ FUNCTIONS += (
     Function(
         name="sparkline",
         family="look",
-        returns="VARCHAR",
+        returns=VARCHAR,
         kernel_path="look:sparkline",
         doc="A one-line picture of a series in block characters; NULL gaps are spaces.",
         example="SELECT sparkline([1, 2, 4, 8, 4, 2, 1, NULL, 1, 3]) AS picture;",
@@ -413,7 +404,7 @@ FUNCTIONS += (
     Function(
         name="on_grid",
         family="time",
-        returns="DOUBLE[]",
+        returns=ListOf(DOUBLE),
         kernel_path="grid:on_grid",
         doc="The values on the regular grid from the first to the last time; missing periods come back.",
         example="SELECT on_grid([4, 6, 9], [DATE '2024-01-01', DATE '2024-02-01', DATE '2024-04-01']) AS monthly;",
@@ -422,6 +413,8 @@ FUNCTIONS += (
         params=GRID_PARAMS,
         aggregate=False,
         special=True,
+        sql_body="__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
+        "__tsql_span(step), fill)",
     ),
 )
 

@@ -23,8 +23,9 @@ import pyarrow as pa
 
 from tsql import __version__
 from tsql.binding import interrupt, was_interrupted
-from tsql.pipeline import UsageError, is_query, out_options, split_statements, write_result
+from tsql.pipeline import UsageError, is_query, out_options, write_result
 from tsql.render import error_message, format_arrow
+from tsql.statements import split_statements
 
 PROMPT = "tsql> "
 MORE = "  ... "
