@@ -7,18 +7,7 @@ import sys
 from pathlib import Path
 
 from tsql import __version__
-from tsql.registry import BY_NAME, FUNCTIONS, Function, markdown_table
-
-
-def describe(fn: Function) -> str:
-    lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.returns}; NULL for: {fn.null_rows}"]
-    for p in fn.params:
-        if p.help:
-            lines.append(f"  {p.name}: {p.help}")
-    if fn.aggregate:
-        lines.append(f"  aggregate form: {fn.agg_signature}")
-    lines.append(f"  example: {fn.example}")
-    return "\n".join(lines)
+from tsql.registry import BY_NAME, describe, function_list, markdown_table
 
 
 def _functions(args: argparse.Namespace) -> int:
@@ -34,12 +23,6 @@ def _functions(args: argparse.Namespace) -> int:
         return 0
     print(function_list())
     return 0
-
-
-def function_list() -> str:
-    """One line per function: its name and one-line doc."""
-    width = max(len(f.name) for f in FUNCTIONS)
-    return "\n".join(f"{fn.name:<{width}}  {fn.doc}" for fn in FUNCTIONS)
 
 
 def _shell(args: argparse.Namespace) -> int:

@@ -431,3 +431,21 @@ def markdown_table() -> str:
             returns += f" · agg: `{fn.agg_returns}`"
         rows.append(f"| {fn.family} | `{fn.signature}`{agg} | {returns} | {fn.doc} |")
     return "\n".join(rows)
+
+
+def describe(fn: Function) -> str:
+    """What ``tsql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
+    lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.returns}; NULL for: {fn.null_rows}"]
+    for p in fn.params:
+        if p.help:
+            lines.append(f"  {p.name}: {p.help}")
+    if fn.aggregate:
+        lines.append(f"  aggregate form: {fn.agg_signature}")
+    lines.append(f"  example: {fn.example}")
+    return "\n".join(lines)
+
+
+def function_list() -> str:
+    """One line per function: its name and one-line doc."""
+    width = max(len(f.name) for f in FUNCTIONS)
+    return "\n".join(f"{fn.name:<{width}}  {fn.doc}" for fn in FUNCTIONS)
