@@ -27,6 +27,7 @@ from scipy import stats
 import tsql
 from tsql.cli import main
 from tsql.kernels.look import BLOCKS
+from tsql.reference import regenerate
 from tsql.registry import FUNCTIONS
 
 # the kernels' stray RuntimeWarnings are a finding of their own (test_no_warning_escapes); keep them out of the summary
@@ -64,6 +65,11 @@ OUTCOMES = {"null", "value", "partial", "empty", "echo", "error", "-"}
 PUBLIC = [f.name for f in FUNCTIONS] + [f"{f.name}_agg" for f in FUNCTIONS if f.aggregate]
 
 
+def test_the_per_function_tables_are_generated_from_the_registry():
+    text = BEHAVIOUR.read_text(encoding="utf-8")
+    assert regenerate(text) == text, "run: python -m tsql.reference README.md docs/behaviour.md"
+
+
 def test_the_table_covers_every_public_function_and_uses_known_outcomes():
     assert sorted(row["function"] for row in INPUTS) == sorted(PUBLIC)
     for row in INPUTS:
@@ -98,23 +104,12 @@ CASTS = {
     "float": pa.float32(),
 }
 
-# how each function is called: the list forms on columns a, b, times; the *_agg forms on rows (v, t)
+# how each function is called: the list forms on columns a, b, times with the registry's first test
+# arguments; the *_agg forms on rows (v, t)
+_COLUMNS = {"values": "a", "a": "a", "b": "b", "times": "times"}
 LIST_CALLS = {
-    "dominant_period": "dominant_period(a)",
-    "seasonality": "seasonality(a)",
-    "autocorrelation": "autocorrelation(a)",
-    "acf": "acf(a, max_lag := 3)",
-    "ljung_box": "ljung_box(a, lags := 3)",
-    "trend_test": "trend_test(a)",
-    "change_points": "change_points(a)",
-    "segments": "segments(a)",
-    "harmonic_smooth": "harmonic_smooth(a, harmonics := 2)",
-    "harmonic_profile": "harmonic_profile(a, 8, harmonics := 2)",
-    "sparkline": "sparkline(a)",
-    "dtw_distance": "dtw_distance(a, b)",
-    "dtw_path": "dtw_path(a, b)",
-    "lb_keogh": "lb_keogh(a, b, 2)",
-    "on_grid": "on_grid(a, times)",
+    f.name: f"{f.name}({', '.join([_COLUMNS[s] for s in f.series] + ([f.test_args[0]] if f.test_args[0] else []))})"
+    for f in FUNCTIONS
 }
 AGG_CALLS = {
     f"{name}_agg": call.replace(name + "(a", name + "_agg(v, t", 1)

@@ -13,33 +13,37 @@ import tsql
 from tsql.binding import sql_statements
 from tsql.forms.answers import PERIOD, SAME
 from tsql.forms.list_form import list_udf as make_udf
-from tsql.registry import FUNCTIONS, markdown_table
+from tsql.forms.types import VARCHAR
+from tsql.reference import markdown_table
+from tsql.registry import FUNCTIONS
 
 SINGLE = [f for f in FUNCTIONS if len(f.series) == 1]
 
 ROOT = Path(__file__).resolve().parents[1]
 
-# One call per function with a non-default setting, and the kernel call it must equal.
-SETTINGS = {
-    "dominant_period": ("min_period := 3, max_period := 30", {"min_period": 3, "max_period": 30}),
-    "seasonality": ("min_period := 3", {"min_period": 3, "max_period": None}),
-    "autocorrelation": ("lag := 2", {"lag": 2}),
-    "acf": ("max_lag := 5", {"max_lag": 5}),
-    "ljung_box": ("lags := 4", {"lags": 4}),
-    "trend_test": ("", {}),
-    "change_points": (
-        "model := 'meanvar', penalty := 8, min_size := 3",
-        {"model": "meanvar", "penalty": "8", "min_size": 3},
-    ),
-    "segments": ("penalty := 'mbic'", {"model": "mean", "penalty": "mbic", "min_size": 2}),
-}
-SETTINGS.update(
-    {
-        "harmonic_smooth": ("harmonics := 2, period := 7", {"harmonics": 2, "period": 7}),
-        "harmonic_profile": ("6, harmonics := 2", {"period": 6, "harmonics": 2}),
-        "sparkline": ("width := 12", {"width": 12}),
-    }
-)
+
+def sql_value(p, text: str | None):
+    """An argument's SQL text (a literal) as the Python value its UDF receives."""
+    if text is None or text == "NULL":
+        return None
+    if text.startswith("'"):
+        return text.strip("'")
+    if text in ("true", "false"):
+        return text == "true"
+    return text if p.sql_type == VARCHAR else float(text)
+
+
+def settings(fn, args: str) -> tuple[str, dict]:
+    """The SQL arguments after the series and every parameter's value they give (defaults included)."""
+    given = {}
+    for i, part in enumerate(a.strip() for a in args.split(",") if a.strip()):
+        name, _, value = part.rpartition(":=")
+        given[name.strip() or fn.params[i].name] = value.strip()
+    return args, {p.name: sql_value(p, given.get(p.name, p.default)) for p in fn.params}
+
+
+# One call per function with its most unusual test setting (the registry's), and the kernel call it must equal.
+SETTINGS = {fn.name: settings(fn, fn.test_args[-1]) for fn in FUNCTIONS}
 #: Functions whose *_agg form answers in times (tests/test_sql_change.py, tests/test_sql_time.py).
 TIME_ANSWERS = {f.name for f in FUNCTIONS if f.answer not in (SAME, PERIOD)}
 

@@ -7,7 +7,8 @@ import sys
 from pathlib import Path
 
 from tsql import __version__
-from tsql.registry import BY_NAME, describe, function_list, markdown_table
+from tsql.reference import describe, function_list, markdown_table
+from tsql.registry import BY_NAME
 
 
 def _functions(args: argparse.Namespace) -> int:

@@ -69,6 +69,14 @@ class Function:
     special: bool = False
     sql_body: str | None = None
     """The list macro's body when it is more than the UDF call."""
+    outcomes: str = ""
+    """What the list form answers for each input class of docs/behaviour.md (:data:`INPUT_CLASSES`), space
+    separated; the ``*_agg`` form answers the same, plus :data:`AGG_TIME_OUTCOMES` for the time classes."""
+    see_also: tuple[str, ...] = ()
+    """Related functions, named in ``tsql functions NAME``."""
+    test_args: tuple[str, ...] = ("",)
+    """Arguments after the series in the tests' calls: the first suits the 40-point series of the input
+    classes, the last is the most unusual setting (each is checked against the kernel called alone)."""
     """Not a kernel over lists: ``on_grid``, whose hosts call :func:`tsql.forms.agg.on_grid_values`."""
 
     @property
@@ -98,6 +106,18 @@ class Function:
         return self.answer.agg_returns(self.returns)
 
 
+INPUT_CLASSES = (
+    "null_list empty one all_null nan pos_inf neg_inf constant huge tiny long integer bigint decimal float "
+    "mismatched null_time inf_time"
+).split()
+"""The input classes of docs/behaviour.md, in its column order."""
+AGG_TIME_OUTCOMES = {"mismatched": "-", "null_time": "value", "inf_time": "null"}
+"""The ``*_agg`` forms' answers for the classes about times (the list forms have no times)."""
+#: The usual answers of a function of one series: NULL where the data cannot support an answer.
+STATISTIC = "null null null null value null null null value value value value value value value - - -"
+#: Of a function of two series: a NULL or NaN element makes the pair NULL; lists may differ in length.
+PAIR = "null null value null null null null value value value value value value value value value - -"
+
 STEP = Param(
     "step",
     sql_type=VARCHAR,
@@ -109,6 +129,7 @@ FILL = Param(
     "fill",
     sql_type=VARCHAR,
     default="'null'",
+    none_ok=True,
     choices=FILLS,
     help="grid points without a value: 'null', 'zero' (counts), 'linear', 'previous'",
 )
@@ -142,6 +163,8 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Period of the strongest cycle, in samples, refined off the Fourier grid.",
         example="SELECT dominant_period([1, 5, 9, 5, 1, 5, 9, 5, 1, 5, 9, 5]) AS period;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
+        outcomes=STATISTIC,
+        test_args=("", "min_period := 3, max_period := 30"),
         params=PERIOD_PARAMS,
         relations=PERIOD_RELATIONS,
         answer=PERIOD,
@@ -154,6 +177,8 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Dominant period, share of variance its harmonics explain, and Fisher's g p-value.",
         example="SELECT seasonality([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2]) AS s;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
+        outcomes=STATISTIC,
+        test_args=("", "min_period := 3"),
         params=PERIOD_PARAMS,
         relations=PERIOD_RELATIONS,
         answer=PERIOD,
@@ -166,6 +191,8 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Sample autocorrelation at one lag (standard biased estimator).",
         example="SELECT autocorrelation([2, 4, 3, 5, 4, 6, 5, 7], lag := 2) AS r2;",
         null_rows=SERIES_TOO_SHORT.format(n=2) + ", or no present pair lag apart",
+        outcomes=STATISTIC,
+        test_args=("", "lag := 2"),
         params=(Param("lag", default="1", minimum=1, whole=True, help="k, in samples"),),
     ),
     Function(
@@ -176,6 +203,8 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Sample autocorrelations at lags 1..max_lag.",
         example="SELECT acf([2, 4, 3, 5, 4, 6, 5, 7], max_lag := 3) AS r;",
         null_rows=SERIES_TOO_SHORT.format(n=2) + "; a lag with no present pair is a NULL element",
+        outcomes=STATISTIC,
+        test_args=("max_lag := 3", "max_lag := 5"),
         params=(Param("max_lag", default="10", minimum=1, maximum=MAX_LIST, whole=True, help="highest lag returned"),),
     ),
     Function(
@@ -186,6 +215,8 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Ljung-Box test that the first lags show no autocorrelation.",
         example="SELECT ljung_box([2, 4, 3, 5, 4, 6, 5, 7, 6, 8, 7, 9], lags := 3) AS lb;",
         null_rows=SERIES_TOO_SHORT.format(n="lags + 1"),
+        outcomes=STATISTIC,
+        test_args=("lags := 3", "lags := 4"),
         params=(
             Param(
                 "lags",
@@ -205,6 +236,7 @@ FUNCTIONS: tuple[Function, ...] = (
         doc="Mann-Kendall trend test (tau-b, two-sided p) and Sen's slope per sample.",
         example="SELECT trend_test([3, 4, 4, 6, 5, 7, 8, 8, 10, 9]) AS t;",
         null_rows=SERIES_TOO_SHORT.format(n=3),
+        outcomes=STATISTIC,
     ),
 )
 
@@ -219,6 +251,7 @@ FUNCTIONS += (
         doc="Dynamic time warping distance: root of the least summed squared difference over warping paths.",
         example="SELECT dtw_distance([1, 2, 3, 5, 3], [1, 1, 2, 3, 5, 3], band := 2) AS d;",
         null_rows=PAIR_NULL_ROWS + "; with cutoff, a pair farther than cutoff",
+        outcomes=PAIR,
         series=("a", "b"),
         params=(
             Param(
@@ -253,6 +286,7 @@ FUNCTIONS += (
         doc="An optimal warping path, 1-based (i, j) pairs from (1, 1) to (n, m).",
         example="SELECT dtw_path([1, 2, 3], [1, 2, 2, 3]) AS path;",
         null_rows=PAIR_NULL_ROWS,
+        outcomes=PAIR,
         series=("a", "b"),
         params=(
             Param(
@@ -274,6 +308,8 @@ FUNCTIONS += (
         doc="LB_Keogh lower bound of dtw_distance(a, b, band := band): a cheap pre-filter.",
         example="SELECT lb_keogh([1, 2, 3, 5, 3], [1, 1, 2, 3, 5], 1) AS bound;",
         null_rows=PAIR_NULL_ROWS,
+        outcomes=PAIR,
+        test_args=("2",),
         series=("a", "b"),
         params=(Param("band", minimum=0, whole=True, help="Sakoe-Chiba half-width of the envelope of b"),),
         aggregate=False,
@@ -318,6 +354,8 @@ FUNCTIONS += (
         doc="Exact PELT change points: 1-based position of the first element of each new segment.",
         example="SELECT change_points([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS starts;",
         null_rows=CHANGE_NULL_ROWS,
+        outcomes="null null empty null value null null empty value value value value value value value - - -",
+        test_args=("", "model := 'meanvar', penalty := 8, min_size := 3"),
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
         answer=STARTS,
@@ -330,6 +368,8 @@ FUNCTIONS += (
         doc="The PELT segments with inclusive 1-based bounds, mean and least-squares slope per sample.",
         example="SELECT segments([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS regimes;",
         null_rows=CHANGE_NULL_ROWS.replace("an empty list", "one segment"),
+        outcomes="null null partial null value null null value value value value value value value value - - -",
+        test_args=("", "penalty := 'mbic'"),
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
         answer=SEGMENTS,
@@ -345,6 +385,8 @@ FUNCTIONS += (
         doc="Least-squares fit of a mean, a trend and the first harmonics: the smooth curve, same length.",
         example="SELECT harmonic_smooth([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], harmonics := 1, period := 4) AS smooth;",
         null_rows="NULL or empty list, or fewer present values than 2 + 2 * harmonics",
+        outcomes="null null null null value null null value value value value value value value value - - -",
+        test_args=("harmonics := 2", "harmonics := 2, period := 7"),
         params=(
             Param("harmonics", default="3", minimum=1, whole=True, help="number of cosine/sine pairs"),
             Param(
@@ -366,6 +408,8 @@ FUNCTIONS += (
         doc="One cycle of the fitted pattern (level plus harmonics), phase 0 = the first element's phase.",
         example="SELECT harmonic_profile([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], 4, harmonics := 1) AS cycle;",
         null_rows="NULL or empty list, too few present values, or a pattern the data cannot determine",
+        outcomes="null null null null value null null value value value value value value value value - - -",
+        test_args=("8, harmonics := 2", "6, harmonics := 2"),
         params=(
             Param(
                 "period",
@@ -385,6 +429,8 @@ FUNCTIONS += (
         doc="A one-line picture of a series in block characters; NULL gaps are spaces.",
         example="SELECT sparkline([1, 2, 4, 8, 4, 2, 1, NULL, 1, 3]) AS picture;",
         null_rows="NULL list (an empty list gives '')",
+        outcomes="null empty value value value value value value value value value value value value value - - -",
+        test_args=("", "width := 12"),
         params=(
             Param(
                 "width",
@@ -409,6 +455,8 @@ FUNCTIONS += (
         doc="The values on the regular grid from the first to the last time; missing periods come back.",
         example="SELECT on_grid([4, 6, 9], [DATE '2024-01-01', DATE '2024-02-01', DATE '2024-04-01']) AS monthly;",
         null_rows="NULL list; lists of different lengths are an error",
+        outcomes="null empty value partial partial echo echo value value value partial value value value value "
+        "error partial null",
         series=("values", "times"),
         params=GRID_PARAMS,
         aggregate=False,
@@ -419,33 +467,3 @@ FUNCTIONS += (
 )
 
 BY_NAME: dict[str, Function] = {f.name: f for f in FUNCTIONS}
-
-
-def markdown_table() -> str:
-    """The README's function table."""
-    rows = ["| family | function | returns | what it answers |", "|---|---|---|---|"]
-    for fn in FUNCTIONS:
-        agg = f" · `{fn.name}_agg(value, time, …)`" if fn.aggregate else ""
-        returns = f"`{fn.returns}`"
-        if fn.aggregate and fn.agg_returns != fn.returns:
-            returns += f" · agg: `{fn.agg_returns}`"
-        rows.append(f"| {fn.family} | `{fn.signature}`{agg} | {returns} | {fn.doc} |")
-    return "\n".join(rows)
-
-
-def describe(fn: Function) -> str:
-    """What ``tsql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
-    lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.returns}; NULL for: {fn.null_rows}"]
-    for p in fn.params:
-        if p.help:
-            lines.append(f"  {p.name}: {p.help}")
-    if fn.aggregate:
-        lines.append(f"  aggregate form: {fn.agg_signature}")
-    lines.append(f"  example: {fn.example}")
-    return "\n".join(lines)
-
-
-def function_list() -> str:
-    """One line per function: its name and one-line doc."""
-    width = max(len(f.name) for f in FUNCTIONS)
-    return "\n".join(f"{fn.name:<{width}}  {fn.doc}" for fn in FUNCTIONS)

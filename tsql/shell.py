@@ -151,7 +151,7 @@ class Shell:
         if name == "help":
             print(HELP)
         elif name == "functions":
-            from tsql.registry import function_list
+            from tsql.reference import function_list
 
             print(function_list())
         elif name == "function":
@@ -168,7 +168,8 @@ class Shell:
             print(f"unknown command :{name}; :help lists the commands", file=sys.stderr)
 
     def _describe(self, name: str) -> None:
-        from tsql.registry import BY_NAME, describe
+        from tsql.reference import describe
+        from tsql.registry import BY_NAME
 
         fn = BY_NAME.get(name.removesuffix("_agg"))
         if fn is None:
