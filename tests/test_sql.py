@@ -10,36 +10,16 @@ import pyarrow as pa
 import pytest
 
 import tsql
+from registry_calls import settings
 from tsql.binding import sql_statements
 from tsql.forms.answers import PERIOD, SAME
 from tsql.forms.list_form import list_udf as make_udf
-from tsql.forms.types import VARCHAR
 from tsql.reference import markdown_table
 from tsql.registry import FUNCTIONS
 
 SINGLE = [f for f in FUNCTIONS if len(f.series) == 1]
 
 ROOT = Path(__file__).resolve().parents[1]
-
-
-def sql_value(p, text: str | None):
-    """An argument's SQL text (a literal) as the Python value its UDF receives."""
-    if text is None or text == "NULL":
-        return None
-    if text.startswith("'"):
-        return text.strip("'")
-    if text in ("true", "false"):
-        return text == "true"
-    return text if p.sql_type == VARCHAR else float(text)
-
-
-def settings(fn, args: str) -> tuple[str, dict]:
-    """The SQL arguments after the series and every parameter's value they give (defaults included)."""
-    given = {}
-    for i, part in enumerate(a.strip() for a in args.split(",") if a.strip()):
-        name, _, value = part.rpartition(":=")
-        given[name.strip() or fn.params[i].name] = value.strip()
-    return args, {p.name: sql_value(p, given.get(p.name, p.default)) for p in fn.params}
 
 
 # One call per function with its most unusual test setting (the registry's), and the kernel call it must equal.
