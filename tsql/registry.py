@@ -184,6 +184,17 @@ FUNCTIONS: tuple[Function, ...] = (
         answer=PERIOD,
     ),
     Function(
+        name="spectral_entropy",
+        family="periodicity",
+        returns=DOUBLE,
+        kernel_path="periodicity:spectral_entropy",
+        doc="Entropy of the normalised periodogram, in [0, 1]: near 0 for one clean cycle, near 1 for noise.",
+        example="SELECT spectral_entropy([1, 5, 9, 5, 1, 5, 9, 5, 1, 5, 9, 5]) AS entropy;",
+        null_rows=SERIES_TOO_SHORT.format(n=4),
+        outcomes=STATISTIC,
+        see_also=("dominant_period", "seasonality"),
+    ),
+    Function(
         name="autocorrelation",
         family="correlation",
         returns=DOUBLE,
