@@ -8,9 +8,9 @@ import duckdb
 import numpy as np
 import pyarrow as pa
 import pytest
+from registry_calls import settings
 
 import tsql
-from registry_calls import settings
 from tsql.binding import sql_statements
 from tsql.forms.answers import PERIOD, SAME
 from tsql.forms.list_form import list_udf as make_udf
