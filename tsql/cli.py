@@ -32,7 +32,7 @@ def _shell(args: argparse.Namespace) -> int:
     return shell(args.database, read_only=args.read_only)
 
 
-def _run(args: argparse.Namespace) -> int:
+def _run_scripts(args: argparse.Namespace) -> int:
     from tsql.pipeline import UsageError, parse_params, run
 
     try:
@@ -103,7 +103,7 @@ def main(argv: list[str] | None = None) -> int:
     script.add_argument(
         "--param", action="append", default=[], metavar="NAME=VALUE", help="a value for $NAME in the SQL (repeatable)"
     )
-    script.set_defaults(run=_run)
+    script.set_defaults(run=_run_scripts)
     demo = commands.add_parser("demo", help="five questions asked of the sample warehouse, with the planted answers")
     demo.add_argument(
         "--db", metavar="PATH", help="where to keep the sample warehouse (default: a file in your cache folder)"

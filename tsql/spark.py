@@ -1,69 +1,6 @@
-"""Spark host: every tsql function in a Spark session, as vectorised Arrow UDFs.
+"""Spark host: every tsql function in a Spark session, as vectorised Arrow UDFs over :mod:`tsql.forms`.
 
-``tsql.spark.register(spark)`` registers each public function under its own name
-for Spark SQL, on the same batch layer and kernels as the DuckDB functions, so
-the answers are the same number for number:
-
-.. code-block:: python
-
-    import tsql.spark
-
-    tsql.spark.register(spark)
-    spark.sql('''
-        SELECT item, seasonality_agg(units, month) AS s, trend_test_agg(units, month) AS t
-        FROM sales GROUP BY item
-    ''')
-
-List forms are scalar Arrow UDFs over ``array<number>`` columns, e.g. a series
-collected in time order::
-
-    seasonality(transform(array_sort(collect_list(struct(month, units))), x -> x.units))
-
-``*_agg(value, time, ...)`` forms are grouped-aggregate Arrow UDFs: each group's
-rows go on their regular time grid first (missing periods come back as gaps),
-exactly as in DuckDB.
-
-Arguments go by position, in the order of the DuckDB signature, or by name
-with Spark's ``=>`` (``acf(v, max_lag => 24)``, ``seasonality_agg(units, month,
-step => '1 month')``); any argument with a default may be left off.
-:func:`positional_forms` lists every form, e.g.
-``seasonality_agg(value, time, min_period = 2, max_period = NULL, step = NULL, fill = 'null')``.
-
-Differences from DuckDB, forced by Spark's fixed UDF return types:
-
-- A period from an ``*_agg`` form (``dominant_period_agg``, ``seasonality_agg``'s
-  ``period``) is a DOUBLE count of grid steps, the number the list form gives on
-  the gridded series: 12.0 for a yearly cycle on a monthly grid, 24.0 for a daily
-  cycle on an hourly one. (DuckDB answers with an INTERVAL, rounded to whole
-  months on a calendar grid.) Give ``step`` to fix the grid for every group.
-- Times in answers (``change_points_agg``, ``segments_agg``'s ``first``/``last``,
-  ``harmonic_smooth_agg``'s ``time``) come back in one Spark type per session,
-  ``register(spark, time_type=...)``: ``'date'`` (the default; DATE times, or
-  TIMESTAMP_NTZ times at midnight), ``'timestamp_ntz'`` (DATE or TIMESTAMP_NTZ
-  times), ``'timestamp'`` (TIMESTAMP times) or ``'double'`` (numeric times). A
-  time column the chosen type cannot hold exactly is an error saying which to choose.
-- Spans (``step``, ``min_period``, ``period`` ... in the ``*_agg`` forms and
-  ``on_grid``) may be a number of grid steps, a day-time interval
-  (``INTERVAL '1' DAY``) or text read as DuckDB reads it (``'1 month'``, ``'2 days 3 hours'``,
-  ``'01:30:00'``; see :func:`tsql.forms.time.read_span`, which does not read a fraction of a
-  month); a year-month interval (``INTERVAL 1 MONTH``) cannot reach a Python UDF in Spark:
-  write ``'1 month'``.
-
-An argument that makes no sense fails the query with Spark's ``PythonException``,
-whose message ends with tsql's own (``autocorrelation: lag must be >= 1, got -1``);
-``spark.sql.execution.pyspark.udf.hideTraceback.enabled=true`` leaves only that line.
-
-An ``*_agg`` form runs the kernel once per group. For many thousands of groups the
-list form over collected rows is batched and faster, and gives the same answer::
-
-    seasonality(on_grid(transform(r, x -> x.units), transform(r, x -> x.month)))
-    -- with r = array_sort(collect_list(struct(month, units))) per item
-
-Spark executors run the UDFs in their own Python: install tsql there too
-(``pip install tsql`` on every node, or ship a packed environment with
-``spark.archives``). ``spark.submit.pyFiles`` (or ``spark.sparkContext.addPyFile``)
-with a zip of the ``tsql`` package also works where numpy, scipy, numba and pyarrow
-are already installed on the executors; this host never imports duckdb.
+``tsql.spark.register(spark)``; how to call the functions and how they differ from DuckDB's: docs/spark.md.
 """
 
 from __future__ import annotations
@@ -180,7 +117,7 @@ def _is_number(t: pa.DataType) -> bool:
     return pa.types.is_integer(t) or pa.types.is_floating(t) or pa.types.is_decimal(t)
 
 
-def _series(name: str, argument: str, column: pa.Array) -> pa.Array:
+def _numbers_column(name: str, argument: str, column: pa.Array) -> pa.Array:
     t = column.type
     if not (pa.types.is_list(t) or pa.types.is_large_list(t)) or not (
         _is_number(t.value_type) or pa.types.is_null(t.value_type)
@@ -332,7 +269,7 @@ def _list_udf(fn: Function) -> Callable[..., pa.Array]:
         if not len(columns[0]):
             return pa.array([], type=empty)
         k = len(fn.series)
-        series = [_series(fn.name, s, c) for s, c in zip(fn.series, columns[:k])]
+        series = [_numbers_column(fn.name, s, c) for s, c in zip(fn.series, columns[:k])]
         return inner(*series, *(_plain(fn.name, p, c) for p, c in zip(fn.params, columns[k:])))
 
     return _scalar(body, fn.name, fn.doc)
@@ -344,7 +281,7 @@ def _on_grid(*columns: pa.Array, **named: pa.Array) -> pa.Array:
     values, times, step, fill = _complete(name, ("values", "times"), GRID_PARAMS, columns, named)
     if not len(values):
         return pa.array([], type=pa.list_(pa.float64()))
-    values = _series(name, "values", values)
+    values = _numbers_column(name, "values", values)
     if not (pa.types.is_list(times.type) or pa.types.is_large_list(times.type)):
         raise ValueError(f"{name}: times must be an array of dates, timestamps or numbers, got {times.type}")
     clock = _clock(name, times.values.type)
