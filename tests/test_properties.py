@@ -18,7 +18,7 @@ from scipy import stats
 
 import tsql
 from tsql.forms.list_form import list_udf as make_udf
-from tsql.kernels.look import BLOCKS
+from tsql.kernels.sparkline import BLOCKS
 from tsql.registry import BY_NAME
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])

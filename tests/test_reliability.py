@@ -27,7 +27,7 @@ from scipy import stats
 
 import tsql
 from tsql.cli import main
-from tsql.kernels.look import BLOCKS
+from tsql.kernels.sparkline import BLOCKS
 from tsql.kernels.ragged import Ragged
 from tsql.reference import regenerate
 from tsql.registry import FUNCTIONS

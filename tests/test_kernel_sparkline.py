@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from tsql.kernels.look import BLOCKS, sparkline
+from tsql.kernels.sparkline import BLOCKS, sparkline
 from tsql.kernels.ragged import Ragged
 
 NAN = float("nan")
