@@ -86,7 +86,10 @@ PROBE_PRELOAD = [
     "pyarrow.compute",
     "tsql",
     "tsql.binding",
-    *(f"tsql.kernels.{m}" for m in ("changepoint", "correlation", "dtw", "grid", "sparkline", "periodicity", "smoothing")),
+    *(
+        f"tsql.kernels.{m}"
+        for m in ("changepoint", "correlation", "dtw", "grid", "sparkline", "periodicity", "smoothing")
+    ),
     "tsql.kernels.trend",
 ]
 

@@ -27,8 +27,8 @@ from scipy import stats
 
 import tsql
 from tsql.cli import main
-from tsql.kernels.sparkline import BLOCKS
 from tsql.kernels.ragged import Ragged
+from tsql.kernels.sparkline import BLOCKS
 from tsql.reference import regenerate
 from tsql.registry import FUNCTIONS
 
