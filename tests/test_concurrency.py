@@ -349,6 +349,7 @@ _INTERRUPT_A_LONG_CALL = textwrap.dedent(
     import sys, threading, time, os, numpy as np, pyarrow as pa, tsql
     how, data = sys.argv[1], sys.argv[2]
     con = tsql.connect()
+    con.execute("SET enable_progress_bar = false")  # a slow setup on a busy machine would draw one
     rng = np.random.default_rng(3)
     doubles = pa.list_(pa.float64())
     if data == "one long pair":  # 10^10 cells in one kernel call
