@@ -57,8 +57,8 @@ def write_seed(path: Path) -> None:
 
 def dbt(project: Path, tmp_path: Path, *args: str) -> subprocess.CompletedProcess:
     """Run one dbt command in a fresh process of this interpreter's environment."""
-    exe = Path(sys.executable).with_name("dbt")
-    command = [str(exe)] if exe.exists() else [sys.executable, "-m", "dbt.cli.main"]
+    # not the dbt console script: its first line may name another interpreter, with another tsql
+    command = [sys.executable, "-m", "dbt.cli.main"]
     env = dict(os.environ)
     env.update(
         DBT_PROFILES_DIR=str(project),
