@@ -1,0 +1,711 @@
+"""Look-alike items: the k nearest other items of every item under dynamic time warping.
+
+One call gets a whole set of items (one series each) and answers for all of
+them, exactly as comparing every pair would, while computing the warping
+distance of only a small share of the pairs:
+
+1. Every series is prepared once: gaps filled, z-normalised if asked.
+2. Seeds: each item's ``k`` nearest items under a cheap summary (the Euclidean
+   distance between 16 segment means) get their exact warping distance first,
+   so every item has a k-th best distance (an upper bound of its final one)
+   before the search starts.
+3. Every item in turn then looks for its own neighbours. Lower bounds come
+   first, cheapest first — LB_Kim (first and last elements together, the
+   largest and the smallest elements; Rakthanmanon et al. 2012) over all
+   items, then LB_Keogh both ways (Keogh & Ratanamahatana 2005) over the
+   survivors; a candidate whose bound is above the item's current k-th best
+   distance is dropped. The rest, smallest bound first, get the warping
+   programme, pruned and abandoned at that distance (see :func:`_warp`), until
+   the next bound is above it. A distance that comes out exact is offered to
+   both items (``d(a, b) = d(b, a)``), so no pair's programme runs to its end
+   twice.
+
+A bound or an abandoned programme only ever drops a pair that could not enter
+either list, so the answer is the brute-force one; the order of the work (the
+seeds) changes only how much of it is needed. The warping distance is computed
+with the arithmetic of :func:`tsql.kernels.dtw.dtw_distance`, cell by cell, so
+the distances are the same bit for bit (also the same in both directions: the
+programme of (b, a) is the transpose of that of (a, b)). Floating-point sums
+of non-negative terms only grow as terms are added or made larger, so the
+bounds hold in floating point too, not only on paper.
+
+The compiled code is self-contained (numba's on-disk cache checks only the
+source file of the function it loads). The work of one call is done in pieces
+of about 0.1 s with a :func:`tsql.kernels.cancel.checkpoint` between them.
+
+References
+----------
+.. [1] Sakoe, H. & Chiba, S. (1978). Dynamic programming algorithm optimization
+   for spoken word recognition. *IEEE Trans. ASSP* 26(1), 43–49.
+.. [2] Keogh, E. & Ratanamahatana, C. A. (2005). Exact indexing of dynamic time
+   warping. *Knowledge and Information Systems* 7(3), 358–386.
+.. [3] Rakthanmanon, T., Campana, B., Mueen, A., Batista, G., Westover, B.,
+   Zhu, Q., Zakaria, J. & Keogh, E. (2012). Searching and mining trillions of
+   time series subsequences under dynamic time warping. *Proc. KDD 2012*,
+   262–270.
+.. [4] Silva, D. F. & Batista, G. E. A. P. A. (2016). Speeding up all-pairwise
+   dynamic time warping matrix calculation. *Proc. SIAM SDM 2016*, 837–845.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from tsql.kernels.cancel import checkpoint
+from tsql.kernels.ragged import Ragged
+
+__all__ = ["dtw_nearest", "prepare"]
+
+#: ``band=None`` inside the compiled code.
+_NO_BAND = -1
+#: Work between two looks at an interrupt request, in units of about one cell of the programme (a few ns).
+_BUDGET = 1 << 25
+#: Segment means summarising a series for the seeds.
+_SEGMENTS = 16
+#: A squared cutoff is widened by this factor so that ``lb > cut_sq`` implies ``sqrt(lb) > cutoff`` after rounding.
+_WIDEN = 1.0 + 8 * np.finfo(np.float64).eps
+
+
+# ---------------------------------------------------------------------------
+# preparing the series
+# ---------------------------------------------------------------------------
+
+
+@njit(cache=True, nogil=True)
+def _prepare_rows(values, offsets, usable, normalize, out):
+    """Fill each usable row's gaps into ``out`` and z-normalise it if asked.
+
+    Inner gaps: linear between the neighbouring present values (the formula
+    of ``on_grid(..., fill := 'linear')``); leading and trailing gaps: the
+    nearest present value. z-normalising is the arithmetic of
+    ``dtw_distance(..., normalize=True)`` (population standard deviation; a
+    constant series becomes zeros).
+    """
+    for r in range(len(offsets) - 1):
+        if not usable[r]:
+            continue
+        lo, hi = offsets[r], offsets[r + 1]
+        n = hi - lo
+        last = -1
+        for t in range(n):
+            v = values[lo + t]
+            if math.isnan(v):
+                continue
+            if last < 0:
+                for s in range(t):
+                    out[lo + s] = v
+            elif last < t - 1:
+                a = values[lo + last]
+                for s in range(last + 1, t):
+                    out[lo + s] = a + ((s - last) / (t - last)) * (v - a)
+            out[lo + t] = v
+            last = t
+        for s in range(last + 1, n):
+            out[lo + s] = values[lo + last]
+        if not normalize:
+            continue
+        lowest, highest, total = out[lo], out[lo], 0.0
+        for k in range(lo, hi):
+            total += out[k]
+            lowest = min(lowest, out[k])
+            highest = max(highest, out[k])
+        if lowest == highest:
+            out[lo:hi] = 0.0
+            continue
+        mean = total / n
+        spread = 0.0
+        for k in range(lo, hi):
+            spread += (out[k] - mean) * (out[k] - mean)
+        std = math.sqrt(spread / n)
+        for k in range(lo, hi):
+            out[k] = (out[k] - mean) / std
+
+
+def prepare(series: Ragged, normalize: bool = False) -> tuple[Ragged, np.ndarray]:
+    """The series as the neighbour search sees them: gaps filled, z-normalised if asked.
+
+    Parameters
+    ----------
+    series : Ragged
+        One series per item; NaN elements are gaps.
+    normalize : bool
+        z-normalise each filled series (population standard deviation; a
+        constant series becomes zeros), as ``dtw_distance(normalize=True)``.
+
+    Returns
+    -------
+    prepared : Ragged
+        The filled series (unusable rows keep their elements, untouched).
+    usable : numpy.ndarray
+        bool per row: a valid, non-empty row with at least one present value
+        and no infinite element. Other rows take no part in the search.
+
+    Examples
+    --------
+    >>> filled, usable = prepare(Ragged.from_list([[np.nan, 1.0, np.nan, 3.0, np.nan]]))
+    >>> filled.row(0).tolist(), usable.tolist()
+    ([1.0, 1.0, 2.0, 3.0, 3.0], [True])
+    """
+    values = np.ascontiguousarray(series.values, dtype=np.float64)
+    offsets = np.ascontiguousarray(series.offsets, dtype=np.int64)
+    usable = series.row_valid & (series.lengths > 0)
+    present = ~np.isnan(values)
+    counts = np.bincount(series.row_ids[present], minlength=series.n_rows)
+    usable &= counts > 0
+    infinite = np.isinf(values)
+    if infinite.any():
+        usable &= np.bincount(series.row_ids[infinite], minlength=series.n_rows) == 0
+    out = values.copy()
+    _prepare_rows(values, offsets, usable, bool(normalize), out)
+    return Ragged(out, offsets, series.valid), usable
+
+
+# ---------------------------------------------------------------------------
+# compiled core: bounds, the warping programme, the lists
+# ---------------------------------------------------------------------------
+
+
+@njit(cache=True, nogil=True)
+def _half_width(n, m, band):
+    """The band used for an n x m pair: widened to ``|n - m|``; ``max(n, m) - 1`` allows every cell."""
+    widest = max(n, m) - 1
+    if band < 0:
+        return widest
+    return min(max(band, abs(n - m)), widest)
+
+
+@njit(cache=True, nogil=True)
+def _envelope(y, w, upper, lower, run_max, run_min, back_max, back_min):
+    """Largest and smallest element of ``y`` over ``[i - w, i + w]`` clipped to ``y``, for every ``i``.
+
+    van Herk's running extremes (Pattern Recognition Letters 13(7), 1992): cut
+    ``y`` into blocks of ``2w + 1``; a window meets at most two blocks, so its
+    extreme is that of the running extreme from its start to its block's end
+    and the running extreme from the next block's start to its end.
+    """
+    n = len(y)
+    if w >= n - 1:
+        upper[:] = y.max()
+        lower[:] = y.min()
+        return
+    size = 2 * w + 1
+    for t in range(n):
+        if t % size == 0:
+            run_max[t], run_min[t] = y[t], y[t]
+        else:
+            run_max[t], run_min[t] = max(run_max[t - 1], y[t]), min(run_min[t - 1], y[t])
+    for t in range(n - 1, -1, -1):
+        if t == n - 1 or (t + 1) % size == 0:
+            back_max[t], back_min[t] = y[t], y[t]
+        else:
+            back_max[t], back_min[t] = max(back_max[t + 1], y[t]), min(back_min[t + 1], y[t])
+    for i in range(n):
+        s, e = max(0, i - w), min(n - 1, i + w)
+        if s // size != e // size:
+            upper[i], lower[i] = max(back_max[s], run_max[e]), min(back_min[s], run_min[e])
+        elif s % size == 0:  # the window starts its block
+            upper[i], lower[i] = run_max[e], run_min[e]
+        else:  # clipped at the end of y: back_* runs to n - 1 = e
+            upper[i], lower[i] = back_max[s], back_min[s]
+
+
+@njit(cache=True, nogil=True)
+def _keogh(x, upper, lower, cut_sq, tail):
+    """LB_Keogh of ``x`` against an envelope, squared; stops early (a partial sum) once above ``cut_sq``.
+
+    When it does not stop, ``tail[i]`` gets the sum of the terms after ``i`` (``tail[n - 1] = 0``): the least
+    that rows ``i + 1 ..`` of the programme can add.
+    """
+    n = len(x)
+    total = 0.0
+    for i in range(n):
+        e = 0.0
+        if x[i] > upper[i]:
+            d = x[i] - upper[i]
+            e = d * d
+        elif x[i] < lower[i]:
+            d = lower[i] - x[i]
+            e = d * d
+        tail[i] = e
+        total += e
+        if (i & 7) == 7 and total > cut_sq:
+            return total
+    after = 0.0
+    for i in range(n - 1, -1, -1):
+        e = tail[i]
+        tail[i] = after
+        after += e
+    return total
+
+
+@njit(cache=True, nogil=True)
+def _warp(x, y, w, cut_sq, tail, above, here):
+    """Least cumulative squared cost within band ``w``, or ``inf`` when it is above ``cut_sq``.
+
+    Each computed cell is ``c + min(diagonal, above, left)``: the number that
+    :func:`tsql.kernels.dtw.dtw_distance` computes for it. A path through a
+    cell of row ``i`` costs at least the cell's cost plus ``tail[i]``, a lower
+    bound of what the later rows add (LB_Keogh's terms); a cell for which that
+    is above the cutoff is dead, and a row is worked only from the first live
+    cell of the row above to its last, and on to the right while the cell to
+    the left lives (the pruning of Silva & Batista 2016 with the early
+    abandoning of Rakthanmanon et al. 2012): a dead cell can never be the
+    cheapest way into a live one, so every live cell is computed exactly. The
+    programme stops when a row has no live cell. The bound is summed in
+    another order than a path's cost, so it is shrunk by a bound of the
+    rounding of a sum of ``n + m`` non-negative terms before the comparison.
+    ``above`` and ``here`` hold ``m + 1`` cells (index ``j + 1`` is column ``j``).
+    """
+    n, m = len(x), len(y)
+    inf = np.inf
+    shrink = 1.0 - 4.0 * (n + m + 2) * 2.220446049250313e-16
+    here[0] = inf
+    d = x[0] - y[0]
+    here[1] = d * d
+    last = min(m - 1, w)
+    for j in range(1, last + 1):
+        d = x[0] - y[j]
+        here[j + 1] = d * d + here[j]
+    first_live, last_live = -1, -1
+    for j in range(last + 1):  # row 0 grows to the right
+        if (here[j + 1] + tail[0]) * shrink > cut_sq:
+            break
+        first_live, last_live = 0, j
+    if first_live < 0:
+        return inf
+    if last_live + 2 <= m:
+        here[last_live + 2] = inf
+    for i in range(1, n):
+        above, here = here, above
+        lo, hi = max(0, i - w), min(m - 1, i + w)
+        start = max(lo, first_live)
+        here[start] = inf
+        xi, rest = x[i], tail[i]
+        new_first, new_last = -1, -1
+        j = start
+        while j <= hi:
+            d = xi - y[j]
+            if j <= last_live:
+                v = d * d + min(above[j], above[j + 1], here[j])
+            elif j == last_live + 1:
+                v = d * d + min(above[j], here[j])
+            else:
+                if new_last != j - 1:  # right of the row above: only the left cell leads here
+                    break
+                v = d * d + here[j]
+            here[j + 1] = v
+            if (v + rest) * shrink <= cut_sq:
+                if new_first < 0:
+                    new_first = j
+                new_last = j
+            j += 1
+        if new_first < 0:
+            return inf
+        first_live, last_live = new_first, new_last
+        here[first_live] = inf
+        if last_live + 2 <= m:
+            here[last_live + 2] = inf
+    if last_live != m - 1:
+        return inf
+    return here[m]
+
+
+@njit(cache=True, nogil=True)
+def _offer(i, j, d, k, best_d, best_j, count, kth_sq):
+    """Put ``(d, j)`` into item ``i``'s list (ordered by distance, then index) if it belongs there."""
+    c = count[i]
+    if c == k:
+        if d > best_d[i, k - 1] or (d == best_d[i, k - 1] and j > best_j[i, k - 1]):
+            return
+        pos = k - 1
+    else:
+        pos = c
+        count[i] = c + 1
+    while pos > 0 and (best_d[i, pos - 1] > d or (best_d[i, pos - 1] == d and best_j[i, pos - 1] > j)):
+        best_d[i, pos] = best_d[i, pos - 1]
+        best_j[i, pos] = best_j[i, pos - 1]
+        pos -= 1
+    best_d[i, pos] = d
+    best_j[i, pos] = j
+    if count[i] == k:
+        kth = best_d[i, k - 1]
+        kth_sq[i] = kth * kth * _WIDEN
+
+
+@njit(cache=True, nogil=True)
+def _known(i, j, best_j, count):
+    for s in range(count[i]):
+        if best_j[i, s] == j:
+            return True
+    for s in range(count[j]):
+        if best_j[j, s] == i:
+            return True
+    return False
+
+
+@njit(cache=True, nogil=True)
+def _consider(i, j, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, work):
+    """Look at the pair (i, j) once; returns the work spent (units of about one cell)."""
+    cut_sq = -1.0
+    if reference[j]:
+        cut_sq = kth_sq[i]
+    if reference[i]:
+        cut_sq = max(cut_sq, kth_sq[j])
+    if cut_sq < 0.0:
+        return 1
+    # LB_Kim: first and last cells together (one cell when both series have one element); largest; smallest
+    d = ends[i, 0] - ends[j, 0]
+    lb = d * d
+    if ends[i, 4] + ends[j, 4] > 2.0:
+        d = ends[i, 1] - ends[j, 1]
+        lb = lb + d * d
+    d = ends[i, 2] - ends[j, 2]
+    lb = max(lb, d * d)
+    d = ends[i, 3] - ends[j, 3]
+    lb = max(lb, d * d)
+    if lb > cut_sq:
+        return 2
+    if _known(i, j, best_j, count):
+        return 2
+    return 2 + _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, cut_sq,
+                       work)
+
+
+@njit(cache=True, nogil=True)
+def _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, cut_sq, work):
+    """LB_Keogh both ways, then the programme abandoned at ``cut_sq``; an exact distance is offered to both."""
+    x = x_all[off[i] : off[i + 1]]
+    y = x_all[off[j] : off[j + 1]]
+    n, m = len(x), len(y)
+    spent = 0
+    tail_x, tail_y = work[2], work[3]
+    if n == m:
+        spent += n
+        bound_x = _keogh(x, env_up[off[j] : off[j + 1]], env_low[off[j] : off[j + 1]], cut_sq, tail_x)
+        if bound_x > cut_sq:
+            return spent
+        spent += n
+        bound_y = _keogh(y, env_up[off[i] : off[i + 1]], env_low[off[i] : off[i + 1]], cut_sq, tail_y)
+        if bound_y > cut_sq:
+            return spent
+        if bound_y > bound_x:  # rows along y: d(x, y) = d(y, x), the programme of (y, x) is the transpose
+            x, y, n, m, tail_x = y, x, m, n, tail_y
+    else:
+        tail_x[:n] = 0.0
+    w = _half_width(n, m, band)
+    spent += n * min(m, 2 * w + 1)
+    total = _warp(x, y, w, cut_sq, tail_x, work[0], work[1])
+    if total == np.inf:
+        return spent
+    distance = math.sqrt(total)
+    if reference[j]:
+        _offer(i, j, distance, k, best_d, best_j, count, kth_sq)
+    if reference[i]:
+        _offer(j, i, distance, k, best_d, best_j, count, kth_sq)
+    return spent
+
+
+@njit(cache=True, nogil=True)
+def _setup(x_all, off, band, env_up, env_low, ends):
+    """Per item: the envelope for an equal-length partner, and first, last, largest, smallest, length."""
+    longest = 1
+    for i in range(len(off) - 1):
+        longest = max(longest, off[i + 1] - off[i])
+    scratch = np.empty((4, longest))
+    for i in range(len(off) - 1):
+        y = x_all[off[i] : off[i + 1]]
+        n = len(y)
+        w = _half_width(n, n, band)
+        _envelope(y, w, env_up[off[i] : off[i + 1]], env_low[off[i] : off[i + 1]], scratch[0], scratch[1],
+                  scratch[2], scratch[3])
+        ends[i, 0], ends[i, 1], ends[i, 2], ends[i, 3], ends[i, 4] = y[0], y[n - 1], y.max(), y.min(), n
+
+
+@njit(cache=True, nogil=True)
+def _pairs(
+    firsts, seconds, start, budget, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count,
+    kth_sq, work,
+):
+    """The listed pairs from ``start`` on, until about ``budget`` units are spent; returns where to go on."""
+    spent = 0
+    p = start
+    while p < len(firsts) and spent < budget:
+        spent += _consider(
+            firsts[p], seconds[p], x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count,
+            kth_sq, work,
+        )
+        p += 1
+    return p
+
+
+@njit(cache=True, nogil=True)
+def _query(i, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, work, lb, cand):
+    """Item ``i``'s neighbours among all items, the candidates in the order of their lower bounds.
+
+    Bounds above ``i``'s current k-th best distance drop a candidate; the rest,
+    closest bound first, get the programme abandoned at that distance, until the
+    next bound is above it. An exact distance is offered to both items.
+    """
+    items = len(off) - 1
+    x = x_all[off[i] : off[i + 1]]
+    n = len(x)
+    cut = kth_sq[i]
+    found = 0
+    for j in range(items):  # LB_Kim
+        if j == i or not reference[j]:
+            continue
+        d = ends[i, 0] - ends[j, 0]
+        bound = d * d
+        if n + ends[j, 4] > 2.0:
+            d = ends[i, 1] - ends[j, 1]
+            bound = bound + d * d
+        d = ends[i, 2] - ends[j, 2]
+        bound = max(bound, d * d)
+        d = ends[i, 3] - ends[j, 3]
+        bound = max(bound, d * d)
+        if bound <= cut:
+            lb[found] = bound
+            cand[found] = j
+            found += 1
+    spent = items
+    tail = work[2]
+    for t in range(found):  # LB_Keogh both ways, equal lengths
+        j = cand[t]
+        if off[j + 1] - off[j] != n:
+            continue
+        spent += 2 * n
+        y = x_all[off[j] : off[j + 1]]
+        bound = max(lb[t], _keogh(x, env_up[off[j] : off[j + 1]], env_low[off[j] : off[j + 1]], cut, tail))
+        if bound <= cut:
+            bound = max(bound, _keogh(y, env_up[off[i] : off[i + 1]], env_low[off[i] : off[i + 1]], cut, tail))
+        lb[t] = bound
+    order = np.argsort(lb[:found])
+    for t in order:
+        if lb[t] > kth_sq[i]:
+            break
+        j = cand[t]
+        if _known(i, j, best_j, count):
+            continue
+        spent += _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
+                         kth_sq[i], work)
+    return spent
+
+
+@njit(cache=True, nogil=True)
+def _queries(start, budget, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
+             work, lb, cand):
+    """:func:`_query` for the items from ``start`` on, until about ``budget`` units are spent; returns where to go on."""
+    items = len(off) - 1
+    spent = 0
+    i = start
+    while i < items and spent < budget:
+        spent += _query(i, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
+                        work, lb, cand)
+        i += 1
+    return i
+
+
+# ---------------------------------------------------------------------------
+# seeds
+# ---------------------------------------------------------------------------
+
+
+def _summaries(x_all: np.ndarray, off: np.ndarray) -> np.ndarray:
+    """Means of ``_SEGMENTS`` equal stretches of each series (a stretch of a short series may repeat an element)."""
+    lengths = np.diff(off)
+    cumulative = np.concatenate(([0.0], np.cumsum(x_all)))
+    share = np.arange(_SEGMENTS + 1) / _SEGMENTS
+    bounds = np.floor(lengths[:, None] * share[None, :]).astype(np.int64)
+    first = np.minimum(bounds[:, :-1], lengths[:, None] - 1)
+    last = np.maximum(bounds[:, 1:], first + 1)
+    begin, end = off[:-1, None] + first, off[:-1, None] + last
+    return (cumulative[end] - cumulative[begin]) / (end - begin)
+
+
+def _seed_pairs(summary: np.ndarray, reference: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """For every item, its ``k`` nearest reference items by the summaries' Euclidean distance.
+
+    Only the order of the work depends on these pairs, never the answer.
+    """
+    items = len(summary)
+    refs = np.flatnonzero(reference)
+    take = min(k, len(refs))
+    if take == 0:
+        return np.empty(0, np.int64), np.empty(0, np.int64)
+    summary = summary - summary.mean(axis=0)  # smaller magnitudes, less cancellation below
+    norms = np.einsum("ij,ij->i", summary, summary)
+    candidates = summary[refs]
+    firsts, seconds = [], []
+    step = max(1, (1 << 22) // max(len(refs), 1))
+    for start in range(0, items, step):
+        rows = np.arange(start, min(items, start + step))
+        dist = norms[rows, None] + norms[None, refs] - 2.0 * (summary[rows] @ candidates.T)
+        dist[refs[None, :] == rows[:, None]] = np.inf
+        near = np.argpartition(dist, take - 1, axis=1)[:, :take] if take < len(refs) else np.tile(
+            np.arange(len(refs)), (len(rows), 1)
+        )
+        firsts.append(np.repeat(rows, near.shape[1]))
+        seconds.append(refs[near.ravel()])
+    firsts, seconds = np.concatenate(firsts), np.concatenate(seconds)
+    keep = firsts != seconds
+    return firsts[keep].astype(np.int64), seconds[keep].astype(np.int64)
+
+
+# ---------------------------------------------------------------------------
+# public kernel
+# ---------------------------------------------------------------------------
+
+
+def _common_scale(x_all: np.ndarray, normalize: bool) -> float:
+    """A power of two bringing the largest magnitude near 1 when squared differences could overflow or
+    underflow (beyond about 1e120 or below 1e-120); 1.0 otherwise. Exact: distances scale back exactly."""
+    if normalize or len(x_all) == 0:
+        return 1.0
+    biggest = float(np.max(np.abs(x_all)))
+    _, exponent = np.frexp(biggest)
+    if biggest == 0 or -400 <= exponent <= 400:
+        return 1.0
+    return float(np.ldexp(1.0, -int(np.clip(exponent, -1020, 1020))))
+
+
+def dtw_nearest(
+    ids: np.ndarray,
+    series: Ragged,
+    k: int = 5,
+    band: int | None = None,
+    normalize: bool = False,
+    reference: np.ndarray | None = None,
+) -> dict[str, np.ndarray]:
+    """The ``k`` nearest other items of every item under the dynamic time warping distance.
+
+    Exact: the same neighbours and distances as computing
+    :func:`tsql.kernels.dtw.dtw_distance` for every pair and ranking, only
+    faster (lower bounds and early abandoning drop pairs that cannot be among
+    the ``k`` nearest; see the module notes) [1]_ [2]_ [3]_.
+
+    Parameters
+    ----------
+    ids : numpy.ndarray
+        One id per item (numbers or strings), unique and not missing. Ties are
+        broken by id: at equal distance the item with the smaller id ranks
+        first (and is the one kept at the k-th place).
+    series : Ragged
+        One series per item, lengths may differ. NaN elements are gaps: each
+        series is filled before the search, inner gaps linearly between the
+        neighbouring present values (as ``on_grid(..., fill := 'linear')``),
+        leading and trailing gaps with the nearest present value. An item
+        whose series is NULL, empty, wholly missing or holds an infinite
+        element takes no part: it gets no neighbours and is nobody's.
+    k : int
+        Neighbours per item (>= 1). An item gets fewer when fewer other items
+        take part. 5 is a short list to read per item; the cost grows slowly
+        with ``k``.
+    band : int or None
+        Sakoe–Chiba half-width, widened to the length difference, as in
+        :func:`tsql.kernels.dtw.dtw_distance`. None allows any warping.
+    normalize : bool
+        z-normalise each filled series first (shape only, not level), as
+        ``dtw_distance(normalize=True)``.
+    reference : numpy.ndarray of bool or None
+        The items that may be neighbours (a reference set, e.g. the training
+        items of a 1-NN classifier); every item still gets its neighbours among
+        them. None: every item.
+
+    Returns
+    -------
+    dict of numpy.ndarray
+        Flat records, ordered by item (input position) and then rank:
+        ``item`` and ``neighbor`` (int64, positions in ``ids``/``series``),
+        ``distance`` (float64, equal to ``dtw_distance`` of the two filled
+        series, bit for bit) and ``rank`` (int64, 1 = nearest).
+
+    Notes
+    -----
+    Cost: a pass of a few floating-point operations over every pair of items,
+    then the bounds and the warping programme on the pairs that survive. On
+    series that form groups most pairs fall to the first bound.
+
+    See Also
+    --------
+    tsql.kernels.dtw.dtw_distance : the distance of one pair.
+    tsql.kernels.dtw.lb_keogh : the lower bound used here.
+    tsql.kernels.clusters.dtw_clusters : groups of look-alike items.
+
+    References
+    ----------
+    .. [1] Sakoe, H. & Chiba, S. (1978). *IEEE Trans. ASSP* 26(1), 43–49.
+    .. [2] Keogh, E. & Ratanamahatana, C. A. (2005). *KAIS* 7(3), 358–386.
+    .. [3] Rakthanmanon, T. et al. (2012). *Proc. KDD 2012*, 262–270.
+
+    Examples
+    --------
+    >>> found = dtw_nearest(np.array([10, 20, 30]), Ragged.from_list([[0, 1, 2], [0, 1, 1, 2], [5, 5, 5]]), k=1)
+    >>> found["item"].tolist(), found["neighbor"].tolist(), found["distance"].round(3).tolist()
+    ([0, 1, 2], [1, 0, 0], [0.0, 0.0, 7.071])
+
+    The third item is as far from the first as from the second; the smaller
+    id (10) wins the tie.
+    """
+    ids = np.asarray(ids)
+    if len(ids) != series.n_rows:
+        raise ValueError(f"dtw_nearest: {len(ids)} ids for {series.n_rows} series; give one id per series")
+    k = int(k)
+    if k < 1:
+        raise ValueError(f"dtw_nearest: k must be at least 1, got {k}")
+    if band is not None and band < 0:
+        raise ValueError(f"dtw_nearest: band must be >= 0 or NULL (any warping), got {band}")
+    try:
+        order = np.argsort(ids, kind="stable")
+    except TypeError:
+        raise ValueError("dtw_nearest: ids must be numbers or strings of one kind, none missing") from None
+    sorted_ids = ids[order]
+    if len(ids) > 1 and np.any(sorted_ids[1:] == sorted_ids[:-1]):
+        raise ValueError("dtw_nearest: ids must be unique; group the rows to one series per id first")
+    prepared, usable = prepare(series, normalize)
+    reference = np.ones(series.n_rows, bool) if reference is None else np.asarray(reference, bool)
+    items = order[usable[order]]  # the items taking part, by id
+    member = prepared.take(items)
+    x_all = np.ascontiguousarray(member.values)
+    scale = _common_scale(x_all, normalize)
+    if scale != 1.0:
+        x_all = x_all * scale
+    off = np.ascontiguousarray(member.offsets)
+    is_ref = np.ascontiguousarray(reference[items])
+    count_items = len(items)
+    best_d = np.full((count_items, k), np.inf)
+    best_j = np.full((count_items, k), -1, dtype=np.int64)
+    count = np.zeros(count_items, dtype=np.int64)
+    kth_sq = np.full(count_items, np.inf)
+    if count_items > 1:
+        band_code = _NO_BAND if band is None else min(int(band), 2**40)
+        env_up, env_low = np.empty_like(x_all), np.empty_like(x_all)
+        ends = np.empty((count_items, 5))
+        _setup(x_all, off, band_code, env_up, env_low, ends)
+        longest = int(np.diff(off).max())
+        work = np.empty((4, longest + 1))
+        state = (x_all, off, ends, env_up, env_low, is_ref, band_code, k, best_d, best_j, count, kth_sq, work)
+        firsts, seconds = _seed_pairs(_summaries(x_all, off), is_ref, k)
+        p = 0
+        while p < len(firsts):
+            p = _pairs(firsts, seconds, p, _BUDGET, *state)
+            checkpoint()
+        lb, cand = np.empty(count_items), np.empty(count_items, dtype=np.int64)
+        i = 0
+        while i < count_items:
+            i = _queries(i, _BUDGET, *state, lb, cand)
+            checkpoint()
+    if scale != 1.0:
+        best_d = best_d / scale
+    by_position = np.argsort(items, kind="stable")  # answer in input order
+    counts = count[by_position]
+    rows = np.repeat(by_position, counts)
+    rank = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
+    return {
+        "item": items[rows].astype(np.int64),
+        "neighbor": items[best_j[rows, rank]].astype(np.int64),
+        "distance": best_d[rows, rank],
+        "rank": (rank + 1).astype(np.int64),
+    }
