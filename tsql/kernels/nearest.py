@@ -9,29 +9,36 @@ distance of only a small share of the pairs:
    distance between 16 segment means) get their exact warping distance first,
    so every item has a k-th best distance (an upper bound of its final one)
    before the search starts.
-3. Every item in turn then looks for its own neighbours. Lower bounds come
-   first, cheapest first — LB_Kim (first and last elements together, the
-   largest and the smallest elements; Rakthanmanon et al. 2012) over all
-   items, then LB_Keogh both ways (Keogh & Ratanamahatana 2005) over the
-   survivors; a candidate whose bound is above the item's current k-th best
-   distance is dropped. The rest, smallest bound first, get the warping
-   programme, pruned and abandoned at that distance (see :func:`_warp`), until
-   the next bound is above it. A distance that comes out exact is offered to
-   both items (``d(a, b) = d(b, a)``), so no pair's programme runs to its end
-   twice.
+3. Every item then looks for its own neighbours. Lower bounds come first,
+   cheapest first — LB_Kim (first and last elements together, the largest and
+   the smallest elements; Rakthanmanon et al. 2012) over all items, then
+   LB_Keogh both ways (Keogh & Ratanamahatana 2005) over the survivors; a
+   candidate whose bound is above the item's current k-th best distance is
+   dropped. The rest, smallest bound first, go through the warping programme
+   ``_LANES`` at a time (one vector lane each), pruned and abandoned at that
+   distance (see :func:`_warp`), until the next bound is above it.
+
+Items are searched independently: each reads and writes only its own list,
+so the items run on all cores (``numba.prange``) and no answer depends on the
+thread count or on which thread took which item. The price is that a pair
+that is among the nearest of both its items is computed from both sides (the
+same number bit for bit: the programme of (b, a) is the transpose of that of
+(a, b)); pairs that only one side needs, by far the most, run once.
 
 A bound or an abandoned programme only ever drops a pair that could not enter
-either list, so the answer is the brute-force one; the order of the work (the
+the item's list, so the answer is the brute-force one; the order of the work (the
 seeds) changes only how much of it is needed. The warping distance is computed
 with the arithmetic of :func:`tsql.kernels.dtw.dtw_distance`, cell by cell, so
-the distances are the same bit for bit (also the same in both directions: the
-programme of (b, a) is the transpose of that of (a, b)). Floating-point sums
+the distances are the same bit for bit. Floating-point sums
 of non-negative terms only grow as terms are added or made larger, so the
 bounds hold in floating point too, not only on paper.
 
 The compiled code is self-contained (numba's on-disk cache checks only the
 source file of the function it loads). The work of one call is done in pieces
-of about 0.1 s with a :func:`tsql.kernels.cancel.checkpoint` between them.
+of about 0.1 s with a :func:`tsql.kernels.cancel.checkpoint` between them; a
+parallel piece holds the lock of :mod:`tsql.kernels.changepoint` (one parallel
+region at a time in a process) and runs on the calling thread in a process
+forked after OpenMP was loaded.
 
 References
 ----------
@@ -52,8 +59,9 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
+from tsql.kernels import changepoint
 from tsql.kernels.cancel import checkpoint
 from tsql.kernels.ragged import Ragged
 
@@ -63,6 +71,10 @@ __all__ = ["dtw_nearest", "prepare"]
 _NO_BAND = -1
 #: Work between two looks at an interrupt request, in units of about one cell of the programme (a few ns).
 _BUDGET = 1 << 25
+#: Candidates of one item stepped through the programme together, one vector lane each.
+_LANES = 8
+#: Pieces of one parallel call (the cores take them in turns).
+_PIECES = 16
 #: Segment means summarising a series for the seeds.
 _SEGMENTS = 16
 #: A squared cutoff is widened by this factor so that ``lb > cut_sq`` implies ``sqrt(lb) > cutoff`` after rounding.
@@ -221,17 +233,14 @@ def _keogh(x, upper, lower, cut_sq, tail):
     """
     n = len(x)
     total = 0.0
-    for i in range(n):
-        e = 0.0
-        if x[i] > upper[i]:
-            d = x[i] - upper[i]
-            e = d * d
-        elif x[i] < lower[i]:
-            d = lower[i] - x[i]
-            e = d * d
-        tail[i] = e
-        total += e
-        if (i & 7) == 7 and total > cut_sq:
+    for block in range(0, n, 8):
+        for i in range(block, min(n, block + 8)):
+            above = max(x[i] - upper[i], 0.0)
+            below = max(lower[i] - x[i], 0.0)
+            e = above * above + below * below  # one of the two is 0
+            tail[i] = e
+            total += e
+        if total > cut_sq:
             return total
     after = 0.0
     for i in range(n - 1, -1, -1):
@@ -314,6 +323,91 @@ def _warp(x, y, w, cut_sq, tail, above, here):
 
 
 @njit(cache=True, nogil=True)
+def _live(values, rest, shrink, cut_sq):
+    """Whether any lane's cell can still be on a path ending at or below the cutoff."""
+    for g in range(_LANES):
+        if (values[g] + rest[g]) * shrink <= cut_sq:
+            return True
+    return False
+
+
+@njit(cache=True, nogil=True)
+def _warp_tile(x, ys, w, cut_sq, tails, above, here, out):
+    """:func:`_warp` of ``x`` against the ``_LANES`` columns of ``ys`` (all of one length), stepped together.
+
+    The innermost loops run across the lanes and compile to vector
+    instructions. A row is worked over the union of the lanes' live cells, so a
+    lane's live cells are exact as in :func:`_warp` (a dead cell computed for
+    the sake of another lane may come out too large, and stays dead). ``out``
+    gets each lane's squared cost, or ``inf`` when it is above the cutoff.
+    """
+    n, m = len(x), ys.shape[0]
+    inf = np.inf
+    shrink = 1.0 - 4.0 * (n + m + 2) * 2.220446049250313e-16
+    x0 = x[0]
+    for g in range(_LANES):
+        here[0, g] = inf
+        d = x0 - ys[0, g]
+        here[1, g] = d * d
+    last = min(m - 1, w)
+    for j in range(1, last + 1):
+        for g in range(_LANES):
+            d = x0 - ys[j, g]
+            here[j + 1, g] = d * d + here[j, g]
+    first_live, last_live = -1, -1
+    for j in range(last + 1):  # row 0 grows to the right in every lane
+        if not _live(here[j + 1], tails[0], shrink, cut_sq):
+            break
+        first_live, last_live = 0, j
+    if first_live < 0:
+        out[:] = inf
+        return
+    if last_live + 2 <= m:
+        here[last_live + 2, :] = inf
+    for i in range(1, n):
+        above, here = here, above
+        lo, hi = max(0, i - w), min(m - 1, i + w)
+        start = max(lo, first_live)
+        if start > last_live + 1:
+            out[:] = inf
+            return
+        here[start, :] = inf
+        xi = x[i]
+        for j in range(start, min(hi, last_live) + 1):
+            for g in range(_LANES):
+                d = xi - ys[j, g]
+                here[j + 1, g] = d * d + min(above[j, g], above[j + 1, g], here[j, g])
+        j = last_live + 1
+        if j <= hi:
+            for g in range(_LANES):
+                d = xi - ys[j, g]
+                here[j + 1, g] = d * d + min(above[j, g], here[j, g])
+            j += 1
+            while j <= hi and _live(here[j], tails[i], shrink, cut_sq):  # the left cell lives in some lane
+                for g in range(_LANES):
+                    d = xi - ys[j, g]
+                    here[j + 1, g] = d * d + here[j, g]
+                j += 1
+        end = j - 1
+        new_first = start
+        while new_first <= end and not _live(here[new_first + 1], tails[i], shrink, cut_sq):
+            new_first += 1
+        if new_first > end:
+            out[:] = inf
+            return
+        new_last = end
+        while not _live(here[new_last + 1], tails[i], shrink, cut_sq):
+            new_last -= 1
+        first_live, last_live = new_first, new_last
+        here[first_live, :] = inf
+        if last_live + 2 <= m:
+            here[last_live + 2, :] = inf
+    for g in range(_LANES):
+        v = here[m, g]
+        out[g] = v if last_live == m - 1 and v * shrink <= cut_sq else inf
+
+
+@njit(cache=True, nogil=True)
 def _offer(i, j, d, k, best_d, best_j, count, kth_sq):
     """Put ``(d, j)`` into item ``i``'s list (ordered by distance, then index) if it belongs there."""
     c = count[i]
@@ -340,43 +434,12 @@ def _known(i, j, best_j, count):
     for s in range(count[i]):
         if best_j[i, s] == j:
             return True
-    for s in range(count[j]):
-        if best_j[j, s] == i:
-            return True
     return False
 
 
 @njit(cache=True, nogil=True)
-def _consider(i, j, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, work):
-    """Look at the pair (i, j) once; returns the work spent (units of about one cell)."""
-    cut_sq = -1.0
-    if reference[j]:
-        cut_sq = kth_sq[i]
-    if reference[i]:
-        cut_sq = max(cut_sq, kth_sq[j])
-    if cut_sq < 0.0:
-        return 1
-    # LB_Kim: first and last cells together (one cell when both series have one element); largest; smallest
-    d = ends[i, 0] - ends[j, 0]
-    lb = d * d
-    if ends[i, 4] + ends[j, 4] > 2.0:
-        d = ends[i, 1] - ends[j, 1]
-        lb = lb + d * d
-    d = ends[i, 2] - ends[j, 2]
-    lb = max(lb, d * d)
-    d = ends[i, 3] - ends[j, 3]
-    lb = max(lb, d * d)
-    if lb > cut_sq:
-        return 2
-    if _known(i, j, best_j, count):
-        return 2
-    return 2 + _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, cut_sq,
-                       work)
-
-
-@njit(cache=True, nogil=True)
 def _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, cut_sq, work):
-    """LB_Keogh both ways, then the programme abandoned at ``cut_sq``; an exact distance is offered to both."""
+    """LB_Keogh both ways, then the programme abandoned at ``cut_sq``; an exact distance goes into ``i``'s list."""
     x = x_all[off[i] : off[i + 1]]
     y = x_all[off[j] : off[j + 1]]
     n, m = len(x), len(y)
@@ -403,8 +466,6 @@ def _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_
     distance = math.sqrt(total)
     if reference[j]:
         _offer(i, j, distance, k, best_d, best_j, count, kth_sq)
-    if reference[i]:
-        _offer(j, i, distance, k, best_d, best_j, count, kth_sq)
     return spent
 
 
@@ -425,33 +486,28 @@ def _setup(x_all, off, band, env_up, env_low, ends):
 
 
 @njit(cache=True, nogil=True)
-def _pairs(
-    firsts, seconds, start, budget, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count,
-    kth_sq, work,
+def _query(
+    i, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, work, lb, cand,
+    tile,
 ):
-    """The listed pairs from ``start`` on, until about ``budget`` units are spent; returns where to go on."""
-    spent = 0
-    p = start
-    while p < len(firsts) and spent < budget:
-        spent += _consider(
-            firsts[p], seconds[p], x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count,
-            kth_sq, work,
-        )
-        p += 1
-    return p
-
-
-@njit(cache=True, nogil=True)
-def _query(i, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, work, lb, cand):
-    """Item ``i``'s neighbours among all items, the candidates in the order of their lower bounds.
+    """Item ``i``'s neighbours among all items: its seeds first, then the candidates in the order of their
+    lower bounds.
 
     Bounds above ``i``'s current k-th best distance drop a candidate; the rest,
     closest bound first, get the programme abandoned at that distance, until the
-    next bound is above it. An exact distance is offered to both items.
+    next bound is above it.
     """
     items = len(off) - 1
     x = x_all[off[i] : off[i + 1]]
     n = len(x)
+    planted = 0
+    for j in seeds[i]:
+        if j >= 0:
+            cand[planted] = j
+            lb[planted] = 0.0
+            planted += 1
+    spent = _try(i, x, cand, lb, planted, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count,
+                 kth_sq, work, tile)
     cut = kth_sq[i]
     found = 0
     for j in range(items):  # LB_Kim
@@ -470,7 +526,7 @@ def _query(i, x_all, off, ends, env_up, env_low, reference, band, k, best_d, bes
             lb[found] = bound
             cand[found] = j
             found += 1
-    spent = items
+    spent += items
     tail = work[2]
     for t in range(found):  # LB_Keogh both ways, equal lengths
         j = cand[t]
@@ -483,29 +539,97 @@ def _query(i, x_all, off, ends, env_up, env_low, reference, band, k, best_d, bes
             bound = max(bound, _keogh(y, env_up[off[i] : off[i + 1]], env_low[off[i] : off[i + 1]], cut, tail))
         lb[t] = bound
     order = np.argsort(lb[:found])
-    for t in order:
+    lb[:found] = lb[order]
+    cand[:found] = cand[order]
+    spent += _try(i, x, cand, lb, found, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count,
+                  kth_sq, work, tile)
+    return spent
+
+
+@njit(cache=True, nogil=True)
+def _try(
+    i, x, cand, lb, found, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, work,
+    tile,
+):
+    """The programme of item ``i`` against ``cand[:found]`` in that order, by tiles of ``_LANES``, while the
+    candidate's bound ``lb`` is not above ``i``'s k-th best distance."""
+    n = len(x)
+    spent = 0
+    ys, tails, members = tile[0], tile[1], tile[4]
+    lanes = 0
+    for t in range(found):
         if lb[t] > kth_sq[i]:
             break
         j = cand[t]
         if _known(i, j, best_j, count):
             continue
-        spent += _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
-                         kth_sq[i], work)
+        if off[j + 1] - off[j] != n:
+            spent += _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
+                             kth_sq[i], work)
+            continue
+        cut = kth_sq[i]
+        if _keogh(x, env_up[off[j] : off[j + 1]], env_low[off[j] : off[j + 1]], cut, tails[:n, lanes]) > cut:
+            continue
+        ys[:n, lanes] = x_all[off[j] : off[j + 1]]
+        members[lanes] = j
+        lanes += 1
+        if lanes == _LANES:
+            spent += _run_tile(i, x, lanes, reference, band, k, best_d, best_j, count, kth_sq, tile)
+            lanes = 0
+    if lanes > 0:
+        for g in range(lanes, _LANES):
+            ys[:n, g] = ys[:n, 0]
+            tails[:n, g] = tails[:n, 0]
+        spent += _run_tile(i, x, lanes, reference, band, k, best_d, best_j, count, kth_sq, tile)
     return spent
 
 
 @njit(cache=True, nogil=True)
-def _queries(start, budget, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
-             work, lb, cand):
-    """:func:`_query` for the items from ``start`` on, until about ``budget`` units are spent; returns where to go on."""
+def _run_tile(i, x, lanes, reference, band, k, best_d, best_j, count, kth_sq, tile):
+    """The programme of item ``i`` against a tile of candidates; exact distances go into ``i``'s list."""
+    n = len(x)
+    ys, tails, above, here, members = tile
+    w = _half_width(n, n, band)
+    out = np.empty(_LANES)
+    _warp_tile(x, ys[:n], w, kth_sq[i], tails[:n], above[: n + 1], here[: n + 1], out)
+    for g in range(lanes):
+        if out[g] < np.inf:
+            j = members[g]
+            distance = math.sqrt(out[g])
+            _offer(i, j, distance, k, best_d, best_j, count, kth_sq)
+    return n * min(n, 2 * w + 1)
+
+
+@njit(cache=True, nogil=True)
+def _items(first, stop, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq):
+    """:func:`_query` for the items ``first .. stop - 1``, with work arrays of their own."""
     items = len(off) - 1
-    spent = 0
-    i = start
-    while i < items and spent < budget:
-        spent += _query(i, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
-                        work, lb, cand)
-        i += 1
-    return i
+    longest = 1
+    for i in range(items):
+        longest = max(longest, off[i + 1] - off[i])
+    work = np.empty((4, longest + 1))
+    lb, cand = np.empty(max(items, k)), np.empty(max(items, k), dtype=np.int64)
+    tile = (
+        np.empty((longest + 1, _LANES)),
+        np.empty((longest + 1, _LANES)),
+        np.empty((longest + 1, _LANES)),
+        np.empty((longest + 1, _LANES)),
+        np.empty(_LANES, dtype=np.int64),
+    )
+    for i in range(first, stop):
+        _query(i, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
+               work, lb, cand, tile)
+
+
+@njit(cache=True, parallel=True)
+def _items_parallel(first, stop, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j,
+                    count, kth_sq):
+    """:func:`_items` in ``_PIECES`` pieces on all cores. An item's search reads and writes only its own list, so
+    no answer depends on which thread took which item, or when."""
+    size = stop - first
+    for piece in prange(_PIECES):
+        _items(first + piece * size // _PIECES, first + (piece + 1) * size // _PIECES, seeds, x_all, off, ends,
+               env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq)
 
 
 # ---------------------------------------------------------------------------
@@ -525,33 +649,31 @@ def _summaries(x_all: np.ndarray, off: np.ndarray) -> np.ndarray:
     return (cumulative[end] - cumulative[begin]) / (end - begin)
 
 
-def _seed_pairs(summary: np.ndarray, reference: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
-    """For every item, its ``k`` nearest reference items by the summaries' Euclidean distance.
+def _seeds(summary: np.ndarray, reference: np.ndarray, k: int) -> np.ndarray:
+    """For every item, its ``k`` nearest other reference items by the summaries' Euclidean distance (-1: none).
 
-    Only the order of the work depends on these pairs, never the answer.
+    Only the order of the work depends on these, never the answer.
     """
     items = len(summary)
     refs = np.flatnonzero(reference)
-    take = min(k, len(refs))
+    seeds = np.full((items, k), -1, dtype=np.int64)
+    take = min(k + 1, len(refs))
     if take == 0:
-        return np.empty(0, np.int64), np.empty(0, np.int64)
+        return seeds
     summary = summary - summary.mean(axis=0)  # smaller magnitudes, less cancellation below
     norms = np.einsum("ij,ij->i", summary, summary)
     candidates = summary[refs]
-    firsts, seconds = [], []
-    step = max(1, (1 << 22) // max(len(refs), 1))
+    step = max(1, (1 << 22) // len(refs))
     for start in range(0, items, step):
         rows = np.arange(start, min(items, start + step))
         dist = norms[rows, None] + norms[None, refs] - 2.0 * (summary[rows] @ candidates.T)
         dist[refs[None, :] == rows[:, None]] = np.inf
-        near = np.argpartition(dist, take - 1, axis=1)[:, :take] if take < len(refs) else np.tile(
-            np.arange(len(refs)), (len(rows), 1)
-        )
-        firsts.append(np.repeat(rows, near.shape[1]))
-        seconds.append(refs[near.ravel()])
-    firsts, seconds = np.concatenate(firsts), np.concatenate(seconds)
-    keep = firsts != seconds
-    return firsts[keep].astype(np.int64), seconds[keep].astype(np.int64)
+        near = np.argpartition(dist, take - 1, axis=1)[:, :take] if take < len(refs) else np.argsort(dist, axis=1)
+        near = np.take_along_axis(near, np.argsort(np.take_along_axis(dist, near, 1), axis=1), 1)[:, :k]
+        found = refs[near]
+        found[np.take_along_axis(dist, near, 1) == np.inf] = -1  # the item itself
+        seeds[rows, : found.shape[1]] = found
+    return seeds
 
 
 # ---------------------------------------------------------------------------
@@ -684,18 +806,16 @@ def dtw_nearest(
         env_up, env_low = np.empty_like(x_all), np.empty_like(x_all)
         ends = np.empty((count_items, 5))
         _setup(x_all, off, band_code, env_up, env_low, ends)
-        longest = int(np.diff(off).max())
-        work = np.empty((4, longest + 1))
-        state = (x_all, off, ends, env_up, env_low, is_ref, band_code, k, best_d, best_j, count, kth_sq, work)
-        firsts, seconds = _seed_pairs(_summaries(x_all, off), is_ref, k)
-        p = 0
-        while p < len(firsts):
-            p = _pairs(firsts, seconds, p, _BUDGET, *state)
-            checkpoint()
-        lb, cand = np.empty(count_items), np.empty(count_items, dtype=np.int64)
-        i = 0
-        while i < count_items:
-            i = _queries(i, _BUDGET, *state, lb, cand)
+        state = (x_all, off, ends, env_up, env_low, is_ref, band_code, k, best_d, best_j, count, kth_sq)
+        seeds = _seeds(_summaries(x_all, off), is_ref, k)
+        step = max(_PIECES, (1 << 21) // count_items)  # items per call: about 0.1 s of work
+        for first in range(0, count_items, step):
+            stop = min(count_items, first + step)
+            if changepoint._FORKED_AFTER_OPENMP:
+                _items(first, stop, seeds, *state)
+            else:
+                with changepoint._KERNEL_LOCK:
+                    _items_parallel(first, stop, seeds, *state)
             checkpoint()
     if scale != 1.0:
         best_d = best_d / scale
