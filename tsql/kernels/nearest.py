@@ -480,14 +480,38 @@ def _setup(x_all, off, band, env_up, env_low, ends):
         y = x_all[off[i] : off[i + 1]]
         n = len(y)
         w = _half_width(n, n, band)
-        _envelope(y, w, env_up[off[i] : off[i + 1]], env_low[off[i] : off[i + 1]], scratch[0], scratch[1],
-                  scratch[2], scratch[3])
+        _envelope(
+            y,
+            w,
+            env_up[off[i] : off[i + 1]],
+            env_low[off[i] : off[i + 1]],
+            scratch[0],
+            scratch[1],
+            scratch[2],
+            scratch[3],
+        )
         ends[i, 0], ends[i, 1], ends[i, 2], ends[i, 3], ends[i, 4] = y[0], y[n - 1], y.max(), y.min(), n
 
 
 @njit(cache=True, nogil=True)
 def _query(
-    i, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, work, lb, cand,
+    i,
+    seeds,
+    x_all,
+    off,
+    ends,
+    env_up,
+    env_low,
+    reference,
+    band,
+    k,
+    best_d,
+    best_j,
+    count,
+    kth_sq,
+    work,
+    lb,
+    cand,
     tile,
 ):
     """Item ``i``'s neighbours among all items: its seeds first, then the candidates in the order of their
@@ -506,8 +530,26 @@ def _query(
             cand[planted] = j
             lb[planted] = 0.0
             planted += 1
-    spent = _try(i, x, cand, lb, planted, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count,
-                 kth_sq, work, tile)
+    spent = _try(
+        i,
+        x,
+        cand,
+        lb,
+        planted,
+        x_all,
+        off,
+        env_up,
+        env_low,
+        reference,
+        band,
+        k,
+        best_d,
+        best_j,
+        count,
+        kth_sq,
+        work,
+        tile,
+    )
     cut = kth_sq[i]
     found = 0
     for j in range(items):  # LB_Kim
@@ -541,14 +583,48 @@ def _query(
     order = np.argsort(lb[:found])
     lb[:found] = lb[order]
     cand[:found] = cand[order]
-    spent += _try(i, x, cand, lb, found, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count,
-                  kth_sq, work, tile)
+    spent += _try(
+        i,
+        x,
+        cand,
+        lb,
+        found,
+        x_all,
+        off,
+        env_up,
+        env_low,
+        reference,
+        band,
+        k,
+        best_d,
+        best_j,
+        count,
+        kth_sq,
+        work,
+        tile,
+    )
     return spent
 
 
 @njit(cache=True, nogil=True)
 def _try(
-    i, x, cand, lb, found, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, work,
+    i,
+    x,
+    cand,
+    lb,
+    found,
+    x_all,
+    off,
+    env_up,
+    env_low,
+    reference,
+    band,
+    k,
+    best_d,
+    best_j,
+    count,
+    kth_sq,
+    work,
     tile,
 ):
     """The programme of item ``i`` against ``cand[:found]`` in that order, by tiles of ``_LANES``, while the
@@ -564,8 +640,9 @@ def _try(
         if _known(i, j, best_j, count):
             continue
         if off[j + 1] - off[j] != n:
-            spent += _settle(i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
-                             kth_sq[i], work)
+            spent += _settle(
+                i, j, x_all, off, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq, kth_sq[i], work
+            )
             continue
         cut = kth_sq[i]
         if _keogh(x, env_up[off[j] : off[j + 1]], env_low[off[j] : off[j + 1]], cut, tails[:n, lanes]) > cut:
@@ -617,19 +694,53 @@ def _items(first, stop, seeds, x_all, off, ends, env_up, env_low, reference, ban
         np.empty(_LANES, dtype=np.int64),
     )
     for i in range(first, stop):
-        _query(i, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq,
-               work, lb, cand, tile)
+        _query(
+            i,
+            seeds,
+            x_all,
+            off,
+            ends,
+            env_up,
+            env_low,
+            reference,
+            band,
+            k,
+            best_d,
+            best_j,
+            count,
+            kth_sq,
+            work,
+            lb,
+            cand,
+            tile,
+        )
 
 
 @njit(cache=True, parallel=True)
-def _items_parallel(first, stop, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j,
-                    count, kth_sq):
+def _items_parallel(
+    first, stop, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq
+):
     """:func:`_items` in ``_PIECES`` pieces on all cores. An item's search reads and writes only its own list, so
     no answer depends on which thread took which item, or when."""
     size = stop - first
     for piece in prange(_PIECES):
-        _items(first + piece * size // _PIECES, first + (piece + 1) * size // _PIECES, seeds, x_all, off, ends,
-               env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq)
+        _items(
+            first + piece * size // _PIECES,
+            first + (piece + 1) * size // _PIECES,
+            seeds,
+            x_all,
+            off,
+            ends,
+            env_up,
+            env_low,
+            reference,
+            band,
+            k,
+            best_d,
+            best_j,
+            count,
+            kth_sq,
+        )
 
 
 # ---------------------------------------------------------------------------
