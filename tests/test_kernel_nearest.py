@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 
 from tsql.kernels import nearest
+from tsql.kernels.cancel import Cancellation, Interrupted, checkpoint, watching
 from tsql.kernels.dtw import dtw_distance
 from tsql.kernels.nearest import dtw_nearest, prepare
 from tsql.kernels.ragged import Ragged
@@ -146,3 +147,27 @@ def test_bad_input_names_the_function(kwargs, message):
 
 def test_docstring_examples():
     assert doctest.testmod(nearest, extraglobs={"np": np}).failed == 0
+
+
+def test_a_long_call_looks_for_an_interrupt_between_pieces_and_stops(monkeypatch):
+    rng = np.random.default_rng(6)
+    series = Ragged.from_list([np.cumsum(rng.standard_normal(20)) for _ in range(300)])
+    monkeypatch.setattr(nearest, "_PAIRS_PER_PIECE", 300 * 20)  # pieces of 20 items
+    expected = dtw_nearest(np.arange(300), series, k=3)
+    cancel, looks = Cancellation(), []
+
+    def look(stop_after=None):
+        looks.append(1)
+        if stop_after is not None and len(looks) == stop_after:
+            cancel.bump()
+        checkpoint()
+
+    monkeypatch.setattr(nearest, "checkpoint", look)
+    got = watching(lambda: dtw_nearest(np.arange(300), series, k=3), cancel)()
+    assert len(looks) == 15
+    assert records(got) == records(expected)  # pieces change no answer
+    looks.clear()
+    monkeypatch.setattr(nearest, "checkpoint", lambda: look(3))
+    with pytest.raises(Interrupted, match="interrupted by tsql.interrupt"):
+        watching(lambda: dtw_nearest(np.arange(300), series, k=3), cancel)()
+    assert len(looks) == 3

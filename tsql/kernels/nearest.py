@@ -69,8 +69,8 @@ __all__ = ["dtw_nearest", "prepare"]
 
 #: ``band=None`` inside the compiled code.
 _NO_BAND = -1
-#: Work between two looks at an interrupt request, in units of about one cell of the programme (a few ns).
-_BUDGET = 1 << 25
+#: Items searched between two looks at an interrupt request: about this many item pairs' worth (0.1 s or so).
+_PAIRS_PER_PIECE = 1 << 18
 #: Candidates of one item stepped through the programme together, one vector lane each.
 _LANES = 8
 #: Pieces of one parallel call (the cores take them in turns).
@@ -919,7 +919,7 @@ def dtw_nearest(
         _setup(x_all, off, band_code, env_up, env_low, ends)
         state = (x_all, off, ends, env_up, env_low, is_ref, band_code, k, best_d, best_j, count, kth_sq)
         seeds = _seeds(_summaries(x_all, off), is_ref, k)
-        step = max(_PIECES, (1 << 21) // count_items)  # items per call: about 0.1 s of work
+        step = max(_PIECES, _PAIRS_PER_PIECE // count_items)
         for first in range(0, count_items, step):
             stop = min(count_items, first + step)
             if changepoint._FORKED_AFTER_OPENMP:
