@@ -230,6 +230,23 @@ def both_forms(function: str, list_expr: str, agg_expr: str, **kwargs) -> list[C
     return [Case(function, "list", "series", list_expr, **kwargs), Case(function, "agg", "series", agg_expr, **kwargs)]
 
 
+def registry_cases(covered: set[str]) -> list[Case]:
+    """A function without a case of its own, measured from its registry entry against the floor only
+    (its first test arguments; a reference loop and bars belong in :func:`cases`)."""
+    from tsql.registry import FUNCTIONS
+
+    rows: list[Case] = []
+    for fn in FUNCTIONS:
+        if fn.name in covered or fn.series != ("values",):
+            continue
+        args = f", {fn.test_args[0]}" if fn.test_args[0] else ""
+        note = "from its registry entry: no reference yet"
+        rows.append(Case(fn.name, "list", "series", f"{fn.name}(list(v ORDER BY t){args})", note=note))
+        if fn.aggregate:
+            rows.append(Case(fn.name, "agg", "series", f"{fn.name}_agg(v, t{args})", note=note))
+    return rows
+
+
 def cases() -> list[Case]:
     """Every public function, in both forms where it has an ``*_agg`` form."""
     at_least_2x = Bar("loop", 2.0)
@@ -391,6 +408,7 @@ def cases() -> list[Case]:
         )
         for form, expr in (("list", "trend_test(list(v ORDER BY t))"), ("agg", "trend_test_agg(v, t)"))
     ]
+    rows += registry_cases({c.function for c in rows})
     return rows
 
 

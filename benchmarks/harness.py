@@ -85,8 +85,11 @@ PROBE_PRELOAD = [
     "pandas",  # DuckDB's first Python UDF call imports pandas and pyarrow.compute
     "pyarrow.compute",
     "tsql",
-    "tsql.timed",
-    *(f"tsql.kernels.{m}" for m in ("changepoint", "correlation", "dtw", "grid", "look", "periodicity", "smoothing")),
+    "tsql.binding",
+    *(
+        f"tsql.kernels.{m}"
+        for m in ("changepoint", "correlation", "dtw", "grid", "sparkline", "periodicity", "smoothing")
+    ),
     "tsql.kernels.trend",
 ]
 

@@ -412,7 +412,8 @@ def run(sizes: bench.Sizes, out: Path | None, only: set[str] | None = None) -> d
         con.execute("SET enable_progress_bar = false")
         warm_up(con)
         rows = []
-        for table in dict.fromkeys(c.table for c in all_cases):
+        all_cases = [c for table in dict.fromkeys(c.table for c in all_cases) for c in all_cases if c.table == table]
+        for table in dict.fromkeys(c.table for c in all_cases):  # the rows come table by table, as all_cases now
             rows += measure_table(con, table, [c for c in all_cases if c.table == table], sizes, arrays)
         scaling = measure_scaling(con, sizes) if only is None else None
         con.close()

@@ -26,7 +26,7 @@ def main(argv: list[str] | None = None) -> int:
     print(path)
     with duckdb.connect(str(path), read_only=True) as con:
         for name in TABLES:
-            (count,) = con.execute(f"SELECT count(*) FROM {name}").fetchone()
+            (count,) = con.execute(f"SELECT count(*) FROM {name}").fetchall()[0]
             print(f"  {name:<16} {count:>9,} rows")
     return 0
 

@@ -3,7 +3,7 @@
 import numpy as np
 import pyarrow as pa
 
-from tsql import batch
+from tsql.forms import arrow as batch
 
 
 def test_complete_doubles_are_not_copied():

@@ -60,6 +60,21 @@ PAIR_FORMS = [
     "dtw_path(a.x, b.x, band := 2)",
     "lb_keogh(a.x, b.x, 3)",
 ]
+
+
+def _written(forms: list[str]) -> set[str]:
+    return {c.split("(")[0] for c in forms}
+
+
+# every other function with its registry test arguments (the forms above choose unusual settings)
+for _fn in FUNCTIONS:
+    _args = f", {_fn.test_args[-1]}" if _fn.test_args[-1] else ""
+    if _fn.series == ("a", "b") and _fn.name not in _written(PAIR_FORMS):
+        PAIR_FORMS.append(f"{_fn.name}(a.x, b.x{_args})")
+    elif _fn.series == ("values",) and _fn.name not in _written(LIST_FORMS):
+        LIST_FORMS.append(f"{_fn.name}(x{_args})")
+    if _fn.aggregate and f"{_fn.name}_agg" not in _written(AGG_FORMS):
+        AGG_FORMS.append(f"{_fn.name}_agg(v, t{_args})")
 GROUPS = 2600  # more than one vector (2,048 rows) of groups: batch boundaries fall differently
 
 

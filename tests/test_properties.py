@@ -17,8 +17,8 @@ from hypothesis import strategies as st
 from scipy import stats
 
 import tsql
-from tsql.binding import make_udf
-from tsql.kernels.look import BLOCKS
+from tsql.forms.list_form import list_udf as make_udf
+from tsql.kernels.sparkline import BLOCKS
 from tsql.registry import BY_NAME
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -256,13 +256,12 @@ KERNEL_SETTINGS = {
     "harmonic_profile": {"period": 7, "harmonics": 2},
     "sparkline": {"width": 9},
 }
-_ARROW = {"DOUBLE": pa.float64(), "VARCHAR": pa.string(), "BOOLEAN": pa.bool_()}
 
 
 def _params(name: str, n: int) -> list[pa.Array]:
     fn = BY_NAME[name]
     values = KERNEL_SETTINGS[name]
-    return [pa.array([values[p.name]] * n, type=_ARROW[p.sql_type]) for p in fn.params]
+    return [pa.array([values[p.name]] * n, type=p.sql_type.arrow) for p in fn.params]
 
 
 @SETTINGS

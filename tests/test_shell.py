@@ -17,9 +17,9 @@ from pathlib import Path
 import duckdb
 import pytest
 
-from tsql.pipeline import split_statements
 from tsql.render import format_table
 from tsql.shell import history_path
+from tsql.statements import split_statements
 
 TIMEOUT = 120  # seconds; generous, the machine is slow and shared
 # Makes the pseudo-terminal the controlling terminal of a new session, so that Ctrl-C there sends SIGINT.

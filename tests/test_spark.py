@@ -32,6 +32,7 @@ from pyspark.sql import SparkSession  # noqa: E402
 import tsql  # noqa: E402
 import tsql.spark  # noqa: E402
 from tsql import sample_db  # noqa: E402
+from tsql.forms.answers import PERIOD  # noqa: E402
 from tsql.registry import BY_NAME, FUNCTIONS  # noqa: E402
 
 TOLERANCE = 1e-12
@@ -113,6 +114,29 @@ SALES_AGGREGATE_COLUMNS: Columns = [
     ("smoothing", "smooth", "harmonic_smooth_agg(units, month, 2, 12)", "harmonic_smooth_agg(units, month, 2, 12)"),
     ("smoothing", "profile", "harmonic_profile_agg(units, month, '1 year')", None),
 ]
+
+
+def _registry_columns() -> tuple[Columns, Columns]:
+    """Every function of the registry with its most unusual test setting, list and *_agg form, on the sales."""
+    lists: Columns = []
+    aggregates: Columns = []
+    for fn in FUNCTIONS:
+        if fn.special:
+            continue
+        args = f", {fn.test_args[-1]}" if fn.test_args[-1] else ""
+        spark_args = args.replace(":=", "=>")
+        series = ", ".join(["v"] * len(fn.series))
+        lists.append(("registry", fn.name, f"{fn.name}({series}{spark_args})", f"{fn.name}({series}{args})"))
+        if fn.aggregate:
+            duck = (
+                f"{fn.name}(on_grid({V}, {T}){args})" if fn.answer == PERIOD else f"{fn.name}_agg(units, month{args})"
+            )
+            aggregates.append(("registry", fn.name, f"{fn.name}_agg(units, month{spark_args})", duck))
+    return lists, aggregates
+
+
+SALES_LIST_COLUMNS += _registry_columns()[0]
+SALES_AGGREGATE_COLUMNS += _registry_columns()[1]
 
 # --- daily prices: six instruments, weekdays only (the weekends are gaps on a daily grid) --
 
@@ -331,6 +355,10 @@ def agree(family: str, *answers: Answers) -> None:
                 assert difference <= TOLERANCE, f"{family}: {column} of {s['key']}: {s[column]} vs {d[column]}"
                 worst = max(worst, difference)
     AGREEMENT[family] = worst
+
+
+def test_every_function_with_its_test_settings(sales: tuple) -> None:
+    agree("registry", *sales)
 
 
 def test_every_function_is_registered(spark: SparkSession) -> None:

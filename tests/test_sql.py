@@ -2,50 +2,34 @@
 
 import hashlib
 import re
-from importlib import resources
 from pathlib import Path
 
 import duckdb
 import numpy as np
 import pyarrow as pa
 import pytest
+from registry_calls import settings
 
 import tsql
-from tsql.binding import make_udf
-from tsql.registry import FUNCTIONS, markdown_table
+from tsql.binding import sql_statements
+from tsql.forms.answers import PERIOD, SAME
+from tsql.forms.list_form import list_udf as make_udf
+from tsql.reference import markdown_table
+from tsql.registry import FUNCTIONS
 
 SINGLE = [f for f in FUNCTIONS if len(f.series) == 1]
 
 ROOT = Path(__file__).resolve().parents[1]
 
-# One call per function with a non-default setting, and the kernel call it must equal.
-SETTINGS = {
-    "dominant_period": ("min_period := 3, max_period := 30", {"min_period": 3, "max_period": 30}),
-    "seasonality": ("min_period := 3", {"min_period": 3, "max_period": None}),
-    "autocorrelation": ("lag := 2", {"lag": 2}),
-    "acf": ("max_lag := 5", {"max_lag": 5}),
-    "ljung_box": ("lags := 4", {"lags": 4}),
-    "trend_test": ("", {}),
-    "change_points": (
-        "model := 'meanvar', penalty := 8, min_size := 3",
-        {"model": "meanvar", "penalty": "8", "min_size": 3},
-    ),
-    "segments": ("penalty := 'mbic'", {"model": "mean", "penalty": "mbic", "min_size": 2}),
-}
-SETTINGS.update(
-    {
-        "harmonic_smooth": ("harmonics := 2, period := 7", {"harmonics": 2, "period": 7}),
-        "harmonic_profile": ("6, harmonics := 2", {"period": 6, "harmonics": 2}),
-        "sparkline": ("width := 12", {"width": 12}),
-    }
-)
+
+# One call per function with its most unusual test setting (the registry's), and the kernel call it must equal.
+SETTINGS = {fn.name: settings(fn, fn.test_args[-1]) for fn in FUNCTIONS}
 #: Functions whose *_agg form answers in times (tests/test_sql_change.py, tests/test_sql_time.py).
-TIME_ANSWERS = {f.name for f in FUNCTIONS if f.time_answer not in ("same", "period")}
-ARROW_PARAM_TYPES = {"DOUBLE": pa.float64(), "VARCHAR": pa.string(), "BOOLEAN": pa.bool_()}
+TIME_ANSWERS = {f.name for f in FUNCTIONS if f.answer not in (SAME, PERIOD)}
 
 
 def param_columns(fn, kwargs, n):
-    return [pa.array([kwargs[p.name]] * n, type=ARROW_PARAM_TYPES[p.sql_type]) for p in fn.params]
+    return [pa.array([kwargs[p.name]] * n, type=p.sql_type.arrow) for p in fn.params]
 
 
 @pytest.fixture(scope="module")
@@ -123,7 +107,7 @@ def test_aggregate_form_equals_list_form(con, fn):
     rows = con.execute(query).fetchall()
     assert len(rows) == 7
     for _, a, b in rows:
-        if fn.time_answer == "period":  # the rows of a group are 7 apart: the period in time units
+        if fn.answer == PERIOD:  # the rows of a group are 7 apart: the period in time units
             if isinstance(b, dict):
                 b = dict(b, period=b["period"] * 7)
             else:
@@ -287,8 +271,7 @@ def test_batch_boundaries_do_not_change_answers(ragged_table):
 
 
 def test_macros_and_registry_are_in_step(con):
-    text = "\n".join(p.read_text() for p in resources.files("tsql.sql").iterdir() if p.name.endswith(".sql"))
-    text = re.sub(r"\s+", " ", text)  # a long signature may wrap
+    text = re.sub(r"\s+", " ", "\n".join(sql_statements()))  # a long signature may wrap
     defined = {m for m in re.findall(r"CREATE OR REPLACE TEMP MACRO (\w+)\(", text) if not m.startswith("__tsql_")}
     expected = {f.name for f in FUNCTIONS} | {f"{f.name}_agg" for f in FUNCTIONS if f.aggregate}
     assert defined == expected
@@ -316,3 +299,14 @@ def test_register_on_a_cursor():
         cursor.execute("SELECT acf([1, 2, 3, 1, 2, 3])")
     tsql.register(cursor)
     assert cursor.execute("SELECT acf([1, 2, 3, 1, 2, 3], max_lag := 2)").fetchone()[0] is not None
+
+
+@pytest.mark.parametrize("target", ["connection", "cursor"])
+def test_registering_again_leaves_no_unfinished_result(target):
+    # DuckDB keeps a result open until a fetch returns no rows; an unfinished one blocks the next call
+    con = tsql.connect()
+    again = con if target == "connection" else con.cursor()
+    tsql.register(again)
+    tsql.register(again)
+    again.register("t", pa.table({"x": [1.0, 2.0, 1.0, 2.0]}))
+    assert again.execute("SELECT autocorrelation(list(x)) FROM t").fetchall()[0][0] == pytest.approx(-0.75)

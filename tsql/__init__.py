@@ -1,6 +1,15 @@
 """tsql: time-series diagnostics as SQL functions over DuckDB."""
 
-from tsql.binding import connect, interrupt, register
+from typing import Any
 
 __all__ = ["connect", "interrupt", "register", "__version__"]
 __version__ = "0.1.0"
+
+
+def __getattr__(name: str) -> Any:
+    # the DuckDB host loads on first use, so that other hosts (Spark) never import duckdb
+    if name in ("connect", "interrupt", "register"):
+        from tsql import binding
+
+        return getattr(binding, name)
+    raise AttributeError(f"module 'tsql' has no attribute {name!r}")

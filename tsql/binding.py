@@ -1,26 +1,15 @@
-"""Registration of every tsql function on a DuckDB connection.
+"""The DuckDB host: connect()/register() create every tsql function on a connection.
 
-For each registry entry this creates one vectorised Arrow UDF (internal name
-``__tsql_<name>``), then runs the ``sql/`` files, which define the public TEMP
-macros with their named defaults and ``*_agg`` forms. Nothing is written to
-the database file, so a read-only database works.
-
-Two helpers for other connections of the same database. An in-memory catalog
-``tsql_needs_register`` holds one macro per public name that fails with "call
-tsql.register(cursor) first", so that DuckDB's "Did you mean" on an
-unregistered cursor points there. And every UDF of a database closes over one
-:class:`~tsql.kernels.cancel.Cancellation`: :func:`interrupt` bumps it, and long kernels call
-:func:`~tsql.kernels.cancel.checkpoint` between chunks of work, so that a long call stops too
-(DuckDB itself looks at an interrupt only between UDF calls).
-
-This layer owns SQL types, NULLs and argument errors; the kernels own the
-mathematics.
+For each registry entry, registration creates vectorised Arrow UDFs (``__tsql_<name>`` and, for
+an ``*_agg`` form, ``__tsql_<name>_on_grid``) over :mod:`tsql.forms`, and generates the public
+TEMP macros (named defaults, the ``*_agg`` forms) from the entry; ``sql/`` holds only the helper
+macros they share. Nothing is written to the database file, so a read-only database works.
+Also here: the catalog of reminders for unregistered cursors, and :func:`interrupt`.
 """
 
 from __future__ import annotations
 
-import inspect
-import re
+import sys
 import threading
 import time
 import weakref
@@ -32,12 +21,16 @@ import duckdb
 import numpy as np
 import pyarrow as pa
 
-from tsql import batch as arrow_batch
-from tsql.kernels.cancel import INTERRUPTED, Cancellation, checkpoint, watching
-from tsql.kernels.ragged import Ragged, RaggedRecords
-from tsql.registry import FUNCTIONS, Function, Param
-
-_ARROW_TYPES = {"DOUBLE": pa.float64(), "INTEGER": pa.int32(), "BIGINT": pa.int64(), "VARCHAR": pa.string()}
+from tsql.forms import agg
+from tsql.forms.arguments import by_settings, with_arity
+from tsql.forms.arrow import ragged, row_pieces, single, to_ragged
+from tsql.forms.list_form import list_udf
+from tsql.forms.time import Clock
+from tsql.forms.types import SPAN_ARGUMENT, VARCHAR, SqlType
+from tsql.kernels.cancel import INTERRUPTED, Cancellation, watching
+from tsql.kernels.ragged import Ragged
+from tsql.registry import BY_NAME, FUNCTIONS, Function, Param
+from tsql.statements import split_statements
 
 
 def connect(
@@ -56,13 +49,8 @@ def register(con: duckdb.DuckDBPyConnection) -> duckdb.DuckDBPyConnection:
     A cursor without them is told to call ``tsql.register(cursor)`` (see
     :func:`_add_reminders`).
     """
-    from tsql import timed  # it builds on this module
-
     _cancellation(con, create=True)
-    for fn in FUNCTIONS:
-        if not fn.special:
-            _create_udf(con, fn)
-    timed.create_udfs(con)
+    _create_udfs(con)
     for statement in sql_statements():
         con.execute(statement)
     _add_reminders(con)
@@ -94,7 +82,7 @@ def _add_reminders(con: duckdb.DuckDBPyConnection) -> None:
     exists = f"SELECT count(*) FROM duckdb_databases() WHERE database_name = '{REMINDER_CATALOG}'"
     with _REMINDERS_LOCK:  # cursors registered from several threads at once
         try:
-            if con.execute(exists).fetchone()[0]:
+            if con.execute(exists).fetchall()[0][0]:
                 return
             # READ_WRITE: DuckDB would open it read-only beside a read-only file, and refuse
             con.execute(f"ATTACH ':memory:' AS {REMINDER_CATALOG} (READ_WRITE)")
@@ -143,7 +131,7 @@ def _cancellation(con: duckdb.DuckDBPyConnection, create: bool) -> Cancellation 
     if cancel is None:
         look = con.cursor()
         try:
-            cancel = _CANCELLATIONS.get(look.execute(f"SELECT {_CANCELLATION_UDF}()").fetchone()[0])
+            cancel = _CANCELLATIONS.get(look.execute(f"SELECT {_CANCELLATION_UDF}()").fetchall()[0][0])
         except duckdb.CatalogException:  # no tsql on this database
             return None
         finally:
@@ -182,193 +170,153 @@ def was_interrupted(error: BaseException) -> bool:
 
 
 def sql_statements() -> list[str]:
-    """The macro definitions from ``sql/``, one statement each, in file order."""
+    """Every macro definition: the helper macros of ``sql/`` (file order), then one or two per registry entry."""
     folder = resources.files("tsql.sql")
     statements = []
     for path in sorted((p for p in folder.iterdir() if p.name.endswith(".sql")), key=lambda p: p.name):
-        text = path.read_text(encoding="utf-8")
-        statements += [s.strip() for s in _split_statements(text) if s.strip()]
+        statements += [s.text for s in split_statements(path.read_text(encoding="utf-8"))]
+    for fn in FUNCTIONS:
+        statements.append(list_macro(fn))
+        if fn.aggregate:
+            statements.append(agg_macro(fn))
     return statements
 
 
-def _split_statements(text: str) -> list[str]:
-    body = "\n".join(line for line in text.splitlines() if not line.lstrip().startswith("--"))
-    return body.split(";")
+def list_macro(fn: Function) -> str:
+    """``CREATE ... MACRO name(values, p := default) AS __tsql_name(values, p)``."""
+    args = ", ".join(list(fn.series) + [_passed(p, agg=False) for p in fn.params])
+    return f"CREATE OR REPLACE TEMP MACRO {fn.signature} AS {fn.sql_body or f'{fn.udf_name}({args})'}"
 
 
-def _create_udf(con: duckdb.DuckDBPyConnection, fn: Function) -> None:
-    param_types = ["DOUBLE[]"] * len(fn.series) + [p.sql_type for p in fn.params]
-    create_udf(con, fn.udf_name, make_udf(fn), param_types, fn.returns)
+def agg_macro(fn: Function) -> str:
+    """``CREATE ... MACRO name_agg(value, time, ...)``: the group's observations to the grid UDF, its answer
+    finished in time terms as the entry's answer kind says."""
+    args = ["__tsql_observations(value, time)", "__tsql_time_type(time)", "__tsql_span(step)", "fill"]
+    call = f"{fn.udf_name}_on_grid({', '.join(args + [_passed(p, agg=True) for p in fn.params])})"
+    return f"CREATE OR REPLACE TEMP MACRO {fn.agg_signature} AS {fn.answer.finish_sql(fn.returns, call)}"
 
 
-def create_udf(con: duckdb.DuckDBPyConnection, name: str, udf: Callable, param_types: list[str], returns: str) -> None:
+def _passed(p: Param, agg: bool) -> str:
+    """How a macro hands an argument to its UDF: spans (agg forms) as ``__tsql_span``, 'word or number' as text."""
+    if agg and p.span:
+        return f"__tsql_span({p.name})"
+    return f"{p.name}::VARCHAR" if p.number_ok else p.name
+
+
+# --------------------------------------------------------------------------- #
+# the UDFs
+# --------------------------------------------------------------------------- #
+
+
+def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
+    grid_types = [VARCHAR.sql, SPAN_ARGUMENT.sql, VARCHAR.sql]  # time type, step, fill
+    for fn in FUNCTIONS:
+        if fn.special:
+            continue
+        params = [p.sql_type.sql for p in fn.params]
+        create_udf(con, fn.udf_name, list_udf(fn), ["DOUBLE[]"] * len(fn.series) + params, fn.returns)
+        if fn.aggregate:
+            params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in fn.params]
+            udf_returns = fn.answer.udf_returns(fn.returns)
+            create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [_OBSERVATIONS] + grid_types + params, udf_returns)
+    on_grid = with_arity(_on_grid_udf, "__tsql_on_grid", BY_NAME["on_grid"].doc, ["values", "times", *_GRID_ARGS])
+    create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, BY_NAME["on_grid"].returns)
+
+
+def create_udf(
+    con: duckdb.DuckDBPyConnection, name: str, udf: Callable, param_types: list[str], returns: SqlType
+) -> None:
     """Create one vectorised Arrow UDF; one that exists already is left as it is.
 
     The UDF notes the database's interrupt counter on each call, for :func:`checkpoint`.
     """
     watched = watching(udf, _cancellation(con, create=True))
     try:
-        con.create_function(name, watched, param_types, returns, type="arrow", null_handling="special")
+        con.create_function(name, watched, param_types, returns.sql, type="arrow", null_handling="special")
     except (duckdb.NotImplementedException, duckdb.CatalogException) as error:
         # UDFs belong to the whole connection: a second register() (or a cursor's) finds them there.
         if "already" not in str(error):
             raise
 
 
-def make_udf(fn: Function) -> Callable[..., pa.Array]:
-    """The vectorised function DuckDB (or another Arrow host) calls.
+_GRID_ARGS = ["time_type", "step", "fill"]
+_TEMPORAL = {
+    "DATE": "date",
+    "TIMESTAMP": "timestamp",
+    "TIMESTAMP_S": "timestamp",
+    "TIMESTAMP_MS": "timestamp",
+    "TIMESTAMP_NS": "timestamp",
+    "TIMESTAMP WITH TIME ZONE": "timestamptz",
+}
+_NUMERIC = (
+    "TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER", "UBIGINT", "UHUGEINT",
+    "FLOAT", "DOUBLE", "DECIMAL",
+)  # fmt: skip
+# one group's observations (macro __tsql_observations): per row the bits of its tick (DOUBLE) in the
+# high 64 bits and of its value (DOUBLE, NaN for NULL) in the low 64
+_OBSERVATIONS = "UHUGEINT[]"
+_TICK_WORD, _VALUE_WORD = (0, 1) if sys.byteorder == "big" else (1, 0)
 
-    It receives one Arrow column per argument for a whole vector of rows.
-    Plain parameters are usually the same on every row; rows are grouped by
-    their parameter values so the kernel always sees one setting per call.
-    """
-    convert = _Converter(fn.returns)
-    n_series = len(fn.series)
 
-    def udf(*columns: Any) -> pa.Array:
-        series = [arrow_batch._single(c) for c in columns[:n_series]]
+def clock(function: str, type_name: str | None) -> Clock:
+    """The clock of a time column from DuckDB's ``typeof``; an error naming ``function`` for any other type."""
+    if type_name is None:  # an aggregate over no rows: its one NULL row needs no clock
+        return Clock(None)
+    name = type_name.removesuffix("[]")
+    if name in _TEMPORAL:
+        return Clock(_TEMPORAL[name])
+    if not name.startswith(_NUMERIC):
+        raise ValueError(f"{function}: time must be DATE, TIMESTAMP, TIMESTAMPTZ or a number, got {name}")
+    return Clock("number")
+
+
+def observations(column: Any) -> tuple[Ragged, Ragged]:
+    """Ticks and values of each group from the macro's packed UHUGEINTs, without copying through Arrow."""
+    arr = single(column)
+    offsets = np.asarray(arr.offsets, dtype=np.int64)
+    first = int(offsets[0])
+    records = arr.values.slice(first, int(offsets[-1]) - first)
+    # 16 bytes per observation, whatever Arrow calls them (decimal128, or DuckDB's opaque
+    # extension type around fixed_size_binary[16]); never NULL (NaN stands for NULL)
+    packed = records.storage if isinstance(records, pa.ExtensionArray) else records
+    start, n = packed.offset, len(packed)
+    words = np.frombuffer(packed.buffers()[1], dtype=np.float64, count=2 * (start + n))[2 * start :]
+    offsets = offsets - first
+    valid = np.asarray(arr.is_valid(), dtype=bool) if arr.null_count else None
+    ticks = ragged(np.ascontiguousarray(words[_TICK_WORD::2]), offsets, valid)
+    return ticks, ragged(np.ascontiguousarray(words[_VALUE_WORD::2]), offsets, valid)
+
+
+def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
+    """The UDF behind ``<name>_agg``: groups in pieces of about :data:`tsql.forms.agg.PIECE_POINTS` observations."""
+    form = agg.AggForm(fn)
+
+    def udf(packed: Any, *settings: Any) -> pa.Array:
+        obs = single(packed)
 
         def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
-            subset = series if rows is None else [s.take(pa.array(rows)) for s in series]
-            return _run(fn, convert, subset, key, len(series[0]) if rows is None else len(rows))
+            part = obs if rows is None else obs.take(pa.array(rows))
+            type_name, span, fill, *arguments = key
+            pieces = []
+            for lo, hi in row_pieces([part], agg.PIECE_POINTS):
+                ticks, values = observations(part.slice(lo, hi - lo))
+                pieces.append(form(clock(form.name, type_name), span, fill, tuple(arguments), ticks, values))
+            return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)
 
-        return by_settings(len(series[0]), columns[n_series:], run)
+        return by_settings(len(obs), settings, run)
 
-    return with_arity(udf, fn.udf_name, fn.doc, list(fn.series) + [p.name for p in fn.params])
-
-
-def with_arity(udf: Callable, name: str, doc: str, argument_names: list[str]) -> Callable:
-    """Name ``udf`` and give it a signature of exactly these arguments (DuckDB checks the arity)."""
-    udf.__name__ = name
-    udf.__doc__ = doc
-    positional = inspect.Parameter.POSITIONAL_ONLY
-    udf.__signature__ = inspect.Signature([inspect.Parameter(n, positional) for n in argument_names])
-    return udf
+    return with_arity(
+        udf, f"{fn.udf_name}_on_grid", fn.doc, ["observations", *_GRID_ARGS] + [p.name for p in fn.params]
+    )
 
 
-def by_settings(n_rows: int, setting_columns: Any, run: Callable[[np.ndarray | None, tuple], pa.Array]) -> pa.Array:
-    """Call ``run(rows, settings)`` once per distinct tuple of plain arguments and reassemble the rows.
+def _on_grid_udf(values: Any, ticks: Any, *settings: Any) -> pa.Array:
+    values, ticks = single(values), single(ticks)
 
-    Plain parameters are usually the same on every row (``rows`` is then None: all of them).
-    """
-    settings = [arrow_batch.scalar_parameter(c) for c in setting_columns]
-    return by_keys(list(zip(*settings)) if settings else [()] * n_rows, run)
+    def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
+        v = to_ragged(values if rows is None else values.take(pa.array(rows)))
+        t = to_ragged(ticks if rows is None else ticks.take(pa.array(rows)))
+        type_name, span, fill = key
+        return agg.on_grid_values(lambda: clock("on_grid", type_name), span, fill, t, v)
 
-
-def by_keys(keys: list[tuple], run: Callable[[np.ndarray | None, tuple], pa.Array]) -> pa.Array:
-    """Call ``run(rows, key)`` once per distinct key (one per row) and put the rows back in order."""
-    distinct = dict.fromkeys(keys)
-    if len(distinct) <= 1:
-        return run(None, next(iter(distinct), ()))
-    groups: dict[tuple, list[int]] = {key: [] for key in distinct}
-    for i, key in enumerate(keys):
-        groups[key].append(i)
-    parts, order = [], []
-    for key, members in groups.items():
-        checkpoint()
-        rows = np.asarray(members, dtype=np.int64)
-        parts.append(run(rows, key))
-        order.append(rows)
-    joined = pa.concat_arrays(parts)
-    return joined.take(pa.array(np.argsort(np.concatenate(order), kind="stable")))
-
-
-def _run(fn: Function, convert: Callable, series: list[pa.Array], key: tuple, n_rows: int) -> pa.Array:
-    kwargs = checked_arguments(fn, key)
-    if kwargs is None:  # a NULL argument that has no "not set" meaning
-        return pa.nulls(n_rows, type=convert.arrow_type)
-    batches = [arrow_batch.to_ragged(s) for s in series]
-    result = fn.kernel(*batches, **kwargs)
-    valid = batches[0].row_valid
-    for b in batches[1:]:
-        valid = valid & b.row_valid
-    return convert(result, valid)
-
-
-def checked_arguments(fn: Function, key: tuple, name: str | None = None) -> dict | None:
-    """The plain arguments as keyword arguments for the kernel, checked; None when a NULL one makes the row NULL.
-
-    Errors name ``name`` (default: the function's own name; the *_agg forms pass theirs).
-    """
-    name = name or fn.name
-    kwargs = {}
-    for p, value in zip(fn.params, key):
-        if value is None:
-            if not p.none_ok:
-                return None
-            kwargs[p.name] = None
-            continue
-        kwargs[p.name] = check_argument(name, p, value)
-    for smaller, larger, message in fn.relations:
-        a, b = kwargs.get(smaller), kwargs.get(larger)
-        if a is not None and b is not None and b < a:
-            raise ValueError(f"{name}: {message}, got {smaller} = {_show(a)} and {larger} = {_show(b)}")
-    problem = fn.check(kwargs) if fn.check else None
-    if problem:
-        raise ValueError(f"{name}: {problem}")
-    return kwargs
-
-
-def check_argument(function: str, p: Param, value: Any) -> Any:
-    """Validate one plain argument; raise ``ValueError`` naming what is allowed."""
-    if p.choices:
-        if value in p.choices:
-            return value
-        allowed = ", ".join(repr(c) for c in p.choices)
-        if not p.number_ok:
-            raise ValueError(f"{function}: {p.name} must be one of {allowed}, got {value!r}")
-        try:
-            value = float(value)
-        except ValueError:
-            raise ValueError(f"{function}: {p.name} must be one of {allowed} or a number, got {value!r}") from None
-    if isinstance(value, float) and not np.isfinite(value):
-        raise ValueError(f"{function}: {p.name} must be a finite number, got {value}")
-    if p.whole:
-        if float(value) != int(value):
-            raise ValueError(f"{function}: {p.name} must be a whole number, got {_show(value)}")
-        value = int(value)
-    if p.minimum is not None and value < p.minimum:
-        raise ValueError(f"{function}: {p.name} must be >= {_show(p.minimum)}, got {_show(value)}")
-    if p.maximum is not None and value > p.maximum:
-        raise ValueError(f"{function}: {p.name} must be <= {p.maximum:,g}, got {_show(value)}")
-    return value
-
-
-def _show(x: Any) -> str:
-    return str(int(x)) if isinstance(x, float) and x.is_integer() else str(x)
-
-
-class _Converter:
-    """Turns a kernel result into the Arrow array of the declared SQL type.
-
-    DOUBLE from a per-row array; STRUCT(...) from a dict of per-row arrays;
-    T[] from a Ragged; STRUCT(...)[] from a RaggedRecords.
-    """
-
-    def __init__(self, sql_type: str):
-        self.sql_type = sql_type
-        self.is_list = sql_type.endswith("[]")
-        element = sql_type[:-2] if self.is_list else sql_type
-        struct = re.fullmatch(r"STRUCT\((.*)\)", element)
-        if struct:
-            fields = [f.strip().split() for f in struct.group(1).split(",")]
-            self.fields = {name: _ARROW_TYPES[t] for name, t in fields}
-            self.element = pa.struct(list(self.fields.items()))
-        else:
-            self.fields = None
-            self.element = _ARROW_TYPES[element]
-        self.arrow_type = pa.list_(self.element) if self.is_list else self.element
-
-    def __call__(self, result: Any, valid: np.ndarray) -> pa.Array:
-        if self.is_list and self.fields:
-            assert isinstance(result, RaggedRecords)
-            return arrow_batch.to_arrow_record_list(result, self.fields, result.row_valid & valid)
-        if self.is_list:
-            assert isinstance(result, Ragged)
-            rows = result.row_valid & valid
-            return arrow_batch.to_arrow_list(Ragged(result.values, result.offsets, rows), self.element)
-        if self.fields:
-            return arrow_batch.to_arrow_struct(result, self.fields, valid)
-        if pa.types.is_string(self.element):  # a list of str, None = NULL
-            return pa.array([r if ok else None for r, ok in zip(result, valid)], type=pa.string())
-        return arrow_batch.to_arrow_scalar(result, valid)
+    return by_settings(len(values), settings, run)

@@ -7,18 +7,8 @@ import sys
 from pathlib import Path
 
 from tsql import __version__
-from tsql.registry import BY_NAME, FUNCTIONS, Function, markdown_table
-
-
-def describe(fn: Function) -> str:
-    lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.returns}; NULL for: {fn.null_rows}"]
-    for p in fn.params:
-        if p.help:
-            lines.append(f"  {p.name}: {p.help}")
-    if fn.aggregate:
-        lines.append(f"  aggregate form: {fn.agg_signature}")
-    lines.append(f"  example: {fn.example}")
-    return "\n".join(lines)
+from tsql.reference import describe, function_list, markdown_table
+from tsql.registry import BY_NAME
 
 
 def _functions(args: argparse.Namespace) -> int:
@@ -36,19 +26,13 @@ def _functions(args: argparse.Namespace) -> int:
     return 0
 
 
-def function_list() -> str:
-    """One line per function: its name and one-line doc."""
-    width = max(len(f.name) for f in FUNCTIONS)
-    return "\n".join(f"{fn.name:<{width}}  {fn.doc}" for fn in FUNCTIONS)
-
-
 def _shell(args: argparse.Namespace) -> int:
     from tsql.shell import main as shell
 
     return shell(args.database, read_only=args.read_only)
 
 
-def _run(args: argparse.Namespace) -> int:
+def _run_scripts(args: argparse.Namespace) -> int:
     from tsql.pipeline import UsageError, parse_params, run
 
     try:
@@ -119,7 +103,7 @@ def main(argv: list[str] | None = None) -> int:
     script.add_argument(
         "--param", action="append", default=[], metavar="NAME=VALUE", help="a value for $NAME in the SQL (repeatable)"
     )
-    script.set_defaults(run=_run)
+    script.set_defaults(run=_run_scripts)
     demo = commands.add_parser("demo", help="five questions asked of the sample warehouse, with the planted answers")
     demo.add_argument(
         "--db", metavar="PATH", help="where to keep the sample warehouse (default: a file in your cache folder)"

@@ -129,7 +129,7 @@ def _matplotlib() -> tuple[Any, Any]:
 
 
 def _one_statement(sql: str, option: str) -> str:
-    from tsql.pipeline import split_statements
+    from tsql.statements import split_statements
 
     statements = split_statements(sql)
     if len(statements) != 1:

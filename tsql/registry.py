@@ -12,6 +12,11 @@ import importlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
+from tsql.forms.answers import PERIOD, SAME, SEGMENTS, SERIES, STARTS, Answer
+from tsql.forms.types import BOOLEAN, DOUBLE, INTEGER, VARCHAR, ListOf, SqlType, struct
+from tsql.kernels.changepoint import MIN_SIZE
+from tsql.kernels.grid import FILLS
+
 
 @dataclass(frozen=True)
 class Param:
@@ -26,7 +31,7 @@ class Param:
     """
 
     name: str
-    sql_type: str = "DOUBLE"
+    sql_type: SqlType = DOUBLE
     default: str | None = None
     minimum: float | None = None
     maximum: float | None = None
@@ -45,7 +50,7 @@ class Function:
 
     name: str
     family: str
-    returns: str
+    returns: SqlType
     kernel_path: str
     doc: str
     example: str
@@ -57,12 +62,22 @@ class Function:
     """Checks between two parameters: (smaller, larger, message)."""
     check: Callable[[dict], str | None] | None = None
     """A last check over all arguments; returns what is wrong, or None."""
-    time_answer: str = "same"
-    """How the ``*_agg`` form answers in time terms: 'same' (as the list form), 'period' (the
-    result, or its ``period`` field, becomes a span of time), 'starts' (positions become the times
-    where segments start), 'segments' (first/last become times), 'series' (a list of (time, value))."""
+    answer: Answer = SAME
+    """How the ``*_agg`` form answers in time terms (:mod:`tsql.forms.answers`): as the list form,
+    ``PERIOD`` (a span of time), ``STARTS`` (times where segments start), ``SEGMENTS`` (first and
+    last become times), ``SERIES`` (a list of (time, value))."""
     special: bool = False
-    """Registered by :mod:`tsql.timed` rather than the generic binding."""
+    sql_body: str | None = None
+    """The list macro's body when it is more than the UDF call."""
+    outcomes: str = ""
+    """What the list form answers for each input class of docs/behaviour.md (:data:`INPUT_CLASSES`), space
+    separated; the ``*_agg`` form answers the same, plus :data:`AGG_TIME_OUTCOMES` for the time classes."""
+    see_also: tuple[str, ...] = ()
+    """Related functions, named in ``tsql functions NAME``."""
+    test_args: tuple[str, ...] = ("",)
+    """Arguments after the series in the tests' calls: the first suits the 40-point series of the input
+    classes, the last is the most unusual setting (each is checked against the kernel called alone)."""
+    """Not a kernel over lists: ``on_grid``, whose hosts call :func:`tsql.forms.agg.on_grid_values`."""
 
     @property
     def kernel(self) -> Callable:
@@ -87,39 +102,38 @@ class Function:
         return f"{self.name}_agg({', '.join(args)})"
 
     @property
-    def agg_returns(self) -> str:
-        if self.time_answer == "period":
-            return self.returns.replace("period DOUBLE", f"period {SPAN}") if "STRUCT" in self.returns else SPAN
-        if self.time_answer == "starts":
-            return "time[]"
-        if self.time_answer == "segments":
-            return self.returns.replace("first INTEGER, last INTEGER", "first time, last time")
-        if self.time_answer == "series":
-            return f"STRUCT(time {MOMENT}, value DOUBLE)[]"
-        return self.returns
+    def agg_returns(self) -> SqlType:
+        return self.answer.agg_returns(self.returns)
 
 
-SPAN = "UNION(span INTERVAL, number DOUBLE)"
-"""A period in time terms: an INTERVAL for DATE/TIMESTAMP times, a number for numeric times."""
-MOMENT = 'UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)'
-"""A grid time: TIMESTAMP for DATE/TIMESTAMP times, TIMESTAMPTZ for TIMESTAMPTZ, else a number."""
-FILL_CHOICES = ("null", "zero", "linear", "previous")
-GRID_PARAMS = (
-    Param(
-        "step",
-        sql_type="VARCHAR",
-        default="NULL",
-        none_ok=True,
-        help="grid step: an INTERVAL (DATE/TIMESTAMP times) or a number (default: the most common spacing)",
-    ),
-    Param(
-        "fill",
-        sql_type="VARCHAR",
-        default="'null'",
-        choices=FILL_CHOICES,
-        help="grid points without a value: 'null', 'zero' (counts), 'linear', 'previous'",
-    ),
+INPUT_CLASSES = (
+    "null_list empty one all_null nan pos_inf neg_inf constant huge tiny long integer bigint decimal float "
+    "mismatched null_time inf_time"
+).split()
+"""The input classes of docs/behaviour.md, in its column order."""
+AGG_TIME_OUTCOMES = {"mismatched": "-", "null_time": "value", "inf_time": "null"}
+"""The ``*_agg`` forms' answers for the classes about times (the list forms have no times)."""
+#: The usual answers of a function of one series: NULL where the data cannot support an answer.
+STATISTIC = "null null null null value null null null value value value value value value value - - -"
+#: Of a function of two series: a NULL or NaN element makes the pair NULL; lists may differ in length.
+PAIR = "null null value null null null null value value value value value value value value value - -"
+
+STEP = Param(
+    "step",
+    sql_type=VARCHAR,
+    default="NULL",
+    none_ok=True,
+    help="grid step: an INTERVAL (DATE/TIMESTAMP times) or a number (default: the most common spacing)",
 )
+FILL = Param(
+    "fill",
+    sql_type=VARCHAR,
+    default="'null'",
+    none_ok=True,
+    choices=FILLS,
+    help="grid points without a value: 'null', 'zero' (counts), 'linear', 'previous'",
+)
+GRID_PARAMS = (STEP, FILL)
 
 
 MAX_LIST = 10_000_000
@@ -144,55 +158,81 @@ FUNCTIONS: tuple[Function, ...] = (
     Function(
         name="dominant_period",
         family="periodicity",
-        returns="DOUBLE",
+        returns=DOUBLE,
         kernel_path="periodicity:dominant_period",
         doc="Period of the strongest cycle, in samples, refined off the Fourier grid.",
         example="SELECT dominant_period([1, 5, 9, 5, 1, 5, 9, 5, 1, 5, 9, 5]) AS period;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
+        see_also=("seasonality", "spectral_entropy"),
+        outcomes=STATISTIC,
+        test_args=("", "min_period := 3, max_period := 30"),
         params=PERIOD_PARAMS,
         relations=PERIOD_RELATIONS,
-        time_answer="period",
+        answer=PERIOD,
     ),
     Function(
         name="seasonality",
         family="periodicity",
-        returns="STRUCT(period DOUBLE, strength DOUBLE, p_value DOUBLE)",
+        returns=struct(period=DOUBLE, strength=DOUBLE, p_value=DOUBLE),
         kernel_path="periodicity:seasonality",
         doc="Dominant period, share of variance its harmonics explain, and Fisher's g p-value.",
         example="SELECT seasonality([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2]) AS s;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
+        see_also=("dominant_period", "spectral_entropy", "harmonic_profile"),
+        outcomes=STATISTIC,
+        test_args=("", "min_period := 3"),
         params=PERIOD_PARAMS,
         relations=PERIOD_RELATIONS,
-        time_answer="period",
+        answer=PERIOD,
+    ),
+    Function(
+        name="spectral_entropy",
+        family="periodicity",
+        returns=DOUBLE,
+        kernel_path="periodicity:spectral_entropy",
+        doc="Entropy of the normalised periodogram, in [0, 1]: near 0 for one clean cycle, near 1 for noise.",
+        example="SELECT spectral_entropy([1, 5, 9, 5, 1, 5, 9, 5, 1, 5, 9, 5]) AS entropy;",
+        null_rows=SERIES_TOO_SHORT.format(n=4),
+        outcomes=STATISTIC,
+        see_also=("dominant_period", "seasonality"),
     ),
     Function(
         name="autocorrelation",
         family="correlation",
-        returns="DOUBLE",
+        returns=DOUBLE,
         kernel_path="correlation:autocorrelation",
         doc="Sample autocorrelation at one lag (standard biased estimator).",
         example="SELECT autocorrelation([2, 4, 3, 5, 4, 6, 5, 7], lag := 2) AS r2;",
         null_rows=SERIES_TOO_SHORT.format(n=2) + ", or no present pair lag apart",
+        see_also=("acf", "ljung_box"),
+        outcomes=STATISTIC,
+        test_args=("", "lag := 2"),
         params=(Param("lag", default="1", minimum=1, whole=True, help="k, in samples"),),
     ),
     Function(
         name="acf",
         family="correlation",
-        returns="DOUBLE[]",
+        returns=ListOf(DOUBLE),
         kernel_path="correlation:acf",
         doc="Sample autocorrelations at lags 1..max_lag.",
         example="SELECT acf([2, 4, 3, 5, 4, 6, 5, 7], max_lag := 3) AS r;",
         null_rows=SERIES_TOO_SHORT.format(n=2) + "; a lag with no present pair is a NULL element",
+        see_also=("autocorrelation", "ljung_box"),
+        outcomes=STATISTIC,
+        test_args=("max_lag := 3", "max_lag := 5"),
         params=(Param("max_lag", default="10", minimum=1, maximum=MAX_LIST, whole=True, help="highest lag returned"),),
     ),
     Function(
         name="ljung_box",
         family="correlation",
-        returns="STRUCT(q DOUBLE, p_value DOUBLE)",
+        returns=struct(q=DOUBLE, p_value=DOUBLE),
         kernel_path="correlation:ljung_box",
         doc="Ljung-Box test that the first lags show no autocorrelation.",
         example="SELECT ljung_box([2, 4, 3, 5, 4, 6, 5, 7, 6, 8, 7, 9], lags := 3) AS lb;",
         null_rows=SERIES_TOO_SHORT.format(n="lags + 1"),
+        see_also=("acf",),
+        outcomes=STATISTIC,
+        test_args=("lags := 3", "lags := 4"),
         params=(
             Param(
                 "lags",
@@ -207,11 +247,13 @@ FUNCTIONS: tuple[Function, ...] = (
     Function(
         name="trend_test",
         family="correlation",
-        returns="STRUCT(tau DOUBLE, p_value DOUBLE, slope DOUBLE)",
+        returns=struct(tau=DOUBLE, p_value=DOUBLE, slope=DOUBLE),
         kernel_path="trend:trend_test",
         doc="Mann-Kendall trend test (tau-b, two-sided p) and Sen's slope per sample.",
         example="SELECT trend_test([3, 4, 4, 6, 5, 7, 8, 8, 10, 9]) AS t;",
         null_rows=SERIES_TOO_SHORT.format(n=3),
+        see_also=("segments",),
+        outcomes=STATISTIC,
     ),
 )
 
@@ -221,11 +263,13 @@ FUNCTIONS += (
     Function(
         name="dtw_distance",
         family="similarity",
-        returns="DOUBLE",
+        returns=DOUBLE,
         kernel_path="dtw:dtw_distance",
         doc="Dynamic time warping distance: root of the least summed squared difference over warping paths.",
         example="SELECT dtw_distance([1, 2, 3, 5, 3], [1, 1, 2, 3, 5, 3], band := 2) AS d;",
         null_rows=PAIR_NULL_ROWS + "; with cutoff, a pair farther than cutoff",
+        see_also=("lb_keogh", "dtw_path"),
+        outcomes=PAIR,
         series=("a", "b"),
         params=(
             Param(
@@ -238,7 +282,7 @@ FUNCTIONS += (
             ),
             Param(
                 "normalize",
-                sql_type="BOOLEAN",
+                sql_type=BOOLEAN,
                 default="false",
                 help="z-normalise each series first, to compare shape rather than level and scale",
             ),
@@ -255,11 +299,13 @@ FUNCTIONS += (
     Function(
         name="dtw_path",
         family="similarity",
-        returns="STRUCT(i INTEGER, j INTEGER)[]",
+        returns=ListOf(struct(i=INTEGER, j=INTEGER)),
         kernel_path="dtw:dtw_path",
         doc="An optimal warping path, 1-based (i, j) pairs from (1, 1) to (n, m).",
         example="SELECT dtw_path([1, 2, 3], [1, 2, 2, 3]) AS path;",
         null_rows=PAIR_NULL_ROWS,
+        see_also=("dtw_distance", "lb_keogh"),
+        outcomes=PAIR,
         series=("a", "b"),
         params=(
             Param(
@@ -276,22 +322,23 @@ FUNCTIONS += (
     Function(
         name="lb_keogh",
         family="similarity",
-        returns="DOUBLE",
+        returns=DOUBLE,
         kernel_path="dtw:lb_keogh",
         doc="LB_Keogh lower bound of dtw_distance(a, b, band := band): a cheap pre-filter.",
         example="SELECT lb_keogh([1, 2, 3, 5, 3], [1, 1, 2, 3, 5], 1) AS bound;",
         null_rows=PAIR_NULL_ROWS,
+        see_also=("dtw_distance", "dtw_path"),
+        outcomes=PAIR,
+        test_args=("2",),
         series=("a", "b"),
         params=(Param("band", minimum=0, whole=True, help="Sakoe-Chiba half-width of the envelope of b"),),
         aggregate=False,
     ),
 )
 
-CHANGE_MIN_SIZE = {"mean": 1, "meanvar": 2, "trend": 2}
-
 
 def _min_size_fits_model(args: dict) -> str | None:
-    least = CHANGE_MIN_SIZE[args["model"]]
+    least = MIN_SIZE[args["model"]]
     if args["min_size"] < least:
         return f"min_size must be >= {least} for model {args['model']!r}, got {args['min_size']}"
     return None
@@ -300,14 +347,14 @@ def _min_size_fits_model(args: dict) -> str | None:
 CHANGE_PARAMS = (
     Param(
         "model",
-        sql_type="VARCHAR",
+        sql_type=VARCHAR,
         default="'mean'",
-        choices=tuple(CHANGE_MIN_SIZE),
+        choices=tuple(MIN_SIZE),
         help="'mean' (level shifts), 'meanvar' (level and spread), 'trend' (piecewise lines)",
     ),
     Param(
         "penalty",
-        sql_type="VARCHAR",
+        sql_type=VARCHAR,
         default="'bic'",
         choices=("bic", "mbic"),
         number_ok=True,
@@ -322,26 +369,32 @@ FUNCTIONS += (
     Function(
         name="change_points",
         family="change",
-        returns="INTEGER[]",
+        returns=ListOf(INTEGER),
         kernel_path="changepoint:change_points",
         doc="Exact PELT change points: 1-based position of the first element of each new segment.",
         example="SELECT change_points([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS starts;",
         null_rows=CHANGE_NULL_ROWS,
+        see_also=("segments",),
+        outcomes="null null empty null value null null empty value value value value value value value - - -",
+        test_args=("", "model := 'meanvar', penalty := 8, min_size := 3"),
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
-        time_answer="starts",
+        answer=STARTS,
     ),
     Function(
         name="segments",
         family="change",
-        returns="STRUCT(first INTEGER, last INTEGER, mean DOUBLE, slope DOUBLE)[]",
+        returns=ListOf(struct(first=INTEGER, last=INTEGER, mean=DOUBLE, slope=DOUBLE)),
         kernel_path="changepoint:segments",
         doc="The PELT segments with inclusive 1-based bounds, mean and least-squares slope per sample.",
         example="SELECT segments([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS regimes;",
         null_rows=CHANGE_NULL_ROWS.replace("an empty list", "one segment"),
+        see_also=("change_points", "trend_test"),
+        outcomes="null null partial null value null null value value value value value value value value - - -",
+        test_args=("", "penalty := 'mbic'"),
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
-        time_answer="segments",
+        answer=SEGMENTS,
     ),
 )
 
@@ -349,11 +402,14 @@ FUNCTIONS += (
     Function(
         name="harmonic_smooth",
         family="smoothing",
-        returns="DOUBLE[]",
+        returns=ListOf(DOUBLE),
         kernel_path="smoothing:harmonic_smooth",
         doc="Least-squares fit of a mean, a trend and the first harmonics: the smooth curve, same length.",
         example="SELECT harmonic_smooth([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], harmonics := 1, period := 4) AS smooth;",
         null_rows="NULL or empty list, or fewer present values than 2 + 2 * harmonics",
+        see_also=("harmonic_profile", "dominant_period"),
+        outcomes="null null null null value null null value value value value value value value value - - -",
+        test_args=("harmonics := 2", "harmonics := 2, period := 7"),
         params=(
             Param("harmonics", default="3", minimum=1, whole=True, help="number of cosine/sine pairs"),
             Param(
@@ -365,16 +421,19 @@ FUNCTIONS += (
                 help="period of the harmonics in samples, at least 2 (default: the record length)",
             ),
         ),
-        time_answer="series",
+        answer=SERIES,
     ),
     Function(
         name="harmonic_profile",
         family="smoothing",
-        returns="DOUBLE[]",
+        returns=ListOf(DOUBLE),
         kernel_path="smoothing:harmonic_profile",
         doc="One cycle of the fitted pattern (level plus harmonics), phase 0 = the first element's phase.",
         example="SELECT harmonic_profile([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], 4, harmonics := 1) AS cycle;",
         null_rows="NULL or empty list, too few present values, or a pattern the data cannot determine",
+        see_also=("harmonic_smooth", "seasonality"),
+        outcomes="null null null null value null null value value value value value value value value - - -",
+        test_args=("8, harmonics := 2", "6, harmonics := 2"),
         params=(
             Param(
                 "period",
@@ -389,11 +448,14 @@ FUNCTIONS += (
     Function(
         name="sparkline",
         family="look",
-        returns="VARCHAR",
-        kernel_path="look:sparkline",
+        returns=VARCHAR,
+        kernel_path="sparkline:sparkline",
         doc="A one-line picture of a series in block characters; NULL gaps are spaces.",
         example="SELECT sparkline([1, 2, 4, 8, 4, 2, 1, NULL, 1, 3]) AS picture;",
         null_rows="NULL list (an empty list gives '')",
+        see_also=("on_grid",),
+        outcomes="null empty value value value value value value value value value value value value value - - -",
+        test_args=("", "width := 12"),
         params=(
             Param(
                 "width",
@@ -413,28 +475,21 @@ FUNCTIONS += (
     Function(
         name="on_grid",
         family="time",
-        returns="DOUBLE[]",
+        returns=ListOf(DOUBLE),
         kernel_path="grid:on_grid",
         doc="The values on the regular grid from the first to the last time; missing periods come back.",
         example="SELECT on_grid([4, 6, 9], [DATE '2024-01-01', DATE '2024-02-01', DATE '2024-04-01']) AS monthly;",
         null_rows="NULL list; lists of different lengths are an error",
+        see_also=("sparkline",),
+        outcomes="null empty value partial partial echo echo value value value partial value value value value "
+        "error partial null",
         series=("values", "times"),
         params=GRID_PARAMS,
         aggregate=False,
         special=True,
+        sql_body="__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
+        "__tsql_span(step), fill)",
     ),
 )
 
 BY_NAME: dict[str, Function] = {f.name: f for f in FUNCTIONS}
-
-
-def markdown_table() -> str:
-    """The README's function table."""
-    rows = ["| family | function | returns | what it answers |", "|---|---|---|---|"]
-    for fn in FUNCTIONS:
-        agg = f" · `{fn.name}_agg(value, time, …)`" if fn.aggregate else ""
-        returns = f"`{fn.returns}`"
-        if fn.aggregate and fn.agg_returns != fn.returns:
-            returns += f" · agg: `{fn.agg_returns}`"
-        rows.append(f"| {fn.family} | `{fn.signature}`{agg} | {returns} | {fn.doc} |")
-    return "\n".join(rows)

@@ -23,8 +23,9 @@ import pyarrow as pa
 
 from tsql import __version__
 from tsql.binding import interrupt, was_interrupted
-from tsql.pipeline import UsageError, is_query, out_options, split_statements, write_result
+from tsql.pipeline import UsageError, is_query, out_options, write_result
 from tsql.render import error_message, format_arrow
+from tsql.statements import split_statements
 
 PROMPT = "tsql> "
 MORE = "  ... "
@@ -150,7 +151,7 @@ class Shell:
         if name == "help":
             print(HELP)
         elif name == "functions":
-            from tsql.cli import function_list
+            from tsql.reference import function_list
 
             print(function_list())
         elif name == "function":
@@ -167,7 +168,7 @@ class Shell:
             print(f"unknown command :{name}; :help lists the commands", file=sys.stderr)
 
     def _describe(self, name: str) -> None:
-        from tsql.cli import describe
+        from tsql.reference import describe
         from tsql.registry import BY_NAME
 
         fn = BY_NAME.get(name.removesuffix("_agg"))

@@ -1,84 +1,24 @@
-"""Spark host: every tsql function in a Spark session, as vectorised Arrow UDFs.
+"""Spark host: every tsql function in a Spark session, as vectorised Arrow UDFs over :mod:`tsql.forms`.
 
-``tsql.spark.register(spark)`` registers each public function under its own name
-for Spark SQL, on the same batch layer and kernels as the DuckDB functions, so
-the answers are the same number for number:
-
-.. code-block:: python
-
-    import tsql.spark
-
-    tsql.spark.register(spark)
-    spark.sql('''
-        SELECT item, seasonality_agg(units, month) AS s, trend_test_agg(units, month) AS t
-        FROM sales GROUP BY item
-    ''')
-
-List forms are scalar Arrow UDFs over ``array<number>`` columns, e.g. a series
-collected in time order::
-
-    seasonality(transform(array_sort(collect_list(struct(month, units))), x -> x.units))
-
-``*_agg(value, time, ...)`` forms are grouped-aggregate Arrow UDFs: each group's
-rows go on their regular time grid first (missing periods come back as gaps),
-exactly as in DuckDB.
-
-Arguments go by position, in the order of the DuckDB signature, or by name
-with Spark's ``=>`` (``acf(v, max_lag => 24)``, ``seasonality_agg(units, month,
-step => '1 month')``); any argument with a default may be left off.
-:func:`positional_forms` lists every form, e.g.
-``seasonality_agg(value, time, min_period = 2, max_period = NULL, step = NULL, fill = 'null')``.
-
-Differences from DuckDB, forced by Spark's fixed UDF return types:
-
-- A period from an ``*_agg`` form (``dominant_period_agg``, ``seasonality_agg``'s
-  ``period``) is a DOUBLE count of grid steps, the number the list form gives on
-  the gridded series: 12.0 for a yearly cycle on a monthly grid, 24.0 for a daily
-  cycle on an hourly one. (DuckDB answers with an INTERVAL, rounded to whole
-  months on a calendar grid.) Give ``step`` to fix the grid for every group.
-- Times in answers (``change_points_agg``, ``segments_agg``'s ``first``/``last``,
-  ``harmonic_smooth_agg``'s ``time``) come back in one Spark type per session,
-  ``register(spark, time_type=...)``: ``'date'`` (the default; DATE times, or
-  TIMESTAMP_NTZ times at midnight), ``'timestamp_ntz'`` (DATE or TIMESTAMP_NTZ
-  times), ``'timestamp'`` (TIMESTAMP times) or ``'double'`` (numeric times). A
-  time column the chosen type cannot hold exactly is an error saying which to choose.
-- Spans (``step``, ``min_period``, ``period`` ... in the ``*_agg`` forms and
-  ``on_grid``) may be a number of grid steps, a day-time interval
-  (``INTERVAL '1' DAY``) or text that DuckDB reads as an interval (``'1 month'``);
-  a year-month interval (``INTERVAL 1 MONTH``) cannot reach a Python UDF in
-  Spark: write ``'1 month'``.
-
-An argument that makes no sense fails the query with Spark's ``PythonException``,
-whose message ends with tsql's own (``autocorrelation: lag must be >= 1, got -1``);
-``spark.sql.execution.pyspark.udf.hideTraceback.enabled=true`` leaves only that line.
-
-An ``*_agg`` form runs the kernel once per group. For many thousands of groups the
-list form over collected rows is batched and faster, and gives the same answer::
-
-    seasonality(on_grid(transform(r, x -> x.units), transform(r, x -> x.month)))
-    -- with r = array_sort(collect_list(struct(month, units))) per item
-
-Spark executors run the UDFs in their own Python: install tsql there too
-(``pip install tsql`` on every node, or ship a packed environment with
-``spark.archives``). ``spark.submit.pyFiles`` (or ``spark.sparkContext.addPyFile``)
-with a zip of the ``tsql`` package also works where numpy, scipy, numba, pyarrow
-and duckdb are already installed on the executors.
+``tsql.spark.register(spark)``; how to call the functions and how they differ from DuckDB's: docs/spark.md.
 """
 
 from __future__ import annotations
 
-import dataclasses
-import re
 from collections.abc import Callable, Sequence
-from functools import lru_cache
 from typing import Any
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from tsql import timed
-from tsql.binding import _Converter, make_udf
+from tsql.forms.agg import AggForm, on_grid_values
+from tsql.forms.arguments import by_settings
+from tsql.forms.arrow import scalar_parameter, to_ragged
+from tsql.forms.list_form import list_udf
+from tsql.forms.time import Clock, arrow_clock, read_span, ticks_of, times_of, whole_days
+from tsql.forms.types import BOOLEAN, DOUBLE, SPAN_ARGUMENT
+from tsql.kernels.ragged import Ragged
 from tsql.registry import FUNCTIONS, GRID_PARAMS, Function, Param
 
 __all__ = ["TIME_TYPES", "positional_forms", "register"]
@@ -86,7 +26,6 @@ __all__ = ["TIME_TYPES", "positional_forms", "register"]
 TIME_TYPES = ("date", "timestamp_ntz", "timestamp", "double")
 """The Spark types ``register(spark, time_type=...)`` can give times in."""
 
-_DAY_US = 86_400_000_000
 _NUMERIC_TIMES = {
     pa.int8(): "TINYINT",
     pa.int16(): "SMALLINT",
@@ -95,13 +34,6 @@ _NUMERIC_TIMES = {
     pa.float32(): "FLOAT",
     pa.float64(): "DOUBLE",
 }
-_SPAN_TYPE = pa.struct(
-    [
-        pa.field("text", pa.string()),
-        pa.field("interval", pa.month_day_nano_interval()),
-        pa.field("number", pa.float64()),
-    ]
-)
 
 
 def register(spark: Any, time_type: str = "date") -> Any:
@@ -116,10 +48,10 @@ def register(spark: Any, time_type: str = "date") -> Any:
         allowed = ", ".join(repr(t) for t in TIME_TYPES)
         raise ValueError(f"tsql.spark.register: time_type must be one of {allowed}, got {time_type!r}")
     for fn in FUNCTIONS:
-        spark.udf.register(fn.name, arrow_udf(_list_udf(fn), _spark_type(fn.returns)))
+        spark.udf.register(fn.name, arrow_udf(_list_udf(fn), fn.returns.spark()))
         if fn.aggregate:
-            udf = _agg_udf(fn, time_type)
-            spark.udf.register(f"{fn.name}_agg", arrow_udf(udf, _spark_type(_agg_returns(fn), time_type)))
+            returns = fn.answer.in_steps.host_returns(fn.returns)
+            spark.udf.register(f"{fn.name}_agg", arrow_udf(_agg_udf(fn, time_type), returns.spark(time_type)))
     return spark
 
 
@@ -136,42 +68,6 @@ def positional_forms() -> list[str]:
 def _form(name: str, series: Sequence[str], params: Sequence[Param]) -> str:
     args = list(series) + [p.name if p.default is None else f"{p.name} = {p.default}" for p in params]
     return f"{name}({', '.join(args)})"
-
-
-# --- types -------------------------------------------------------------------
-
-
-def _agg_returns(fn: Function) -> str:
-    """The ``*_agg`` answer as a DuckDB-style type, ``time`` standing for the session's time type."""
-    if fn.time_answer in ("same", "period"):
-        return fn.returns  # a period stays a DOUBLE: grid steps
-    if fn.time_answer == "series":
-        return "STRUCT(time time, value DOUBLE)[]"
-    return fn.agg_returns  # 'time[]', or STRUCT(first time, last time, ...)[]
-
-
-def _spark_type(sql: str, time_type: str | None = None) -> Any:
-    from pyspark.sql import types as T
-
-    if sql.endswith("[]"):
-        return T.ArrayType(_spark_type(sql[:-2], time_type))
-    struct = re.fullmatch(r"STRUCT\((.*)\)", sql)
-    if struct:
-        fields = [f.strip().split(None, 1) for f in struct.group(1).split(",")]
-        return T.StructType([T.StructField(name, _spark_type(t, time_type)) for name, t in fields])
-    simple = {
-        "DOUBLE": T.DoubleType(),
-        "INTEGER": T.IntegerType(),
-        "BIGINT": T.LongType(),
-        "VARCHAR": T.StringType(),
-        "time": {
-            "date": T.DateType(),
-            "timestamp_ntz": T.TimestampNTZType(),
-            "timestamp": T.TimestampType(),
-            "double": T.DoubleType(),
-        }.get(time_type),
-    }
-    return simple[sql]
 
 
 # --- arguments -----------------------------------------------------------------
@@ -221,7 +117,7 @@ def _is_number(t: pa.DataType) -> bool:
     return pa.types.is_integer(t) or pa.types.is_floating(t) or pa.types.is_decimal(t)
 
 
-def _series(name: str, argument: str, column: pa.Array) -> pa.Array:
+def _numbers_column(name: str, argument: str, column: pa.Array) -> pa.Array:
     t = column.type
     if not (pa.types.is_list(t) or pa.types.is_large_list(t)) or not (
         _is_number(t.value_type) or pa.types.is_null(t.value_type)
@@ -233,9 +129,9 @@ def _series(name: str, argument: str, column: pa.Array) -> pa.Array:
 def _plain(name: str, p: Param, column: pa.Array) -> pa.Array:
     """A plain argument as the DuckDB UDF receives it (DOUBLE parameters as float64, decimals as floats)."""
     t = column.type
-    if pa.types.is_null(t) or (p.sql_type == "BOOLEAN" and pa.types.is_boolean(t)):
+    if pa.types.is_null(t) or (p.sql_type == BOOLEAN and pa.types.is_boolean(t)):
         return column
-    if p.sql_type == "DOUBLE" or pa.types.is_decimal(t):
+    if p.sql_type == DOUBLE or pa.types.is_decimal(t):
         if pa.types.is_boolean(t) or not (_is_number(t) or pa.types.is_string(t) or pa.types.is_large_string(t)):
             raise ValueError(f"{name}: {p.name} must be a number, got {t}")
         try:
@@ -243,7 +139,7 @@ def _plain(name: str, p: Param, column: pa.Array) -> pa.Array:
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             bad = next((v for v in column.to_pylist() if v is not None and not _parses(v)), None)
             raise ValueError(f"{name}: {p.name} must be a number, got {bad!r}") from None
-    if p.sql_type == "BOOLEAN":
+    if p.sql_type == BOOLEAN:
         raise ValueError(f"{name}: {p.name} must be true or false, got {t}")
     return column
 
@@ -271,25 +167,10 @@ def _span(name: str, p: Param, column: pa.Array) -> pa.StructArray:
             for v, d in zip(micros, values)
         ]
     elif pa.types.is_string(t) or pa.types.is_large_string(t):
-        rows = [(None, None, None) if v is None else (v, *_read_span(v)) for v in values]
+        rows = [(None, None, None) if v is None else read_span(v) for v in values]
     else:
         rows = [(None, None, None) if v is None else (str(v), None, None) for v in values]
-    return pa.array([{"text": a, "interval": b, "number": c} for a, b, c in rows], type=_SPAN_TYPE)
-
-
-@lru_cache(maxsize=256)
-def _read_span(text: str) -> tuple[Any, float | None]:
-    """Text as DuckDB reads it (TRY_CAST to INTERVAL and to DOUBLE), so that spans mean the same in both hosts."""
-    query = "SELECT TRY_CAST($1 AS INTERVAL) AS i, TRY_CAST($1 AS DOUBLE) AS d"
-    row = _duckdb().sql(query, params=[text]).to_arrow_table().to_pylist()[0]
-    return row["i"], row["d"]
-
-
-@lru_cache(maxsize=1)
-def _duckdb() -> Any:
-    import duckdb
-
-    return duckdb.connect()
+    return pa.array([{"text": a, "interval": b, "number": c} for a, b, c in rows], type=SPAN_ARGUMENT.arrow)
 
 
 def _constant(name: str, p: Param, column: pa.Array) -> pa.Array:
@@ -308,11 +189,11 @@ def _constant(name: str, p: Param, column: pa.Array) -> pa.Array:
 
 
 def _time_type_name(name: str, t: pa.DataType) -> str:
-    """The time column's type, as DuckDB spells it."""
+    """The time column's type as messages name it."""
     if pa.types.is_date(t):
         return "DATE"
     if pa.types.is_timestamp(t):
-        return "TIMESTAMP" if t.tz is None else "TIMESTAMP WITH TIME ZONE"
+        return "TIMESTAMP_NTZ" if t.tz is None else "TIMESTAMP"
     if pa.types.is_decimal(t):
         return "DECIMAL"
     if pa.types.is_null(t):
@@ -322,46 +203,29 @@ def _time_type_name(name: str, t: pa.DataType) -> str:
     raise ValueError(f"{name}: time must be DATE, TIMESTAMP, TIMESTAMP_NTZ or a number, got {t}")
 
 
-def _ticks(name: str, times: pa.Array) -> tuple[np.ndarray, str]:
-    """Microseconds since 1970 for dates and timestamps (a TIMESTAMP: the UTC instant), else the number; NaN = NULL."""
-    t = times.type
-    type_name = _time_type_name(name, t)
-    if pa.types.is_date(t):
-        days = pc.cast(pc.cast(times, pa.date32()), pa.int32())
-        micros = pc.multiply(pc.cast(days, pa.int64()), _DAY_US)
-    elif pa.types.is_timestamp(t):
-        micros = pc.cast(pc.cast(times, pa.timestamp("us", tz=t.tz)), pa.int64())
-    else:
-        micros = times
-    return pc.cast(micros, pa.float64()).to_numpy(zero_copy_only=False), type_name
+def _clock(name: str, t: pa.DataType) -> Clock:
+    _time_type_name(name, t)  # an error for a type that is not a time
+    clock = arrow_clock(t)
+    assert clock is not None
+    return clock
 
 
-_SPARK_NAMES = {"DATE": "DATE", "TIMESTAMP": "TIMESTAMP_NTZ", "TIMESTAMP WITH TIME ZONE": "TIMESTAMP"}
+_KINDS = {"date": "date", "timestamp": "timestamp_ntz", "timestamptz": "timestamp", "number": "double"}
+"""The Spark time type that holds each clock's times exactly."""
 
 
-def _times(name: str, time_type: str, type_name: str, ticks: np.ndarray) -> pa.Array:
+def _times(name: str, time_type: str, clock: Clock, spark_name: str, ticks: np.ndarray) -> pa.Array:
     """Answer times (ticks) in the session's time type; an error where that type cannot hold them exactly."""
-    missing = np.isnan(ticks)
-    mask = missing if missing.any() else None
-    whole = np.where(missing, 0, ticks).astype(np.int64)
-    kind = {"DATE": "date", "TIMESTAMP": "timestamp_ntz", "TIMESTAMP WITH TIME ZONE": "timestamp"}.get(
-        type_name, "double"
-    )
+    kind = _KINDS[clock.kind or "number"]
     fits = kind == time_type or (kind == "date" and time_type == "timestamp_ntz")
     if time_type == "date" and kind == "timestamp_ntz":
-        fits = not (whole % _DAY_US).any()
+        fits = whole_days(ticks)
     if not fits:
-        spark_name = _SPARK_NAMES.get(type_name, type_name)
         raise ValueError(
             f"{name}: the time column is {spark_name}, but tsql.spark.register(spark, time_type={time_type!r}) "
             f"answers with {time_type.upper()} times; register with time_type={kind!r}"
         )
-    if time_type == "double":
-        return pa.array(ticks, type=pa.float64(), mask=mask)
-    if time_type == "date":
-        return pa.array((whole // _DAY_US).astype(np.int32), type=pa.date32(), mask=mask)
-    tz = "UTC" if time_type == "timestamp" else None
-    return pa.array(whole, type=pa.timestamp("us", tz=tz), mask=mask)
+    return times_of(ticks, time_type)
 
 
 # --- the UDFs ------------------------------------------------------------------
@@ -394,18 +258,18 @@ def _grouped(body: Callable[..., pa.Scalar], name: str, doc: str) -> Callable[..
 
 
 def _list_udf(fn: Function) -> Callable[..., pa.Array]:
-    """The scalar UDF of a list form: the DuckDB UDF behind it, after positional defaults."""
+    """The scalar UDF of a list form: the engine-neutral list UDF, after positional defaults."""
     if fn.special:
         return _scalar(_on_grid, fn.name, fn.doc)
-    inner = make_udf(fn)
-    empty = _Converter(fn.returns).arrow_type
+    inner = list_udf(fn)
+    empty = fn.returns.arrow
 
     def body(*columns: pa.Array, **named: pa.Array) -> pa.Array:
         columns = _complete(fn.name, fn.series, fn.params, columns, named)
         if not len(columns[0]):
             return pa.array([], type=empty)
         k = len(fn.series)
-        series = [_series(fn.name, s, c) for s, c in zip(fn.series, columns[:k])]
+        series = [_numbers_column(fn.name, s, c) for s, c in zip(fn.series, columns[:k])]
         return inner(*series, *(_plain(fn.name, p, c) for p, c in zip(fn.params, columns[k:])))
 
     return _scalar(body, fn.name, fn.doc)
@@ -417,71 +281,56 @@ def _on_grid(*columns: pa.Array, **named: pa.Array) -> pa.Array:
     values, times, step, fill = _complete(name, ("values", "times"), GRID_PARAMS, columns, named)
     if not len(values):
         return pa.array([], type=pa.list_(pa.float64()))
-    values = _series(name, "values", values)
+    values = _numbers_column(name, "values", values)
     if not (pa.types.is_list(times.type) or pa.types.is_large_list(times.type)):
         raise ValueError(f"{name}: times must be an array of dates, timestamps or numbers, got {times.type}")
-    ticks, type_name = _ticks(name, times.values)
+    clock = _clock(name, times.values.type)
     mask = times.is_null() if times.null_count else None
-    tick_lists = pa.ListArray.from_arrays(pc.cast(times.offsets, pa.int32()), pa.array(ticks), mask=mask)
-    type_column = pa.array([type_name] * len(values))
-    return timed._on_grid_udf(
-        values, tick_lists, type_column, _span(name, GRID_PARAMS[0], step), _plain(name, GRID_PARAMS[1], fill)
-    )
+    ticks = pa.ListArray.from_arrays(pc.cast(times.offsets, pa.int32()), pa.array(ticks_of(times.values)), mask=mask)
+
+    def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
+        v = to_ragged(values if rows is None else values.take(pa.array(rows)))
+        t = to_ragged(ticks if rows is None else ticks.take(pa.array(rows)))
+        return on_grid_values(lambda: clock, *key, t, v)
+
+    settings = [_span(name, GRID_PARAMS[0], step), _plain(name, GRID_PARAMS[1], fill)]
+    return by_settings(len(values), settings, run)
 
 
 def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
     """The grouped-aggregate UDF of ``<name>_agg``: one group's rows in, one answer out."""
     name = f"{fn.name}_agg"
     params = fn.params + GRID_PARAMS
-    # A period stays in grid steps: the timed UDF then answers as the list form does.
-    core = timed.make_timed_udf(dataclasses.replace(fn, time_answer="same") if fn.time_answer == "period" else fn)
+    answer = fn.answer.in_steps  # a period stays in grid steps, as the list form gives it
+    form = AggForm(fn, answer)
 
     def body(*columns: pa.Array, **named: pa.Array) -> pa.Scalar:
         columns = _complete(name, ("value", "time"), params, columns, named)
         value, time = columns[:2]
         settings = [_constant(name, p, c) for p, c in zip(params, columns[2:])]
-        ticks, type_name = _ticks(name, time)
+        spark_name = _time_type_name(name, time.type)
+        clock = _clock(name, time.type)
+        ticks = ticks_of(time)
         try:
             v = pc.cast(value, pa.float64())
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             raise ValueError(f"{name}: value must be a number, got {value.type}") from None
-        records = pa.StructArray.from_arrays([pa.array(ticks), v], names=["t", "v"])
-        observations = pa.ListArray.from_arrays(pa.array([0, len(ticks)], type=pa.int32()), records)
         step, fill = settings[-2:]
         arguments = [_span(name, p, c) if p.span else _plain(name, p, c) for p, c in zip(fn.params, settings[:-2])]
-        answer = core(
-            observations,
-            pa.array([type_name]),
-            _span(name, GRID_PARAMS[0], step),
-            _plain(name, GRID_PARAMS[1], fill),
-            *arguments,
+        (span,), (fill,) = (
+            scalar_parameter(_span(name, GRID_PARAMS[0], step)),
+            scalar_parameter(_plain(name, GRID_PARAMS[1], fill)),
         )
-        return _in_time_terms(fn, name, time_type, type_name, ticks, answer)[0]
+        offsets = np.array([0, len(ticks)], dtype=np.int64)
+        group = form(
+            clock,
+            span,
+            fill,
+            tuple(scalar_parameter(a)[0] for a in arguments),
+            Ragged(ticks, offsets),
+            Ragged(v.to_numpy(zero_copy_only=False), offsets),
+        )
+        in_order = np.sort(ticks)  # the rows' times in time order, NULL (NaN) last
+        return answer.in_host_times(group, in_order, lambda t: _times(name, time_type, clock, spark_name, t))[0]
 
     return _grouped(body, name, fn.doc)
-
-
-def _in_time_terms(
-    fn: Function, name: str, time_type: str, type_name: str, ticks: np.ndarray, answer: pa.Array
-) -> pa.Array:
-    """Turn positions and grid times of a one-group answer into times of the session's time type."""
-    if fn.time_answer in ("same", "period"):
-        return answer
-    mask = answer.is_null() if answer.null_count else None
-    if fn.time_answer == "series":
-        records = answer.values  # (tick, kind, value) on the grid
-        times = _times(name, time_type, type_name, records.field("tick").to_numpy(zero_copy_only=False))
-        records = pa.StructArray.from_arrays([times, records.field("value")], names=["time", "value"])
-        return pa.ListArray.from_arrays(answer.offsets, records, mask=mask)
-    in_order = np.sort(ticks)  # the rows' times in time order, NULL (NaN) last
-
-    def at(positions: pa.Array) -> pa.Array:
-        rows = np.asarray(positions.to_numpy(zero_copy_only=False), dtype=np.int64) - 1
-        return _times(name, time_type, type_name, in_order[rows])
-
-    if fn.time_answer == "starts":
-        return pa.ListArray.from_arrays(answer.offsets, at(answer.values), mask=mask)
-    records = answer.values  # segments
-    names = [f.name for f in records.type]
-    fields = [at(records.field(n)) if n in ("first", "last") else records.field(n) for n in names]
-    return pa.ListArray.from_arrays(answer.offsets, pa.StructArray.from_arrays(fields, names=names), mask=mask)

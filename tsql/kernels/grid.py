@@ -31,14 +31,16 @@ import numpy as np
 
 from tsql.kernels.ragged import Ragged
 
-__all__ = ["FILLS", "MAX_GRID_POINTS", "Grid", "on_grid"]
+__all__ = ["DAY_US", "FILLS", "MAX_GRID_POINTS", "Grid", "on_grid"]
 
 FILLS = ("null", "zero", "linear", "previous")
 MAX_GRID_POINTS = 10_000_000
 """Per series. A given step far finer than the data that would make more points is an error; a
 series whose own most common spacing would (a stray time far away) gets no grid (NULL)."""
 
-_DAY_US = 86_400_000_000.0
+DAY_US = 86_400_000_000
+"""Microseconds in a day: ticks of DATE and TIMESTAMP times are microseconds since 1970."""
+_DAY_US = float(DAY_US)
 # (shortest, longest spacing in days, months) recognised as calendar steps
 _CALENDAR = ((28, 31, 1), (59, 62, 2), (89, 92, 3), (181, 184, 6), (365, 366, 12))
 _CALENDAR_MONTHS = np.zeros(368, dtype=np.int64)  # whole days of a spacing -> calendar months (0: not one)

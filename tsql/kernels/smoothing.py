@@ -1,60 +1,6 @@
-"""Harmonic smoothing: a least-squares fit of a level, a linear trend and cos/sin pairs.
+"""Smoothing: a least-squares fit of a mean, a linear trend and harmonics; its curve and one cycle.
 
-The model
----------
-A row of length ``n`` has positions ``t = 0..n-1`` (missing elements keep their positions). With
-the centred, scaled time ``u_t = (t - c) / s``, ``c = (n - 1) / 2``, ``s = max(c, 1)``, the fitted
-curve is ::
-
-    y_t = a + b u_t + sum_j (alpha_j cos(2 pi f_j t) + beta_j sin(2 pi f_j t))
-
-with ``f_j = j / n`` when no period is given and ``f_j = j / period`` otherwise, over the
-``j = 1..harmonics`` whose frequency lies below Nyquist (``f_j < 1/2``, i.e. ``2 j < period``).
-A pair at or above Nyquist is dropped: at ``f = 1/2`` the sine vanishes on the integer grid, and
-above it a pair aliases onto a lower frequency, so keeping it would make the fit ill-posed.
-Without a period every pair of a row that can be fitted lies below Nyquist.
-
-The parameters are the least-squares solution over the present elements; the fitted values are
-``y_t`` at every position, gaps included. ``a`` is the fitted level at the record's mid-point
-``c``; the harmonics are phased from the row's first element (``t = 0``).
-
-How a row is solved
--------------------
-Rows are taken per bucket of equal length; a row's path depends on its own length, the period and
-whether it has gaps, never on the other rows, and every reduction runs along the rows of a
-bucket matrix (``sum(axis=1)``), so the answer is the same bit for bit however rows are batched.
-Each row is first scaled by a power of two (exact) so that huge or tiny values neither overflow
-nor underflow, and centred on the mean of its present values.
-
-1. No gaps, and every frequency is a Fourier frequency of the row (no period, or ``n`` a whole
-   number ``q`` of periods: ``f_j = j q / n``). The cos/sin pairs and the constant span a
-   subspace ``F`` that the real FFT diagonalises; the trend is not orthogonal to it, but
-   ``span{1, u, cos, sin} = F + span{u_perp}`` with ``u_perp = u - P_F u`` orthogonal to ``F``.
-   The least-squares fit is therefore exactly ``P_F x + (<x, u_perp> / <u_perp, u_perp>) u_perp``
-   (the Frisch–Waugh–Lovell decomposition): an FFT low-pass that keeps bins ``0`` and
-   ``j q``, plus one projection on a fixed vector.
-2. No gaps, other frequencies: one design matrix per bucket; its orthonormal basis ``Q`` (from
-   the SVD, singular values below ``1e-10`` of the largest dropped) is shared by the bucket's
-   rows, and the fit is ``Q Q' x``.
-3. Gaps: the least-squares coordinates on the same basis over the present elements, from the
-   normal equations ``(Q' W Q) c = Q' W x`` (``W`` marks the present elements). Because ``Q`` is
-   orthonormal these are well conditioned (``Q' W Q`` is the identity less the gaps' share);
-   eigenvalues below ``1e-12`` of the largest (singular values of ``W Q`` below ``1e-6``) are
-   dropped. The fitted values ``Q c`` then cover the gaps too.
-
-Dropping directions gives the minimum-norm least-squares fit, so a design that is
-rank-deficient on the present elements (a period far longer than the record, or gaps that leave
-a pair undetermined) still has a well-defined fit: at the present elements it is the orthogonal
-projection on what the data determine; at the gaps it is the extension whose coordinates on
-``Q`` have the least norm.
-
-References
-----------
-P. Bloomfield, "Fourier Analysis of Time Series: An Introduction", 2nd ed., Wiley (2000):
-fitting sinusoids by least squares, harmonic analysis.
-R. Frisch and F. V. Waugh, "Partial time regressions as compared with individual trends",
-Econometrica 1(4), 387-401 (1933); M. C. Lovell, "Seasonal adjustment of economic time series and
-multiple regression analysis", Journal of the American Statistical Association 58, 993-1010 (1963).
+The model, how it is solved and its numerical choices: docs/smoothing.md.
 """
 
 from __future__ import annotations
@@ -102,7 +48,7 @@ def harmonic_smooth(batch: Ragged, harmonics: int = 3, period: float | None = No
 
     Notes
     -----
-    The model and how it is solved are described in the module notes. Without gaps and with
+    The model and how it is solved are described in docs/smoothing.md. Without gaps and with
     Fourier frequencies it is an FFT low-pass plus an exact correction for the trend.
 
     References

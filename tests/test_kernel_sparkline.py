@@ -7,8 +7,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from tsql.kernels.look import BLOCKS, sparkline
 from tsql.kernels.ragged import Ragged
+from tsql.kernels.sparkline import BLOCKS, sparkline
 
 NAN = float("nan")
 

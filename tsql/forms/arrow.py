@@ -1,25 +1,26 @@
-"""Arrow list arrays <-> ragged numpy batches.
+"""Arrow conversion: list columns to :class:`~tsql.kernels.ragged.Ragged` batches, kernel results to Arrow.
 
-DuckDB hands a vectorised UDF a ``pyarrow.ChunkedArray`` of lists; Spark hands
-a ``pyarrow.ListArray``. Both become one :class:`~tsql.kernels.ragged.Ragged`
-without copying the values when they hold no NULLs, and kernel results go back
-as Arrow arrays whose NaN entries are NULL.
+DuckDB hands a vectorised UDF a ``pyarrow.ChunkedArray`` of lists, Spark a ``pyarrow.ListArray``;
+both become one batch without copying values that hold no NULLs. NaN in a result is NULL.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
 
+from tsql.forms.types import VARCHAR, ListOf, SqlType, Struct
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords, row_ranges
 
 ArrowInput = pa.Array | pa.ChunkedArray
 _DOUBLE = pa.float64()
 
 
-def _single(arr: ArrowInput) -> pa.Array:
+def single(arr: ArrowInput) -> pa.Array:
+    """One Arrow array from a (chunked) column."""
     if isinstance(arr, pa.ChunkedArray):
         if arr.num_chunks == 1:
             return arr.chunk(0)
@@ -31,7 +32,7 @@ def _single(arr: ArrowInput) -> pa.Array:
 
 def to_ragged(arr: ArrowInput) -> Ragged:
     """One batch of series from a list array (list or large_list of numbers)."""
-    arr = _single(arr)
+    arr = single(arr)
     if not (pa.types.is_list(arr.type) or pa.types.is_large_list(arr.type)):
         raise TypeError(f"expected a list array, got {arr.type}")
     offsets = np.asarray(arr.offsets, dtype=np.int64)
@@ -42,9 +43,12 @@ def to_ragged(arr: ArrowInput) -> Ragged:
     # Floating-point nulls become NaN; without nulls this is a read-only view.
     values = child.to_numpy(zero_copy_only=child.null_count == 0)
     offsets = offsets - start if start else offsets
-    valid = None
-    if arr.null_count:
-        valid = np.asarray(arr.is_valid(), dtype=bool)
+    return ragged(values, offsets, np.asarray(arr.is_valid(), dtype=bool) if arr.null_count else None)
+
+
+def ragged(values: np.ndarray, offsets: np.ndarray, valid: np.ndarray | None) -> Ragged:
+    """A batch from flat values, offsets from 0 and row validity, dropping values a NULL row covers."""
+    if valid is not None:
         lengths = np.diff(offsets)
         if lengths[~valid].any():  # Arrow lets a NULL row cover values: drop them.
             keep = np.repeat(valid, lengths)
@@ -52,6 +56,27 @@ def to_ragged(arr: ArrowInput) -> Ragged:
             offsets = np.zeros_like(offsets)
             np.cumsum(np.where(valid, lengths, 0), out=offsets[1:])
     return Ragged(values, offsets, valid)
+
+
+def to_arrow(sql_type: SqlType, result: Any, valid: np.ndarray) -> pa.Array:
+    """A kernel result as the Arrow array of ``sql_type``, rows not ``valid`` NULL.
+
+    DOUBLE (or VARCHAR) from a per-row array, STRUCT from a dict of per-row arrays, T[] from a
+    Ragged, STRUCT(...)[] from a RaggedRecords.
+    """
+    if isinstance(sql_type, ListOf) and isinstance(sql_type.element, Struct):
+        assert isinstance(result, RaggedRecords)
+        types = {n: t.arrow for n, t in sql_type.element.fields}
+        return to_arrow_record_list(result, types, result.row_valid & valid)
+    if isinstance(sql_type, ListOf):
+        assert isinstance(result, Ragged)
+        rows = result.row_valid & valid
+        return to_arrow_list(Ragged(result.values, result.offsets, rows), sql_type.element.arrow)
+    if isinstance(sql_type, Struct):
+        return to_arrow_struct(result, {n: t.arrow for n, t in sql_type.fields}, valid)
+    if sql_type == VARCHAR:  # a list of str, None = NULL
+        return pa.array([r if ok else None for r, ok in zip(result, valid)], type=pa.string())
+    return to_arrow_scalar(result, valid)
 
 
 def to_arrow_scalar(result: np.ndarray, row_valid: np.ndarray | None = None) -> pa.Array:
@@ -111,7 +136,7 @@ def _typed(values: np.ndarray, missing: np.ndarray, arrow_type: pa.DataType) -> 
 
 def scalar_parameter(arr: ArrowInput) -> Sequence:
     """A per-row parameter column as a Python list (NULL = None; a STRUCT becomes a tuple)."""
-    arr = _single(arr)
+    arr = single(arr)
     if pa.types.is_struct(arr.type):
         return [None if r is None else tuple(r.values()) for r in arr.to_pylist()]
     return arr.to_pylist()

@@ -1,6 +1,5 @@
--- Loaded first (the underscore sorts before letters): the other files use its helper macros.
--- Time: put a series on its regular grid, so that a missing period is a missing value again.
--- Every *_agg form goes through the same grid (see tsql/timed.py).
+-- Helper macros of the generated public macros (tsql/binding.py): how the *_agg forms hand a
+-- group's rows and spans of time to their UDFs, and how grid times come back (tsql/forms/agg.py).
 
 -- Ticks: microseconds since 1970 for DATE and TIMESTAMP (TIMESTAMPTZ: the UTC instant,
 -- whatever the session's TimeZone), otherwise the number itself.
@@ -34,7 +33,3 @@ CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, kind) AS
                                                                                 number DOUBLE)
         ELSE tick::DOUBLE::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
     END;
-
--- The values on the regular grid from the first to the last time (several values at one point are averaged).
-CREATE OR REPLACE TEMP MACRO on_grid(values, times, step := NULL, fill := 'null') AS
-    __tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), __tsql_span(step), fill);

@@ -1,0 +1,100 @@
+"""The ``*_agg`` forms and ``on_grid``: each group's (ticks, values) -> its regular grid -> the kernel -> an answer.
+
+A host hands over each group's ticks and values as two :class:`~tsql.kernels.ragged.Ragged`
+batches with the same offsets (rows in no particular order: the grid sorts them), the
+:class:`~tsql.forms.time.Clock` of the time column and the plain arguments. Lengths of time
+(``period``, ``min_period`` ...) may be INTERVALs for temporal times; a number counts grid steps,
+as in the list forms. How the answer is put in time terms is the entry's
+:class:`~tsql.forms.answers.Answer`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+import numpy as np
+import pyarrow as pa
+
+from tsql.forms.answers import Answer
+from tsql.forms.arguments import by_keys, check_argument, checked_arguments
+from tsql.forms.arrow import to_arrow_list
+from tsql.forms.time import Clock, Span, span_in_steps, step
+from tsql.kernels.grid import Grid, on_grid
+from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged
+from tsql.registry import FILL, Function
+
+PIECE_POINTS = CACHE_ELEMENTS
+"""Observations per piece of a call (a group is never split): the work stays in cache."""
+
+
+def grid_of(function: str, clock: Clock, span: Span | None, fill: str | None, ticks: Ragged, values: Ragged) -> Grid:
+    """Each group on its regular grid; errors name ``function``."""
+    months, length = step(function, clock, span)
+    fill = check_argument(function, FILL, fill if fill is not None else "null")
+    try:
+        return on_grid(ticks, values, clock.temporal, months, length, fill)
+    except ValueError as error:
+        raise ValueError(f"{function}: {error}") from None
+
+
+class AggForm:
+    """``<name>_agg`` of one registry entry, answering as ``answer`` says (default: the entry's own)."""
+
+    def __init__(self, fn: Function, answer: Answer | None = None):
+        self.fn = fn
+        self.name = f"{fn.name}_agg"
+        self.answer = answer or fn.answer
+
+    def __call__(
+        self, clock: Clock, span: Span | None, fill: str | None, arguments: tuple, ticks: Ragged, values: Ragged
+    ) -> pa.Array:
+        """The answers of a batch of groups that share their settings."""
+        fn = self.fn
+        grid = grid_of(self.name, clock, span, fill, ticks, values)
+        per_row = [
+            span_in_steps(self.name, p.name, p.minimum, clock, grid, value) if p.span else value
+            for p, value in zip(fn.params, arguments)
+        ]
+        n_rows = grid.values.n_rows
+        if n_rows and not any(isinstance(a, np.ndarray) for a in per_row):  # the same arguments on every row
+            columns = [[a] for a in per_row]
+        else:
+            columns = [a if isinstance(a, np.ndarray) else [a] * n_rows for a in per_row]
+        keys = [tuple(None if (isinstance(x, float) and np.isnan(x)) else x for x in row) for row in zip(*columns)]
+
+        def call(rows: np.ndarray | None, key: tuple) -> pa.Array:
+            kwargs = checked_arguments(fn, key, self.name)
+            sub = grid if rows is None else grid.take(rows)
+            if kwargs is None:
+                return pa.nulls(sub.values.n_rows, type=self.answer.udf_returns(fn.returns).arrow)
+            return self.answer.compute(fn.kernel, fn.returns, clock, sub, kwargs)
+
+        return by_keys(keys or [()] * n_rows, call)
+
+
+def on_grid_values(
+    clock: Callable[[], Clock], span: Span | None, fill: str | None, times: Ragged, values: Ragged
+) -> pa.Array:
+    """``on_grid(values, times)``: rows pair values with ticks element by element (NULL on either side: NULL).
+
+    ``clock()`` gives the times' clock once their lengths are found to pair up.
+    """
+    valid = values.row_valid & times.row_valid
+    if not np.array_equal(values.lengths[valid], times.lengths[valid]):
+        raise ValueError("on_grid: values and times must have the same length in every row")
+    v, t = Ragged(values.values, values.offsets, valid), Ragged(times.values, times.offsets, valid)
+    if (v.lengths != t.lengths).any():  # a NULL row on one side only
+        keep = np.flatnonzero(valid)
+        v, t = _with_rows(v.take(keep), len(valid), keep), _with_rows(t.take(keep), len(valid), keep)
+    return to_arrow_list(grid_of("on_grid", clock(), span, fill, t, v).values)
+
+
+def _with_rows(batch: Ragged, n_rows: int, rows: np.ndarray) -> Ragged:
+    """``batch`` (holding ``rows`` of a larger batch) spread back to ``n_rows`` rows, the others empty and invalid."""
+    lengths = np.zeros(n_rows, dtype=np.int64)
+    lengths[rows] = batch.lengths
+    offsets = np.zeros(n_rows + 1, dtype=np.int64)
+    np.cumsum(lengths, out=offsets[1:])
+    valid = np.zeros(n_rows, dtype=bool)
+    valid[rows] = True
+    return Ragged(batch.values, offsets, valid)

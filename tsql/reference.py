@@ -1,0 +1,105 @@
+"""Reference text generated from the registry: ``tsql functions``, the README's function table and the
+per-function tables of docs/behaviour.md.
+
+``python -m tsql.reference README.md docs/behaviour.md`` rewrites the generated tables in place.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from tsql.registry import AGG_TIME_OUTCOMES, FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, Function
+
+
+def describe(fn: Function) -> str:
+    """What ``tsql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
+    lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.returns}; NULL for: {fn.null_rows}"]
+    for p in fn.params:
+        if p.help:
+            lines.append(f"  {p.name}: {p.help}")
+    if fn.aggregate:
+        lines.append(f"  aggregate form: {fn.agg_signature}")
+    if fn.see_also:
+        lines.append(f"  see also: {', '.join(fn.see_also)}")
+    lines.append(f"  example: {fn.example}")
+    return "\n".join(lines)
+
+
+def function_list() -> str:
+    """One line per function: its name and one-line doc."""
+    width = max(len(f.name) for f in FUNCTIONS)
+    return "\n".join(f"{fn.name:<{width}}  {fn.doc}" for fn in FUNCTIONS)
+
+
+def markdown_table() -> str:
+    """The README's function table."""
+    rows = ["| family | function | returns | what it answers |", "|---|---|---|---|"]
+    for fn in FUNCTIONS:
+        agg = f" · `{fn.name}_agg(value, time, …)`" if fn.aggregate else ""
+        returns = f"`{fn.returns}`"
+        if fn.aggregate and fn.agg_returns != fn.returns:
+            returns += f" · agg: `{fn.agg_returns}`"
+        rows.append(f"| {fn.family} | `{fn.signature}`{agg} | {returns} | {fn.doc} |")
+    return "\n".join(rows)
+
+
+def inputs_table() -> str:
+    """docs/behaviour.md's matrix: every public form against every input class."""
+    rows = ["| function | " + " | ".join(INPUT_CLASSES) + " |", "|---" * (len(INPUT_CLASSES) + 1) + "|"]
+    forms = [(fn.name, fn.outcomes.split()) for fn in FUNCTIONS]
+    forms += [
+        (f"{fn.name}_agg", [AGG_TIME_OUTCOMES.get(c, o) for c, o in zip(INPUT_CLASSES, fn.outcomes.split())])
+        for fn in FUNCTIONS
+        if fn.aggregate
+    ]
+    rows += [f"| {name} | " + " | ".join(outcomes) + " |" for name, outcomes in forms]
+    return "\n".join(rows)
+
+
+def null_arguments_table() -> str:
+    """docs/behaviour.md's table of what a NULL argument gives: a NULL row, or the default."""
+    rows = ["| function | argument | NULL gives |", "|---|---|---|"]
+    forms = [(fn.name, fn.params) for fn in FUNCTIONS]
+    forms += [(f"{fn.name}_agg", fn.params + GRID_PARAMS) for fn in FUNCTIONS if fn.aggregate]
+    for name, params in forms:
+        rows += [f"| {name} | {p.name} | {'default' if p.none_ok else 'null'} |" for p in params]
+    return "\n".join(rows)
+
+
+GENERATED = {
+    "| family | function | returns | what it answers |": markdown_table,
+    "<!-- table: inputs -->": inputs_table,
+    "<!-- table: null-arguments -->": null_arguments_table,
+}
+"""Where each generated table goes: the line it starts with (a table's header) or follows (a marker)."""
+
+
+def regenerate(text: str) -> str:
+    """``text`` with every generated table it holds rewritten."""
+    for anchor, make in GENERATED.items():
+        if anchor not in text:
+            continue
+        before, _, after = text.partition(anchor)
+        lines = after.split("\n")
+        end = 1  # the table's rows start on the next line
+        while end < len(lines) and lines[end].startswith("|"):
+            end += 1
+        table = make().removeprefix(anchor + "\n")  # a table found by its header keeps it
+        text = before + anchor + "\n".join(lines[:1] + [table] + lines[end:])
+    return text
+
+
+def main(paths: list[str]) -> int:
+    for name in paths:
+        path = Path(name)
+        text = path.read_text(encoding="utf-8")
+        new = regenerate(text)
+        if new != text:
+            path.write_text(new, encoding="utf-8")
+            print(f"rewrote {path}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv[1:]))
