@@ -432,7 +432,8 @@ FUNCTIONS += (
             )
         ),
         kernel_path="changepoint:change_points_path",
-        doc="Every optimal segmentation as the penalty runs from 0 up: the 1, 2, 3... most important changes.",
+        doc="Every optimal segmentation as the penalty runs from 0 up (the 1, 2, 3... most important changes); "
+        "penalty_to NULL: no upper bound.",
         example="SELECT change_points_path([5, 6, 5, 6, 12, 13, 12, 13, 8, 9, 8, 9], max_changes := 2) AS path;",
         null_rows="NULL, empty or all-missing list, or "
         + LONG_NULL_ROWS
