@@ -106,14 +106,23 @@ class Function:
     def agg_returns(self) -> SqlType:
         return self.answer.agg_returns(self.returns)
 
+    @property
+    def agg_outcomes(self) -> list[str]:
+        """What the ``*_agg`` form answers for each input class (see :data:`AGG_TIME_OUTCOMES`)."""
+        listed = dict(zip(INPUT_CLASSES, self.outcomes.split(), strict=True))
+        timed = {c: listed.get(o, o) for c, o in AGG_TIME_OUTCOMES.items()}
+        return [timed.get(c, o) for c, o in listed.items()]
+
 
 INPUT_CLASSES = (
     "null_list empty one all_null nan pos_inf neg_inf constant huge tiny long integer bigint decimal float "
     "mismatched null_time inf_time"
 ).split()
 """The input classes of docs/behaviour.md, in its column order."""
-AGG_TIME_OUTCOMES = {"mismatched": "-", "null_time": "value", "inf_time": "null"}
-"""The ``*_agg`` forms' answers for the classes about times (the list forms have no times)."""
+AGG_TIME_OUTCOMES = {"mismatched": "-", "null_time": "float", "inf_time": "null"}
+"""The ``*_agg`` forms' answers for the classes about times (the list forms have no times); a class name
+means "as that class": a row with a NULL time is left out, so the ordinary series answers (``float``
+holds the ordinary values)."""
 #: The usual answers of a function of one series: NULL where the data cannot support an answer.
 STATISTIC = "null null null null value null null null value value value value value value value - - -"
 #: Of a function of two series: a NULL or NaN element makes the pair NULL; lists may differ in length.
@@ -439,7 +448,8 @@ FUNCTIONS += (
         + LONG_NULL_ROWS
         + "; a series too short to split or constant gives only the record of no change",
         see_also=("change_points", "segments"),
-        outcomes="null null partial null value null null partial value value value null value value value - - -",
+        outcomes="null null partial null partial null null partial partial partial null partial partial partial partial "
+        "- - -",
         test_args=("max_changes := 3", "model := 'trend', max_changes := 2, min_size := 3, seasonal := 'none'"),
         params=(
             CHANGE_PARAMS[0],
