@@ -8,6 +8,9 @@ import pyarrow as pa
 import pytest
 
 import tsql
+from tsql import sample_db
+from tsql.kernels import changepoint
+from tsql.kernels.ragged import Ragged
 
 
 @pytest.fixture(scope="module")
@@ -103,9 +106,6 @@ def test_numeric_penalty_as_number_or_text(con):
 
 
 def _kernel(name, series, **kwargs):
-    from tsql.kernels import changepoint
-    from tsql.kernels.ragged import Ragged
-
     return getattr(changepoint, name)(Ragged.from_list([list(series)]), **kwargs)
 
 
@@ -145,9 +145,9 @@ def test_seasonal_in_the_list_and_agg_forms(con):
         by_interval = con.execute(dated.format("INTERVAL '1 year'")).fetchall()[0][0]
         by_steps = con.execute(dated.format("12")).fetchall()[0][0]
         assert by_interval == by_steps == [datetime.datetime(2023, 1, 1)]
-        segs = con.execute(
-            "SELECT segments_agg(units, i, seasonal := 12, max_changes := 1) FROM cycle"
-        ).fetchall()[0][0]
+        segs = con.execute("SELECT segments_agg(units, i, seasonal := 12, max_changes := 1) FROM cycle").fetchall()[0][
+            0
+        ]
         assert [s["first"] for s in segs] == [0, 48]
     finally:
         con.unregister("cycle")
@@ -206,8 +206,6 @@ def test_new_arguments_errors_name_the_function(con, call, message):
 
 
 def test_yearly_items_without_a_planted_change_get_none(tmp_path):
-    from tsql import sample_db
-
     warehouse = duckdb.connect(str(sample_db.build(tmp_path / "warehouse.duckdb")), read_only=True)
     tsql.register(warehouse)
     # the truth table plants no level change on any item; take the yearly-seasonal items without a trend

@@ -436,9 +436,7 @@ FUNCTIONS += (
         name="change_points_path",
         family="change",
         returns=ListOf(
-            struct(
-                changes=INTEGER, cost=DOUBLE, penalty_from=DOUBLE, penalty_to=DOUBLE, positions=ListOf(INTEGER)
-            )
+            struct(changes=INTEGER, cost=DOUBLE, penalty_from=DOUBLE, penalty_to=DOUBLE, positions=ListOf(INTEGER))
         ),
         kernel_path="changepoint:change_points_path",
         doc="Every optimal segmentation as the penalty runs from 0 up (the 1, 2, 3... most important changes); "
@@ -448,8 +446,8 @@ FUNCTIONS += (
         + LONG_NULL_ROWS
         + "; a series too short to split or constant gives only the record of no change",
         see_also=("change_points", "segments"),
-        outcomes="null null partial null partial null null partial partial partial null partial partial partial partial "
-        "- - -",
+        outcomes="null null partial null partial null null partial partial partial null partial partial partial "
+        "partial - - -",
         test_args=("max_changes := 3", "model := 'trend', max_changes := 2, min_size := 3, seasonal := 'none'"),
         params=(
             CHANGE_PARAMS[0],
