@@ -360,7 +360,7 @@ CHANGE_PARAMS = (
         sql_type=VARCHAR,
         default="'mean'",
         choices=tuple(MIN_SIZE),
-        help="'mean' (level shifts), 'meanvar' (level and spread), 'trend' (piecewise lines)",
+        help="'mean' (levels of a count), 'meanvar' (volatility of returns), 'trend' (turns of a price's trend)",
     ),
     Param(
         "penalty",
@@ -383,7 +383,8 @@ SEASONAL_PARAM = Param(
     number_ok=True,
     minimum=2,
     span=True,
-    help="'auto' (remove a significant cycle first), 'none', or the cycle's period in samples (>= 2)",
+    help="'auto' (remove a significant cycle first), 'none', or the cycle's period in samples (>= 2; in the "
+    "*_agg form also an INTERVAL)",
 )
 CHANGE_PARAMS += (
     SEASONAL_PARAM,
