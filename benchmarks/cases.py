@@ -185,7 +185,10 @@ def check_dtw(con: duckdb.DuckDBPyConnection, arrays: dict, matrix: np.ndarray) 
 
 
 def check_pelt(con: duckdb.DuckDBPyConnection, arrays: dict, ends: list[int]) -> tuple[bool, str]:
-    (ours,) = con.execute("SELECT change_points(list(v ORDER BY t)) FROM pelt_short").fetchone()
+    # a numeric penalty and no cycle removed: the search alone, against ruptures (see loops.bic_pelt)
+    (ours,) = con.execute(
+        "SELECT change_points(list(v ORDER BY t), penalty := 2 * ln(count(*)), seasonal := 'none') FROM pelt_short"
+    ).fetchone()
     theirs = [end + 1 for end in ends[:-1]]  # ruptures gives segment ends, the last one n
     same = list(ours) == theirs
     return same, f"same change points as ruptures: {'yes' if same else 'NO'} ({len(ours)} changes)"

@@ -109,9 +109,9 @@ def daily_grid(s: pd.Series) -> np.ndarray:
 
 
 def bic_pelt(x: np.ndarray) -> list[int]:
-    """ruptures' exact PELT (l2 cost, jump 1) with tsql's 'mean' BIC penalty, 2 log(n) sigma^2."""
-    sigma = mad_sigma(x)
-    return ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=2.0 * math.log(len(x)) * sigma**2)
+    """ruptures' exact PELT (l2 cost, jump 1) with the penalty of tsql's ``change_points(penalty := 2 ln n,
+    seasonal := 'none')``: its 'mean' cost is on the standardised series, so 2 log(n) times the variance."""
+    return ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=2.0 * math.log(len(x)) * float(x.var()))
 
 
 def mad_sigma(x: np.ndarray) -> float:

@@ -27,6 +27,7 @@ from scipy import stats
 
 import tsql
 from tsql.cli import main
+from tsql.kernels.changepoint import MAX_PROGRAMME
 from tsql.kernels.ragged import Ragged
 from tsql.kernels.sparkline import BLOCKS
 from tsql.reference import regenerate
@@ -610,6 +611,7 @@ LONG_CALLS = {
     "trend_test": ("trend_test(r)", "long_lists"),
     "change_points": ("change_points(c)", "long_lists"),
     "segments": ("segments(c)", "long_lists"),
+    "change_points_path": ("change_points_path(c, max_changes := 3)", "long_lists"),
     "harmonic_smooth": ("harmonic_smooth(p, harmonics := 1, period := 24)", "long_lists"),
     "harmonic_profile": ("harmonic_profile(p, 24, harmonics := 1)", "long_lists"),
     "sparkline": ("sparkline(s, width := 80)", "long_lists"),
@@ -737,6 +739,16 @@ def check_long(con, fn: str, got, data: dict) -> None:
     elif name == "change_points":
         assert len(got) == len(planted)
         assert max(abs(a - b) for a, b in zip(got, planted)) <= 3
+    elif name == "change_points_path":
+        # the path's programme is quadratic in the length: a row of more than MAX_PROGRAMME present values
+        # has none (documented), one of MAX_PROGRAMME has one, and the first 1,000 values give the planted shifts
+        assert got is None
+        around = [f"change_points_path(list_slice(c, 1, {n}), max_changes := 3)" for n in (MAX_PROGRAMME, 1000)]
+        at_limit, head = con.execute(f"SELECT {', '.join(around)} FROM long_lists").fetchall()[0]
+        assert at_limit is not None and [r["changes"] for r in at_limit][-1] == 3
+        assert head[-1]["changes"] == 3 and max(abs(a - b) for a, b in zip(head[-1]["positions"], planted)) <= 3
+        over = con.execute(f"SELECT change_points_path(list_slice(c, 1, {MAX_PROGRAMME + 1})) FROM long_lists")
+        assert over.fetchall()[0][0] is None
     elif name == "segments":
         assert len(got) == len(planted) + 1
         assert got[0]["first"] == 1 and got[-1]["last"] == LONG

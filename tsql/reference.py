@@ -9,7 +9,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from tsql.registry import AGG_TIME_OUTCOMES, FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, Function
+from tsql.registry import FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, Function
 
 
 def describe(fn: Function) -> str:
@@ -48,11 +48,7 @@ def inputs_table() -> str:
     """docs/behaviour.md's matrix: every public form against every input class."""
     rows = ["| function | " + " | ".join(INPUT_CLASSES) + " |", "|---" * (len(INPUT_CLASSES) + 1) + "|"]
     forms = [(fn.name, fn.outcomes.split()) for fn in FUNCTIONS]
-    forms += [
-        (f"{fn.name}_agg", [AGG_TIME_OUTCOMES.get(c, o) for c, o in zip(INPUT_CLASSES, fn.outcomes.split())])
-        for fn in FUNCTIONS
-        if fn.aggregate
-    ]
+    forms += [(f"{fn.name}_agg", fn.agg_outcomes) for fn in FUNCTIONS if fn.aggregate]
     rows += [f"| {name} | " + " | ".join(outcomes) + " |" for name, outcomes in forms]
     return "\n".join(rows)
 

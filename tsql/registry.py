@@ -12,9 +12,9 @@ import importlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-from tsql.forms.answers import PERIOD, SAME, SEGMENTS, SERIES, STARTS, Answer
+from tsql.forms.answers import PATH, PERIOD, SAME, SEGMENTS, SERIES, STARTS, Answer
 from tsql.forms.types import BOOLEAN, DOUBLE, INTEGER, VARCHAR, ListOf, SqlType, struct
-from tsql.kernels.changepoint import MIN_SIZE
+from tsql.kernels.changepoint import MAX_PROGRAMME, MIN_SIZE, SEASONAL
 from tsql.kernels.grid import FILLS
 
 
@@ -27,7 +27,8 @@ class Param:
     result list within memory); ``none_ok``
     lets NULL mean "not set" (otherwise a NULL argument gives a NULL row);
     ``choices`` lists the allowed words, and ``number_ok`` also admits a number.
-    ``span`` marks a length of time: in the ``*_agg`` form it may also be an INTERVAL.
+    ``span`` marks a length of time: in the ``*_agg`` form it may also be an INTERVAL (with
+    ``choices``: a word, a number of samples, or an INTERVAL there).
     """
 
     name: str
@@ -105,14 +106,23 @@ class Function:
     def agg_returns(self) -> SqlType:
         return self.answer.agg_returns(self.returns)
 
+    @property
+    def agg_outcomes(self) -> list[str]:
+        """What the ``*_agg`` form answers for each input class (see :data:`AGG_TIME_OUTCOMES`)."""
+        listed = dict(zip(INPUT_CLASSES, self.outcomes.split(), strict=True))
+        timed = {c: listed.get(o, o) for c, o in AGG_TIME_OUTCOMES.items()}
+        return [timed.get(c, o) for c, o in listed.items()]
+
 
 INPUT_CLASSES = (
     "null_list empty one all_null nan pos_inf neg_inf constant huge tiny long integer bigint decimal float "
     "mismatched null_time inf_time"
 ).split()
 """The input classes of docs/behaviour.md, in its column order."""
-AGG_TIME_OUTCOMES = {"mismatched": "-", "null_time": "value", "inf_time": "null"}
-"""The ``*_agg`` forms' answers for the classes about times (the list forms have no times)."""
+AGG_TIME_OUTCOMES = {"mismatched": "-", "null_time": "float", "inf_time": "null"}
+"""The ``*_agg`` forms' answers for the classes about times (the list forms have no times); a class name
+means "as that class": a row with a NULL time is left out, so the ordinary series answers (``float``
+holds the ordinary values)."""
 #: The usual answers of a function of one series: NULL where the data cannot support an answer.
 STATISTIC = "null null null null value null null null value value value value value value value - - -"
 #: Of a function of two series: a NULL or NaN element makes the pair NULL; lists may differ in length.
@@ -350,7 +360,7 @@ CHANGE_PARAMS = (
         sql_type=VARCHAR,
         default="'mean'",
         choices=tuple(MIN_SIZE),
-        help="'mean' (level shifts), 'meanvar' (level and spread), 'trend' (piecewise lines)",
+        help="'mean' (levels of a count), 'meanvar' (volatility of returns), 'trend' (turns of a price's trend)",
     ),
     Param(
         "penalty",
@@ -363,7 +373,33 @@ CHANGE_PARAMS = (
     ),
     Param("min_size", default="2", minimum=1, whole=True, help="fewest samples in a segment"),
 )
+MAX_CHANGES = 100
+"""The most changes ``max_changes`` may ask for (the programme behind it is O(max_changes m^2))."""
+SEASONAL_PARAM = Param(
+    "seasonal",
+    sql_type=VARCHAR,
+    default="'auto'",
+    choices=SEASONAL,
+    number_ok=True,
+    minimum=2,
+    span=True,
+    help="'auto' (remove a significant cycle first), 'none', or the cycle's period in samples (>= 2; in the "
+    "*_agg form also an INTERVAL)",
+)
+CHANGE_PARAMS += (
+    SEASONAL_PARAM,
+    Param(
+        "max_changes",
+        default="NULL",
+        none_ok=True,
+        minimum=0,
+        maximum=MAX_CHANGES,
+        whole=True,
+        help="at most this many changes: the best segmentation with no more (default: no limit)",
+    ),
+)
 CHANGE_NULL_ROWS = "NULL, empty or all-missing list; a series too short to split or constant gives an empty list"
+LONG_NULL_ROWS = f"more than {MAX_PROGRAMME:,} present values"
 
 FUNCTIONS += (
     Function(
@@ -373,8 +409,8 @@ FUNCTIONS += (
         kernel_path="changepoint:change_points",
         doc="Exact PELT change points: 1-based position of the first element of each new segment.",
         example="SELECT change_points([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS starts;",
-        null_rows=CHANGE_NULL_ROWS,
-        see_also=("segments",),
+        null_rows=CHANGE_NULL_ROWS + f"; with max_changes, {LONG_NULL_ROWS} when the penalised optimum has more",
+        see_also=("segments", "change_points_path"),
         outcomes="null null empty null value null null empty value value value value value value value - - -",
         test_args=("", "model := 'meanvar', penalty := 8, min_size := 3"),
         params=CHANGE_PARAMS,
@@ -388,13 +424,47 @@ FUNCTIONS += (
         kernel_path="changepoint:segments",
         doc="The PELT segments with inclusive 1-based bounds, mean and least-squares slope per sample.",
         example="SELECT segments([5, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13]) AS regimes;",
-        null_rows=CHANGE_NULL_ROWS.replace("an empty list", "one segment"),
+        null_rows=CHANGE_NULL_ROWS.replace("an empty list", "one segment")
+        + f"; with max_changes, {LONG_NULL_ROWS} when the penalised optimum has more",
         see_also=("change_points", "trend_test"),
         outcomes="null null partial null value null null value value value value value value value value - - -",
         test_args=("", "penalty := 'mbic'"),
         params=CHANGE_PARAMS,
         check=_min_size_fits_model,
         answer=SEGMENTS,
+    ),
+    Function(
+        name="change_points_path",
+        family="change",
+        returns=ListOf(
+            struct(changes=INTEGER, cost=DOUBLE, penalty_from=DOUBLE, penalty_to=DOUBLE, positions=ListOf(INTEGER))
+        ),
+        kernel_path="changepoint:change_points_path",
+        doc="Every optimal segmentation as the penalty runs from 0 up (the 1, 2, 3... most important changes); "
+        "penalty_to NULL: no upper bound.",
+        example="SELECT change_points_path([5, 6, 5, 6, 12, 13, 12, 13, 8, 9, 8, 9], max_changes := 2) AS path;",
+        null_rows="NULL, empty or all-missing list, or "
+        + LONG_NULL_ROWS
+        + "; a series too short to split or constant gives only the record of no change",
+        see_also=("change_points", "segments"),
+        outcomes="null null partial null partial null null partial partial partial null partial partial partial "
+        "partial - - -",
+        test_args=("max_changes := 3", "model := 'trend', max_changes := 2, min_size := 3, seasonal := 'none'"),
+        params=(
+            CHANGE_PARAMS[0],
+            Param(
+                "max_changes",
+                default="10",
+                minimum=0,
+                maximum=MAX_CHANGES,
+                whole=True,
+                help="most changes a segmentation on the path may have",
+            ),
+            CHANGE_PARAMS[2],
+            SEASONAL_PARAM,
+        ),
+        check=_min_size_fits_model,
+        answer=PATH,
     ),
 )
 

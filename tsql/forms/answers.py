@@ -156,6 +156,54 @@ class Segments(Answer):
         return pa.ListArray.from_arrays(answer.offsets, pa.StructArray.from_arrays(fields, names=names), mask=mask)
 
 
+class Path(Answer):
+    """Records each holding a list of 1-based grid positions (``positions``), which become the rows' times.
+
+    The kernel gives ``(records, positions)``: the records, and a Ragged with one row per record in the
+    records' flat order (see :func:`tsql.kernels.changepoint.change_points_path`).
+    """
+
+    LISTS = ("positions",)
+
+    def agg_returns(self, returns: SqlType) -> SqlType:
+        assert isinstance(returns, ListOf) and isinstance(returns.element, Struct)
+        return ListOf(returns.element.replace(**dict.fromkeys(self.LISTS, ListOf(TIME))))
+
+    def udf_returns(self, returns: SqlType) -> SqlType:
+        return returns
+
+    host_returns = agg_returns
+
+    def compute(self, kernel: Kernel, returns: SqlType, clock: Clock, grid: Grid, kwargs: dict) -> pa.Array:
+        records, positions = kernel(grid.values, **kwargs)
+        record_row = np.repeat(np.arange(records.n_rows), np.diff(records.offsets))
+        base = np.repeat(grid.values.offsets[record_row], positions.lengths)
+        rows = grid.observed[base + positions.values.astype(np.int64) - 1].astype(np.float64) + 1
+        return to_arrow(returns, (records, Ragged(rows, positions.offsets)), grid.values.row_valid)
+
+    def finish_sql(self, returns: SqlType, call: str) -> str:
+        assert isinstance(returns, ListOf) and isinstance(returns.element, Struct)
+        fields = [
+            f"{n} := list_select({ROW_TIMES}, s.{n})" if n in self.LISTS else f"{n} := s.{n}"
+            for n in returns.element.names
+        ]
+        return f"list_transform({call}, lambda s: struct_pack({', '.join(fields)}))"
+
+    def in_host_times(
+        self, answer: pa.Array, in_order: np.ndarray, times: Callable[[np.ndarray], pa.Array]
+    ) -> pa.Array:
+        mask = answer.is_null() if answer.null_count else None
+        records = answer.values
+        names = [f.name for f in records.type]
+        fields = []
+        for n in names:
+            field = records.field(n)
+            if n in self.LISTS:
+                field = pa.ListArray.from_arrays(field.offsets, _at(field.values, in_order, times))
+            fields.append(field)
+        return pa.ListArray.from_arrays(answer.offsets, pa.StructArray.from_arrays(fields, names=names), mask=mask)
+
+
 _WALL, _UTC, _NUMBER = 0, 1, 2
 """How a grid tick becomes a time in SQL (macro ``__tsql_moment``): TIMESTAMP, TIMESTAMPTZ, a number."""
 
@@ -210,4 +258,4 @@ def _at(positions: pa.Array, in_order: np.ndarray, times: Times) -> pa.Array:
     return times(in_order[rows])
 
 
-PERIOD, STARTS, SEGMENTS, SERIES = Period(), Starts(), Segments(), Series()
+PERIOD, STARTS, SEGMENTS, SERIES, PATH = Period(), Starts(), Segments(), Series(), Path()

@@ -62,9 +62,14 @@ def to_arrow(sql_type: SqlType, result: Any, valid: np.ndarray) -> pa.Array:
     """A kernel result as the Arrow array of ``sql_type``, rows not ``valid`` NULL.
 
     DOUBLE (or VARCHAR) from a per-row array, STRUCT from a dict of per-row arrays, T[] from a
-    Ragged, STRUCT(...)[] from a RaggedRecords.
+    Ragged, STRUCT(...)[] from a RaggedRecords, or from a tuple ``(records, *lists)`` when fields of
+    the struct are lists: one Ragged per list field, in field order, with one row per record.
     """
     if isinstance(sql_type, ListOf) and isinstance(sql_type.element, Struct):
+        if isinstance(result, tuple):
+            records, *lists = result
+            names = [n for n, t in sql_type.element.fields if isinstance(t, ListOf)]
+            result = RaggedRecords(dict(records.fields, **dict(zip(names, lists))), records.offsets, records.valid)
         assert isinstance(result, RaggedRecords)
         types = {n: t.arrow for n, t in sql_type.element.fields}
         return to_arrow_record_list(result, types, result.row_valid & valid)
@@ -116,11 +121,15 @@ def to_arrow_list(batch: Ragged, value_type: pa.DataType = _DOUBLE) -> pa.ListAr
 def to_arrow_record_list(
     records: RaggedRecords, types: Mapping[str, pa.DataType], row_valid: np.ndarray | None = None
 ) -> pa.ListArray:
-    """LIST of STRUCT per row from a RaggedRecords; NaN fields are NULL."""
+    """LIST of STRUCT per row from a RaggedRecords; NaN and infinite fields are NULL (an infinite field is a
+    bound left open: a path's first ``penalty_to``); a Ragged field is a list per record."""
     arrays = []
     for name, arrow_type in types.items():
+        if isinstance(records.fields[name], Ragged):
+            arrays.append(to_arrow_list(records.fields[name], arrow_type.value_type))
+            continue
         values = np.asarray(records.fields[name])
-        missing = np.isnan(values) if values.dtype.kind == "f" else np.zeros(len(values), dtype=bool)
+        missing = ~np.isfinite(values) if values.dtype.kind == "f" else np.zeros(len(values), dtype=bool)
         arrays.append(_typed(values, missing, arrow_type))
     child = pa.StructArray.from_arrays(arrays, names=list(types))
     valid = records.row_valid if row_valid is None else row_valid

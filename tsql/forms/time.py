@@ -68,15 +68,30 @@ def interval_ticks(value: Any) -> tuple[int, float]:
     return int(value.months), value.days * float(DAY_US) + value.nanoseconds / 1000.0
 
 
-def span_in_steps(function: str, name: str, minimum: float | None, clock: Clock, grid: Grid, span: Span | None) -> Any:
-    """A length-of-time argument in grid steps: one value, or one per row when it depends on the row's step."""
+def span_in_steps(
+    function: str,
+    name: str,
+    minimum: float | None,
+    clock: Clock,
+    grid: Grid,
+    span: Span | None,
+    words: tuple[str, ...] = (),
+) -> Any:
+    """A length-of-time argument in grid steps: one value, or one per row when it depends on the row's step.
+
+    An argument that may also be a word (``seasonal := 'auto'``) names them in ``words``: one comes back as it is.
+    """
     text, interval, number = span or NO_SPAN
     if text is None:
         return None
+    if text in words:
+        return text
     if number is not None:
         return float(number)  # grid steps, as in the list form
     if interval is None or not clock.temporal:
         what = "an INTERVAL or a number of grid steps" if clock.temporal else "a number of grid steps"
+        if words:
+            what = ", ".join(repr(w) for w in words) + ", " + what
         raise ValueError(f"{function}: {name} must be {what}, got {text!r}")
     months, length = interval_ticks(interval)
     steps = grid.steps(months, length)

@@ -425,6 +425,11 @@ MAX_HARMONICS = 6
 #: elements per piece when fitting cycles (bounds the design matrices' memory)
 CYCLE_ELEMENTS = 1 << 13
 
+#: most present values of a row the segment-neighbourhood programme (``O(k m^2)``) runs on: a
+#: longer row gets no answer from ``change_points_path``, nor from ``max_changes`` when the
+#: penalised optimum has too many changes (10,000 values and 10 changes: about 5e8 segment costs)
+MAX_PROGRAMME = 10_000
+
 _BIC, _MBIC, _FIXED = 0, 1, 2
 
 #: PELT keeps a candidate unless it is worse than the optimum by more than this
@@ -1155,6 +1160,17 @@ def _walk_back(back, j, m, last) -> None:
 
 
 @njit(cache=True, error_model="numpy")
+def _changes(last, m) -> int:
+    """The number of changes of the segmentation ``last`` describes (see :func:`_walk_back`)."""
+    n = 0
+    t = last[m]
+    while t > 0:
+        t = last[t]
+        n += 1
+    return n
+
+
+@njit(cache=True, error_model="numpy")
 def _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_changes, last) -> None:
     """The least ``cost + beta * changes`` over segmentations with at most ``max_changes`` changes.
 
@@ -1200,7 +1216,7 @@ def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p
             y[m] = v
             p[m] = i
             m += 1
-    if m == 0 or not finite:
+    if m == 0 or not finite or m > MAX_PROGRAMME:
         return
     row_ok[r] = True
     slot = r * (k_max + 1)
@@ -1374,27 +1390,32 @@ def _segment_row(
                 length_term[k] = (math.log(k) - log_m) * factor if use_length_term else 0.0
             F = np.empty(m + 1)
             last = np.empty(m + 1, dtype=np.int64)
-            if max_changes >= 0:
+            _pelt(
+                code,
+                n_stats,
+                stats,
+                m,
+                beta,
+                length_term,
+                use_length_term,
+                min_size,
+                F,
+                last,
+                np.empty(m + 1),
+                np.empty((MAX_STATS, m + 1)),
+                np.empty(m + 1),
+                np.empty(m + 1),
+                np.empty(m + 1),
+                np.empty((_BOX_ROWS, m + 1)),
+            )
+            if max_changes >= 0 and _changes(last, m) > max_changes:
+                # PELT's optimum is the least cost + beta * changes over all segmentations, so when
+                # it has at most max_changes changes it is also the least over those that do (a
+                # subset holding it); only otherwise the O(max_changes m^2) programme runs
+                if m > MAX_PROGRAMME:
+                    row_ok[r] = False
+                    return
                 _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_changes, last)
-            else:
-                _pelt(
-                    code,
-                    n_stats,
-                    stats,
-                    m,
-                    beta,
-                    length_term,
-                    use_length_term,
-                    min_size,
-                    F,
-                    last,
-                    np.empty(m + 1),
-                    np.empty((MAX_STATS, m + 1)),
-                    np.empty(m + 1),
-                    np.empty(m + 1),
-                    np.empty(m + 1),
-                    np.empty((_BOX_ROWS, m + 1)),
-                )
             # walk back from the end: the starts of the optimum's segments, last first
             n_seg = 0
             t = m
@@ -1794,7 +1815,9 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
         return {name: column[source] for name, column in fields.items()}, offsets, row_ok
     # the rows with a cycle are segmented again without it; the others keep the first answer
     adjusted = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid).take(cyclic)
-    again, counts2, slots2, _ = _run(adjusted, spec, kind, value, min_size, max_changes)
+    again, counts2, slots2, ok2 = _run(adjusted, spec, kind, value, min_size, max_changes)
+    row_ok = row_ok.copy()
+    row_ok[cyclic] &= ok2  # with max_changes, a long row may have no answer without its cycle
     first_counts = np.maximum(counts - skip, 0)
     first_counts[cyclic] = 0
     second_counts = np.maximum(counts2 - skip, 0)
@@ -1855,7 +1878,9 @@ def segments(
         At most this many changes: the segmentation with the least
         ``cost + penalty x changes`` among those with at most ``max_changes``
         changes; with ``penalty=0`` the best segmentation with exactly
-        ``min(max_changes, possible)`` changes. None: no limit.
+        ``min(max_changes, possible)`` changes. None: no limit. A row of more
+        than :data:`MAX_PROGRAMME` (10,000) present values whose penalised
+        optimum has more changes has no answer (invalid; see Notes).
 
     Returns
     -------
@@ -1866,8 +1891,9 @@ def segments(
         to them), ``mean`` of the segment's present values and ``slope``, the
         least-squares slope per sample against their positions (NaN with
         fewer than two present values), both after the removed cycle (the
-        level without the season). NULL, empty and all-missing rows, and rows
-        with an infinite value, are invalid. A row with fewer than
+        level without the season). NULL, empty and all-missing rows, rows
+        with an infinite value, and rows too long for ``max_changes`` (above)
+        are invalid. A row with fewer than
         ``2 * min_size`` present values, or whose values are all equal (up to
         1000 ulps of ``max |y|``), is one segment.
 
@@ -1875,8 +1901,12 @@ def segments(
     -----
     **Search.** The least ``sum_i C(segment_i) + beta * changes`` is found
     exactly by PELT [1]_ with ``K = 0``, for 'mean' with functional pruning
-    (FPOP [2]_); with ``max_changes`` by segment neighbourhood [3]_ (a dynamic
-    programme over the number of changes, ``O(max_changes m^2)``). Ties go to
+    (FPOP [2]_). With ``max_changes``, PELT runs first: its optimum is the
+    least over all segmentations, so when it has at most ``max_changes``
+    changes it is the least over those too. Otherwise segment neighbourhood
+    [3]_ (a dynamic programme over the number of changes,
+    ``O(max_changes m^2)``) finds it, on rows of at most 10,000 present
+    values; longer rows get no answer rather than minutes of work. Ties go to
     the segmentation whose last segment starts earliest, and so on backwards;
     with ``max_changes``, to fewer changes. A change point is the original
     position of the first present value of a new segment; missing elements
@@ -2009,8 +2039,8 @@ def change_points(
     Ragged
         Per row, the 1-based positions (float64, integral, increasing) of the
         first element of every segment but the first; empty when there is no
-        change; ``row_valid`` False for NULL, empty and all-missing rows and
-        rows with an infinite value.
+        change; ``row_valid`` False for NULL, empty and all-missing rows,
+        rows with an infinite value and rows too long for ``max_changes``.
 
     See Also
     --------
@@ -2072,6 +2102,9 @@ def change_points_path(
         positions (1-based, float64, increasing), as :func:`change_points`
         gives them. (For Arrow: a list field of the records' struct, with
         ``positions.offsets`` as its offsets.)
+
+    A row of more than :data:`MAX_PROGRAMME` (10,000) present values is
+    invalid: the programme below is quadratic in the row's length.
 
     Notes
     -----
