@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 from scipy.stats import chi2
 
-from tsql.kernels import changepoint
+from tsql.kernels import changepoint, parallel
 from tsql.kernels.changepoint import change_points, segments
 from tsql.kernels.ragged import Ragged
 
@@ -501,7 +501,7 @@ def test_answers_do_not_depend_on_threads_or_schedule(monkeypatch):
             interleaved = answers(batch)
     finally:
         numba.set_num_threads(before)
-    monkeypatch.setattr(changepoint, "_FORKED_AFTER_OPENMP", True)  # the rows in order, on this thread
+    monkeypatch.setattr(parallel, "_forked_after_openmp", True)  # the rows in order, on this thread
     in_order = answers(batch)
     assert two == one
     assert interleaved == one

@@ -32,15 +32,13 @@ run on the calling thread.
 from __future__ import annotations
 
 import math
-import os
-import threading
 from dataclasses import dataclass
 
-import numba
 import numpy as np
 from numba import njit, prange
 from scipy.stats import chi2
 
+from tsql.kernels import parallel
 from tsql.kernels.ragged import Ragged, RaggedRecords
 
 __all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
@@ -1440,7 +1438,7 @@ def _segment_row(
 # numba releases the GIL around a parallel region (nogil or not), so two Python threads
 # (DuckDB runs a UDF from several of its own) could enter the threading layer at once, which
 # its 'workqueue' layer (used where neither TBB nor OpenMP loads) answers by aborting the
-# process. Calls therefore go through _KERNEL_LOCK (see _run).
+# process. Calls therefore hold parallel.kernel_lock() (see _run).
 @njit(cache=True, error_model="numpy", parallel=True)
 def _segment_rows(
     values,
@@ -1525,33 +1523,6 @@ def _segment_rows_in_order(
         )
 
 
-def _openmp_layer_loaded() -> bool:
-    try:
-        return numba.threading_layer() == "omp"
-    except ValueError:  # no parallel function has run in this process yet
-        return False
-
-
-#: True in a process forked from one that had loaded numba's OpenMP threading layer: GNU
-#: OpenMP cannot run after such a fork (numba terminates the process), so there the rows
-#: run on the calling thread. Inherited by further forks.
-_FORKED_AFTER_OPENMP = False
-
-#: one batch at a time: calls from several Python threads take turns (see _segment_rows);
-#: the kernel already keeps every core busy
-_KERNEL_LOCK = threading.Lock()
-
-
-def _after_fork_in_child() -> None:
-    global _FORKED_AFTER_OPENMP, _KERNEL_LOCK
-    _FORKED_AFTER_OPENMP = _FORKED_AFTER_OPENMP or _openmp_layer_loaded()
-    _KERNEL_LOCK = threading.Lock()  # another thread of the parent may have held it
-
-
-if hasattr(os, "register_at_fork"):
-    os.register_at_fork(after_in_child=_after_fork_in_child)
-
-
 # --------------------------------------------------------------------------- public
 
 
@@ -1605,8 +1576,8 @@ def _run(
     }
     counts = np.empty(n_rows, dtype=np.int64)
     row_ok = np.empty(n_rows, dtype=np.bool_)
-    kernel = _segment_rows_in_order if _FORKED_AFTER_OPENMP else _segment_rows
-    with _KERNEL_LOCK:
+    kernel = _segment_rows_in_order if parallel.forked_after_openmp() else _segment_rows
+    with parallel.kernel_lock():
         kernel(
             values,
             offsets,
@@ -1742,14 +1713,14 @@ def _fisher_screen(batch: Ragged) -> np.ndarray:
     Only a screen: rows well above the level are left out before the full analysis (which also
     refines the period), and the decision is the full analysis' own.
     """
-    from tsql.kernels.periodicity import _detrend, fisher_g_pvalue
+    from tsql.kernels.periodicity import detrend, fisher_g_pvalue
 
     p = np.ones(batch.n_rows)
     for n, rows, matrix in batch.by_length():
         if n < 5:
             continue
         present = ~np.isnan(matrix)
-        resid = _detrend(matrix, None if present.all() else present)[0]
+        resid = detrend(matrix, None if present.all() else present)[0]
         power = np.abs(np.fft.rfft(resid, axis=1)) ** 2
         ordinates = power[:, 2 : (n - 1) // 2 + 1]  # periods n / k for 2 <= k < n / 2
         if ordinates.shape[1] == 0:
@@ -2162,8 +2133,8 @@ def change_points_path(
     places = np.empty(n_rows * per_row_places, dtype=np.int64)
     counts = np.empty(n_rows, dtype=np.int64)
     row_ok = np.empty(n_rows, dtype=np.bool_)
-    kernel = _path_rows_in_order if _FORKED_AFTER_OPENMP else _path_rows
-    with _KERNEL_LOCK:
+    kernel = _path_rows_in_order if parallel.forked_after_openmp() else _path_rows
+    with parallel.kernel_lock():
         kernel(
             values, offsets, valid, spec.code, int(min_size), k_max, changes, cost, p_from, p_to, places, counts, row_ok
         )

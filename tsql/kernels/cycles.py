@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from tsql.kernels.cancel import checkpoint
-from tsql.kernels.periodicity import _allowed_bins, _Group, _refine, _Sums, fisher_g_pvalue
+from tsql.kernels.periodicity import Group, Sums, allowed_bins, fisher_g_pvalue, refine
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords, in_safe_range
 
 __all__ = ["periods"]
@@ -104,7 +104,7 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
     for n, rows, matrix in batch.by_length():
         if n < _MIN_PRESENT:
             continue
-        bins = _allowed_bins(n, min_period, max_period)
+        bins = allowed_bins(n, min_period, max_period)
         keep = batch.row_valid[rows]
         if len(bins) == 0 or not keep.any():
             continue
@@ -195,8 +195,8 @@ def _search(matrix: np.ndarray, bins: np.ndarray, k: int, min_period: float, max
 
 def _refined_period(resid, present, spectrum, peak, n, f_lo, min_period, p_hi) -> np.ndarray:
     """The periodogram peak refined off the grid, as dominant_period refines it."""
-    group = _Group(np.arange(len(peak)), resid, None if present.all() else present)
-    sums = _Sums([group])
+    group = Group(np.arange(len(peak)), resid, None if present.all() else present)
+    sums = Sums([group])
     near = peak[:, None] + np.arange(-1, 2)
     mirror = near > n // 2
     picked = np.take_along_axis(spectrum, np.where(mirror, n - near, near), axis=1)
@@ -205,7 +205,7 @@ def _refined_period(resid, present, spectrum, peak, n, f_lo, min_period, p_hi) -
     lo = np.maximum((k - 1.0) / n, f_lo)
     hi = np.minimum((k + 1.0) / n, 1.0 / min_period)
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-        freq = _refine(sums, k, near_bins, lo, hi)
+        freq = refine(sums, k, near_bins, lo, hi)
     return np.clip(1.0 / freq, min_period, p_hi)
 
 

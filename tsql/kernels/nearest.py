@@ -36,7 +36,7 @@ bounds hold in floating point too, not only on paper.
 The compiled code is self-contained (numba's on-disk cache checks only the
 source file of the function it loads). The work of one call is done in pieces
 of about 0.1 s with a :func:`tsql.kernels.cancel.checkpoint` between them; a
-parallel piece holds the lock of :mod:`tsql.kernels.changepoint` (one parallel
+parallel piece holds :func:`tsql.kernels.parallel.kernel_lock` (one parallel
 region at a time in a process) and runs on the calling thread in a process
 forked after OpenMP was loaded.
 
@@ -61,7 +61,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from tsql.kernels import changepoint
+from tsql.kernels import parallel
 from tsql.kernels.cancel import checkpoint
 from tsql.kernels.ragged import Ragged
 
@@ -922,10 +922,10 @@ def dtw_nearest(
         step = max(_PIECES, _PAIRS_PER_PIECE // count_items)
         for first in range(0, count_items, step):
             stop = min(count_items, first + step)
-            if changepoint._FORKED_AFTER_OPENMP:
+            if parallel.forked_after_openmp():
                 _items(first, stop, seeds, *state)
             else:
-                with changepoint._KERNEL_LOCK:
+                with parallel.kernel_lock():
                     _items_parallel(first, stop, seeds, *state)
             checkpoint()
     if scale != 1.0:

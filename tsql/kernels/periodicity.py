@@ -234,7 +234,7 @@ def _none_or_float(value: float | None) -> float | None:
     return None if value is None else float(value)
 
 
-class _Group:
+class Group:
     """Answerable rows of one length, all with gaps or all without, detrended."""
 
     def __init__(self, rows: np.ndarray, resid: np.ndarray, present: np.ndarray | None) -> None:
@@ -256,12 +256,12 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
     result = {key: full(batch.n_rows) for key in keys}
     row_valid = batch.row_valid
     may_have_gaps = batch.has_missing
-    groups: list[_Group] = []
+    groups: list[Group] = []
     peak, near, tss, g, m = [], [], [], [], []
     for n, rows, matrix in batch.by_length():
         if n < _MIN_PRESENT:
             continue
-        bins = _allowed_bins(n, min_period, max_period)
+        bins = allowed_bins(n, min_period, max_period)
         if len(bins) == 0:
             continue
         keep = row_valid[rows]
@@ -283,7 +283,7 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
             if found is None:
                 continue
             answer, resid, present, k, near_bins, row_tss, row_g = found
-            groups.append(_Group(sub_rows[answer], resid, present))
+            groups.append(Group(sub_rows[answer], resid, present))
             peak.append(k)
             near.append(near_bins)
             tss.append(row_tss)
@@ -293,14 +293,14 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
     if not groups:
         return result
 
-    sums = _Sums(groups)
+    sums = Sums(groups)
     n = sums.n
     k = np.concatenate(peak).astype(np.float64)
     f_lo = 2.0 / n if max_period is None else np.maximum(2.0 / n, 1.0 / max_period)
     lo = np.maximum((k - 1.0) / n, f_lo)
     hi = np.minimum((k + 1.0) / n, 1.0 / min_period)
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-        freq = _refine(sums, k, np.concatenate(near), lo, hi)
+        freq = refine(sums, k, np.concatenate(near), lo, hi)
     p_hi = n / 2.0 if max_period is None else np.minimum(n / 2.0, max_period)
     period = np.clip(1.0 / freq, min_period, p_hi)
     rows = np.concatenate([group.rows for group in groups])
@@ -312,7 +312,7 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
     return result
 
 
-def _allowed_bins(n: int, min_period: float, max_period: float | None) -> np.ndarray:
+def allowed_bins(n: int, min_period: float, max_period: float | None) -> np.ndarray:
     """Fourier indices ``k`` whose period ``n / k`` is allowed and fits two cycles (``k >= 2``).
 
     Always a range of consecutive integers.
@@ -333,7 +333,7 @@ def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool
     """
     n = matrix.shape[1]
     present = ~np.isnan(matrix) if gaps else None
-    resid, count, level, trend_ss = _detrend(matrix, present)
+    resid, count, level, trend_ss = detrend(matrix, present)
     spectrum = np.fft.rfft(resid, axis=1)
     power = spectrum.real**2 + spectrum.imag**2
     # sum of squares of the residuals, by Parseval (missing elements are 0)
@@ -367,7 +367,7 @@ def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool
     return answer, resid, present, k, near_bins, tss, g
 
 
-def _refine(sums: _Sums, k: np.ndarray, near_bins: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+def refine(sums: Sums, k: np.ndarray, near_bins: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     """Frequency (cycles per sample) maximising :func:`_sinusoid_fit` near bin ``k``, within [lo, hi].
 
     A quarter-bin grid of nine points around the peak bin (+-1 bin; the three on Fourier
@@ -426,7 +426,7 @@ def _parabola_step(
     return np.where(concave, np.clip(step, -limit, limit), np.nan)
 
 
-def _detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Least-squares residuals about each row's line through its present values.
 
     Missing elements become 0. Returns ``(residuals, present count, |mean|, sum of squares of
@@ -459,7 +459,7 @@ def _detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray
 # --------------------------------------------------------------------------------------------
 
 
-class _Sums:
+class Sums:
     """Trigonometric sums over the rows of several groups (lengths), in group order.
 
     Each row is split as ``t = h B + l`` (``B`` about ``sqrt(n)``, a function of ``n`` only):
@@ -470,7 +470,7 @@ class _Sums:
     row's sums do not depend on the other rows.
     """
 
-    def __init__(self, groups: list[_Group]) -> None:
+    def __init__(self, groups: list[Group]) -> None:
         self.groups = groups
         sizes = [len(group.rows) for group in groups]
         self.bounds = np.concatenate([[0], np.cumsum(sizes)])
@@ -570,7 +570,7 @@ def _dirichlet_slope(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
     return np.where(small, 0.0, regular)
 
 
-def _sinusoid_fit(sums: _Sums, omega: np.ndarray) -> np.ndarray:
+def _sinusoid_fit(sums: Sums, omega: np.ndarray) -> np.ndarray:
     """Sum of squares explained by ``cos(w t), sin(w t)`` fitted jointly with ``1, t``.
 
     With centred time ``u = t - c`` the regressors ``1, u, cos(w u), sin(w u)`` split into two
@@ -601,7 +601,7 @@ def _fit_from_sums(c: np.ndarray, s: np.ndarray, omega: np.ndarray, n: np.ndarra
 # --------------------------------------------------------------------------------------------
 
 
-def _harmonic_strength(sums: _Sums, groups: list[_Group], period: np.ndarray, tss: np.ndarray) -> np.ndarray:
+def _harmonic_strength(sums: Sums, groups: list[Group], period: np.ndarray, tss: np.ndarray) -> np.ndarray:
     """``1 - RSS / TSS`` of cos/sin pairs at ``j / period``, ``j = 1..H``, ``H = min(3, floor(p / 2))``,
     fitted jointly with a constant and a line.
 
@@ -643,7 +643,7 @@ def _harmonic_strength(sums: _Sums, groups: list[_Group], period: np.ndarray, ts
     return np.clip(explained / tss, 0.0, 1.0)
 
 
-def _gram_with_gaps(gram: np.ndarray, cross: np.ndarray, line: np.ndarray, group: _Group, omega: np.ndarray) -> None:
+def _gram_with_gaps(gram: np.ndarray, cross: np.ndarray, line: np.ndarray, group: Group, omega: np.ndarray) -> None:
     """Turn the full-grid Gram matrices ``H'H``, ``H'Z`` and ``Z'Z`` (``Z = [1, u]``) of rows with
     gaps into sums over their present elements.
 
