@@ -122,6 +122,7 @@ PAIRS = {"dtw_distance", "dtw_path", "lb_keogh"}
 # parts of an answer in the series' own units: they scale with the series (the rest must not move)
 LINEAR = {"dtw_distance", "lb_keogh", "harmonic_smooth", "harmonic_profile", "on_grid"}
 LINEAR_FIELDS = {"mean", "slope", "value"}
+LINEAR_FIELDS_OF = {"stl_decompose": {"trend", "seasonal", "remainder"}}  # stl_strength's trend is a ratio
 
 
 def list_case(cls: str) -> tuple[list, list, list]:
@@ -297,7 +298,9 @@ def rescaled(value, factor: float, fn: str, key: str | None = None):
         return {k: rescaled(v, factor, fn, k) for k, v in value.items()}
     if isinstance(value, list):
         return [rescaled(v, factor, fn, key) for v in value]
-    if isinstance(value, float) and (key in LINEAR_FIELDS or (key is None and fn.removesuffix("_agg") in LINEAR)):
+    name = fn.removesuffix("_agg")
+    linear = key in LINEAR_FIELDS or key in LINEAR_FIELDS_OF.get(name, ()) or (key is None and name in LINEAR)
+    if isinstance(value, float) and linear:
         return value * factor
     return value
 
