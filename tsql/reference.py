@@ -48,11 +48,10 @@ def inputs_table() -> str:
     """docs/behaviour.md's matrix: every public form against every input class."""
     rows = ["| function | " + " | ".join(INPUT_CLASSES) + " |", "|---" * (len(INPUT_CLASSES) + 1) + "|"]
     forms = [(fn.name, fn.outcomes.split()) for fn in FUNCTIONS]
-    forms += [
-        (f"{fn.name}_agg", [AGG_TIME_OUTCOMES.get(c, o) for c, o in zip(INPUT_CLASSES, fn.outcomes.split())])
-        for fn in FUNCTIONS
-        if fn.aggregate
-    ]
+    for fn in FUNCTIONS:
+        if fn.aggregate:
+            times = {**AGG_TIME_OUTCOMES, **dict(fn.agg_time_outcomes)}
+            forms.append((f"{fn.name}_agg", [times.get(c, o) for c, o in zip(INPUT_CLASSES, fn.outcomes.split())]))
     rows += [f"| {name} | " + " | ".join(outcomes) + " |" for name, outcomes in forms]
     return "\n".join(rows)
 

@@ -72,6 +72,8 @@ class Function:
     outcomes: str = ""
     """What the list form answers for each input class of docs/behaviour.md (:data:`INPUT_CLASSES`), space
     separated; the ``*_agg`` form answers the same, plus :data:`AGG_TIME_OUTCOMES` for the time classes."""
+    agg_time_outcomes: tuple[tuple[str, str], ...] = ()
+    """The ``*_agg`` form's own answers for time classes where they differ from :data:`AGG_TIME_OUTCOMES`."""
     see_also: tuple[str, ...] = ()
     """Related functions, named in ``tsql functions NAME``."""
     test_args: tuple[str, ...] = ("",)
@@ -517,6 +519,7 @@ FUNCTIONS += (
         see_also=("stl_strength", "harmonic_smooth", "seasonality"),
         outcomes="null null null null partial null null value value value value value value value value - - -",
         test_args=("8", "8, robust := true"),
+        agg_time_outcomes=(("null_time", "partial"),),  # the row left out leaves a grid point without a remainder
         params=(
             STL_PERIOD,
             Param(
