@@ -518,7 +518,7 @@ FUNCTIONS += (
         "the ends outside the span are NULL",
         see_also=("stl_strength", "harmonic_smooth", "seasonality"),
         outcomes="null null null null partial null null value value value value value value value value - - -",
-        test_args=("8", "8, robust := true"),
+        test_args=("8", "4, robust := true"),
         agg_time_outcomes=(("null_time", "partial"),),  # the row left out leaves a grid point without a remainder
         params=(
             STL_PERIOD,
@@ -541,7 +541,7 @@ FUNCTIONS += (
         null_rows=STL_NULL_ROWS + ", a constant series, or (period NULL) no period found",
         see_also=("stl_decompose", "seasonality", "periods"),
         outcomes=STATISTIC,
-        test_args=("", "period := 8"),
+        test_args=("", "period := 4"),
         params=(
             Param(
                 "period",
