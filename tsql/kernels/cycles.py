@@ -215,8 +215,9 @@ def _extend(basis: np.ndarray, columns: np.ndarray) -> np.ndarray:
     of the longest column is dropped (a zero column, or one already in the span).
 
     Classical Gram-Schmidt against the basis, twice ("twice is enough"; on every row, so that a row's
-    answer does not depend on the others of its batch), then the new directions orthonormalised through the eigenvectors of their
-    small Gram matrix, twice (the second pass sees a nearly orthonormal set)."""
+    answer does not depend on the others of its batch), then the new directions orthonormalised
+    through the eigenvectors of their small Gram matrix, twice (the second pass sees a nearly
+    orthonormal set)."""
     lengths = np.sqrt((columns * columns).sum(axis=2))  # (m, c)
     if basis.shape[1]:
         for _ in range(2):  # always twice: whether a row needs it must not depend on the other rows
