@@ -30,6 +30,7 @@ from tsql.cli import main
 from tsql.kernels.changepoint import MAX_PROGRAMME
 from tsql.kernels.ragged import Ragged
 from tsql.kernels.sparkline import BLOCKS
+from tsql.kernels.stl import stl_decompose
 from tsql.reference import regenerate
 from tsql.registry import FUNCTIONS
 
@@ -123,6 +124,7 @@ PAIRS = {"dtw_distance", "dtw_path", "lb_keogh"}
 # parts of an answer in the series' own units: they scale with the series (the rest must not move)
 LINEAR = {"dtw_distance", "lb_keogh", "harmonic_smooth", "harmonic_profile", "on_grid"}
 LINEAR_FIELDS = {"mean", "slope", "value"}
+LINEAR_FIELDS_OF = {"stl_decompose": {"trend", "seasonal", "remainder"}}  # stl_strength's trend is a ratio
 
 
 def list_case(cls: str) -> tuple[list, list, list]:
@@ -298,7 +300,9 @@ def rescaled(value, factor: float, fn: str, key: str | None = None):
         return {k: rescaled(v, factor, fn, k) for k, v in value.items()}
     if isinstance(value, list):
         return [rescaled(v, factor, fn, key) for v in value]
-    if isinstance(value, float) and (key in LINEAR_FIELDS or (key is None and fn.removesuffix("_agg") in LINEAR)):
+    name = fn.removesuffix("_agg")
+    linear = key in LINEAR_FIELDS or key in LINEAR_FIELDS_OF.get(name, ()) or (key is None and name in LINEAR)
+    if isinstance(value, float) and linear:
         return value * factor
     return value
 
@@ -633,6 +637,21 @@ LONG_CALLS = {
     ),
     "harmonic_profile_agg": ("harmonic_profile_agg(v, t, 24, harmonics := 1)", "long_rows_p"),
 }
+# STL, the unit-root tests and periods: 200,000 points (as trend_test), a few seconds each
+LONG_SCREEN = 200_000
+_SHORT_P, _SHORT_ROWS = f"p[1:{LONG_SCREEN}]", f"long_rows_p WHERE t <= {LONG_SCREEN}"
+LONG_CALLS |= {
+    "stl_decompose": (f"stl_decompose({_SHORT_P}, 24).seasonal[1:48]", "long_lists"),
+    "stl_decompose_agg": ("list_transform(stl_decompose_agg(v, t, 24)[1:48], lambda r: r.seasonal)", _SHORT_ROWS),
+    "stl_strength": (f"stl_strength({_SHORT_P})", "long_lists"),
+    "stl_strength_agg": ("stl_strength_agg(v, t)", _SHORT_ROWS),
+    "periods": (f"periods({_SHORT_P})", "long_lists"),
+    "periods_agg": ("periods_agg(v, t)", _SHORT_ROWS),
+    "adf_test": (f"adf_test({_SHORT_P}, max_lag := 2)", "long_lists"),
+    "adf_test_agg": ("adf_test_agg(v, t, max_lag := 2)", _SHORT_ROWS),
+    "kpss_test": (f"kpss_test({_SHORT_P})", "long_lists"),
+    "kpss_test_agg": ("kpss_test_agg(v, t)", _SHORT_ROWS),
+}
 BIG_ANSWERS = {"harmonic_smooth", "harmonic_smooth_agg", "dtw_path", "on_grid"}
 
 
@@ -792,6 +811,22 @@ def check_long(con, fn: str, got, data: dict) -> None:
         missing = np.isnan(values)
         assert np.array_equal(np.flatnonzero(missing), np.arange(500, LONG, 1000))
         assert np.array_equal(values[~missing], p[~missing])
+    elif name == "stl_decompose":
+        expected = stl_decompose(Ragged.from_list([p[:LONG_SCREEN]]), period=24)["seasonal"].values[:48]
+        np.testing.assert_allclose(got, expected, rtol=1e-12, atol=0)  # the kernel alone on the same values
+    elif name == "stl_strength":
+        assert got["period"] == 24  # the planted cycle; no trend was planted
+        assert got["seasonal"] > 0.6 and got["trend"] < 0.2
+    elif name == "periods":
+        assert len(got) == 3
+        assert got[0]["period"] == pytest.approx(24, abs=0.01)
+        assert got[0]["p_value"] < 1e-10
+        assert got[0]["strength"] == pytest.approx(0.5 / (0.5 + 0.25), abs=0.01)  # cycle variance over total
+    elif name == "adf_test":
+        assert got["p_value"] < 1e-6 and got["used_lag"] in (0, 1, 2)  # a cycle in noise does not wander
+    elif name == "kpss_test":
+        # below the 10 % critical value 0.347 (Kwiatkowski et al. 1992, Table 1): p at its upper bound
+        assert got["statistic"] < 0.347 and got["p_value"] == 0.1
     else:  # no check of its own: the kernel called directly on the series, as in its kernel tests
         entry = BY_NAME[name]
         kwargs = settings(entry, entry.test_args[0])[1]

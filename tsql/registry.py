@@ -12,7 +12,7 @@ import importlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-from tsql.forms.answers import PATH, PERIOD, SAME, SEGMENTS, SERIES, STARTS, Answer
+from tsql.forms.answers import PATH, PERIOD, PERIODS, SAME, SEGMENTS, SERIES, STARTS, Answer
 from tsql.forms.types import BOOLEAN, DOUBLE, INTEGER, VARCHAR, ListOf, SqlType, struct
 from tsql.kernels.changepoint import MAX_PROGRAMME, MIN_SIZE, SEASONAL
 from tsql.kernels.grid import FILLS
@@ -73,6 +73,8 @@ class Function:
     outcomes: str = ""
     """What the list form answers for each input class of docs/behaviour.md (:data:`INPUT_CLASSES`), space
     separated; the ``*_agg`` form answers the same, plus :data:`AGG_TIME_OUTCOMES` for the time classes."""
+    agg_time_outcomes: tuple[tuple[str, str], ...] = ()
+    """The ``*_agg`` form's own answers for time classes where they differ from :data:`AGG_TIME_OUTCOMES`."""
     see_also: tuple[str, ...] = ()
     """Related functions, named in ``tsql functions NAME``."""
     test_args: tuple[str, ...] = ("",)
@@ -110,7 +112,7 @@ class Function:
     def agg_outcomes(self) -> list[str]:
         """What the ``*_agg`` form answers for each input class (see :data:`AGG_TIME_OUTCOMES`)."""
         listed = dict(zip(INPUT_CLASSES, self.outcomes.split(), strict=True))
-        timed = {c: listed.get(o, o) for c, o in AGG_TIME_OUTCOMES.items()}
+        timed = {c: listed.get(o, o) for c, o in {**AGG_TIME_OUTCOMES, **dict(self.agg_time_outcomes)}.items()}
         return [timed.get(c, o) for c, o in listed.items()]
 
 
@@ -559,6 +561,136 @@ FUNCTIONS += (
         special=True,
         sql_body="__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
         "__tsql_span(step), fill)",
+    ),
+)
+
+STL_NULL_ROWS = (
+    "NULL list; a span (first to last present value) shorter than two cycles, a run of missing values a whole "
+    "cycle long, over a quarter of the span missing, or an infinite value"
+)
+STL_PERIOD = Param("period", minimum=2, whole=True, span=True, help="cycle length in samples (whole), at least 2")
+UNIT_ROOT_NULL_ROWS = (
+    "NULL list, a constant series, an infinite value, over a quarter of the span (first to last present "
+    "value) missing, or too few values"
+)
+
+FUNCTIONS += (
+    Function(
+        name="stl_decompose",
+        family="periodicity",
+        returns=struct(trend=ListOf(DOUBLE), seasonal=ListOf(DOUBLE), remainder=ListOf(DOUBLE)),
+        kernel_path="stl:stl_decompose",
+        doc="STL decomposition into trend, seasonal and remainder (statsmodels' STL defaults), same length.",
+        example="SELECT stl_decompose([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2], 4) AS parts;",
+        null_rows=STL_NULL_ROWS + "; a missing value inside is filled linearly and has a NULL remainder, "
+        "the ends outside the span are NULL",
+        see_also=("stl_strength", "harmonic_smooth", "seasonality"),
+        outcomes="null null null null partial null null value value value value value value value value - - -",
+        test_args=("8", "4, robust := true"),
+        agg_time_outcomes=(("null_time", "partial"),),  # the row left out leaves a grid point without a remainder
+        params=(
+            STL_PERIOD,
+            Param(
+                "robust",
+                sql_type=BOOLEAN,
+                default="false",
+                help="down-weight outliers (15 robustness iterations of 2 inner passes)",
+            ),
+        ),
+        answer=SERIES,
+    ),
+    Function(
+        name="stl_strength",
+        family="periodicity",
+        returns=struct(period=DOUBLE, trend=DOUBLE, seasonal=DOUBLE),
+        kernel_path="stl:stl_strength",
+        doc="Strengths of trend and of seasonality in [0, 1] from the STL decomposition (Wang, Smith & Hyndman).",
+        example="SELECT stl_strength([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2], period := 4) AS s;",
+        null_rows=STL_NULL_ROWS + ", a constant series, or (period NULL) no period found",
+        see_also=("stl_decompose", "seasonality", "periods"),
+        outcomes=STATISTIC,
+        test_args=("", "period := 4"),
+        params=(
+            Param(
+                "period",
+                default="NULL",
+                minimum=2,
+                whole=True,
+                none_ok=True,
+                span=True,
+                help="cycle length in samples (whole; default: the dominant period, rounded)",
+            ),
+        ),
+        answer=PERIOD,
+    ),
+    Function(
+        name="periods",
+        family="periodicity",
+        returns=ListOf(struct(period=DOUBLE, strength=DOUBLE, p_value=DOUBLE)),
+        kernel_path="cycles:periods",
+        doc="Up to k distinct cycles, strongest first: period, share of variance, Fisher's g p-value after the "
+        "earlier ones.",
+        example="SELECT periods([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2], k := 2) AS cycles;",
+        null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no Fourier period in the range",
+        see_also=("seasonality", "dominant_period", "stl_strength"),
+        outcomes=STATISTIC,
+        test_args=("", "k := 2, min_period := 3, max_period := 20"),
+        params=(
+            Param("k", default="3", minimum=1, maximum=MAX_LIST, whole=True, help="most cycles returned"),
+            *PERIOD_PARAMS,
+        ),
+        relations=PERIOD_RELATIONS,
+        answer=PERIODS,
+    ),
+    Function(
+        name="adf_test",
+        family="wandering",
+        returns=struct(statistic=DOUBLE, p_value=DOUBLE, used_lag=INTEGER),
+        kernel_path="unitroot:adf_test",
+        doc="Augmented Dickey-Fuller test of a unit root (lag by AIC, MacKinnon p-value): small p = no wandering.",
+        example="SELECT adf_test([3, 5, 4, 6, 5, 4, 6, 5, 3, 5, 4, 6, 5, 4, 6, 5, 4, 3, 5, 6], max_lag := 2) AS adf;",
+        null_rows=UNIT_ROOT_NULL_ROWS + " for max_lag (n // 2 - terms - 1 must reach it)",
+        see_also=("kpss_test", "trend_test"),
+        outcomes=STATISTIC,
+        test_args=("", "max_lag := 2, regression := 'ct'"),
+        params=(
+            Param(
+                "max_lag",
+                default="NULL",
+                minimum=0,
+                whole=True,
+                none_ok=True,
+                help="most lagged differences tried (default: 12 (n / 100)^(1/4), Schwert 1989)",
+            ),
+            Param(
+                "regression",
+                sql_type=VARCHAR,
+                default="'c'",
+                choices=("c", "ct", "ctt", "n"),
+                help="terms of the test regression: 'c' constant, 'ct' and trend, 'ctt' and squared trend, 'n' none",
+            ),
+        ),
+    ),
+    Function(
+        name="kpss_test",
+        family="wandering",
+        returns=struct(statistic=DOUBLE, p_value=DOUBLE),
+        kernel_path="unitroot:kpss_test",
+        doc="KPSS test of stationarity (automatic lag; p bounded to [0.01, 0.10] by its table): small p = wandering.",
+        example="SELECT kpss_test([3, 5, 4, 6, 5, 4, 6, 5, 3, 5, 4, 6, 5, 4, 6, 5, 4, 3, 5, 6]) AS kpss;",
+        null_rows=UNIT_ROOT_NULL_ROWS + " (fewer than 3)",
+        see_also=("adf_test", "trend_test"),
+        outcomes=STATISTIC,
+        test_args=("", "regression := 'ct'"),
+        params=(
+            Param(
+                "regression",
+                sql_type=VARCHAR,
+                default="'c'",
+                choices=("c", "ct"),
+                help="the null hypothesis: stationary around a constant 'c' or a line 'ct'",
+            ),
+        ),
     ),
 )
 

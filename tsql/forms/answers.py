@@ -209,47 +209,81 @@ _WALL, _UTC, _NUMBER = 0, 1, 2
 
 
 class Series(Answer):
-    """A series on the grid as (time, value) records, gaps included.
+    """A series on the grid as (time, value) records, gaps included; a STRUCT of lists (the components of a
+    decomposition) as one record per grid time with a field per component: (time, trend, seasonal, ...).
 
-    The UDF gives ``(tick, kind, value)``; the macro makes the time: DuckDB builds UNION values in
+    The UDF gives ``(tick, kind, value ...)``; the macro makes the time: DuckDB builds UNION values in
     SQL about 8x faster than it imports Arrow unions.
     """
 
+    @staticmethod
+    def _names(returns: SqlType) -> list[str]:
+        return returns.names if isinstance(returns, Struct) else ["value"]
+
     def agg_returns(self, returns: SqlType) -> SqlType:
-        return ListOf(struct(time=MOMENT, value=DOUBLE))
+        return ListOf(struct(time=MOMENT, **dict.fromkeys(self._names(returns), DOUBLE)))
 
     def udf_returns(self, returns: SqlType) -> SqlType:
-        return ListOf(struct(tick=DOUBLE, kind=TINYINT, value=DOUBLE))
+        return ListOf(struct(tick=DOUBLE, kind=TINYINT, **dict.fromkeys(self._names(returns), DOUBLE)))
 
     def host_returns(self, returns: SqlType) -> SqlType:
-        return ListOf(struct(time=TIME, value=DOUBLE))
+        return ListOf(struct(time=TIME, **dict.fromkeys(self._names(returns), DOUBLE)))
 
     def compute(self, kernel: Kernel, returns: SqlType, clock: Clock, grid: Grid, kwargs: dict) -> pa.Array:
-        smooth: Ragged = kernel(grid.values, **kwargs)
+        result = kernel(grid.values, **kwargs)
+        parts: dict[str, Ragged] = result if isinstance(result, dict) else {"value": result}
+        smooth = next(iter(parts.values()))  # the parts share their rows
         ticks = grid.ticks
         if not smooth.row_valid.all():
             ticks = ticks[np.repeat(smooth.row_valid, grid.values.lengths)]  # NULL rows have no values
         kind = (_UTC if clock.utc else _WALL) if clock.temporal else _NUMBER
-        values = to_arrow_list(Ragged(smooth.values, smooth.offsets, None)).values
+        names = self._names(returns)
+        values = [to_arrow_list(Ragged(parts[n].values, smooth.offsets, None)).values for n in names]
         records = pa.StructArray.from_arrays(
-            [pa.array(ticks), pa.array(np.full(len(ticks), kind, dtype=np.int8)), values],
-            names=["tick", "kind", "value"],
+            [pa.array(ticks), pa.array(np.full(len(ticks), kind, dtype=np.int8)), *values],
+            names=["tick", "kind", *names],
         )
         valid = smooth.row_valid & grid.values.row_valid
         offsets = pa.array(smooth.offsets.astype(np.int32))
         return pa.ListArray.from_arrays(offsets, records, mask=None if valid.all() else pa.array(~valid))
 
     def finish_sql(self, returns: SqlType, call: str) -> str:
-        return f"list_transform({call}, lambda r: {{'time': __tsql_moment(r.tick, r.kind), 'value': r.value}})"
+        fields = "".join(f", '{n}': r.{n}" for n in self._names(returns))
+        return f"list_transform({call}, lambda r: {{'time': __tsql_moment(r.tick, r.kind){fields}}})"
 
     def in_host_times(
         self, answer: pa.Array, in_order: np.ndarray, times: Callable[[np.ndarray], pa.Array]
     ) -> pa.Array:
         mask = answer.is_null() if answer.null_count else None
         records = answer.values
+        names = [f.name for f in records.type][2:]
         at = times(records.field("tick").to_numpy(zero_copy_only=False))
-        records = pa.StructArray.from_arrays([at, records.field("value")], names=["time", "value"])
+        fields = [at] + [records.field(n) for n in names]
+        records = pa.StructArray.from_arrays(fields, names=["time", *names])
         return pa.ListArray.from_arrays(answer.offsets, records, mask=mask)
+
+
+class Periods(Answer):
+    """Records with a ``period`` field (several cycles), each period a span of time as :class:`Period` gives it."""
+
+    def agg_returns(self, returns: SqlType) -> SqlType:
+        assert isinstance(returns, ListOf) and isinstance(returns.element, Struct)
+        return ListOf(returns.element.replace(period=SPAN))
+
+    def compute(self, kernel: Kernel, returns: SqlType, clock: Clock, grid: Grid, kwargs: dict) -> pa.Array:
+        found: RaggedRecords = kernel(grid.values, **kwargs)
+        answer = to_arrow(returns, found, grid.values.row_valid)
+        rows = np.repeat(np.arange(found.n_rows), np.diff(found.offsets))
+        span = span_array(clock, grid.take(rows), np.asarray(found.fields["period"], dtype=np.float64))
+        records = answer.values
+        names = [f.name for f in records.type]
+        fields = [span if n == "period" else records.field(n) for n in names]
+        mask = answer.is_null() if answer.null_count else None
+        return pa.ListArray.from_arrays(answer.offsets, pa.StructArray.from_arrays(fields, names=names), mask=mask)
+
+    @property
+    def in_steps(self) -> Answer:
+        return SAME
 
 
 def _at(positions: pa.Array, in_order: np.ndarray, times: Times) -> pa.Array:
@@ -258,4 +292,4 @@ def _at(positions: pa.Array, in_order: np.ndarray, times: Times) -> pa.Array:
     return times(in_order[rows])
 
 
-PERIOD, STARTS, SEGMENTS, SERIES, PATH = Period(), Starts(), Segments(), Series(), Path()
+PERIOD, PERIODS, STARTS, SEGMENTS, SERIES, PATH = Period(), Periods(), Starts(), Segments(), Series(), Path()

@@ -63,7 +63,8 @@ def to_arrow(sql_type: SqlType, result: Any, valid: np.ndarray) -> pa.Array:
 
     DOUBLE (or VARCHAR) from a per-row array, STRUCT from a dict of per-row arrays, T[] from a
     Ragged, STRUCT(...)[] from a RaggedRecords, or from a tuple ``(records, *lists)`` when fields of
-    the struct are lists: one Ragged per list field, in field order, with one row per record.
+    the struct are lists: one Ragged per list field, in field order, with one row per record;
+    STRUCT(a T[], ...) from a dict of Ragged (a row is NULL where the first one's row is invalid).
     """
     if isinstance(sql_type, ListOf) and isinstance(sql_type.element, Struct):
         if isinstance(result, tuple):
@@ -77,6 +78,8 @@ def to_arrow(sql_type: SqlType, result: Any, valid: np.ndarray) -> pa.Array:
         assert isinstance(result, Ragged)
         rows = result.row_valid & valid
         return to_arrow_list(Ragged(result.values, result.offsets, rows), sql_type.element.arrow)
+    if isinstance(sql_type, Struct) and isinstance(sql_type.fields[0][1], ListOf):
+        return to_arrow_list_struct(result, {n: t.element.arrow for n, t in sql_type.fields}, valid)
     if isinstance(sql_type, Struct):
         return to_arrow_struct(result, {n: t.arrow for n, t in sql_type.fields}, valid)
     if sql_type == VARCHAR:  # a list of str, None = NULL
@@ -106,6 +109,16 @@ def to_arrow_struct(
     if row_valid is not None:
         row_null = row_null | ~row_valid
     return pa.StructArray.from_arrays(arrays, names=list(types), mask=pa.array(row_null) if row_null.any() else None)
+
+
+def to_arrow_list_struct(
+    fields: Mapping[str, Ragged], types: Mapping[str, pa.DataType], row_valid: np.ndarray
+) -> pa.StructArray:
+    """STRUCT of lists per row from Ragged results sharing their rows; NaN elements are NULL."""
+    valid = next(iter(fields.values())).row_valid & row_valid
+    arrays = [to_arrow_list(Ragged(fields[n].values, fields[n].offsets, valid), t) for n, t in types.items()]
+    mask = None if valid.all() else pa.array(~valid)
+    return pa.StructArray.from_arrays(arrays, names=list(types), mask=mask)
 
 
 def to_arrow_list(batch: Ragged, value_type: pa.DataType = _DOUBLE) -> pa.ListArray:

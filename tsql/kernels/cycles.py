@@ -214,16 +214,14 @@ def _extend(basis: np.ndarray, columns: np.ndarray) -> np.ndarray:
     directions of ``columns`` (``(rows, c, n)``) it lacks; a direction shorter than ``_RANK_TOL``
     of the longest column is dropped (a zero column, or one already in the span).
 
-    Classical Gram-Schmidt against the basis, repeated when a column lost more than half its length
-    ("twice is enough"), then the new directions orthonormalised through the eigenvectors of their
-    small Gram matrix, twice (the second pass sees a nearly orthonormal set)."""
+    Classical Gram-Schmidt against the basis, twice ("twice is enough"; on every row, so that a row's
+    answer does not depend on the others of its batch), then the new directions orthonormalised
+    through the eigenvectors of their small Gram matrix, twice (the second pass sees a nearly
+    orthonormal set)."""
     lengths = np.sqrt((columns * columns).sum(axis=2))  # (m, c)
     if basis.shape[1]:
-        for _ in range(2):
-            before = (columns * columns).sum(axis=2)
+        for _ in range(2):  # always twice: whether a row needs it must not depend on the other rows
             columns = columns - (columns @ basis.transpose(0, 2, 1)) @ basis
-            if not ((columns * columns).sum(axis=2) < 0.25 * before).any():
-                break
     floor = (_RANK_TOL * np.maximum(lengths.max(axis=1), 1e-300)) ** 2
     for _ in range(2):
         values, vectors = np.linalg.eigh(columns @ columns.transpose(0, 2, 1))  # (m, c), (m, c, c)

@@ -157,6 +157,24 @@ def in_safe_range(matrix: np.ndarray) -> np.ndarray:
     return scaled
 
 
+def rows_in_safe_range(batch: Ragged) -> Ragged:
+    """``batch`` with each row whose magnitude would overflow or underflow a sum of squares multiplied by a
+    power of two that brings it near 1, as :func:`in_safe_range` does for the rows of a matrix."""
+    lengths = batch.lengths
+    filled = lengths > 0
+    if not filled.any():
+        return batch
+    size = np.where(np.isfinite(batch.values), np.abs(batch.values), 0.0)
+    magnitude = np.zeros(batch.n_rows)
+    magnitude[filled] = np.maximum.reduceat(size, batch.offsets[:-1][filled])
+    _, exponent = np.frexp(magnitude)
+    out_of_range = (magnitude > 0) & ((exponent > 400) | (exponent < -400))
+    if not out_of_range.any():
+        return batch
+    factor = np.where(out_of_range, np.ldexp(1.0, -np.clip(exponent, -1020, 1020)), 1.0)
+    return Ragged(batch.values * np.repeat(factor, lengths), batch.offsets, batch.valid)
+
+
 def full(n_rows: int, fill: float = np.nan) -> np.ndarray:
     """A per-row float result, NaN (no answer) unless filled."""
     return np.full(n_rows, fill, dtype=np.float64)

@@ -26,7 +26,7 @@ from numba import njit
 from tsql.kernels.cancel import checkpoint
 from tsql.kernels.gaps import fill_inside
 from tsql.kernels.periodicity import dominant_period
-from tsql.kernels.ragged import Ragged, full
+from tsql.kernels.ragged import Ragged, full, rows_in_safe_range
 
 __all__ = ["stl_decompose", "stl_strength", "stl_windows"]
 
@@ -181,7 +181,7 @@ def stl_strength(batch: Ragged, period: int | None = None) -> dict[str, np.ndarr
         row_period = np.full(batch.n_rows, settings[0])
     for value in settings:
         rows = np.flatnonzero(row_period == value)
-        sub = batch if len(rows) == batch.n_rows else batch.take(rows)
+        sub = rows_in_safe_range(batch if len(rows) == batch.n_rows else batch.take(rows))  # ratios: scale-free
         p = int(value)
         filled, first, last, answer = _prepare(sub, p)
         trend, seasonal = _run(filled, first, last, answer, p, False)

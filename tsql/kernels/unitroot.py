@@ -19,7 +19,7 @@ from scipy.special import ndtr
 
 from tsql.kernels.cancel import checkpoint
 from tsql.kernels.gaps import fill_inside
-from tsql.kernels.ragged import Ragged, full
+from tsql.kernels.ragged import Ragged, full, in_safe_range
 
 __all__ = ["adf_test", "kpss_test", "mackinnon_p_value"]
 
@@ -270,7 +270,7 @@ def _buckets(batch: Ragged):
     for _, group, x in filled.by_length():
         changing = x.max(axis=1) > x.min(axis=1)
         if changing.any():
-            yield rows[group[changing]], x[changing]
+            yield rows[group[changing]], in_safe_range(x[changing])  # both statistics are scale-free
 
 
 def _line_residuals(x: np.ndarray) -> np.ndarray:
