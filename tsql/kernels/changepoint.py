@@ -1190,6 +1190,23 @@ def _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_c
 
 
 @njit(cache=True, error_model="numpy")
+def _present(values, lo, n):
+    """The present (non-NaN) values of ``values[lo:lo + n]``, their 0-based positions, their count, all finite?"""
+    y = np.empty(n)
+    p = np.empty(n, dtype=np.int64)
+    m = 0
+    finite = True
+    for i in range(n):
+        v = values[lo + i]
+        if not np.isnan(v):
+            finite = finite and np.isfinite(v)
+            y[m] = v
+            p[m] = i
+            m += 1
+    return y, p, m, finite
+
+
+@njit(cache=True, error_model="numpy")
 def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok):
     """The optimal segmentations of row ``r`` as the penalty runs over [0, inf), at most ``k_max`` changes.
 
@@ -1203,17 +1220,7 @@ def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p
         return
     lo = offsets[r]
     n = offsets[r + 1] - lo
-    y = np.empty(n)
-    p = np.empty(n, dtype=np.int64)
-    m = 0
-    finite = True
-    for i in range(n):
-        v = values[lo + i]
-        if not np.isnan(v):
-            finite = finite and np.isfinite(v)
-            y[m] = v
-            p[m] = i
-            m += 1
+    y, p, m, finite = _present(values, lo, n)
     if m == 0 or not finite or m > MAX_PROGRAMME:
         return
     row_ok[r] = True
@@ -1346,17 +1353,7 @@ def _segment_row(
         return
     lo = offsets[r]
     n = offsets[r + 1] - lo
-    y = np.empty(n)
-    p = np.empty(n, dtype=np.int64)
-    m = 0
-    finite = True
-    for i in range(n):
-        v = values[lo + i]
-        if not np.isnan(v):
-            finite = finite and np.isfinite(v)
-            y[m] = v
-            p[m] = i
-            m += 1
+    y, p, m, finite = _present(values, lo, n)
     if m == 0 or not finite:
         return
     row_ok[r] = True
