@@ -497,7 +497,9 @@ def test_bad_arguments_name_the_function(call: Any, message: str) -> None:
 def test_arguments_left_off_take_their_defaults() -> None:
     series = pa.array([[3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1], None])
     assert list_form("seasonality", series) == list_form("seasonality", series, pa.array([2, 2]), pa.nulls(2))
-    full = agg_form("change_points_agg", STEPS, DAYS, *(pa.array([x] * 12) for x in ("mean", "bic", 2, None, "null")))
+    full = agg_form(
+        "change_points_agg", STEPS, DAYS, *(pa.array([x] * 12) for x in ("mean", "bic", 2, "auto", None, None, "null"))
+    )
     assert agg_form("change_points_agg", STEPS, DAYS) == full
     assert agg_form("change_points_agg", STEPS, DAYS, min_size=pa.array([2] * 12), fill=pa.array(["null"] * 12)) == full
     assert full.as_py() == [dt.date(2024, 1, 7)]
