@@ -348,6 +348,53 @@ FUNCTIONS += (
     ),
 )
 
+CROSS_NULL_ROWS = (
+    "either list NULL, the lists of different lengths, either empty, constant, with fewer than two present "
+    "values or an infinite value; NULL elements are missing (a lag with no present pair is a NULL element)"
+)
+CROSS_MAX_LAG = Param(
+    "max_lag",
+    default="10",
+    minimum=0,
+    maximum=MAX_LIST // 2,
+    whole=True,
+    help="lags -max_lag..max_lag, in samples (10 as for acf)",
+)
+
+FUNCTIONS += (
+    Function(
+        name="cross_correlation",
+        family="correlation",
+        returns=ListOf(DOUBLE),
+        kernel_path="correlation:cross_correlation",
+        doc="Sample cross-correlation at lags -max_lag..max_lag; lag h pairs a[t] with b[t + h].",
+        example="SELECT cross_correlation([1, 3, 2, 5, 4], [0, 1, 3, 2, 5], max_lag := 1) AS r;",
+        null_rows=CROSS_NULL_ROWS,
+        see_also=("lead_lag", "acf"),
+        outcomes="null null null null value null null null value value value value value value value null - -",
+        test_args=("max_lag := 3", "max_lag := 0"),
+        series=("a", "b"),
+        params=(CROSS_MAX_LAG,),
+        aggregate=False,
+    ),
+    Function(
+        name="lead_lag",
+        family="correlation",
+        returns=struct(lag=INTEGER, correlation=DOUBLE),
+        kernel_path="correlation:lead_lag",
+        doc="The lag of the largest absolute cross-correlation: positive when a leads b (b follows).",
+        example="SELECT lead_lag([0, 0, 1, 4, 1, 0, 0, 0, 0], [0, 0, 0, 0, 1, 4, 1, 0, 0], max_lag := 3) AS found;",
+        null_rows=CROSS_NULL_ROWS.split("; NULL elements")[0] + "; NULL elements are missing; ties go to the lag "
+        "nearest 0, then the negative one",
+        see_also=("cross_correlation",),
+        outcomes="null null null null value null null null value value value value value value value null - -",
+        test_args=("max_lag := 3", "max_lag := 6"),
+        series=("a", "b"),
+        params=(CROSS_MAX_LAG,),
+        aggregate=False,
+    ),
+)
+
 
 def _min_size_fits_model(args: dict) -> str | None:
     least = MIN_SIZE[args["model"]]
