@@ -68,6 +68,12 @@ class Function:
     ``PERIOD`` (a span of time), ``STARTS`` (times where segments start), ``SEGMENTS`` (first and
     last become times), ``SERIES`` (a list of (time, value))."""
     special: bool = False
+    over_rows: bool = False
+    """An aggregate over the rows of a query, one row per item ``(id, series)``, answering for the whole set
+    (:data:`TABLE_FUNCTIONS`): the UDF gets the group's series in id order and answers in 1-based positions,
+    which the macro turns into ids; the input classes of docs/behaviour.md (one series) do not apply."""
+    public_returns: str = ""
+    """The SQL type the public macro answers when it differs from ``returns`` (the UDF's)."""
     sql_body: str | None = None
     """The list macro's body when it is more than the UDF call."""
     outcomes: str = ""
@@ -741,4 +747,47 @@ FUNCTIONS += (
     ),
 )
 
-BY_NAME: dict[str, Function] = {f.name: f for f in FUNCTIONS}
+NEAREST = struct(item=INTEGER, neighbor=INTEGER, distance=DOUBLE, rank=INTEGER)
+
+TABLE_FUNCTIONS: tuple[Function, ...] = (
+    Function(
+        name="dtw_nearest",
+        family="similarity",
+        returns=ListOf(NEAREST),
+        public_returns="STRUCT(id ID, neighbor ID, distance DOUBLE, rank INTEGER)[] (ID: the id's type)",
+        kernel_path="nearest:dtw_nearest",
+        doc="Aggregate over items (one row each): every item's k nearest other items by exact dtw_distance; unnest it.",
+        example="SELECT unnest(dtw_nearest(id, s, k := 1), recursive := true) FROM (VALUES (1, [1, 2, 3]), "
+        "(2, [1, 2, 4]), (3, [9, 8, 7])) t(id, s);",
+        null_rows="no rows; rows with a NULL id are left out; a NULL, empty, all-missing or infinite series takes "
+        "no part (no neighbours, nobody's); NULL elements are filled linearly (ends: the nearest value); "
+        "a repeated id is an error; ties go to the smaller id",
+        see_also=("dtw_distance", "lb_keogh"),
+        series=("id", "series"),
+        params=(
+            Param("k", default="5", minimum=1, maximum=MAX_LIST, whole=True, help="neighbours per item"),
+            Param(
+                "band",
+                default="NULL",
+                minimum=0,
+                whole=True,
+                none_ok=True,
+                help="Sakoe-Chiba half-width, as for dtw_distance (default: none)",
+            ),
+            Param(
+                "normalize",
+                sql_type=BOOLEAN,
+                default="false",
+                help="z-normalise each (filled) series first, as for dtw_distance",
+            ),
+        ),
+        aggregate=False,
+        over_rows=True,
+    ),
+)
+"""Aggregates over the rows of a query (``over_rows``): kept apart from :data:`FUNCTIONS`, whose entries
+are all functions of one row's series and share the per-row checks and tables."""
+PUBLIC: tuple[Function, ...] = FUNCTIONS + TABLE_FUNCTIONS
+"""Every public function: ``tsql functions``, the README table and the macros."""
+
+BY_NAME: dict[str, Function] = {f.name: f for f in PUBLIC}
