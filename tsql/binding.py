@@ -205,11 +205,11 @@ def rows_macro(fn: Function) -> str:
     ids = "(list(id ORDER BY id) FILTER (WHERE id IS NOT NULL))"
     series = "list(series ORDER BY id) FILTER (WHERE id IS NOT NULL)"
     call = f"{fn.udf_name}({', '.join([series] + [_passed(p, agg=False) for p in fn.params])})"
-    fields = [f"{n} := r.{n}" for n, _ in fn.returns.element.fields if n not in ("item", "neighbor")]
-    finish = (
-        f"list_transform({call}, lambda r: struct_pack(id := {ids}[r.item], neighbor := {ids}[r.neighbor], "
-        f"{', '.join(fields)}))"
-    )
+    fields = [
+        f"{'id' if n == 'item' else n} := {f'{ids}[r.{n}]' if n in fn.positions else f'r.{n}'}"
+        for n, _ in fn.returns.element.fields
+    ]
+    finish = f"list_transform({call}, lambda r: struct_pack({', '.join(fields)}))"
     repeated = f"error('{fn.name}: id must be unique (one row per item); found a repeated id')"
     return (
         f"CREATE OR REPLACE TEMP MACRO {fn.signature} AS "

@@ -72,6 +72,8 @@ class Function:
     """An aggregate over the rows of a query, one row per item ``(id, series)``, answering for the whole set
     (:data:`TABLE_FUNCTIONS`): the UDF gets the group's series in id order and answers in 1-based positions,
     which the macro turns into ids; the input classes of docs/behaviour.md (one series) do not apply."""
+    positions: tuple[str, ...] = ()
+    """Of an aggregate over rows: the fields of its records that are items (``item`` first), ids in SQL."""
     public_returns: str = ""
     """The SQL type the public macro answers when it differs from ``returns`` (the UDF's)."""
     sql_body: str | None = None
@@ -783,6 +785,50 @@ TABLE_FUNCTIONS: tuple[Function, ...] = (
         ),
         aggregate=False,
         over_rows=True,
+        positions=("item", "neighbor"),
+    ),
+    Function(
+        name="dtw_clusters",
+        family="similarity",
+        returns=ListOf(struct(item=INTEGER, cluster=INTEGER, medoid=INTEGER, silhouette=DOUBLE)),
+        public_returns="STRUCT(id ID, cluster INTEGER, medoid ID, silhouette DOUBLE)[] (ID: the id's type)",
+        kernel_path="clusters:dtw_clusters",
+        doc="Aggregate over items (one row each): groups of look-alike items by k-medoids on dtw_distance.",
+        example="SELECT unnest(dtw_clusters(id, s, k := 2), recursive := true) FROM (VALUES (1, [1, 2, 3]), "
+        "(2, [1, 2, 4]), (3, [9, 8, 7]), (4, [9, 7, 7])) t(id, s);",
+        null_rows="no rows; rows with a NULL id are left out; an item whose series is NULL, empty, all missing or "
+        "infinite gets NULL cluster, medoid and silhouette, and so does every item when fewer than k + 1 (3 "
+        "for k := NULL) take part; NULL elements are filled linearly; a repeated id is an error",
+        see_also=("dtw_nearest", "dtw_distance"),
+        series=("id", "series"),
+        params=(
+            Param(
+                "k",
+                default="NULL",
+                minimum=2,
+                maximum=MAX_LIST,
+                whole=True,
+                none_ok=True,
+                help="number of groups (default: 2..10, the best average silhouette)",
+            ),
+            Param(
+                "band",
+                default="NULL",
+                minimum=0,
+                whole=True,
+                none_ok=True,
+                help="Sakoe-Chiba half-width, as for dtw_distance (default: none)",
+            ),
+            Param(
+                "normalize",
+                sql_type=BOOLEAN,
+                default="true",
+                help="z-normalise each (filled) series first: items alike at different volumes group together",
+            ),
+        ),
+        aggregate=False,
+        over_rows=True,
+        positions=("item", "medoid"),
     ),
 )
 """Aggregates over the rows of a query (``over_rows``): kept apart from :data:`FUNCTIONS`, whose entries

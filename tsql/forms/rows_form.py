@@ -38,12 +38,16 @@ def rows_udf(fn: Function) -> Callable[..., pa.Array]:
 
 
 def _group(fn: Function, group: pa.ListArray, kwargs: dict) -> pa.Array:
-    """One group's answer: a list of records with 1-based item and neighbour positions."""
+    """One group's answer: a list of records whose position fields (``fn.positions``) are 1-based."""
     checkpoint()
     if not group.is_valid()[0].as_py():  # an aggregate over no rows
         return pa.nulls(1, type=fn.returns.arrow)
     series = to_ragged(group.flatten())  # the group's own series (``values`` ignores a slice)
     found = fn.kernel(np.arange(series.n_rows), series, **kwargs)
-    fields = dict(found, item=found["item"] + 1, neighbor=found["neighbor"] + 1)
-    records = RaggedRecords(fields, np.array([0, len(found["item"])], dtype=np.int64), np.ones(1, dtype=bool))
+    if "item" not in found:  # one answer per item, ``valid`` where there is one: every item gets a record
+        answered = found.pop("valid")
+        found = {n: np.where(answered, v, np.nan) for n, v in found.items()}
+        found["item"] = np.arange(series.n_rows)
+    fields = {n: v + 1 if n in fn.positions else v for n, v in found.items()}
+    records = RaggedRecords(fields, np.array([0, len(fields["item"])], dtype=np.int64), np.ones(1, dtype=bool))
     return to_arrow(fn.returns, records, np.ones(1, dtype=bool))
