@@ -8,6 +8,7 @@ import pytest
 import tsql
 from tsql.kernels.nearest import dtw_nearest
 from tsql.kernels.ragged import Ragged
+from tsql.registry import TABLE_FUNCTIONS
 
 BRUTE = """
     SELECT id, neighbor, distance, rank FROM (
@@ -116,3 +117,9 @@ def test_bad_input_names_the_function(rows, args, message):
     c = tsql.connect()
     with pytest.raises(duckdb.Error, match=message):
         c.execute(f"SELECT dtw_nearest(id, s{args}) FROM (VALUES {rows}) t(id, s)").fetchall()
+
+
+@pytest.mark.parametrize("fn", TABLE_FUNCTIONS, ids=lambda f: f.name)
+def test_the_registry_examples_run(fn):
+    rows = tsql.connect().execute(fn.example).fetchall()
+    assert rows and all(r[0] is not None for r in rows)
