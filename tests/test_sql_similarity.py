@@ -8,7 +8,7 @@ import pyarrow as pa
 import pytest
 
 import tsql
-from tsql.kernels import dtw
+from tsql.kernels import clusters, dtw
 from tsql.kernels.ragged import Ragged
 
 
@@ -102,6 +102,35 @@ def test_similar_items_example_equals_ranking_every_pair(con):
     ).fetchall()
     assert len(got) == 5 * 150
     assert got == brute  # the same neighbours, distances bit for bit and ranks
+
+
+def test_look_alike_groups_example_summarises_the_kernel_answer(con):
+    con.execute(
+        """CREATE OR REPLACE TEMP VIEW monthly_sales AS
+           SELECT 'SKU-' || item AS item, DATE '2019-01-01' + INTERVAL (month) MONTH AS month, units
+           FROM sales WHERE units IS NOT NULL"""
+    )
+    example = (resources.files("tsql.sql") / "examples" / "look_alike_groups.sql").read_text()
+    got = con.execute(example).fetchall()
+    ids, curves = zip(
+        *con.execute(
+            """SELECT item, on_grid(list(units ORDER BY month), list(month ORDER BY month),
+                                    step := INTERVAL '1 month', fill := 'linear')
+               FROM monthly_sales GROUP BY item ORDER BY item"""
+        ).fetchall()
+    )
+    found = clusters.dtw_clusters(np.array(ids), Ragged.from_list(curves), band=2)  # the kernel alone
+    assert [r[0] for r in got] == list(range(1, found["cluster"].max() + 1))
+    for cluster, medoid, items, mean_silhouette, members in got:
+        inside = found["cluster"] == cluster
+        assert medoid == ids[found["medoid"][inside][0]] and items == inside.sum()
+        assert mean_silhouette == round(float(found["silhouette"][inside].mean()), 3)
+        silhouette = dict(zip(ids, found["silhouette"].tolist()))
+        top = sorted(found["silhouette"][inside].tolist(), reverse=True)[:5]
+        assert [silhouette[m] for m in members] == top and all(
+            found["cluster"][ids.index(m)] == cluster for m in members
+        )
+    assert sum(r[2] for r in got) == 150
 
 
 @pytest.mark.parametrize(
