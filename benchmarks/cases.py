@@ -382,6 +382,20 @@ def cases() -> list[Case]:
             bars=(at_least_2x,),
         ),
         Case(
+            "cross_correlation",
+            "pairs",
+            "walks",
+            "cross_correlation(a.curve, b.curve)",
+            note="every pair of a self-join against the floor only: no reference loop yet",
+        ),
+        Case(
+            "lead_lag",
+            "pairs",
+            "walks",
+            "lead_lag(a.curve, b.curve)",
+            note="every pair of a self-join against the floor only: no reference loop yet",
+        ),
+        Case(
             "change_points",
             "list",
             "pelt_short",

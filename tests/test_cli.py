@@ -4,13 +4,13 @@ import subprocess
 import sys
 
 from tsql.cli import main
-from tsql.registry import FUNCTIONS
+from tsql.registry import PUBLIC
 
 
 def test_functions_lists_every_function(capsys):
     assert main(["functions"]) == 0
     out = capsys.readouterr().out
-    assert [line.split()[0] for line in out.splitlines()] == [f.name for f in FUNCTIONS]
+    assert [line.split()[0] for line in out.splitlines()] == [f.name for f in PUBLIC]
 
 
 def test_describe_one_function_with_its_example(capsys):

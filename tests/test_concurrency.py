@@ -22,7 +22,7 @@ import pyarrow as pa
 import pytest
 
 import tsql
-from tsql.registry import FUNCTIONS
+from tsql.registry import FUNCTIONS, PUBLIC
 from tsql.shell import _TABLES as SHELL_TABLES
 
 pytestmark = pytest.mark.filterwarnings("ignore::RuntimeWarning")
@@ -282,7 +282,7 @@ def test_the_reminders_are_one_tidy_in_memory_catalog():
     for _ in range(3):
         tsql.register(con.cursor())
     tsql.register(con)
-    names = {f.name for f in FUNCTIONS} | {f"{f.name}_agg" for f in FUNCTIONS if f.aggregate}
+    names = {f.name for f in PUBLIC} | {f"{f.name}_agg" for f in FUNCTIONS if f.aggregate}
     listed = con.execute(
         "SELECT function_name, function_type FROM duckdb_functions() WHERE database_name = 'tsql_needs_register'"
     ).fetchall()

@@ -827,6 +827,18 @@ def check_long(con, fn: str, got, data: dict) -> None:
     elif name == "kpss_test":
         # below the 10 % critical value 0.347 (Kwiatkowski et al. 1992, Table 1): p at its upper bound
         assert got["statistic"] < 0.347 and got["p_value"] == 0.1
+    elif name in ("cross_correlation", "lead_lag"):
+        # reference: Box & Jenkins (1976) ch. 11 written out with numpy, r(h) pairs p[t] with q[t + h]
+        dp, dq = p - p.mean(), q - q.mean()
+        scale = math.sqrt((dp**2).sum() * (dq**2).sum())
+        lags = np.arange(-3, 4)
+        direct = np.array([(dp[max(0, -h) : LONG - max(0, h)] * dq[max(0, h) : LONG - max(0, -h)]).sum() for h in lags])
+        direct /= scale
+        if name == "cross_correlation":
+            np.testing.assert_allclose(got, direct, rtol=1e-9, atol=1e-12)
+        else:
+            best = int(np.argmax(np.abs(direct)))
+            assert got["lag"] == lags[best] and got["correlation"] == pytest.approx(direct[best], rel=1e-9)
     else:  # no check of its own: the kernel called directly on the series, as in its kernel tests
         entry = BY_NAME[name]
         kwargs = settings(entry, entry.test_args[0])[1]

@@ -8,7 +8,7 @@ import pyarrow as pa
 import pytest
 
 import tsql
-from tsql.kernels import dtw
+from tsql.kernels import clusters, dtw
 from tsql.kernels.ragged import Ragged
 
 
@@ -82,25 +82,55 @@ def test_cutoff_filter_keeps_exactly_the_near_pairs(con):
 
 
 def test_similar_items_example_equals_ranking_every_pair(con):
+    # a month without a value has no row: the example's on_grid fills it linearly
     con.execute(
         """CREATE OR REPLACE TEMP VIEW monthly_sales AS
-           SELECT item::VARCHAR AS item, month, units FROM sales
-           WHERE item NOT IN (SELECT item FROM sales WHERE units IS NULL)"""
+           SELECT 'SKU-' || item AS item, DATE '2019-01-01' + INTERVAL (month) MONTH AS month, units
+           FROM sales WHERE units IS NOT NULL"""
     )
     example = (resources.files("tsql.sql") / "examples" / "most_similar_items.sql").read_text()
     got = con.execute(example).fetchall()
     brute = con.execute(
-        """WITH s AS (SELECT item, list(units ORDER BY month) c FROM monthly_sales GROUP BY item),
-                z AS (SELECT item, list_transform(c, lambda x: (x - list_avg(c)) / list_stddev_pop(c)) z FROM s),
-                d AS (SELECT a.item, b.item other, dtw_distance(a.z, b.z, band := 2) distance
-                      FROM z a JOIN z b ON a.item <> b.item)
+        """WITH s AS (SELECT item, on_grid(list(units ORDER BY month), list(month ORDER BY month),
+                                           step := INTERVAL '1 month', fill := 'linear') c
+                      FROM monthly_sales GROUP BY item),
+                d AS (SELECT a.item, b.item other, dtw_distance(a.c, b.c, band := 2, normalize := true) distance
+                      FROM s a JOIN s b ON a.item <> b.item)
            SELECT item, other, distance, rank FROM (
                SELECT *, row_number() OVER (PARTITION BY item ORDER BY distance, other) rank FROM d)
            WHERE rank <= 5 ORDER BY item, rank"""
     ).fetchall()
-    assert len(got) == 5 * len({r[0] for r in brute})
-    assert [(r[0], r[1], r[3]) for r in got] == [(r[0], r[1], r[3]) for r in brute]
-    np.testing.assert_allclose([r[2] for r in got], [r[2] for r in brute], rtol=1e-12)
+    assert len(got) == 5 * 150
+    assert got == brute  # the same neighbours, distances bit for bit and ranks
+
+
+def test_look_alike_groups_example_summarises_the_kernel_answer(con):
+    con.execute(
+        """CREATE OR REPLACE TEMP VIEW monthly_sales AS
+           SELECT 'SKU-' || item AS item, DATE '2019-01-01' + INTERVAL (month) MONTH AS month, units
+           FROM sales WHERE units IS NOT NULL"""
+    )
+    example = (resources.files("tsql.sql") / "examples" / "look_alike_groups.sql").read_text()
+    got = con.execute(example).fetchall()
+    ids, curves = zip(
+        *con.execute(
+            """SELECT item, on_grid(list(units ORDER BY month), list(month ORDER BY month),
+                                    step := INTERVAL '1 month', fill := 'linear')
+               FROM monthly_sales GROUP BY item ORDER BY item"""
+        ).fetchall()
+    )
+    found = clusters.dtw_clusters(np.array(ids), Ragged.from_list(curves), band=2)  # the kernel alone
+    assert [r[0] for r in got] == list(range(1, found["cluster"].max() + 1))
+    for cluster, medoid, items, mean_silhouette, members in got:
+        inside = found["cluster"] == cluster
+        assert medoid == ids[found["medoid"][inside][0]] and items == inside.sum()
+        assert mean_silhouette == round(float(found["silhouette"][inside].mean()), 3)
+        silhouette = dict(zip(ids, found["silhouette"].tolist()))
+        top = sorted(found["silhouette"][inside].tolist(), reverse=True)[:5]
+        assert [silhouette[m] for m in members] == top and all(
+            found["cluster"][ids.index(m)] == cluster for m in members
+        )
+    assert sum(r[2] for r in got) == 150
 
 
 @pytest.mark.parametrize(

@@ -25,11 +25,12 @@ from tsql.forms import agg
 from tsql.forms.arguments import by_settings, with_arity
 from tsql.forms.arrow import ragged, row_pieces, single, to_ragged
 from tsql.forms.list_form import list_udf
+from tsql.forms.rows_form import rows_udf
 from tsql.forms.time import Clock
 from tsql.forms.types import SPAN_ARGUMENT, VARCHAR, SqlType
 from tsql.kernels.cancel import INTERRUPTED, Cancellation, watching
 from tsql.kernels.ragged import Ragged
-from tsql.registry import BY_NAME, FUNCTIONS, Function, Param
+from tsql.registry import BY_NAME, FUNCTIONS, PUBLIC, TABLE_FUNCTIONS, Function, Param
 from tsql.statements import split_statements
 
 
@@ -88,7 +89,7 @@ def _add_reminders(con: duckdb.DuckDBPyConnection) -> None:
             con.execute(f"ATTACH ':memory:' AS {REMINDER_CATALOG} (READ_WRITE)")
         except duckdb.Error:
             return
-        signatures = [fn.signature for fn in FUNCTIONS] + [fn.agg_signature for fn in FUNCTIONS if fn.aggregate]
+        signatures = [fn.signature for fn in PUBLIC] + [fn.agg_signature for fn in FUNCTIONS if fn.aggregate]
         macros = [
             f"CREATE MACRO {REMINDER_CATALOG}.main.{s} AS error('{reminder(s.split('(')[0])}')" for s in signatures
         ]
@@ -179,6 +180,7 @@ def sql_statements() -> list[str]:
         statements.append(list_macro(fn))
         if fn.aggregate:
             statements.append(agg_macro(fn))
+    statements += [rows_macro(fn) for fn in TABLE_FUNCTIONS]
     return statements
 
 
@@ -194,6 +196,25 @@ def agg_macro(fn: Function) -> str:
     args = ["__tsql_observations(value, time)", "__tsql_time_type(time)", "__tsql_span(step)", "fill"]
     call = f"{fn.udf_name}_on_grid({', '.join(args + [_passed(p, agg=True) for p in fn.params])})"
     return f"CREATE OR REPLACE TEMP MACRO {fn.agg_signature} AS {fn.answer.finish_sql(fn.returns, call)}"
+
+
+def rows_macro(fn: Function) -> str:
+    """``CREATE ... MACRO name(id, series, ...)``: an aggregate over rows. The UDF gets the series in id order
+    and answers in positions of that order, which become ids; rows with a NULL id are left out, a repeated
+    id is an error."""
+    ids = "(list(id ORDER BY id) FILTER (WHERE id IS NOT NULL))"
+    series = "list(series ORDER BY id) FILTER (WHERE id IS NOT NULL)"
+    call = f"{fn.udf_name}({', '.join([series] + [_passed(p, agg=False) for p in fn.params])})"
+    fields = [
+        f"{'id' if n == 'item' else n} := {f'{ids}[r.{n}]' if n in fn.positions else f'r.{n}'}"
+        for n, _ in fn.returns.element.fields
+    ]
+    finish = f"list_transform({call}, lambda r: struct_pack({', '.join(fields)}))"
+    repeated = f"error('{fn.name}: id must be unique (one row per item); found a repeated id')"
+    return (
+        f"CREATE OR REPLACE TEMP MACRO {fn.signature} AS "
+        f"CASE WHEN count(DISTINCT id) < count(id) THEN {repeated} ELSE {finish} END"
+    )
 
 
 def _passed(p: Param, agg: bool) -> str:
@@ -219,6 +240,8 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
             params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in fn.params]
             udf_returns = fn.answer.udf_returns(fn.returns)
             create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [_OBSERVATIONS] + grid_types + params, udf_returns)
+    for fn in TABLE_FUNCTIONS:
+        create_udf(con, fn.udf_name, rows_udf(fn), ["DOUBLE[][]"] + [p.sql_type.sql for p in fn.params], fn.returns)
     on_grid = with_arity(_on_grid_udf, "__tsql_on_grid", BY_NAME["on_grid"].doc, ["values", "times", *_GRID_ARGS])
     create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, BY_NAME["on_grid"].returns)
 

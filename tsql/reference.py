@@ -9,12 +9,12 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from tsql.registry import FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, Function
+from tsql.registry import FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Function
 
 
 def describe(fn: Function) -> str:
     """What ``tsql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
-    lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.returns}; NULL for: {fn.null_rows}"]
+    lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.public_returns or fn.returns}; NULL for: {fn.null_rows}"]
     for p in fn.params:
         if p.help:
             lines.append(f"  {p.name}: {p.help}")
@@ -28,16 +28,16 @@ def describe(fn: Function) -> str:
 
 def function_list() -> str:
     """One line per function: its name and one-line doc."""
-    width = max(len(f.name) for f in FUNCTIONS)
-    return "\n".join(f"{fn.name:<{width}}  {fn.doc}" for fn in FUNCTIONS)
+    width = max(len(f.name) for f in PUBLIC)
+    return "\n".join(f"{fn.name:<{width}}  {fn.doc}" for fn in PUBLIC)
 
 
 def markdown_table() -> str:
     """The README's function table."""
     rows = ["| family | function | returns | what it answers |", "|---|---|---|---|"]
-    for fn in FUNCTIONS:
+    for fn in PUBLIC:
         agg = f" · `{fn.name}_agg(value, time, …)`" if fn.aggregate else ""
-        returns = f"`{fn.returns}`"
+        returns = f"`{fn.public_returns or fn.returns}`"
         if fn.aggregate and fn.agg_returns != fn.returns:
             returns += f" · agg: `{fn.agg_returns}`"
         rows.append(f"| {fn.family} | `{fn.signature}`{agg} | {returns} | {fn.doc} |")
@@ -45,7 +45,8 @@ def markdown_table() -> str:
 
 
 def inputs_table() -> str:
-    """docs/behaviour.md's matrix: every public form against every input class."""
+    """docs/behaviour.md's matrix: every public form of a row's series against every input class (the aggregates
+    over rows, ``over_rows``, answer for a set of items and have their own section)."""
     rows = ["| function | " + " | ".join(INPUT_CLASSES) + " |", "|---" * (len(INPUT_CLASSES) + 1) + "|"]
     forms = [(fn.name, fn.outcomes.split()) for fn in FUNCTIONS]
     forms += [(f"{fn.name}_agg", fn.agg_outcomes) for fn in FUNCTIONS if fn.aggregate]

@@ -68,6 +68,14 @@ class Function:
     ``PERIOD`` (a span of time), ``STARTS`` (times where segments start), ``SEGMENTS`` (first and
     last become times), ``SERIES`` (a list of (time, value))."""
     special: bool = False
+    over_rows: bool = False
+    """An aggregate over the rows of a query, one row per item ``(id, series)``, answering for the whole set
+    (:data:`TABLE_FUNCTIONS`): the UDF gets the group's series in id order and answers in 1-based positions,
+    which the macro turns into ids; the input classes of docs/behaviour.md (one series) do not apply."""
+    positions: tuple[str, ...] = ()
+    """Of an aggregate over rows: the fields of its records that are items (``item`` first), ids in SQL."""
+    public_returns: str = ""
+    """The SQL type the public macro answers when it differs from ``returns`` (the UDF's)."""
     sql_body: str | None = None
     """The list macro's body when it is more than the UDF call."""
     outcomes: str = ""
@@ -344,6 +352,53 @@ FUNCTIONS += (
         test_args=("2",),
         series=("a", "b"),
         params=(Param("band", minimum=0, whole=True, help="Sakoe-Chiba half-width of the envelope of b"),),
+        aggregate=False,
+    ),
+)
+
+CROSS_NULL_ROWS = (
+    "either list NULL, the lists of different lengths, either empty, constant, with fewer than two present "
+    "values or an infinite value; NULL elements are missing (a lag with no present pair is a NULL element)"
+)
+CROSS_MAX_LAG = Param(
+    "max_lag",
+    default="10",
+    minimum=0,
+    maximum=MAX_LIST // 2,
+    whole=True,
+    help="lags -max_lag..max_lag, in samples (10 as for acf)",
+)
+
+FUNCTIONS += (
+    Function(
+        name="cross_correlation",
+        family="correlation",
+        returns=ListOf(DOUBLE),
+        kernel_path="correlation:cross_correlation",
+        doc="Sample cross-correlation at lags -max_lag..max_lag; lag h pairs a[t] with b[t + h].",
+        example="SELECT cross_correlation([1, 3, 2, 5, 4], [0, 1, 3, 2, 5], max_lag := 1) AS r;",
+        null_rows=CROSS_NULL_ROWS,
+        see_also=("lead_lag", "acf"),
+        outcomes="null null null null value null null null value value value value value value value null - -",
+        test_args=("max_lag := 3", "max_lag := 0"),
+        series=("a", "b"),
+        params=(CROSS_MAX_LAG,),
+        aggregate=False,
+    ),
+    Function(
+        name="lead_lag",
+        family="correlation",
+        returns=struct(lag=INTEGER, correlation=DOUBLE),
+        kernel_path="correlation:lead_lag",
+        doc="The lag of the largest absolute cross-correlation: positive when a leads b (b follows).",
+        example="SELECT lead_lag([0, 0, 1, 4, 1, 0, 0, 0, 0], [0, 0, 0, 0, 1, 4, 1, 0, 0], max_lag := 3) AS found;",
+        null_rows=CROSS_NULL_ROWS.split("; NULL elements")[0] + "; NULL elements are missing; ties go to the lag "
+        "nearest 0, then the negative one",
+        see_also=("cross_correlation",),
+        outcomes="null null null null value null null null value value value value value value value null - -",
+        test_args=("max_lag := 3", "max_lag := 6"),
+        series=("a", "b"),
+        params=(CROSS_MAX_LAG,),
         aggregate=False,
     ),
 )
@@ -694,4 +749,91 @@ FUNCTIONS += (
     ),
 )
 
-BY_NAME: dict[str, Function] = {f.name: f for f in FUNCTIONS}
+NEAREST = struct(item=INTEGER, neighbor=INTEGER, distance=DOUBLE, rank=INTEGER)
+
+TABLE_FUNCTIONS: tuple[Function, ...] = (
+    Function(
+        name="dtw_nearest",
+        family="similarity",
+        returns=ListOf(NEAREST),
+        public_returns="STRUCT(id ID, neighbor ID, distance DOUBLE, rank INTEGER)[] (ID: the id's type)",
+        kernel_path="nearest:dtw_nearest",
+        doc="Aggregate over items (one row each): every item's k nearest other items by exact dtw_distance; unnest it.",
+        example="SELECT unnest(dtw_nearest(id, s, k := 1), recursive := true) FROM (VALUES (1, [1, 2, 3]), "
+        "(2, [1, 2, 4]), (3, [9, 8, 7])) t(id, s);",
+        null_rows="no rows; rows with a NULL id are left out; a NULL, empty, all-missing or infinite series takes "
+        "no part (no neighbours, nobody's); NULL elements are filled linearly (ends: the nearest value); "
+        "a repeated id is an error; ties go to the smaller id",
+        see_also=("dtw_distance", "lb_keogh"),
+        series=("id", "series"),
+        params=(
+            Param("k", default="5", minimum=1, maximum=MAX_LIST, whole=True, help="neighbours per item"),
+            Param(
+                "band",
+                default="NULL",
+                minimum=0,
+                whole=True,
+                none_ok=True,
+                help="Sakoe-Chiba half-width, as for dtw_distance (default: none)",
+            ),
+            Param(
+                "normalize",
+                sql_type=BOOLEAN,
+                default="false",
+                help="z-normalise each (filled) series first, as for dtw_distance",
+            ),
+        ),
+        aggregate=False,
+        over_rows=True,
+        positions=("item", "neighbor"),
+    ),
+    Function(
+        name="dtw_clusters",
+        family="similarity",
+        returns=ListOf(struct(item=INTEGER, cluster=INTEGER, medoid=INTEGER, silhouette=DOUBLE)),
+        public_returns="STRUCT(id ID, cluster INTEGER, medoid ID, silhouette DOUBLE)[] (ID: the id's type)",
+        kernel_path="clusters:dtw_clusters",
+        doc="Aggregate over items (one row each): groups of look-alike items by k-medoids on dtw_distance.",
+        example="SELECT unnest(dtw_clusters(id, s, k := 2), recursive := true) FROM (VALUES (1, [1, 2, 3]), "
+        "(2, [1, 2, 4]), (3, [9, 8, 7]), (4, [9, 7, 7])) t(id, s);",
+        null_rows="no rows; rows with a NULL id are left out; an item whose series is NULL, empty, all missing or "
+        "infinite gets NULL cluster, medoid and silhouette, and so does every item when fewer than k + 1 (3 "
+        "for k := NULL) take part; NULL elements are filled linearly; a repeated id is an error",
+        see_also=("dtw_nearest", "dtw_distance"),
+        series=("id", "series"),
+        params=(
+            Param(
+                "k",
+                default="NULL",
+                minimum=2,
+                maximum=MAX_LIST,
+                whole=True,
+                none_ok=True,
+                help="number of groups (default: 2..10, the best average silhouette)",
+            ),
+            Param(
+                "band",
+                default="NULL",
+                minimum=0,
+                whole=True,
+                none_ok=True,
+                help="Sakoe-Chiba half-width, as for dtw_distance (default: none)",
+            ),
+            Param(
+                "normalize",
+                sql_type=BOOLEAN,
+                default="true",
+                help="z-normalise each (filled) series first: items alike at different volumes group together",
+            ),
+        ),
+        aggregate=False,
+        over_rows=True,
+        positions=("item", "medoid"),
+    ),
+)
+"""Aggregates over the rows of a query (``over_rows``): kept apart from :data:`FUNCTIONS`, whose entries
+are all functions of one row's series and share the per-row checks and tables."""
+PUBLIC: tuple[Function, ...] = FUNCTIONS + TABLE_FUNCTIONS
+"""Every public function: ``tsql functions``, the README table and the macros."""
+
+BY_NAME: dict[str, Function] = {f.name: f for f in PUBLIC}
