@@ -9,6 +9,7 @@ import duckdb
 import pytest
 
 from tsql.cli import main
+from tsql.pipeline import write_result
 
 
 @pytest.fixture
@@ -107,6 +108,27 @@ def test_an_unused_param_is_a_warning(scripts, capsys):
     files = scripts(a="SELECT 1 AS one;")
     assert main(["run", *files, "--param", "region=north"]) == 0
     assert "warning: --param region is not used by any statement" in capsys.readouterr().err
+
+
+def test_a_query_that_fails_while_writing_leaves_no_out_file(scripts, tmp_path, capsys):
+    # the rows stream to a hidden file beside --out, renamed only once the query has finished
+    files = scripts(
+        a="SELECT i, CASE WHEN i = 150000 THEN error('stopped half way') ELSE i END AS v FROM range(200000) t(i);"
+    )
+    target = tmp_path / "result.csv"
+    assert main(["run", *files, "--out", str(target)]) == 1
+    assert "stopped half way" in capsys.readouterr().err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.sql"]
+
+
+def test_the_out_file_appears_only_once_complete(tmp_path):
+    # a run killed while writing must not leave a partial --out file: while the rows are being
+    # written, the target does not exist yet (each row records what a function saw at that moment)
+    target = tmp_path / "result.csv"
+    con = duckdb.connect()
+    con.create_function("target_exists", lambda: target.exists(), [], "BOOLEAN", side_effects=True)
+    assert write_result(con, "SELECT i, target_exists() AS seen FROM range(300000) t(i)", target) == 300000
+    assert duckdb.sql(f"SELECT count(*), bool_or(seen) FROM '{target}'").fetchall() == [(300000, False)]
 
 
 def test_out_refuses_to_overwrite_unless_replace(scripts, tmp_path, capsys):

@@ -8,6 +8,7 @@ DuckDB named parameters (``$name``), never pasted into the SQL text.
 
 from __future__ import annotations
 
+import os
 import re
 import shutil
 import sys
@@ -60,11 +61,23 @@ def out_options(path: str | Path) -> str:
 def write_result(
     con: duckdb.DuckDBPyConnection, query: str, path: str | Path, params: dict[str, str] | None = None
 ) -> int:
-    """Write the result of ``query`` to ``path`` with DuckDB's COPY; returns the number of rows written."""
-    literal = "'" + str(path).replace("'", "''") + "'"
+    """Write the result of ``query`` to ``path`` with DuckDB's COPY; returns the number of rows written.
+
+    The rows go to a hidden file beside ``path`` first, renamed to ``path`` once complete, so a query
+    that fails (or a run that is stopped) leaves no partial ``path`` behind.
+    """
+    path = Path(path)
+    partial = path.with_name(f".{path.name}.{os.getpid()}.partial{path.suffix}")
+    literal = "'" + str(partial).replace("'", "''") + "'"
     # The newline ends a trailing -- comment in the query before the closing parenthesis.
     copy = f"COPY (\n{query}\n) TO {literal} ({out_options(path)})"
-    return con.execute(copy, params or None).fetchall()[0][0]
+    try:
+        rows = con.execute(copy, params or None).fetchall()[0][0]
+        os.replace(partial, path)
+    except BaseException:
+        partial.unlink(missing_ok=True)
+        raise
+    return rows
 
 
 def _statement_info(text: str) -> tuple[set[str], duckdb.StatementType | None]:
