@@ -751,6 +751,16 @@ FUNCTIONS += (
 
 NEAREST = struct(item=INTEGER, neighbor=INTEGER, distance=DOUBLE, rank=INTEGER)
 
+BAND_AS_DTW = Param(
+    "band",
+    default="NULL",
+    minimum=0,
+    whole=True,
+    none_ok=True,
+    help="Sakoe-Chiba half-width, as for dtw_distance (default: none)",
+)
+"""The band of the aggregates over items: ``dtw_distance``'s."""
+
 TABLE_FUNCTIONS: tuple[Function, ...] = (
     Function(
         name="dtw_nearest",
@@ -768,14 +778,7 @@ TABLE_FUNCTIONS: tuple[Function, ...] = (
         series=("id", "series"),
         params=(
             Param("k", default="5", minimum=1, maximum=MAX_LIST, whole=True, help="neighbours per item"),
-            Param(
-                "band",
-                default="NULL",
-                minimum=0,
-                whole=True,
-                none_ok=True,
-                help="Sakoe-Chiba half-width, as for dtw_distance (default: none)",
-            ),
+            BAND_AS_DTW,
             Param(
                 "normalize",
                 sql_type=BOOLEAN,
@@ -811,14 +814,7 @@ TABLE_FUNCTIONS: tuple[Function, ...] = (
                 none_ok=True,
                 help="number of groups (default: 2..10, the best average silhouette)",
             ),
-            Param(
-                "band",
-                default="NULL",
-                minimum=0,
-                whole=True,
-                none_ok=True,
-                help="Sakoe-Chiba half-width, as for dtw_distance (default: none)",
-            ),
+            BAND_AS_DTW,
             Param(
                 "normalize",
                 sql_type=BOOLEAN,
