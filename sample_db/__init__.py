@@ -123,10 +123,10 @@ class NotASampleWarehouse(FileExistsError):
 
 
 def default_path() -> Path:
-    """``$XDG_CACHE_HOME/tsql/sample_warehouse.duckdb``, or under ``~/.cache`` when that is unset."""
+    """``$XDG_CACHE_HOME/seriesql/sample_warehouse.duckdb``, or under ``~/.cache`` when that is unset."""
     cache = os.environ.get("XDG_CACHE_HOME", "")
     base = Path(cache) if cache and Path(cache).is_absolute() else Path.home() / ".cache"
-    return base / "tsql" / FILE_NAME
+    return base / "seriesql" / FILE_NAME
 
 
 def _about(path: Path) -> dict[str, str] | None:

@@ -1,4 +1,4 @@
-"""The `tsql functions` command prints the registry."""
+"""The `seriesql functions` command prints the registry."""
 
 import subprocess
 import sys
@@ -30,3 +30,16 @@ def test_unknown_function_is_an_error(capsys):
 def test_console_entry_point_runs():
     done = subprocess.run([sys.executable, "-m", "tsql.cli", "functions", "--markdown"], capture_output=True, text=True)
     assert done.returncode == 0 and done.stdout.startswith("| family | function |")
+
+
+def test_the_command_is_seriesql_and_no_tsql_alias_is_installed():
+    # pyproject.toml is the one source of entry points: the command is `seriesql`, never `tsql`
+    import tomllib
+    from pathlib import Path
+
+    project = tomllib.loads((Path(__file__).resolve().parents[1] / "pyproject.toml").read_text())["project"]
+    assert project["name"] == "seriesql" and project["scripts"] == {"seriesql": "tsql.cli:main"}
+    done = subprocess.run([sys.executable, "-m", "tsql", "--version"], capture_output=True, text=True)
+    assert done.returncode == 0 and done.stdout.strip().startswith("seriesql ")
+    done = subprocess.run([sys.executable, "-m", "tsql", "functions", "acf"], capture_output=True, text=True)
+    assert done.returncode == 0 and "acf(values, max_lag" in done.stdout

@@ -13,7 +13,7 @@ import pytest
 
 import tsql
 
-pytest.importorskip("dbt.adapters.duckdb", reason="dbt-duckdb is not installed (pip install 'tsql[dbt]')")
+pytest.importorskip("dbt.adapters.duckdb", reason="dbt-duckdb is not installed (pip install 'seriesql[dbt]')")
 
 from dbt.adapters.duckdb.plugins import BasePlugin  # noqa: E402
 

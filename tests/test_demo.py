@@ -1,4 +1,4 @@
-"""`tsql demo`: five questions on the sample warehouse, each answered in SQL and checked against the planted truth."""
+"""`seriesql demo`: five questions on the sample warehouse, each answered in SQL and checked against the planted truth."""
 
 import contextlib
 import io
@@ -153,7 +153,7 @@ def test_load_profile_against_the_planted_peaks(first_run, prose, planted):
 def test_ends_with_the_caution_and_where_to_go_next(first_run, out, prose):
     assert " ".join(demo.CAUTION.split()) in prose
     assert "not trading, staffing or safety advice" in prose
-    assert f"tsql shell {first_run[0]}" in out
+    assert f"seriesql shell {first_run[0]}" in out
 
 
 def test_a_second_run_reuses_the_warehouse(first_run, monkeypatch):
@@ -171,7 +171,7 @@ def test_default_location_is_the_cache_folder(tmp_path, monkeypatch):
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
     monkeypatch.setattr(demo, "STEPS", ())
     code, out, _ = run(["demo"])
-    expected = tmp_path / "cache" / "tsql" / "sample_warehouse.duckdb"
+    expected = tmp_path / "cache" / "seriesql" / "sample_warehouse.duckdb"
     assert code == 0 and sample_db.default_path() == expected
     assert expected.exists() and f"Warehouse: {expected}" in out
 
@@ -187,7 +187,7 @@ def test_a_foreign_file_is_refused_and_left_alone(tmp_path, kind):
     content = path.read_bytes()
     code, out, err = run(["demo", "--db", str(path)])
     assert code == 2 and out == ""
-    assert err.count("\n") == 1 and err.startswith("tsql demo: ") and "not a tsql sample warehouse" in err
+    assert err.count("\n") == 1 and err.startswith("seriesql demo: ") and "not a tsql sample warehouse" in err
     assert "left untouched" in err and "Traceback" not in err
     assert path.read_bytes() == content
     assert sorted(p.name for p in tmp_path.iterdir()) == ["mine.duckdb"]
@@ -200,5 +200,5 @@ def test_a_failing_step_stops_with_one_line(first_run, monkeypatch):
     monkeypatch.setattr(demo, "STEPS", (broken,))
     code, out, err = run(["demo", "--db", str(first_run[0])])
     assert code == 1 and "Question: Is this a table?" in out
-    assert err.strip().startswith("tsql demo: stopped on ") and "no_such_table" in err
+    assert err.strip().startswith("seriesql demo: stopped on ") and "no_such_table" in err
     assert err.strip().count("\n") == 0 and "Traceback" not in err

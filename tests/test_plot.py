@@ -1,4 +1,4 @@
-"""`tsql plot`: a query's series drawn to PNG or SVG, with marks and smooth curves, never over a file by accident."""
+"""`seriesql plot`: a query's series drawn to PNG or SVG, with marks and smooth curves, never over a file by accident."""
 
 import contextlib
 import io
@@ -127,7 +127,7 @@ def test_an_existing_file_is_not_overwritten_without_replace(db, tmp_path):
     argv = ["plot", "--db", db, "--sql", "SELECT region, day, sales FROM sales", "--out", str(out)]
     code, stdout, err = run(argv)
     assert code == 2 and stdout == ""
-    assert err == f"tsql plot: {out} exists; pass --replace to overwrite it\n"
+    assert err == f"seriesql plot: {out} exists; pass --replace to overwrite it\n"
     assert out.read_bytes() == b"someone else's picture"
     assert run([*argv, "--replace"])[0] == 0
     assert out.read_bytes()[:8] == PNG_MAGIC
@@ -152,7 +152,7 @@ def test_mistakes_are_one_line_errors(tmp_path, monkeypatch, argv, message):
     monkeypatch.chdir(tmp_path)
     code, stdout, err = run(["plot", *argv])
     assert code == 2 and stdout == ""
-    assert err.startswith("tsql plot: ") and message in err and err.count("\n") == 1
+    assert err.startswith("seriesql plot: ") and message in err and err.count("\n") == 1
     assert list(tmp_path.iterdir()) == []
 
 
@@ -161,7 +161,7 @@ def test_missing_matplotlib_is_a_clear_message(tmp_path, monkeypatch):
     out = tmp_path / "p.png"
     code, stdout, err = run(["plot", "--sql", "SELECT 1 AS time, 2 AS value", "--out", str(out)])
     assert code == 2 and stdout == ""
-    assert err == f"tsql plot: {MISSING_MATPLOTLIB}\n" and "pip install 'tsql[plot]'" in err
+    assert err == f"seriesql plot: {MISSING_MATPLOTLIB}\n" and "pip install 'seriesql[plot]'" in err
     assert not out.exists()
 
 
@@ -174,7 +174,7 @@ def test_missing_matplotlib_from_the_command_line(tmp_path):
     )
     done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
     assert done.returncode == 2 and done.stdout == ""
-    assert done.stderr == f"tsql plot: {MISSING_MATPLOTLIB}\n"
+    assert done.stderr == f"seriesql plot: {MISSING_MATPLOTLIB}\n"
 
 
 def schema(**columns: pa.DataType) -> pa.Schema:
@@ -216,5 +216,5 @@ def test_query_from_a_file_and_a_series_too_short_to_smooth(db, tmp_path):
     out = tmp_path / "short.svg"
     code, stdout, err = run(["plot", "--db", db, "--sql-file", str(query), "--smooth", "--out", str(out)])
     assert code == 0 and "(3 series, 96 points)" in stdout
-    assert err == "tsql plot: too few values for a smooth curve: north, west\n"
+    assert err == "seriesql plot: too few values for a smooth curve: north, west\n"
     assert [g for g in groups(out) if g.startswith("tsql-smooth-")] == ["tsql-smooth-1"]

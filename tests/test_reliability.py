@@ -998,7 +998,7 @@ def test_tsql_run_leaves_a_file_that_is_not_a_database_alone(workdir, capsys):
     (workdir / "a.sql").write_text("CREATE TABLE t AS SELECT 1 AS x;\n")
     assert main(["run", "a.sql", "--db", str(notes)]) == 2
     err = capsys.readouterr().err
-    assert err.startswith("tsql run: ") and err.count("\n") == 1 and "not a valid DuckDB database" in err
+    assert err.startswith("seriesql run: ") and err.count("\n") == 1 and "not a valid DuckDB database" in err
     assert notes.read_text() == "item,units\nbun,5\n"
 
 

@@ -1,4 +1,4 @@
-"""`tsql run`: SQL files as a pipeline step."""
+"""`seriesql run`: SQL files as a pipeline step."""
 
 from __future__ import annotations
 
@@ -100,7 +100,7 @@ def test_a_param_with_no_value_stops_before_anything_runs(scripts, tmp_path, cap
     files = scripts(a=CREATE, b="SELECT * FROM sales\nWHERE units > 1;\nSELECT $least;")
     db = tmp_path / "shop.duckdb"
     assert main(["run", *files, "--db", str(db)]) == 2
-    assert capsys.readouterr().err == "tsql run: b.sql:3: no value for $least; give it with --param least=VALUE\n"
+    assert capsys.readouterr().err == "seriesql run: b.sql:3: no value for $least; give it with --param least=VALUE\n"
     assert not db.exists()
 
 
@@ -145,12 +145,12 @@ def test_out_refuses_to_overwrite_unless_replace(scripts, tmp_path, capsys):
 @pytest.mark.parametrize(
     ("args", "message"),
     [
-        (["missing.sql"], "tsql run: cannot read missing.sql: No such file or directory\n"),
-        (["a.sql", "--param", "no_equals"], "tsql run: --param wants NAME=VALUE with NAME a plain identifier"),
-        (["a.sql", "--param", "x=1", "--param", "x=2"], "tsql run: --param x is given twice\n"),
-        (["a.sql", "--out", "result.xlsx"], "tsql run: cannot tell the format of 'result.xlsx'"),
-        (["b.sql", "--out", "result.csv"], "tsql run: b.sql:1: --out needs the last statement to be a query\n"),
-        (["empty.sql"], "tsql run: no SQL statements in empty.sql\n"),
+        (["missing.sql"], "seriesql run: cannot read missing.sql: No such file or directory\n"),
+        (["a.sql", "--param", "no_equals"], "seriesql run: --param wants NAME=VALUE with NAME a plain identifier"),
+        (["a.sql", "--param", "x=1", "--param", "x=2"], "seriesql run: --param x is given twice\n"),
+        (["a.sql", "--out", "result.xlsx"], "seriesql run: cannot tell the format of 'result.xlsx'"),
+        (["b.sql", "--out", "result.csv"], "seriesql run: b.sql:1: --out needs the last statement to be a query\n"),
+        (["empty.sql"], "seriesql run: no SQL statements in empty.sql\n"),
     ],
 )
 def test_mistakes_in_the_command_are_one_line_and_exit_2(scripts, capsys, args, message):

@@ -340,15 +340,15 @@ def test_ensure_reuses_a_current_warehouse_and_rebuilds_an_old_one(warehouse, tm
 
 def test_default_path_is_in_the_cache_folder(tmp_path, monkeypatch):
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path))
-    assert sample_db.default_path() == tmp_path / "tsql" / "sample_warehouse.duckdb"
-    home_cache = Path.home() / ".cache" / "tsql" / "sample_warehouse.duckdb"
+    assert sample_db.default_path() == tmp_path / "seriesql" / "sample_warehouse.duckdb"
+    home_cache = Path.home() / ".cache" / "seriesql" / "sample_warehouse.duckdb"
     for unusable in ("", "relative/cache"):  # the XDG rules ignore both
         monkeypatch.setenv("XDG_CACHE_HOME", unusable)
         assert sample_db.default_path() == home_cache
     monkeypatch.delenv("XDG_CACHE_HOME")
     assert sample_db.default_path() == home_cache
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path))
-    assert sample_db.ensure() == tmp_path / "tsql" / "sample_warehouse.duckdb"
+    assert sample_db.ensure() == tmp_path / "seriesql" / "sample_warehouse.duckdb"
     assert sample_db.is_sample_warehouse(sample_db.default_path())
 
 

@@ -1,4 +1,4 @@
-"""`tsql shell` driven in a pseudo-terminal as a person would, and its pieces: the renderer and the splitter."""
+"""`seriesql shell` driven in a pseudo-terminal as a person would, and its pieces: the renderer and the splitter."""
 
 from __future__ import annotations
 
@@ -30,13 +30,13 @@ LAUNCH = (
 
 
 class Session:
-    """A `tsql shell` process on a pseudo-terminal; ``expect`` waits for text in what it printed."""
+    """A `seriesql shell` process on a pseudo-terminal; ``expect`` waits for text in what it printed."""
 
     def __init__(self, tmp_path: Path, *args: str):
         self.history = tmp_path / "state" / "history"
         self.cwd = tmp_path / "project"
         self.cwd.mkdir(exist_ok=True)
-        env = dict(os.environ, HOME=str(tmp_path), TSQL_HISTORY=str(self.history), TERM="dumb", COLUMNS="100")
+        env = dict(os.environ, HOME=str(tmp_path), SERIESQL_HISTORY=str(self.history), TERM="dumb", COLUMNS="100")
         env.pop("XDG_STATE_HOME", None)
         master, slave = os.openpty()
         fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 40, 100, 0, 0))
@@ -70,7 +70,7 @@ class Session:
         keys, which a test can be quick enough to hit: press again until the fresh prompt shows."""
         for _ in range(20):
             self.send(b"\x03")
-            if self.wait_for(r"\ntsql> ", 5) is not None:
+            if self.wait_for(r"\nseriesql> ", 5) is not None:
                 return
         raise AssertionError(f"Ctrl-C did not bring a fresh prompt:\n{self.output[self.seen :]}")
 
@@ -91,7 +91,7 @@ class Session:
     def run(self, line: str) -> str:
         """Type a line at the prompt; return what was printed up to the next prompt."""
         self.send(line + "\n")
-        return self.expect(r"\ntsql> ")
+        return self.expect(r"\nseriesql> ")
 
     def wait(self) -> int:
         deadline = time.monotonic() + TIMEOUT
@@ -113,7 +113,7 @@ def shell(tmp_path):
     def start(*args: str) -> Session:
         session = Session(tmp_path, *args)
         sessions.append(session)
-        session.expect(r"Type :help for help\.\ntsql> ")
+        session.expect(r"Type :help for help\.\nseriesql> ")
         return session
 
     yield start
@@ -126,7 +126,7 @@ def test_multi_line_query_and_an_error_that_leaves_the_session_alive(shell):
     s.send("SELECT 'multi' || '-line' AS joined,\n")
     s.expect(r"\n  \.\.\. ")  # the continuation prompt
     s.send("  round(autocorrelation([1, 2, 1, 2, 1, 2]), 3) AS r1;\n")
-    out = s.expect(r"\ntsql> ")
+    out = s.expect(r"\nseriesql> ")
     # lag-1 autocorrelation of an alternating series of six: sum of 5 products (-1/4) / (6 * 1/4) = -5/6
     assert re.search(r"joined\s+r1\n-+\s+-+\nmulti-line\s+-0\.833\n1 row\n", out), out
     out = s.run("SELECT * FROM no_such_table;")
@@ -141,7 +141,7 @@ def test_ctrl_c_cancels_a_running_query_and_the_session_goes_on(shell):
     s.expect(r"\d+%")  # DuckDB's progress bar: the query is running
     s.send(b"\x03")
     s.expect(r"query cancelled\n")
-    s.expect(r"tsql> ")
+    s.expect(r"seriesql> ")
     out = s.run("SELECT 'still' || ' here' AS alive;")
     assert "still here" in out and "Traceback" not in s.output
 
@@ -216,17 +216,17 @@ def test_read_only_database_and_welcome_line(shell, tmp_path):
 
 
 def test_history_path(monkeypatch, tmp_path):
-    monkeypatch.delenv("TSQL_HISTORY", raising=False)
+    monkeypatch.delenv("SERIESQL_HISTORY", raising=False)
     monkeypatch.setenv("HOME", str(tmp_path))
     monkeypatch.delenv("XDG_STATE_HOME", raising=False)
-    assert history_path() == tmp_path / ".local" / "state" / "tsql" / "history"
+    assert history_path() == tmp_path / ".local" / "state" / "seriesql" / "history"
     monkeypatch.setenv("XDG_STATE_HOME", str(tmp_path / "xdg"))
-    assert history_path() == tmp_path / "xdg" / "tsql" / "history"
+    assert history_path() == tmp_path / "xdg" / "seriesql" / "history"
     monkeypatch.setenv("XDG_STATE_HOME", "relative/ignored")
-    assert history_path() == tmp_path / ".local" / "state" / "tsql" / "history"
-    monkeypatch.setenv("TSQL_HISTORY", str(tmp_path / "h"))
+    assert history_path() == tmp_path / ".local" / "state" / "seriesql" / "history"
+    monkeypatch.setenv("SERIESQL_HISTORY", str(tmp_path / "h"))
     assert history_path() == tmp_path / "h"
-    monkeypatch.setenv("TSQL_HISTORY", "")
+    monkeypatch.setenv("SERIESQL_HISTORY", "")
     assert history_path() is None
 
 
@@ -276,7 +276,7 @@ def test_wide_columns_are_narrowed_before_any_is_left_out():
     assert row.endswith("…  5")
 
 
-# The statement splitter (shared by the shell and `tsql run`).
+# The statement splitter (shared by the shell and `seriesql run`).
 
 
 def test_split_at_semicolons_with_the_starting_line():
@@ -319,11 +319,11 @@ def test_blank_and_comment_only_text_has_no_statements():
 
 def test_piped_input_runs_without_prompts(tmp_path):
     script = "SELECT 6 * 7 AS answer;\nSELECT * FROM no_such_table;\n:tables\nSELECT 'last' || ' one' AS tail\n"
-    env = dict(os.environ, HOME=str(tmp_path), TSQL_HISTORY=str(tmp_path / "history"))
+    env = dict(os.environ, HOME=str(tmp_path), SERIESQL_HISTORY=str(tmp_path / "history"))
     done = subprocess.run(
         [sys.executable, "-m", "tsql.cli", "shell"], input=script, capture_output=True, text=True, env=env, cwd=tmp_path
     )
-    assert done.returncode == 0 and "tsql> " not in done.stdout
+    assert done.returncode == 0 and "seriesql> " not in done.stdout
     assert re.search(r"answer\n-+\n\s*42\n1 row\nno tables\n", done.stdout), done.stdout
     assert "last one" in done.stdout and "no_such_table" in done.stderr
     assert not (tmp_path / "history").exists()  # history is for typed sessions
@@ -334,7 +334,7 @@ def test_a_database_that_cannot_be_opened_is_one_line_and_exit_2(tmp_path):
     done = subprocess.run(
         [sys.executable, "-m", "tsql.cli", "shell", str(missing), "--read-only"], capture_output=True, text=True
     )
-    assert done.returncode == 2 and done.stderr.startswith("tsql shell: ") and done.stderr.count("\n") == 1
+    assert done.returncode == 2 and done.stderr.startswith("seriesql shell: ") and done.stderr.count("\n") == 1
     assert not missing.exists()
 
 

@@ -1,4 +1,4 @@
-"""The ``tsql`` command."""
+"""The ``seriesql`` command (``python -m tsql`` runs it too)."""
 
 from __future__ import annotations
 
@@ -18,7 +18,7 @@ def _functions(args: argparse.Namespace) -> int:
     if args.name:
         fn = BY_NAME.get(args.name.removesuffix("_agg"))
         if fn is None:
-            print(f"tsql: no function named {args.name!r}; try `tsql functions`", file=sys.stderr)
+            print(f"seriesql: no function named {args.name!r}; try `seriesql functions`", file=sys.stderr)
             return 2
         print(describe(fn))
         return 0
@@ -38,10 +38,10 @@ def _run_scripts(args: argparse.Namespace) -> int:
     try:
         return run(args.files, args.db, out=args.out, replace=args.replace, params=parse_params(args.param))
     except UsageError as error:
-        print(f"tsql run: {error}", file=sys.stderr)
+        print(f"seriesql run: {error}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print("tsql run: interrupted", file=sys.stderr)
+        print("seriesql run: interrupted", file=sys.stderr)
         return 130
 
 
@@ -51,7 +51,7 @@ def _demo(args: argparse.Namespace) -> int:
     try:
         return demo(args.db)
     except KeyboardInterrupt:
-        print("tsql demo: interrupted", file=sys.stderr)
+        print("seriesql demo: interrupted", file=sys.stderr)
         return 130
 
 
@@ -64,7 +64,7 @@ def _plot(args: argparse.Namespace) -> int:
             sql = Path(args.sql_file).expanduser().read_text(encoding="utf-8")
         except (OSError, UnicodeDecodeError) as error:
             reason = getattr(error, "strerror", None) or error
-            print(f"tsql plot: cannot read {args.sql_file}: {reason}", file=sys.stderr)
+            print(f"seriesql plot: cannot read {args.sql_file}: {reason}", file=sys.stderr)
             return 2
     try:
         return plot(
@@ -79,13 +79,13 @@ def _plot(args: argparse.Namespace) -> int:
             replace=args.replace,
         )
     except KeyboardInterrupt:
-        print("tsql plot: interrupted", file=sys.stderr)
+        print("seriesql plot: interrupted", file=sys.stderr)
         return 130
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="tsql", description="Time-series diagnostics as SQL functions over DuckDB.")
-    parser.add_argument("--version", action="version", version=f"tsql {__version__}")
+    parser = argparse.ArgumentParser(prog="seriesql", description="Time-series diagnostics as SQL functions over DuckDB.")
+    parser.add_argument("--version", action="version", version=f"seriesql {__version__}")
     commands = parser.add_subparsers(dest="command", required=True)
     listing = commands.add_parser("functions", help="list the functions, or describe one")
     listing.add_argument("name", nargs="?", help="a function name")
@@ -115,10 +115,10 @@ def main(argv: list[str] | None = None) -> int:
         description=(
             "Draw the series of a query, one line each. The query returns a time, a value and optionally a "
             "series column: named time, value and series, or told apart by type (the text column is the "
-            "series, the DATE or TIMESTAMP column the time). Needs matplotlib: pip install 'tsql[plot]'."
+            "series, the DATE or TIMESTAMP column the time). Needs matplotlib: pip install 'seriesql[plot]'."
         ),
         epilog=(
-            "example: tsql plot --db shop.duckdb --out sales.png --smooth "
+            "example: seriesql plot --db shop.duckdb --out sales.png --smooth "
             "--sql \"SELECT item, month, units FROM monthly_sales WHERE item IN ('SKU-0006', 'SKU-2056')\""
         ),
     )

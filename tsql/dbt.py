@@ -12,7 +12,7 @@ List it under the DuckDB target in ``profiles.yml``::
             - module: tsql.dbt
 
 No ``module_paths`` entry is needed: the module is installed with tsql
-(``pip install 'tsql[dbt]'``). A model can then call any tsql function::
+(``pip install 'seriesql[dbt]'``). A model can then call any tsql function::
 
     select item, seasonality_agg(units, month) as seasonality
     from {{ ref('monthly_units') }}

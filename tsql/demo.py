@@ -1,4 +1,4 @@
-"""``tsql demo``: five questions asked in SQL of the sample warehouse, whose answers are known.
+"""``seriesql demo``: five questions asked in SQL of the sample warehouse, whose answers are known.
 
 The warehouse (:mod:`tsql.sample_db`) is built on first use. Each step prints a
 plain-English question, the SQL that answers it, the result, how to read the
@@ -383,7 +383,7 @@ def main(db: str | os.PathLike | None = None, width: int | None = None) -> int:
     try:
         path, built = _warehouse(db)
     except DemoError as error:
-        print(f"tsql demo: {error}", file=sys.stderr)
+        print(f"seriesql demo: {error}", file=sys.stderr)
         return 2
     width = max(width or shutil.get_terminal_size().columns, 40)
     from tsql.binding import connect
@@ -401,7 +401,7 @@ def main(db: str | os.PathLike | None = None, width: int | None = None) -> int:
                 run_step(con, step, number, width)
     except duckdb.Error as error:  # the file is locked by another program, or a bug in a step
         reason = str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
-        print(f"\ntsql demo: stopped on {path}: {reason}", file=sys.stderr)
+        print(f"\nseriesql demo: stopped on {path}: {reason}", file=sys.stderr)
         return 1
     _conclude(path, width)
     return 0
@@ -435,7 +435,7 @@ def _identity(path: Path) -> tuple[int, int] | None:
 def _introduce(con: duckdb.DuckDBPyConnection, path: Path, built: float | None, width: int) -> None:
     (scenario,) = con.execute("SELECT value FROM about WHERE key = 'scenario'").fetchall()[0]
     how = f"built just now in {built:.1f} s" if built is not None else "already there, reused"
-    print(_wrap("tsql demo: five questions asked in SQL of an invented warehouse whose true answers are known.", width))
+    print(_wrap("seriesql demo: five questions asked in SQL of an invented warehouse whose true answers are known.", width))
     print()
     print(f"Warehouse: {path}")
     print(_wrap(f"({how}; delete it whenever you like, the next demo builds it again)", width, indent=11, first=11))
@@ -486,12 +486,12 @@ def _conclude(path: Path, width: int) -> None:
     print("To explore further:")
     where = shlex.quote(str(path))
     for what, command in (
-        ("The same warehouse, your own queries (try :tables):", [f"tsql shell {where}"]),
-        ("Every function, then one described with an example:", ["tsql functions", "tsql functions seasonality"]),
+        ("The same warehouse, your own queries (try :tables):", [f"seriesql shell {where}"]),
+        ("Every function, then one described with an example:", ["seriesql functions", "seriesql functions seasonality"]),
         (
-            "Two weeks of one queue with its smooth daily curve, as a picture (needs pip install 'tsql[plot]'):",
+            "Two weeks of one queue with its smooth daily curve, as a picture (needs pip install 'seriesql[plot]'):",
             [
-                f"tsql plot --db {where} \\",
+                f"seriesql plot --db {where} \\",
                 "    --smooth --period '1 day' --out orders.png \\",
                 '    --sql "SELECT hour, contacts FROM hourly_contacts',
                 "           WHERE queue = 'orders' AND hour < DATE '2024-09-16'\"",

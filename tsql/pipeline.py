@@ -1,4 +1,4 @@
-"""``tsql run``: SQL scripts as a pipeline step.
+"""``seriesql run``: SQL scripts as a pipeline step.
 
 Statements run one at a time, in file order, on one connection with every
 tsql function registered. The first failure stops the run with
@@ -28,7 +28,7 @@ FORMATS = {
     ".jsonl": "FORMAT json",
     ".ndjson": "FORMAT json",
 }
-"""COPY options by file extension, for ``tsql run --out`` and the shell's ``:save``."""
+"""COPY options by file extension, for ``seriesql run --out`` and the shell's ``:save``."""
 
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 
@@ -122,7 +122,7 @@ def _plan(files: list[str], params: dict[str, str]) -> list[_Step]:
     if not steps:
         raise UsageError(f"no SQL statements in {', '.join(files)}")
     for name in params.keys() - used:
-        print(f"tsql run: warning: --param {name} is not used by any statement", file=sys.stderr)
+        print(f"seriesql run: warning: --param {name} is not used by any statement", file=sys.stderr)
     return steps
 
 
@@ -164,7 +164,7 @@ def run(
                     con.complete()  # run it to the end without fetching its rows
                 elif out is not None:
                     rows = write_result(con, text, out, values)
-                    print(f"tsql run: wrote {rows:,} row{'' if rows == 1 else 's'} to {out}", file=sys.stderr)
+                    print(f"seriesql run: wrote {rows:,} row{'' if rows == 1 else 's'} to {out}", file=sys.stderr)
                 else:
                     relation = con.sql(text, params=values)
                     table = relation.to_arrow_table() if relation is not None else None

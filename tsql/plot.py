@@ -1,4 +1,4 @@
-"""``tsql plot``: draw the series of a query as a PNG or SVG picture.
+"""``seriesql plot``: draw the series of a query as a PNG or SVG picture.
 
 The query returns one row per observation: a time, a value and, optionally, a
 series. Columns named ``time``, ``value`` and ``series`` are taken by name;
@@ -10,7 +10,7 @@ returns, counts as one mark per element); each becomes a dotted vertical line
 in its series' colour. ``smooth`` overlays ``harmonic_smooth_agg`` of each
 series, computed in SQL over the same query.
 
-matplotlib is an optional dependency (``pip install 'tsql[plot]'``); it is
+matplotlib is an optional dependency (``pip install 'seriesql[plot]'``); it is
 imported only here, and drawn with the Agg canvas, so no display is needed.
 """
 
@@ -31,7 +31,7 @@ import pyarrow as pa
 __all__ = ["FORMATS", "MISSING_MATPLOTLIB", "Drawn", "PlotError", "Series", "plot", "plot_query"]
 
 FORMATS = {".png": "png", ".svg": "svg"}
-MISSING_MATPLOTLIB = "matplotlib is not installed; install it with: pip install 'tsql[plot]'"
+MISSING_MATPLOTLIB = "matplotlib is not installed; install it with: pip install 'seriesql[plot]'"
 LEGEND_LIMIT = 12
 """More series than this get no legend (it would hide the picture)."""
 _ROLES = ("time", "value", "series")
@@ -407,7 +407,7 @@ def main(
     title: str | None = None,
     replace: bool = False,
 ) -> int:
-    """The ``tsql plot`` command: returns the exit code and prints one line about what it wrote."""
+    """The ``seriesql plot`` command: returns the exit code and prints one line about what it wrote."""
     import sys
 
     from tsql.binding import connect
@@ -425,9 +425,9 @@ def main(
             con.execute("SET enable_progress_bar = false")
             drawn = plot_query(con, sql, out, marks, smooth, harmonics, period, title, replace)
     except PlotError as error:
-        print(f"tsql plot: {error}", file=sys.stderr)
+        print(f"seriesql plot: {error}", file=sys.stderr)
         return 2
     print(f"wrote {drawn.path} ({drawn.series:,} series, {drawn.points:,} points)")
     if drawn.unsmoothed:
-        print(f"tsql plot: too few values for a smooth curve: {', '.join(drawn.unsmoothed)}", file=sys.stderr)
+        print(f"seriesql plot: too few values for a smooth curve: {', '.join(drawn.unsmoothed)}", file=sys.stderr)
     return 0

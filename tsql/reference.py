@@ -1,4 +1,4 @@
-"""Reference text generated from the registry: ``tsql functions``, the README's function table and the
+"""Reference text generated from the registry: ``seriesql functions``, the README's function table and the
 per-function tables of docs/behaviour.md.
 
 ``python -m tsql.reference README.md docs/behaviour.md`` rewrites the generated tables in place.
@@ -13,7 +13,7 @@ from tsql.registry import FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Functio
 
 
 def describe(fn: Function) -> str:
-    """What ``tsql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
+    """What ``seriesql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
     lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.public_returns or fn.returns}; NULL for: {fn.null_rows}"]
     for p in fn.params:
         if p.help:

@@ -2,7 +2,7 @@
 
 Each :class:`Function` entry says everything the rest of the package needs:
 the SQL name and signature, the kernel, which rows get NULL, a one-line doc
-and a runnable example. Registration, ``tsql functions`` and the README's
+and a runnable example. Registration, ``seriesql functions`` and the README's
 function table are all generated from :data:`FUNCTIONS`.
 """
 
@@ -84,7 +84,7 @@ class Function:
     agg_time_outcomes: tuple[tuple[str, str], ...] = ()
     """The ``*_agg`` form's own answers for time classes where they differ from :data:`AGG_TIME_OUTCOMES`."""
     see_also: tuple[str, ...] = ()
-    """Related functions, named in ``tsql functions NAME``."""
+    """Related functions, named in ``seriesql functions NAME``."""
     test_args: tuple[str, ...] = ("",)
     """Arguments after the series in the tests' calls: the first suits the 40-point series of the input
     classes, the last is the most unusual setting (each is checked against the kernel called alone)."""
@@ -830,6 +830,6 @@ TABLE_FUNCTIONS: tuple[Function, ...] = (
 """Aggregates over the rows of a query (``over_rows``): kept apart from :data:`FUNCTIONS`, whose entries
 are all functions of one row's series and share the per-row checks and tables."""
 PUBLIC: tuple[Function, ...] = FUNCTIONS + TABLE_FUNCTIONS
-"""Every public function: ``tsql functions``, the README table and the macros."""
+"""Every public function: ``seriesql functions``, the README table and the macros."""
 
 BY_NAME: dict[str, Function] = {f.name: f for f in PUBLIC}

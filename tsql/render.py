@@ -1,6 +1,6 @@
 """Query results as plain-text tables that fit a given width.
 
-Used by ``tsql shell`` and ``tsql run``. Layout: a header, a rule of dashes,
+Used by ``seriesql shell`` and ``seriesql run``. Layout: a header, a rule of dashes,
 the rows, and a footer line with the row count; columns two spaces apart,
 numbers right-aligned, NULL written as ``NULL``, lists as ``[1, 2]`` and
 structs as ``{name: value}``. Columns that do not fit are left out and the

@@ -1,4 +1,4 @@
-"""``tsql shell``: an interactive SQL session with every tsql function registered.
+"""``seriesql shell``: an interactive SQL session with every tsql function registered.
 
 Statements end with ``;`` and may span lines. Lines starting with ``:`` are the
 shell's own commands (``:help`` lists them). Queries run in a worker thread
@@ -27,7 +27,7 @@ from tsql.pipeline import UsageError, is_query, out_options, write_result
 from tsql.render import error_message, format_arrow
 from tsql.statements import split_statements
 
-PROMPT = "tsql> "
+PROMPT = "seriesql> "
 MORE = "  ... "
 MAX_ROWS = 40
 HISTORY_LENGTH = 2000
@@ -54,13 +54,13 @@ ORDER BY ALL
 
 
 def history_path() -> Path | None:
-    """Where the shell keeps its history: ``$TSQL_HISTORY`` (empty: keep none), else the XDG state folder."""
-    chosen = os.environ.get("TSQL_HISTORY")
+    """Where the shell keeps its history: ``$SERIESQL_HISTORY`` (empty: keep none), else the XDG state folder."""
+    chosen = os.environ.get("SERIESQL_HISTORY")
     if chosen is not None:
         return Path(chosen).expanduser() if chosen else None
     state = os.environ.get("XDG_STATE_HOME", "")
     base = Path(state) if os.path.isabs(state) else Path.home() / ".local" / "state"
-    return base / "tsql" / "history"
+    return base / "seriesql" / "history"
 
 
 class Shell:
@@ -75,7 +75,7 @@ class Shell:
 
     def loop(self) -> int:
         """Read, run and show statements until Ctrl-D or ``:quit``; returns the exit code."""
-        print(f"tsql {__version__} on {self.label}. Statements end with ;  Type :help for help.")
+        print(f"seriesql {__version__} on {self.label}. Statements end with ;  Type :help for help.")
         buffer = ""
         while True:
             try:
@@ -208,7 +208,7 @@ def main(database: str = ":memory:", read_only: bool = False) -> int:
     try:
         con = connect(database, read_only=read_only)
     except duckdb.Error as error:
-        print(f"tsql shell: {error}", file=sys.stderr)
+        print(f"seriesql shell: {error}", file=sys.stderr)
         return 2
     interactive = sys.stdin.isatty()
     if sys.stdout.isatty():
@@ -231,7 +231,7 @@ def main(database: str = ":memory:", read_only: bool = False) -> int:
                 history.parent.mkdir(parents=True, exist_ok=True)
                 readline.write_history_file(history)
             except OSError as error:
-                print(f"tsql shell: history not saved to {history}: {error.strerror}", file=sys.stderr)
+                print(f"seriesql shell: history not saved to {history}: {error.strerror}", file=sys.stderr)
 
 
 def _line_editing() -> ModuleType | None:
