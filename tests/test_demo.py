@@ -1,4 +1,4 @@
-"""`seriesql demo`: five questions on the sample warehouse, each answered in SQL and checked against the planted truth."""
+"""`seriesql demo`: five questions on the sample warehouse, each answered in SQL and checked against the truth."""
 
 import contextlib
 import io

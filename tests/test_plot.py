@@ -1,4 +1,4 @@
-"""`seriesql plot`: a query's series drawn to PNG or SVG, with marks and smooth curves, never over a file by accident."""
+"""`seriesql plot`: a query's series drawn to PNG or SVG, with marks and smooth curves, never over a file by mistake."""
 
 import contextlib
 import io

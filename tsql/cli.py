@@ -84,7 +84,9 @@ def _plot(args: argparse.Namespace) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="seriesql", description="Time-series diagnostics as SQL functions over DuckDB.")
+    parser = argparse.ArgumentParser(
+        prog="seriesql", description="Time-series diagnostics as SQL functions over DuckDB."
+    )
     parser.add_argument("--version", action="version", version=f"seriesql {__version__}")
     commands = parser.add_subparsers(dest="command", required=True)
     listing = commands.add_parser("functions", help="list the functions, or describe one")

@@ -435,7 +435,11 @@ def _identity(path: Path) -> tuple[int, int] | None:
 def _introduce(con: duckdb.DuckDBPyConnection, path: Path, built: float | None, width: int) -> None:
     (scenario,) = con.execute("SELECT value FROM about WHERE key = 'scenario'").fetchall()[0]
     how = f"built just now in {built:.1f} s" if built is not None else "already there, reused"
-    print(_wrap("seriesql demo: five questions asked in SQL of an invented warehouse whose true answers are known.", width))
+    print(
+        _wrap(
+            "seriesql demo: five questions asked in SQL of an invented warehouse whose true answers are known.", width
+        )
+    )
     print()
     print(f"Warehouse: {path}")
     print(_wrap(f"({how}; delete it whenever you like, the next demo builds it again)", width, indent=11, first=11))
@@ -487,7 +491,10 @@ def _conclude(path: Path, width: int) -> None:
     where = shlex.quote(str(path))
     for what, command in (
         ("The same warehouse, your own queries (try :tables):", [f"seriesql shell {where}"]),
-        ("Every function, then one described with an example:", ["seriesql functions", "seriesql functions seasonality"]),
+        (
+            "Every function, then one described with an example:",
+            ["seriesql functions", "seriesql functions seasonality"],
+        ),
         (
             "Two weeks of one queue with its smooth daily curve, as a picture (needs pip install 'seriesql[plot]'):",
             [
