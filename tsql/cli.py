@@ -83,6 +83,28 @@ def _plot(args: argparse.Namespace) -> int:
         return 130
 
 
+def _report(args: argparse.Namespace) -> int:
+    from tsql.report import main as report
+
+    try:
+        return report(
+            args.database,
+            args.table,
+            args.query,
+            series=args.series,
+            time=args.time,
+            value=args.value,
+            out=args.out,
+            level=args.level,
+            model=args.model,
+            details=args.details,
+            replace=args.replace,
+        )
+    except KeyboardInterrupt:
+        print("seriesql report: interrupted", file=sys.stderr)
+        return 130
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(
         prog="seriesql", description="Time-series diagnostics as SQL functions over DuckDB."
@@ -138,6 +160,34 @@ def main(argv: list[str] | None = None) -> int:
     picture.add_argument("--title", metavar="TEXT", help="a title above the picture")
     picture.add_argument("--replace", action="store_true", help="let --out overwrite an existing file")
     picture.set_defaults(run=_plot)
+    page = commands.add_parser(
+        "report",
+        help="screen every series of a table and write one self-contained HTML page",
+        description=(
+            "Screen every series of a table (cycles, trends, change points, look-alike groups, expected load) "
+            "and write one HTML file that opens offline: overview, a sortable table, charts of the flagged "
+            "series, and the SQL of each section."
+        ),
+        epilog=(
+            "example: seriesql report shop.duckdb --table monthly_sales --series item --time month "
+            "--value units --out sales.html"
+        ),
+    )
+    page.add_argument("database", help="a DuckDB file, opened read-only")
+    source = page.add_mutually_exclusive_group(required=True)
+    source.add_argument("--table", metavar="T", help="the table (or view) to screen")
+    source.add_argument("--query", metavar="SQL", help="a query to screen instead of a table")
+    page.add_argument("--series", required=True, metavar="COL", help="the column naming each series")
+    page.add_argument("--time", required=True, metavar="COL", help="the time column (DATE, TIMESTAMP or a number)")
+    page.add_argument("--value", required=True, metavar="COL", help="the value column")
+    page.add_argument("--out", default="report.html", metavar="PAGE", help="the .html file (default report.html)")
+    page.add_argument("--level", type=float, default=0.05, help="false-discovery level of the q-values (default 0.05)")
+    page.add_argument(
+        "--model", default="mean", choices=("mean", "meanvar", "trend"), help="change-point model (default mean)"
+    )
+    page.add_argument("--details", type=int, default=24, metavar="N", help="flagged series drawn in full (default 24)")
+    page.add_argument("--replace", action="store_true", help="let --out overwrite an existing file")
+    page.set_defaults(run=_report)
     args = parser.parse_args(argv)
     return args.run(args)
 
