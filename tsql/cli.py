@@ -84,7 +84,7 @@ def _plot(args: argparse.Namespace) -> int:
 
 
 def _report(args: argparse.Namespace) -> int:
-    from tsql.report import main as report
+    from tsql.reporting import main as report
 
     try:
         return report(

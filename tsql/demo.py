@@ -504,6 +504,14 @@ def _conclude(path: Path, width: int) -> None:
                 "           WHERE queue = 'orders' AND hour < DATE '2024-09-16'\"",
             ],
         ),
+        (
+            "The screen of every item as one page to open in a browser (cycles, trends, changes, look-alikes):",
+            [
+                f"seriesql report {where} \\",
+                "    --table monthly_sales --series item --time month --value units \\",
+                "    --out sample_report.html",
+            ],
+        ),
     ):
         print(_wrap(what, width, indent=2, first=2))
         for line in command:

@@ -58,6 +58,11 @@ def out_options(path: str | Path) -> str:
     return options
 
 
+def partial_path(path: Path) -> Path:
+    """A hidden file beside ``path`` to write into, renamed to ``path`` once complete."""
+    return path.with_name(f".{path.name}.{os.getpid()}.partial{path.suffix}")
+
+
 def write_result(
     con: duckdb.DuckDBPyConnection, query: str, path: str | Path, params: dict[str, str] | None = None
 ) -> int:
@@ -67,7 +72,7 @@ def write_result(
     that fails (or a run that is stopped) leaves no partial ``path`` behind.
     """
     path = Path(path)
-    partial = path.with_name(f".{path.name}.{os.getpid()}.partial{path.suffix}")
+    partial = partial_path(path)
     literal = "'" + str(partial).replace("'", "''") + "'"
     # The newline ends a trailing -- comment in the query before the closing parenthesis.
     copy = f"COPY (\n{query}\n) TO {literal} ({out_options(path)})"

@@ -1,9 +1,8 @@
 """The page of ``seriesql report``: plain data in, one self-contained HTML file out.
 
 The data goes into the page as JSON; a small script (``report_page.js``, inlined with
-``report_page.css``) draws the charts as SVG and
-runs the table (sort, filter, pages), so the file needs no network and no library, and
-its size grows by a few hundred bytes per series.
+``report_page.css``) draws the charts as SVG and runs the table (sort, filter, pages), so
+the file needs no network and no library, and grows by a few hundred bytes per series.
 """
 
 from __future__ import annotations
@@ -38,7 +37,7 @@ def _json(data: Any) -> str:
 
 
 def render(data: dict) -> str:
-    """The HTML page of one screen (see :func:`tsql.report.gather` for ``data``)."""
+    """The HTML page of one screen (see :func:`tsql.reporting.gather` for ``data``)."""
     e = html.escape
     facts, cols = data["facts"], data["columns"]
     sql = data["sql"]

@@ -1,4 +1,4 @@
-"""``seriesql report``: screen every series of a table and write one self-contained HTML page.
+"""``seriesql report`` and ``tsql.report``: screen every series of a table and write one self-contained HTML page.
 
 The engine: it checks the input, runs the screen in SQL (:func:`screen_queries` holds every
 statement), and gathers the answers into plain data (numbers, text, lists), which
@@ -432,11 +432,6 @@ def gather(
     return data
 
 
-def partial_path(path: Path) -> Path:
-    """A hidden file beside ``path`` for writing, renamed to ``path`` once complete."""
-    return path.with_name(f".{path.name}.{os.getpid()}.partial{path.suffix}")
-
-
 def check_out(out: str | os.PathLike, replace: bool) -> Path:
     """The output path; refuses a missing folder, a folder, an existing file (unless ``replace``)."""
     path = Path(out).expanduser()
@@ -502,6 +497,7 @@ def report(
     .. [1] Y. Benjamini and Y. Hochberg, "Controlling the false discovery rate: a practical and
        powerful approach to multiple testing", J. R. Stat. Soc. B 57 (1995), 289-300.
     """
+    from tsql.pipeline import partial_path
     from tsql.report_page import render
 
     target = check_out(path, replace)

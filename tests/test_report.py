@@ -1,0 +1,365 @@
+"""`seriesql report`: the screen's SQL against outside references, the page in headless Chromium, bad input."""
+
+from __future__ import annotations
+
+import contextlib
+import datetime as dt
+import io
+import json
+import re
+import shutil
+from pathlib import Path
+
+import duckdb
+import numpy as np
+import pytest
+
+import tsql
+from tsql import sample_db
+from tsql.cli import main
+from tsql.reporting import ReportError, screen_queries
+
+LEVEL = 0.05
+
+
+@pytest.fixture(scope="module")
+def warehouse(tmp_path_factory) -> Path:
+    return sample_db.build(tmp_path_factory.mktemp("report") / "warehouse.duckdb")
+
+
+@pytest.fixture(scope="module")
+def con(warehouse):
+    with tsql.connect(str(warehouse), read_only=True) as con:
+        con.execute("SET enable_progress_bar = false")
+        yield con
+
+
+@pytest.fixture(scope="module")
+def pages(con, tmp_path_factory) -> dict[str, Path]:
+    """The sample warehouse's reports: monthly sales, hourly contacts, and log prices with model 'trend'."""
+    folder = tmp_path_factory.mktemp("pages")
+    return {
+        "sales": tsql.report(
+            con, "monthly_sales", series="item", time="month", value="units", path=folder / "sales.html"
+        ),
+        "contacts": tsql.report(
+            con, "hourly_contacts", series="queue", time="hour", value="contacts", path=folder / "contacts.html"
+        ),
+        "prices": tsql.report(
+            con,
+            "SELECT instrument, day, ln(price) AS log_price FROM daily_prices",
+            series="instrument",
+            time="day",
+            value="log_price",
+            path=folder / "prices.html",
+            model="trend",
+            details=36,
+        ),
+    }
+
+
+def embedded(path: Path) -> dict:
+    """The data the page's script draws from."""
+    text = path.read_text(encoding="utf-8")
+    found = re.search(r'<script type="application/json" id="report-data">(.*?)</script>', text, re.S)
+    return json.loads(found.group(1))
+
+
+def run(argv: list[str]) -> tuple[int, str, str]:
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main(argv)
+    return code, out.getvalue(), err.getvalue()
+
+
+# --- the screen's SQL -------------------------------------------------------------------------
+
+
+def test_q_values_are_benjamini_hochberg(con):
+    """The screen's q-values against statsmodels' multipletests(method='fdr_bh') on the same p-values."""
+    multipletests = pytest.importorskip("statsmodels.stats.multitest").multipletests
+    result = con.execute(screen_queries('"monthly_sales"', "item", "month", "units")["screen"])
+    columns = [d[0] for d in result.description]
+    rows = result.fetchall()
+    table = {c: np.array([r[i] for r in rows], dtype=object) for i, c in enumerate(columns)}
+    for p_name, q_name in (("season_p", "season_q"), ("trend_p", "trend_q")):
+        p = table[p_name]
+        present = np.array([x is not None for x in p])
+        assert present.sum() > 2900
+        expected = multipletests(p[present].astype(float), method="fdr_bh")[1]
+        np.testing.assert_allclose(table[q_name][present].astype(float), expected, rtol=1e-12)
+        assert all(q is None for q in table[q_name][~present])
+
+
+def test_overview_equals_the_sql_answers(con, pages):
+    """The counts the page shows against the same functions asked directly, BH by statsmodels."""
+    multipletests = pytest.importorskip("statsmodels.stats.multitest").multipletests
+    rows = con.sql(
+        "SELECT seasonality_agg(units, month).p_value, trend_test_agg(units, month).p_value, "
+        "len(change_points_agg(units, month)) FROM monthly_sales GROUP BY item"
+    ).fetchall()
+    season = np.array([r[0] for r in rows], dtype=float)
+    trend = np.array([r[1] for r in rows], dtype=float)
+    expected = {
+        "series": len(rows),
+        "seasonal": int(multipletests(season, alpha=LEVEL, method="fdr_bh")[0].sum()),
+        "trending": int(multipletests(trend, alpha=LEVEL, method="fdr_bh")[0].sum()),
+        "with_changes": sum(1 for r in rows if r[2] > 0),
+    }
+    data = embedded(pages["sales"])
+    assert {k: data["overview"][k] for k in expected} == expected
+    # the planted truth, loosely: most of the 1,500 seasonal items (plus look-alike followers) are found
+    assert 1400 <= expected["seasonal"] <= 1800
+
+
+def test_load_profile_peaks_at_the_planted_hour(con, pages):
+    """Hourly contacts get an hour-of-day profile whose peak is each queue's planted peak hour (within one)."""
+    data = embedded(pages["contacts"])
+    assert data["load"]["phase"] == "hour"
+    planted = dict(
+        con.sql(
+            "SELECT replace(subject, 'queue ', ''), value::INTEGER FROM truth WHERE property = 'peak_hour'"
+        ).fetchall()
+    )
+    for queue, profile in data["load"]["profiles"].items():
+        assert len(profile) == 24
+        peak = max(profile, key=lambda r: r[1])[0]
+        assert min(abs(peak - planted[queue]), 24 - abs(peak - planted[queue])) <= 1, queue
+        assert all(low <= high and n > 0 for _, _, low, high, n in profile)
+
+
+def test_the_page_is_offline(pages):
+    """Nothing a browser would fetch: no http(s) reference, no src or href outside the page."""
+    for path in pages.values():
+        text = path.read_text(encoding="utf-8")
+        assert "http://" not in text and "https://" not in text
+        assert not re.search(r"\bsrc\s*=", text)
+        assert all(h.startswith("#") for h in re.findall(r'href="([^"]*)"', text))
+        assert "Caution" in text and "not trading, staffing or safety advice" in text
+
+
+def test_every_section_shows_its_sql(pages):
+    text = pages["sales"].read_text(encoding="utf-8")
+    for snippet in (
+        "seasonality_agg(value, time)",
+        "trend_test_agg",
+        "change_points_agg",
+        "dtw_clusters(series, grid)",
+    ):
+        assert snippet in text
+    assert "harmonic_smooth_agg" in text and "segments_agg" in text
+    assert "quantile_cont(value, 0.1)" in pages["contacts"].read_text(encoding="utf-8")
+
+
+# --- the page in headless Chromium ---------------------------------------------------------------
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+CHROMEDRIVER = shutil.which("chromedriver")
+FLAGS = (
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--window-size=1280,1600",
+    # the network off: every host name fails to resolve, and any proxy lookup goes nowhere
+    "--host-resolver-rules=MAP * ~NOTFOUND",
+    "--proxy-server=127.0.0.1:9",
+)
+needs_chromium = pytest.mark.skipif(
+    CHROMIUM is None or CHROMEDRIVER is None,
+    reason="headless Chromium is not installed (Debian: apt-get install chromium chromium-driver)",
+)
+
+
+@pytest.fixture(scope="module")
+def browser(tmp_path_factory):
+    webdriver = pytest.importorskip("selenium.webdriver", reason="selenium is not installed (the test extra)")
+    options = webdriver.ChromeOptions()
+    options.binary_location = CHROMIUM
+    for flag in FLAGS:
+        options.add_argument(flag)
+    options.add_argument(f"--user-data-dir={tmp_path_factory.mktemp('chromium-profile')}")
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    driver = webdriver.Chrome(options=options, service=webdriver.ChromeService(executable_path=CHROMEDRIVER))
+    try:
+        yield driver
+    finally:
+        driver.quit()
+
+
+def open_page(browser, path: Path):
+    browser.get(path.resolve().as_uri())
+    assert browser.execute_script("return document.body.dataset.ready") == "1"
+    return browser
+
+
+@needs_chromium
+def test_page_loads_without_console_errors(browser, pages):
+    for path in pages.values():
+        open_page(browser, path)
+        errors = [entry for entry in browser.get_log("browser") if entry["level"] in ("SEVERE", "WARNING")]
+        assert errors == [], path.name
+
+
+@needs_chromium
+def test_overview_on_screen_equals_the_data(browser, pages):
+    open_page(browser, pages["sales"])
+    shown = {k: browser.find_element("id", f"n-{k}").text for k in ("series", "seasonal", "trending", "changes")}
+    overview = embedded(pages["sales"])["overview"]
+    assert shown == {
+        "series": f"{overview['series']:,}",
+        "seasonal": f"{overview['seasonal']:,}",
+        "trending": f"{overview['trending']:,}",
+        "changes": f"{overview['with_changes']:,}",
+    }
+    dots = browser.find_elements("css selector", "#scatter circle")
+    assert len(dots) == overview["series"]
+    assert "SKU-" in dots[0].find_element("tag name", "title").get_attribute("textContent")
+
+
+def column(browser, index: int) -> list[str]:
+    return [td.text for td in browser.find_elements("css selector", f"#rows tr td:nth-child({index + 1})")]
+
+
+@needs_chromium
+def test_the_table_sorts_filters_and_pages(browser, pages):
+    open_page(browser, pages["sales"])
+    assert len(browser.find_elements("css selector", "#rows tr")) == 50
+    heads = browser.find_elements("css selector", "#heads th")
+    q_cycle = [h.text for h in heads].index("q cycle")
+    heads[q_cycle].click()
+    values = [float(v) for v in column(browser, q_cycle)]
+    assert values == sorted(values)
+    assert browser.find_element("id", "screen-table").get_attribute("data-sort") == "q cycle asc"
+    heads[q_cycle].click()
+    values = [float(v) for v in column(browser, q_cycle) if v]
+    assert values == sorted(values, reverse=True) and values[0] <= 1
+    name = [h.text for h in heads].index("series")
+    heads[name].click()
+    assert column(browser, name)[:2] == ["SKU-0001", "SKU-0002"]
+    browser.find_element("id", "next").click()
+    assert column(browser, name)[0] == "SKU-0051"
+    browser.find_element("id", "filter").send_keys("SKU-002")
+    assert column(browser, name) == [f"SKU-{i:04d}" for i in range(20, 30)]
+
+
+@needs_chromium
+def test_change_point_marks_at_the_planted_times(browser, pages, con):
+    """Each trend reversal's chart has a mark within 15 days of the planted day (the demo's tolerance),
+    and the marks are the segment starts that segments_agg gives in SQL."""
+    open_page(browser, pages["prices"])
+    planted = con.sql(
+        "SELECT replace(b.subject, 'instrument ', ''), c.value::DATE FROM truth b JOIN truth c USING (subject) "
+        "WHERE b.property = 'behaviour' AND b.value = 'trend_reversal' AND c.property = 'regime_change'"
+    ).fetchall()
+    assert len(planted) == 6
+    for name, day in planted:
+        panel = browser.find_element("css selector", f'.panel[data-series="{name}"]')
+        marks = [
+            dt.date.fromisoformat(m.get_attribute("data-time")) for m in panel.find_elements("css selector", "line.cp")
+        ]
+        assert marks and min(abs((m - day).days) for m in marks) <= 15, (name, day, marks)
+        (segments,) = con.sql(
+            "SELECT segments_agg(ln(price), day, model := 'trend') FROM daily_prices WHERE instrument = ?",
+            params=[name],
+        ).fetchall()[0]
+        assert marks == [s["first"] for s in segments[1:]]
+
+
+@needs_chromium
+def test_screenshot_is_not_blank(browser, pages):
+    image = pytest.importorskip("PIL.Image")
+    open_page(browser, pages["sales"])
+    picture = image.open(io.BytesIO(browser.get_screenshot_as_png())).convert("RGB")
+    pixels = np.asarray(picture).reshape(-1, 3)
+    colours = np.unique(pixels, axis=0)
+    background = np.mean(np.all(pixels == pixels[0], axis=1))
+    assert len(colours) > 50 and background < 0.9
+
+
+# --- bad input --------------------------------------------------------------------------------
+
+
+@pytest.fixture()
+def bad(tmp_path):
+    path = tmp_path / "bad.duckdb"
+    with duckdb.connect(str(path)) as c:
+        c.execute("CREATE TABLE empty (s VARCHAR, t DATE, v DOUBLE)")
+        c.execute("CREATE TABLE one AS SELECT 'a' AS s, DATE '2024-01-01' + i::INTEGER AS t, i::DOUBLE AS v FROM range(30) r(i)")
+        c.execute(
+            "CREATE TABLE nulls AS SELECT s, t, NULL::DOUBLE AS v FROM one UNION ALL SELECT 'b', t, NULL FROM one"
+        )
+        c.execute(
+            "CREATE TABLE texts AS SELECT s, t::VARCHAR AS t, v FROM one UNION ALL SELECT 'b', t::VARCHAR, v FROM one"
+        )
+        c.execute(
+            "CREATE TABLE nameless AS SELECT NULL::VARCHAR AS s, t, v FROM one UNION ALL SELECT 'b', t, v FROM one"
+        )
+    return path
+
+
+@pytest.mark.parametrize(
+    "table, message",
+    [
+        ("empty", "has no rows"),
+        ("one", "one series only ('a')"),
+        ("nulls", "every v is NULL"),
+        ("texts", "column 't' is VARCHAR, not a DATE, TIMESTAMP or number"),
+        ("nameless", "rows have a NULL s"),
+        ("missing", "cannot read table 'missing'"),
+    ],
+)
+def test_bad_input_is_one_clear_line_and_no_file(bad, tmp_path, table, message):
+    out = tmp_path / "page" / "report.html"
+    out.parent.mkdir()
+    code, printed, err = run(
+        ["report", str(bad), "--table", table, "--series", "s", "--time", "t", "--value", "v", "--out", str(out)]
+    )
+    assert code == 2 and printed == ""
+    assert err.count("\n") == 1 and err.startswith("seriesql report: ") and message in err, err
+    assert list(out.parent.iterdir()) == []
+
+
+def test_a_failure_while_writing_leaves_no_file(con, tmp_path, monkeypatch):
+    import tsql.report_page
+
+    def broken(data):
+        raise RuntimeError("disk full")
+
+    monkeypatch.setattr(tsql.report_page, "render", broken)
+    with pytest.raises(RuntimeError):
+        tsql.report(con, "hourly_contacts", series="queue", time="hour", value="contacts", path=tmp_path / "r.html")
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_python_errors_name_the_fix(con, tmp_path):
+    with pytest.raises(ReportError, match="--value: column 'queue' is VARCHAR, not a number"):
+        tsql.report(con, "hourly_contacts", series="hour", time="hour", value="queue", path=tmp_path / "r.html")
+    with pytest.raises(ReportError, match="must end in .html"):
+        tsql.report(con, "hourly_contacts", series="queue", time="hour", value="contacts", path=tmp_path / "r.txt")
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_some_null_values_are_missing_values(bad, tmp_path):
+    with tsql.connect(str(bad), read_only=True) as c:
+        query = (
+            "SELECT s, t, CASE WHEN t = DATE '2024-01-05' THEN NULL ELSE v END AS v FROM one "
+            "UNION ALL SELECT 'b', t, -v FROM one"
+        )
+        path = tsql.report(c, query, series="s", time="t", value="v", path=tmp_path / "r.html")
+    text = path.read_text(encoding="utf-8")
+    assert "1 NULL values are read as missing" in text
+    assert embedded(path)["overview"]["series"] == 2
+
+
+def test_the_command_writes_the_page(warehouse, tmp_path):
+    out = tmp_path / "contacts.html"
+    argv = ["report", str(warehouse), "--table", "hourly_contacts", "--series", "queue", "--time", "hour"]
+    code, printed, err = run([*argv, "--value", "contacts", "--out", str(out)])
+    assert code == 0 and err == "" and printed.startswith(f"wrote {out} (") and out.exists()
+    code, _, err = run([*argv, "--value", "contacts", "--out", str(out)])
+    assert code == 2 and "exists; pass --replace" in err
