@@ -14,6 +14,30 @@ function ticks(lo, hi, n){
   const m = [1, 2, 5, 10].find(k => (hi - lo) / (step * k) <= n) * step;
   const out = []; for (let v = Math.ceil(lo / m) * m; v <= hi + 1e-9 * m; v += m) out.push(v); return out;
 }
+// round calendar ticks (UTC): years, months, days or hours, at most about six
+const DAY = 864e5;
+function timeTicks(lo, hi){
+  if (!D.temporal) return ticks(lo, hi, 5);
+  const span = hi - lo, out = [], a = new Date(lo);
+  if (span > 60 * DAY) {
+    const months = [1, 2, 3, 6, 12, 24, 60].find(m => span / (m * 30.4 * DAY) <= 6) || 120;
+    let y = a.getUTCFullYear(), m = Math.ceil(a.getUTCMonth() / months) * months;
+    for (let t = Date.UTC(y, m, 1); t <= hi; m += months, t = Date.UTC(y, m, 1)) if (t >= lo) out.push(t);
+    return out;
+  }
+  const step = [3600e3, 6 * 3600e3, 12 * 3600e3, DAY, 2 * DAY, 7 * DAY, 14 * DAY].find(k => span / k <= 6) || 28 * DAY;
+  for (let t = Math.ceil(lo / step) * step; t <= hi; t += step) out.push(t);
+  return out;
+}
+function timeLabel(t, span){
+  const s = new Date(t).toISOString();
+  return span > 60 * DAY ? s.slice(0, 7) : span > 2 * DAY ? s.slice(0, 10) : s.slice(0, 16).replace('T', ' ');
+}
+function logTicks(lo, hi){
+  const out = []; for (let e = Math.floor(Math.log10(lo)); e <= Math.ceil(Math.log10(hi)); e++)
+    for (const m of [1, 2, 5]) { const v = m * Math.pow(10, e); if (v >= lo && v <= hi) out.push(v); }
+  return out;
+}
 function extent(vals){ let lo = Infinity, hi = -Infinity; for (const v of vals) if (v !== null && isFinite(v)) { if (v < lo) lo = v; if (v > hi) hi = v; } return lo <= hi ? [lo, hi === lo ? lo + 1 : hi] : [0, 1]; }
 function path(xs, ys, sx, sy){ let s = '', pen = false;
   for (let i = 0; i < xs.length; i++) { if (ys[i] === null || xs[i] === null) { pen = false; continue; } s += (pen ? 'L' : 'M') + sx(xs[i]).toFixed(1) + ' ' + sy(ys[i]).toFixed(1); pen = true; }
@@ -27,8 +51,8 @@ function chart(o){
   let s = `<svg width="${w}" height="${h}" viewBox="0 0 ${w} ${h}" role="img">`;
   s += `<line class="axis" x1="${L}" y1="${h - B}" x2="${w - R}" y2="${h - B}"/><line class="axis" x1="${L}" y1="${T}" x2="${L}" y2="${h - B}"/>`;
   for (const v of ticks(o.y[0], o.y[1], 4)) s += `<text x="${L - 4}" y="${sy(v) + 3}" text-anchor="end">${fmt(v, 2)}</text>`;
-  const xt = o.logx ? ticks(x0, x1, 5).map(v => Math.pow(10, v)) : ticks(o.x[0], o.x[1], 5);
-  for (const v of xt) s += `<text x="${sx(v)}" y="${h - B + 14}" text-anchor="middle">${o.timeaxis ? when(v) : (o.xlabels ? o.xlabels(v) : fmt(v, 2))}</text>`;
+  const xt = o.logx ? logTicks(o.x[0], o.x[1]) : o.timeaxis ? timeTicks(o.x[0], o.x[1]) : ticks(o.x[0], o.x[1], 5);
+  for (const v of xt) s += `<text x="${sx(v)}" y="${h - B + 14}" text-anchor="middle">${o.timeaxis ? timeLabel(v, o.x[1] - o.x[0]) : (o.xlabels ? o.xlabels(v) : fmt(v, 2))}</text>`;
   if (o.band) { const [xs, lo, hi] = o.band; let p = ''; for (let i = 0; i < xs.length; i++) p += (i ? 'L' : 'M') + sx(xs[i]).toFixed(1) + ' ' + sy(hi[i]).toFixed(1);
     for (let i = xs.length - 1; i >= 0; i--) p += 'L' + sx(xs[i]).toFixed(1) + ' ' + sy(lo[i]).toFixed(1); s += `<path class="band" d="${p}Z"/>`; }
   for (const l of o.lines || []) s += `<path class="${l.cls}" d="${path(l.xs, l.ys, sx, sy)}"${l.name ? ` data-series="${esc(l.name)}"` : ''}><title>${esc(l.title || '')}</title></path>`;
@@ -56,7 +80,7 @@ const seasonal = r => r[C.qs] !== null && r[C.qs] <= D.level;
 const pts = D.table.filter(r => r[C.pnum] !== null && r[C.pnum] > 0 && r[C.strength] !== null);
 if (pts.length) {
   const xr = extent(pts.map(r => r[C.pnum]));
-  $('scatter').innerHTML = chart({w: 760, h: 300, x: xr, y: [0, 1], logx: xr[1] / xr[0] > 20, xlabel: D.temporal ? 'period (days)' : 'period',
+  $('scatter').innerHTML = chart({w: 1100, h: 300, x: xr, y: [0, 1], logx: xr[1] / xr[0] > 4, xlabel: D.temporal ? 'period (days)' : 'period',
     dots: (sx, sy) => pts.map(r => `<circle class="dot${seasonal(r) ? ' hit' : ''}" cx="${sx(r[C.pnum]).toFixed(1)}" cy="${sy(r[C.strength]).toFixed(1)}" r="3"><title>${esc(r[C.name])}: ${esc(r[C.period])}, strength ${fmt(r[C.strength], 2)}, q ${fmt(r[C.qs])}</title></circle>`).join('')});
 }
 

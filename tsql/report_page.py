@@ -95,8 +95,9 @@ it explains (red: seasonal at q &le; {level:g}). Hover a point for the series.</
 lag-1 autocorrelation; entropy: spectral entropy (near 0: one clean cycle, near 1: noise). The chart is the series
 on its grid in at most 32 bucket means.</p>
 <h2>Flagged series</h2>
-<p class="meta">{data["flagged"]:,} series are flagged (a q-value &le; {level:g} or a change point); the first
-{len(data["details"])} by q-value are drawn: values (blue), smooth curve (orange: a level, a trend and 3 harmonics of
+<p class="meta">{data["flagged"]:,} series are flagged (a q-value &le; {level:g} or a change point);
+{len(data["details"])} are drawn, taking in turn the strongest cycle, the strongest trend and the most change points
+left: values (blue), smooth curve (orange: a level, a trend and 3 harmonics of
 the cycle), segment levels (green) and change points (red, dashed). The rest are in the table.</p>
 <div id="details"></div>
 {_sql_block("SQL of this section", sql.get("details"))}

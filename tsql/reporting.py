@@ -12,6 +12,7 @@ import datetime as dt
 import math
 import os
 import time as clock
+from itertools import zip_longest
 from pathlib import Path
 from typing import Any
 
@@ -288,6 +289,18 @@ def _rows(con: duckdb.DuckDBPyConnection, sql: str, params: dict | None = None) 
     return [dict(zip(names, row)) for row in result.fetchall()]
 
 
+def _interleave(*ranked: list[dict]) -> list[dict]:
+    """The flagged series, taking in turn the next of each ranking (cycles, trends, changes), each once."""
+    seen: set[str] = set()
+    out = []
+    for tier in zip_longest(*ranked):
+        for r in tier:
+            if r is not None and r["series"] not in seen:
+                seen.add(r["series"])
+                out.append(r)
+    return out
+
+
 def _step_phase(con: duckdb.DuckDBPyConnection, source: str, series: str, time: str, kind: str) -> str | None:
     """'hour' for hourly timestamps, 'weekday' for daily ones, else None (no load section)."""
     if kind != "temporal":
@@ -357,14 +370,11 @@ def gather(
             ]
         )
 
-    def score(r: dict) -> tuple:
-        q = min(x for x in (r["season_q"], r["trend_q"], 1.0) if x is not None)
-        return (q, -(r["n_changes"] or 0), r["series"])
-
-    def flag(r: dict) -> bool:
-        return any(q is not None and q <= level for q in (r["season_q"], r["trend_q"])) or bool(r["n_changes"])
-
-    flagged_rows = sorted((r for r in rows if flag(r)), key=score)
+    flagged_rows = _interleave(
+        sorted((r for r in rows if r["season_q"] is not None and r["season_q"] <= level), key=lambda r: r["season_q"]),
+        sorted((r for r in rows if r["trend_q"] is not None and r["trend_q"] <= level), key=lambda r: r["trend_q"]),
+        sorted((r for r in rows if r["n_changes"]), key=lambda r: (-r["n_changes"], r["series"])),
+    )
     seasonal = {r["series"] for r in rows if r["season_q"] is not None and r["season_q"] <= level}
     drawn = [(r["series"], r["series"] in seasonal) for r in flagged_rows[:details]]
     longest = max(r["rows"] for r in rows)
