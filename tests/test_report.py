@@ -289,7 +289,7 @@ def bad(tmp_path):
     path = tmp_path / "bad.duckdb"
     with duckdb.connect(str(path)) as c:
         c.execute("CREATE TABLE empty (s VARCHAR, t DATE, v DOUBLE)")
-        c.execute("CREATE TABLE one AS SELECT 'a' AS s, DATE '2024-01-01' + i::INTEGER AS t, i::DOUBLE AS v FROM range(30) r(i)")
+        c.execute("CREATE TABLE one AS SELECT 'a' s, DATE '2024-01-01' + i::INT t, i::DOUBLE v FROM range(30) _(i)")
         c.execute(
             "CREATE TABLE nulls AS SELECT s, t, NULL::DOUBLE AS v FROM one UNION ALL SELECT 'b', t, NULL FROM one"
         )

@@ -97,8 +97,9 @@ on its grid in at most 32 bucket means.</p>
 <h2>Flagged series</h2>
 <p class="meta">{data["flagged"]:,} series are flagged (a q-value &le; {level:g} or a change point);
 {len(data["details"])} are drawn, taking in turn the strongest cycle, the strongest trend and the most change points
-left: values (blue), smooth curve (orange: a level, a trend and 3 harmonics of
-the cycle), segment levels (green) and change points (red, dashed). The rest are in the table.</p>
+left: values (blue), smooth curve (orange: a level, a trend and 3 harmonics of the cycle), segment levels
+(green) and change points (red, dashed); a series longer than 2,000 points is drawn at every k-th point.
+The rest are in the table.</p>
 <div id="details"></div>
 {_sql_block("SQL of this section", sql.get("details"))}
 {groups}

@@ -30,6 +30,10 @@ LOAD_SERIES = 12
 """Expected-load profiles drawn at most."""
 SPARK_POINTS = 32
 """Points of each table row's small chart (bucket means of the grid)."""
+ROW_MARKS = 20
+"""Change times kept per table row (the count is exact); with the spark, a row stays a few hundred bytes."""
+DETAIL_POINTS = 2000
+"""A detail chart draws at most about this many points (every k-th of a longer series)."""
 MODELS = ("mean", "meanvar", "trend")
 
 
@@ -289,6 +293,12 @@ def _rows(con: duckdb.DuckDBPyConnection, sql: str, params: dict | None = None) 
     return [dict(zip(names, row)) for row in result.fetchall()]
 
 
+def _thin(points: list) -> list:
+    """Every k-th point, k chosen so that at most DETAIL_POINTS remain (the last point always kept)."""
+    k = -(-len(points) // DETAIL_POINTS)
+    return points if k <= 1 else points[::k] + ([points[-1]] if (len(points) - 1) % k else [])
+
+
 def _interleave(*ranked: list[dict]) -> list[dict]:
     """The flagged series, taking in turn the next of each ranking (cycles, trends, changes), each once."""
     seen: set[str] = set()
@@ -366,7 +376,7 @@ def gather(
                 _number(r["acf1"], 3),
                 _number(r["entropy"], 3),
                 [_number(x, 3) for x in (r["spark"] or [])],
-                [_tick(t) for t in (r["changes"] or [])],
+                [_tick(t) for t in (r["changes"] or [])[:ROW_MARKS]],
             ]
         )
 
@@ -405,8 +415,8 @@ def gather(
                     {
                         "series": r["series"],
                         "seasonal": r["series"] in seasonal,
-                        "points": [[_tick(p["time"]), _number(p["value"], 6)] for p in r["points"]],
-                        "smooth": [[_tick(p["time"]), _number(p["value"], 5)] for p in (r["smooth"] or [])],
+                        "points": [[_tick(p["time"]), _number(p["value"], 6)] for p in _thin(r["points"])],
+                        "smooth": [[_tick(p["time"]), _number(p["value"], 5)] for p in _thin(r["smooth"] or [])],
                         "segments": [
                             [_tick(s["first"]), _tick(s["last"]), _number(s["mean"], 5), _number(s["slope"], 5)]
                             for s in (r["segments"] or [])
