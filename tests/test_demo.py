@@ -3,6 +3,7 @@
 import contextlib
 import io
 import re
+import shlex
 
 import duckdb
 import pytest
@@ -154,6 +155,16 @@ def test_ends_with_the_caution_and_where_to_go_next(first_run, out, prose):
     assert " ".join(demo.CAUTION.split()) in prose
     assert "not trading, staffing or safety advice" in prose
     assert f"seriesql shell {first_run[0]}" in out
+
+
+def test_ends_by_offering_the_report_that_runs(first_run, out, tmp_path, monkeypatch):
+    """The last command printed is `seriesql report` on the warehouse; run as printed, it writes the page."""
+    last = out.rstrip().split("seriesql report ")[-1]
+    assert out.rstrip().endswith(last) and "--out sample_report.html" in last
+    argv = shlex.split("report " + last.replace("\\\n", " "))
+    monkeypatch.chdir(tmp_path)
+    code, printed, err = run(argv)
+    assert code == 0 and err == "" and (tmp_path / "sample_report.html").stat().st_size > 100_000
 
 
 def test_a_second_run_reuses_the_warehouse(first_run, monkeypatch):

@@ -363,3 +363,15 @@ def test_the_command_writes_the_page(warehouse, tmp_path):
     assert code == 0 and err == "" and printed.startswith(f"wrote {out} (") and out.exists()
     code, _, err = run([*argv, "--value", "contacts", "--out", str(out)])
     assert code == 2 and "exists; pass --replace" in err
+
+
+def test_the_command_screens_a_query(warehouse, tmp_path):
+    out = tmp_path / "prices.html"
+    query = "SELECT instrument, day, ln(price) AS log_price FROM daily_prices WHERE instrument < 'D'"
+    argv = ["report", str(warehouse), "--query", query, "--series", "instrument", "--time", "day"]
+    code, printed, err = run([*argv, "--value", "log_price", "--model", "trend", "--out", str(out)])
+    assert code == 0 and err == "" and out.exists()
+    data = embedded(out)
+    with duckdb.connect(str(warehouse), read_only=True) as c:
+        (expected,) = c.sql(f"SELECT count(DISTINCT instrument) FROM ({query})").fetchall()[0]
+    assert data["overview"]["series"] == expected and data["model"] == "trend" and data["load"]["phase"] == "weekday"
