@@ -128,6 +128,24 @@ def test_load_profile_peaks_at_the_planted_hour(con, pages):
         assert all(low <= high and n > 0 for _, _, low, high, n in profile)
 
 
+def test_look_alike_groups_keep_planted_twins_together(con, pages):
+    """Planted look-alike pairs (the same curve at 10-40 times the volume) whose both items were grouped
+    share their group; each group's medoid is a member, and the curves are z-scores (numpy's mean and std)."""
+    groups = embedded(pages["sales"])["groups"]
+    where = {m["series"]: g["cluster"] for g in groups for m in g["members"]}
+    pairs = con.sql(
+        "SELECT replace(subject, 'item ', ''), replace(value, 'item ', '') FROM truth WHERE property = 'looks_like'"
+    ).fetchall()
+    both = [(a, b) for a, b in pairs if a in where and b in where]
+    assert len(where) == 100 and both
+    assert all(where[a] == where[b] for a, b in both)
+    for g in groups:
+        assert g["medoid"] in {m["series"] for m in g["members"]}
+        for m in g["members"]:
+            z = np.array(m["z"], dtype=float)
+            assert abs(z.mean()) < 0.01 and abs(z.std() - 1) < 0.01
+
+
 def test_the_page_is_offline(pages):
     """Nothing a browser would fetch: no http(s) reference, no src or href outside the page."""
     for path in pages.values():
@@ -279,6 +297,24 @@ def test_screenshot_is_not_blank(browser, pages):
     colours = np.unique(pixels, axis=0)
     background = np.mean(np.all(pixels == pixels[0], axis=1))
     assert len(colours) > 50 and background < 0.9
+
+
+@needs_chromium
+def test_names_are_text_not_markup(browser, bad, tmp_path):
+    """A series named like markup is shown as its text, in the table and on its chart, and breaks nothing."""
+    nasty = "</script><b onmouseover=alert(1)>&amp;'\""
+    with tsql.connect(str(bad), read_only=True) as c:
+        query = f"SELECT {tsql_literal(nasty)} AS s, t, v FROM one UNION ALL SELECT 'b', t, -v * v FROM one"
+        path = tsql.report(c, query, series="s", time="t", value="v", path=tmp_path / "r.html")
+    open_page(browser, path)
+    assert browser.get_log("browser") == []
+    names = [td.text for td in browser.find_elements("css selector", "#rows td:first-child")]
+    assert sorted(names) == sorted([nasty, "b"])
+    assert browser.find_elements("css selector", "#rows b") == []
+
+
+def tsql_literal(text: str) -> str:
+    return "'" + text.replace("'", "''") + "'"
 
 
 # --- bad input --------------------------------------------------------------------------------
