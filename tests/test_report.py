@@ -411,3 +411,12 @@ def test_the_command_screens_a_query(warehouse, tmp_path):
     with duckdb.connect(str(warehouse), read_only=True) as c:
         (expected,) = c.sql(f"SELECT count(DISTINCT instrument) FROM ({query})").fetchall()[0]
     assert data["overview"]["series"] == expected and data["model"] == "trend" and data["load"]["phase"] == "weekday"
+
+
+def test_the_docstring_example_runs():
+    import doctest
+
+    import tsql.reporting
+
+    result = doctest.testmod(tsql.reporting)
+    assert result.attempted >= 3 and result.failed == 0

@@ -131,7 +131,7 @@ ORDER BY series""",
        count(*) FILTER (trend_q <= $level) AS trending,
        count(*) FILTER (n_changes > 0) AS with_changes,
        sum(rows) AS rows
-FROM screen  -- the result of the screen query""",
+FROM screen_result  -- the result of the screen query""",
     }
     if flagged:
         picked = ",\n           ".join(f"({_literal(s)}, {'true' if seasonal else 'false'})" for s, seasonal in flagged)
@@ -197,7 +197,7 @@ def _source(con: duckdb.DuckDBPyConnection, table: str | None, query: str | None
     if (table is None) == (query is None):
         raise ReportError("give either a table or a query")
     if table is not None:
-        return _quote(table), table
+        return ".".join(_quote(part) for part in table.split(".")), table
     from tsql.statements import split_statements
 
     statements = split_statements(query)
@@ -352,11 +352,11 @@ def gather(
     queries = screen_queries(source, series, time, value, model)
     try:
         screen = con.sql(queries["screen"]).to_arrow_table()
-        con.register("screen", screen)
+        con.register("screen_result", screen)
         try:
             overview = _rows(con, queries["overview"], {"level": level})[0]
         finally:
-            con.unregister("screen")
+            con.unregister("screen_result")
     except duckdb.Error as error:
         raise ReportError(f"the screen failed: {_first_line(error)}") from None
     rows = screen.to_pylist()
@@ -516,6 +516,23 @@ def report(
     ----------
     .. [1] Y. Benjamini and Y. Hochberg, "Controlling the false discovery rate: a practical and
        powerful approach to multiple testing", J. R. Stat. Soc. B 57 (1995), 289-300.
+
+    See Also
+    --------
+    gather : the same screen as plain data, without the page.
+    screen_queries : every SQL statement of the screen.
+
+    Examples
+    --------
+    >>> import tempfile, tsql
+    >>> con = tsql.connect()
+    >>> _ = con.execute(
+    ...     "CREATE TABLE sales AS SELECT 'item ' || (i % 4) AS item, DATE '2020-01-01' + INTERVAL (i // 4) MONTH "
+    ...     "AS month, 100 + 20 * sin(i // 4 * pi() / 6) * (i % 4) + i % 7 AS units FROM range(192) _(i)")
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     page = tsql.report(con, "sales", series="item", time="month", value="units", path=f"{folder}/s.html")
+    ...     print(page.name, page.stat().st_size > 20_000)
+    s.html True
     """
     from tsql.pipeline import partial_path
     from tsql.report_page import render
