@@ -413,6 +413,11 @@ def test_the_command_screens_a_query(warehouse, tmp_path):
     assert data["overview"]["series"] == expected and data["model"] == "trend" and data["load"]["phase"] == "weekday"
 
 
+def test_same_input_same_page(con, pages, tmp_path):
+    again = tsql.report(con, "monthly_sales", series="item", time="month", value="units", path=tmp_path / "s.html")
+    assert again.read_bytes() == pages["sales"].read_bytes()
+
+
 def test_the_docstring_example_runs():
     import doctest
 

@@ -72,7 +72,7 @@ def render(data: dict) -> str:
 <h1>Screen of {e(source_text)}</h1>
 <p class="meta">{facts["rows"]:,} rows; series <code>{e(cols["series"])}</code>, time <code>{e(cols["time"])}</code>
 ({e(facts["time_type"])}), value <code>{e(cols["value"])}</code>; false-discovery level {level:g};
-change-point model '{e(data["model"])}'; computed in {data["seconds"]} s.{missing_note}</p>
+change-point model '{e(data["model"])}'.{missing_note}</p>
 <div class="caution"><b>Caution.</b> {e(CAUTION)}</div>
 <h2>Overview</h2>
 <div class="cards">

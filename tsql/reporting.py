@@ -345,7 +345,6 @@ def gather(
         raise ReportError(f"model must be one of {', '.join(MODELS)}, got {model!r}")
     if details < 0:
         raise ReportError(f"details must be >= 0, got {details}")
-    started = clock.perf_counter()
     source, label = _source(con, table, query)
     facts = _check(con, source, label, series, time, value)
     temporal = _kind(facts["time_type"]) == "temporal"
@@ -448,7 +447,6 @@ def gather(
             data["load"] = {"phase": phase, "profiles": profiles}
     except duckdb.Error as error:
         raise ReportError(f"a section of the screen failed: {_first_line(error)}") from None
-    data["seconds"] = round(clock.perf_counter() - started, 1)
     return data
 
 
