@@ -342,3 +342,18 @@ def test_negative_zero_prints_as_zero():
     from tsql.render import format_table
 
     assert "-0" not in format_table(["r"], [(round(-0.001, 2),)], width=40, max_rows=5)
+
+
+def test_a_database_path_that_does_not_exist_needs_create(tmp_path):
+    typo = tmp_path / "shpo.duckdb"
+    env = dict(os.environ, HOME=str(tmp_path), SERIESQL_HISTORY="")
+    command = [sys.executable, "-m", "tsql", "shell", str(typo)]
+    done = subprocess.run(command, input="SELECT 1;\n", capture_output=True, text=True, env=env)
+    assert done.returncode == 2 and done.stdout == ""
+    assert done.stderr == f"seriesql shell: no database at {typo}; check the path, or pass --create to make a new one\n"
+    assert not typo.exists()
+    script = "CREATE TABLE kept AS SELECT 42 AS answer;\n"
+    done = subprocess.run([*command, "--create"], input=script, capture_output=True, text=True, env=env)
+    assert done.returncode == 0 and done.stderr == ""
+    with duckdb.connect(str(typo), read_only=True) as con:
+        assert con.sql("SELECT answer FROM kept").fetchall() == [(42,)]

@@ -29,14 +29,22 @@ def _functions(args: argparse.Namespace) -> int:
 def _shell(args: argparse.Namespace) -> int:
     from tsql.shell import main as shell
 
-    return shell(args.database, read_only=args.read_only)
+    return shell(args.database, read_only=args.read_only, create=args.create)
 
 
 def _run_scripts(args: argparse.Namespace) -> int:
     from tsql.pipeline import UsageError, parse_params, run
 
     try:
-        return run(args.files, args.db, out=args.out, replace=args.replace, params=parse_params(args.param))
+        return run(
+            args.files,
+            args.db,
+            out=args.out,
+            replace=args.replace,
+            params=parse_params(args.param),
+            read_only=args.read_only,
+            create=args.create,
+        )
     except UsageError as error:
         print(f"seriesql run: {error}", file=sys.stderr)
         return 2
@@ -96,10 +104,17 @@ def main(argv: list[str] | None = None) -> int:
     shell = commands.add_parser("shell", help="an interactive SQL session with every function registered")
     shell.add_argument("database", nargs="?", default=":memory:", help="a DuckDB file (default: in memory)")
     shell.add_argument("--read-only", action="store_true", help="open the database read-only")
+    shell.add_argument("--create", action="store_true", help="make the database file if it does not exist")
     shell.set_defaults(run=_shell)
     script = commands.add_parser("run", help="run SQL files in order, as a pipeline step")
     script.add_argument("files", nargs="+", metavar="FILE.sql", help="SQL files, run in the order given")
     script.add_argument("--db", default=":memory:", metavar="DATABASE", help="a DuckDB file (default: in memory)")
+    script.add_argument(
+        "--read-only",
+        action="store_true",
+        help="open the database read-only: a run that only reads can share the file with other read-only processes",
+    )
+    script.add_argument("--create", action="store_true", help="make the database file if it does not exist")
     script.add_argument("--out", metavar="RESULT", help="write the last result to a .csv, .parquet, .json or .jsonl")
     script.add_argument("--replace", action="store_true", help="let --out overwrite an existing file")
     script.add_argument(

@@ -410,7 +410,7 @@ def main(
     """The ``seriesql plot`` command: returns the exit code and prints one line about what it wrote."""
     import sys
 
-    from tsql.binding import connect
+    from tsql.pipeline import UsageError, open_database
 
     try:
         check_out(out, replace)
@@ -418,9 +418,9 @@ def main(
         if db != ":memory:" and not Path(db).expanduser().exists():
             raise PlotError(f"no database at {db}")
         try:
-            con = connect(str(Path(db).expanduser()) if db != ":memory:" else db, read_only=db != ":memory:")
-        except duckdb.Error as error:
-            raise PlotError(f"cannot open {db}: {_first_line(error)}") from None
+            con = open_database(db, read_only=db != ":memory:")
+        except UsageError as error:
+            raise PlotError(str(error)) from None
         with con:
             con.execute("SET enable_progress_bar = false")
             drawn = plot_query(con, sql, out, marks, smooth, harmonics, period, title, replace)

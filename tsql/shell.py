@@ -23,7 +23,7 @@ import pyarrow as pa
 
 from tsql import __version__
 from tsql.binding import interrupt, was_interrupted
-from tsql.pipeline import UsageError, is_query, out_options, write_result
+from tsql.pipeline import UsageError, is_query, open_database, out_options, write_result
 from tsql.render import error_message, format_arrow
 from tsql.statements import split_statements
 
@@ -201,13 +201,14 @@ class Shell:
             self.con.unregister("__tsql_last_result")
 
 
-def main(database: str = ":memory:", read_only: bool = False) -> int:
-    """Open the database and run the session; returns the exit code."""
-    from tsql.binding import connect
+def main(database: str = ":memory:", read_only: bool = False, create: bool = False) -> int:
+    """Open the database and run the session; returns the exit code.
 
+    A database file that does not exist is made only with ``create`` (see :func:`tsql.pipeline.open_database`).
+    """
     try:
-        con = connect(database, read_only=read_only)
-    except duckdb.Error as error:
+        con = open_database(database, read_only=read_only, create=create)
+    except UsageError as error:
         print(f"seriesql shell: {error}", file=sys.stderr)
         return 2
     interactive = sys.stdin.isatty()
