@@ -7,8 +7,7 @@ import sys
 from pathlib import Path
 
 from tsql import __version__
-from tsql.reference import describe, function_list, markdown_table
-from tsql.registry import BY_NAME
+from tsql.reference import describe, find_function, function_list, markdown_table, unknown_function
 
 
 def _functions(args: argparse.Namespace) -> int:
@@ -16,9 +15,9 @@ def _functions(args: argparse.Namespace) -> int:
         print(markdown_table())
         return 0
     if args.name:
-        fn = BY_NAME.get(args.name.removesuffix("_agg"))
+        fn = find_function(args.name)
         if fn is None:
-            print(f"seriesql: no function named {args.name!r}; try `seriesql functions`", file=sys.stderr)
+            print(f"seriesql functions: {unknown_function(args.name, '`seriesql functions`')}", file=sys.stderr)
             return 2
         print(describe(fn))
         return 0
