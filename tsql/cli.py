@@ -148,7 +148,11 @@ def main(argv: list[str] | None = None) -> int:
     )
     picture.add_argument("--smooth", action="store_true", help="overlay each series' harmonic_smooth_agg curve")
     picture.add_argument("--harmonics", type=int, default=3, metavar="N", help="harmonics of --smooth (default 3)")
-    picture.add_argument("--period", metavar="SPAN", help="period of --smooth: '1 day', '1 year' or a number of steps")
+    picture.add_argument(
+        "--period",
+        metavar="SPAN",
+        help="period of --smooth: '1 day', '1 year' or a number of steps (default: each series' dominant period)",
+    )
     picture.add_argument("--title", metavar="TEXT", help="a title above the picture")
     picture.add_argument("--replace", action="store_true", help="let --out overwrite an existing file")
     picture.set_defaults(run=_plot)
