@@ -281,13 +281,11 @@ def _break_at_gaps(s: Series) -> None:
         return
     if len(grid.points) != len(s.times):  # no grid for this series (a stray time far away)
         return
-    after = np.flatnonzero(np.diff(grid.points) > 1)
-    times, values = list(s.times), list(s.values)
-    for i in after[::-1]:
-        times.insert(i + 1, times[i])
-        values.insert(i + 1, math.nan)
-    s.times, s.values = times, values
-    present = ~np.isnan(np.asarray(values, dtype=np.float64))
+    after = np.flatnonzero(np.diff(grid.points) > 1)  # a break goes after these, at the same time
+    source = np.insert(np.arange(len(s.times)), after + 1, after)
+    values = np.insert(np.asarray(s.values, dtype=np.float64), after + 1, np.nan)
+    s.times, s.values = [s.times[i] for i in source], values.tolist()
+    present = ~np.isnan(values)
     before = np.concatenate(([False], present[:-1]))
     later = np.concatenate((present[1:], [False]))
     s.alone = np.flatnonzero(present & ~before & ~later).tolist()
