@@ -39,7 +39,7 @@ the input, Ctrl-D leaves. Every tsql function is available, e.g. SELECT acf([1, 
   :tables           list the tables and views
   :timing           print the elapsed time after each statement (again: stop)
   :expand on|off    show each STRUCT column as one column per field (s.period, s.p_value)
-  :digits N         significant digits of decimal numbers shown (1 to 17; default 10)
+  :digits N         significant digits of DOUBLE values shown (1 to 17; default 10)
   :save FILE        write the last result to FILE: .csv, .parquet, .json (an array) or .jsonl
   :help             this text
   :quit             leave the shell (so does Ctrl-D)"""
