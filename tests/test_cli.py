@@ -27,6 +27,18 @@ def test_unknown_function_is_an_error(capsys):
     assert "no function named 'no_such_thing'" in capsys.readouterr().err
 
 
+def test_a_mistyped_name_gets_the_close_names(capsys):
+    assert main(["functions", "change_point"]) == 2
+    assert capsys.readouterr().err == (
+        "seriesql functions: no function named 'change_point'; did you mean change_points, change_points_agg "
+        "or change_points_path? `seriesql functions` lists them\n"
+    )
+    assert main(["functions", "dominant_period_ag"]) == 2
+    assert "did you mean dominant_period_agg, dominant_period or periods_agg?" in capsys.readouterr().err
+    assert main(["functions", "Seasonality_Agg"]) == 0  # SQL names are not case-sensitive
+    assert capsys.readouterr().out.startswith("seasonality(values")
+
+
 def test_console_entry_point_runs():
     done = subprocess.run([sys.executable, "-m", "tsql.cli", "functions", "--markdown"], capture_output=True, text=True)
     assert done.returncode == 0 and done.stdout.startswith("| family | function |")

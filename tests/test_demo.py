@@ -154,7 +154,7 @@ def test_load_profile_against_the_planted_peaks(first_run, prose, planted):
 def test_ends_with_the_caution_and_where_to_go_next(first_run, out, prose):
     assert " ".join(demo.CAUTION.split()) in prose
     assert "not trading, staffing or safety advice" in prose
-    assert f"seriesql shell {first_run[0]}" in out
+    assert f"seriesql shell {first_run[0]} --read-only" in out
 
 
 def test_ends_by_offering_the_report_that_runs(first_run, out, tmp_path, monkeypatch):

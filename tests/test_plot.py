@@ -2,6 +2,7 @@
 
 import contextlib
 import io
+import re
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
@@ -218,3 +219,93 @@ def test_query_from_a_file_and_a_series_too_short_to_smooth(db, tmp_path):
     assert code == 0 and "(3 series, 96 points)" in stdout
     assert err == "seriesql plot: too few values for a smooth curve: north, west\n"
     assert [g for g in groups(out) if g.startswith("tsql-smooth-")] == ["tsql-smooth-1"]
+
+
+def runs(svg_path, gid: str) -> list[np.ndarray]:
+    """The vertices of a line's path in picture coordinates, one (n, 2) array per unbroken run."""
+    root = ET.parse(svg_path).getroot()
+    group = next(g for g in root.iter(f"{SVG}g") if g.get("id") == gid)
+    d = next(child for child in group if child.tag == f"{SVG}path").get("d")
+    found = []
+    for command, x, y in re.findall(r"([ML])\s*(-?[\d.]+)\s+(-?[\d.]+)", d):
+        if command == "M":
+            found.append([])
+        found[-1].append((float(x), float(y)))
+    return [np.array(run) for run in found]
+
+
+def test_gaps_on_the_grid_are_breaks(tmp_path):
+    out = tmp_path / "gaps.svg"
+    sql = (
+        # daily: days 20-24 have no row and day 40 a NULL value; monthly: July 2020 has no row (months
+        # of 28 to 31 days are one step of a monthly grid, so the other spacings are no gaps)
+        "SELECT 'daily' AS s, DATE '2024-01-01' + INTERVAL (i) DAY AS t, CASE WHEN i = 40 THEN NULL ELSE i END AS v "
+        "FROM range(60) r(i) WHERE i NOT BETWEEN 20 AND 24 UNION ALL "
+        "SELECT 'monthly', DATE '2020-01-01' + INTERVAL (i) MONTH, i FROM range(24) r(i) WHERE i <> 6"
+    )
+    code, stdout, err = run(["plot", "--sql", sql, "--out", str(out)])
+    assert code == 0 and err == "" and "(2 series, 78 points)" in stdout
+    assert [len(r) for r in runs(out, "tsql-series-1")] == [20, 15, 19]
+    assert [len(r) for r in runs(out, "tsql-series-2")] == [6, 17]
+    daily = runs(out, "tsql-series-1")
+    step = np.diff(daily[0][:, 0]).mean()
+    assert daily[1][0, 0] - daily[0][-1, 0] == pytest.approx(6 * step, rel=1e-3)  # day 19 to day 25
+
+
+def test_a_point_alone_between_gaps_is_a_dot(tmp_path):
+    out = tmp_path / "alone.svg"
+    sql = "SELECT i / 2 AS t, i AS y FROM range(31) r(i) WHERE i NOT IN (10, 12, 20, 21)"  # steps of 0.5
+    assert run(["plot", "--sql", sql, "--out", str(out)])[0] == 0
+    line = runs(out, "tsql-series-1")
+    assert [len(r) for r in line] == [10, 1, 7, 9]
+    assert groups(out)["tsql-series-1"] == ["path", "defs", "g"]  # the line, the dot's shape, the dot
+    group = next(g for g in ET.parse(out).getroot().iter(f"{SVG}g") if g.get("id") == "tsql-series-1")
+    (dot,) = group.iter(f"{SVG}use")
+    assert (float(dot.get("x")), float(dot.get("y"))) == pytest.approx(tuple(line[1][0]), abs=1e-3)
+
+
+def smooth_miss(svg_path, k: int) -> float:
+    """The largest distance, in picture units, between series k's smooth curve and its line at the line's points."""
+    line = np.concatenate(runs(svg_path, f"tsql-series-{k}"))
+    curve = np.concatenate(runs(svg_path, f"tsql-smooth-{k}"))
+    at = np.searchsorted(curve[:, 0], line[:, 0]).clip(0, len(curve) - 1)
+    same = np.abs(curve[at, 0] - line[:, 0]) < 1e-3
+    assert same.sum() > 0.9 * len(line)  # nearly every day of the line is a point of the curve
+    return float(np.abs(curve[at[same], 1] - line[same, 1]).max())
+
+
+def test_smooth_without_period_uses_each_series_dominant_period(db, tmp_path):
+    # each series is a level plus one sine of 7, 14 or 21 days: harmonics of the series' own period fit it
+    # exactly, so its smooth curve lies on its line; one period for all (or the whole record) cannot
+    out = tmp_path / "own.svg"
+    code, _, err = run(
+        ["plot", "--db", db, "--sql", "SELECT region, day, sales FROM sales", "--smooth", "--out", str(out)]
+    )
+    assert code == 0 and err == ""
+    assert [smooth_miss(out, k) for k in (1, 2, 3)] == pytest.approx([0, 0, 0], abs=0.5)
+    for period in ("7 days", "90"):
+        other = tmp_path / f"fixed {period}.svg"
+        argv = ["plot", "--db", db, "--sql", "SELECT region, day, sales FROM sales", "--smooth", "--out", str(other)]
+        assert run([*argv, "--period", period])[0] == 0
+        assert max(smooth_miss(other, k) for k in (1, 2, 3)) > 5
+
+
+def test_a_series_without_a_dominant_period_is_smoothed_over_its_record(tmp_path):
+    out = tmp_path / "flat.svg"
+    code, _, err = run(["plot", "--sql", "SELECT i AS t, 5.0 AS y FROM range(30) r(i)", "--smooth", "--out", str(out)])
+    assert code == 0
+    assert err == "seriesql plot: no dominant period in y: smoothed over the whole record; give one with --period\n"
+    assert "tsql-smooth-1" in groups(out)
+
+
+def test_one_line_of_more_than_50000_points_gets_a_warning(tmp_path):
+    def draw(sql: str) -> str:
+        code, _, err = run(["plot", "--sql", sql, "--out", str(tmp_path / "long.png"), "--replace"])
+        assert code == 0
+        return err
+
+    err = draw("SELECT i AS t, sqrt(i) AS y FROM range(50001) r(i)")
+    assert err.startswith("seriesql plot: warning: one line of 50,001 points; ") and err.count("\n") == 1
+    assert "return the series column too" in err and "aggregate first" in err
+    assert draw("SELECT i AS t, sqrt(i) AS y FROM range(50000) r(i)") == ""
+    assert draw("SELECT i // 2 AS t, sqrt(i) AS y, (i % 2)::VARCHAR AS s FROM range(50002) r(i)") == ""  # two series

@@ -64,7 +64,7 @@ def test_failure_reports_file_and_line_and_stops(scripts, tmp_path, capsys):
         "INSERT INTO sales VALUES ('never', 0);\n",
     )
     db = tmp_path / "shop.duckdb"
-    assert main(["run", *files, "--db", str(db)]) == 1
+    assert main(["run", *files, "--db", str(db), "--create"]) == 1
     err = capsys.readouterr().err
     assert err.startswith("b.sql:3: Catalog Error: ") and "no_such_table" in err and "Traceback" not in err
     with duckdb.connect(str(db)) as con:
@@ -82,7 +82,7 @@ def test_a_value_that_looks_like_sql_stays_a_value(scripts, tmp_path, capsys):
     files = scripts(a=CREATE, b="INSERT INTO sales VALUES ($item, 1);\nSELECT item FROM sales WHERE units = 1;")
     db = tmp_path / "shop.duckdb"
     hostile = "x'; DROP TABLE sales; --"
-    assert main(["run", *files, "--db", str(db), "--param", f"item={hostile}"]) == 0
+    assert main(["run", *files, "--db", str(db), "--create", "--param", f"item={hostile}"]) == 0
     assert capsys.readouterr().out.splitlines()[2] == hostile
     with duckdb.connect(str(db)) as con:
         assert con.sql("SELECT count(*) FROM sales").fetchall() == [(4,)]
@@ -99,7 +99,7 @@ def test_each_statement_gets_only_the_params_it_uses(scripts, capsys):
 def test_a_param_with_no_value_stops_before_anything_runs(scripts, tmp_path, capsys):
     files = scripts(a=CREATE, b="SELECT * FROM sales\nWHERE units > 1;\nSELECT $least;")
     db = tmp_path / "shop.duckdb"
-    assert main(["run", *files, "--db", str(db)]) == 2
+    assert main(["run", *files, "--db", str(db), "--create"]) == 2
     assert capsys.readouterr().err == "seriesql run: b.sql:3: no value for $least; give it with --param least=VALUE\n"
     assert not db.exists()
 
@@ -175,3 +175,82 @@ def test_an_argument_error_reads_plainly(tmp_path, capsys):
     err = capsys.readouterr().err
     assert f"{script}:2: Invalid Input Error: acf: max_lag must be >= 1, got 0" in err
     assert "Python exception" not in err
+
+
+# The database file: never made by a typo, shared with other readers under --read-only.
+
+
+def test_a_database_that_does_not_exist_is_made_only_with_create(scripts, tmp_path, capsys):
+    files = scripts(a=CREATE, b="SELECT count(*) AS n FROM sales;")
+    typo = tmp_path / "shpo.duckdb"
+    assert main(["run", *files, "--db", str(typo)]) == 2
+    err = capsys.readouterr().err
+    assert err == f"seriesql run: no database at {typo}; check the path, or pass --create to make a new one\n"
+    assert not typo.exists()
+    assert main(["run", *files, "--db", str(typo), "--read-only"]) == 2
+    assert "no database at" in capsys.readouterr().err and not typo.exists()
+    assert main(["run", *files, "--db", str(typo), "--create"]) == 0
+    assert capsys.readouterr().out.splitlines()[2].strip() == "3"
+    assert main(["run", *scripts(c="SELECT count(*) AS n FROM sales;"), "--db", str(typo)]) == 0  # it exists now
+    assert capsys.readouterr().out.splitlines()[2].strip() == "3"
+    assert main(["run", *scripts(d="SELECT 6 * 7 AS answer;")]) == 0  # in memory: nothing to create
+    assert capsys.readouterr().out.splitlines()[2].strip() == "42"
+
+
+class Holder:
+    """A `seriesql shell` in another process with the database open, fed by a pipe (kept open)."""
+
+    def __init__(self, db, *args):
+        command = [sys.executable, "-u", "-m", "tsql", "shell", str(db), *args]
+        self.process = subprocess.Popen(command, stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
+        banner = self.process.stdout.readline()  # printed once the database is open
+        assert f"on {db}" in banner, banner
+
+    def close(self):
+        self.process.stdin.close()
+        assert self.process.wait(timeout=60) == 0
+
+
+@pytest.fixture
+def warehouse(tmp_path):
+    db = tmp_path / "shop.duckdb"
+    with duckdb.connect(str(db)) as con:
+        con.execute(CREATE)
+    return db
+
+
+def test_read_only_runs_beside_a_read_only_shell(scripts, warehouse, capsys):
+    # DuckDB's rule: any number of processes may open a file read-only together; one that writes has it alone
+    files = scripts(report="SELECT sum(units) AS total FROM sales;")
+    holder = Holder(warehouse, "--read-only")
+    try:
+        assert main(["run", *files, "--db", str(warehouse), "--read-only"]) == 0
+        assert capsys.readouterr().out.splitlines()[2].strip() == "555"
+        assert main(["run", *files, "--db", str(warehouse)]) == 2
+        err = capsys.readouterr().err
+        pid = holder.process.pid
+        assert err.startswith(f"seriesql run: {warehouse} is open read-only in another process (PID {pid}); ")
+        assert "pass --read-only if this only reads" in err and err.count("\n") == 1
+    finally:
+        holder.close()
+
+
+def test_a_shell_that_writes_has_the_file_alone(scripts, warehouse, capsys):
+    files = scripts(report="SELECT sum(units) AS total FROM sales;")
+    holder = Holder(warehouse)
+    try:
+        assert main(["run", *files, "--db", str(warehouse), "--read-only"]) == 2
+        err = capsys.readouterr().err
+        assert err.startswith(f"seriesql run: {warehouse} is open for writing in another process (PID ")
+        assert "close it there first" in err and err.count("\n") == 1 and "Traceback" not in err
+    finally:
+        holder.close()
+
+
+def test_read_only_refuses_to_write(scripts, warehouse, capsys):
+    files = scripts(a="SELECT 1;\nINSERT INTO sales VALUES ('roll', 7);")
+    assert main(["run", *files, "--db", str(warehouse), "--read-only"]) == 1
+    err = capsys.readouterr().err
+    assert err.startswith("a.sql:2: ") and "read-only" in err
+    with duckdb.connect(str(warehouse), read_only=True) as con:
+        assert con.sql("SELECT count(*) FROM sales").fetchall() == [(3,)]

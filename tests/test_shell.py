@@ -212,6 +212,48 @@ def test_read_only_database_and_welcome_line(shell, tmp_path):
     assert s.run("SELECT acf([1, 3, 2, 4], max_lag := 1) AS r;").count("1 row") == 1
 
 
+SCREEN = (
+    "SELECT 'sine' AS item, seasonality(list(sin(2 * pi() * i / 12) + (i * 7 % 5) / 4 ORDER BY i)) AS s "
+    "FROM range(240) t(i);"
+)
+
+
+def test_expand_and_digits_for_screening(shell):
+    import tsql
+
+    with tsql.connect() as con:  # the same query in Python: what the columns must show
+        period, strength, p_value = con.sql(SCREEN.rstrip(";")).fetchall()[0][1].values()
+    assert 0 < p_value < 1e-30  # a clear cycle: the p-value is tiny, and must not show as 0
+    s = shell()
+    out = s.run(SCREEN)
+    assert re.search(r"\nitem\s+s\n", out) and "{period: " in out
+    assert "expand on" in s.run(":expand on")
+    assert "digits 3" in s.run(":digits 3")
+    out = s.run(SCREEN)
+    header, rule, row = out.splitlines()[1:4]
+    assert header.split() == ["item", "s.period", "s.strength", "s.p_value"], out
+    assert row.split() == ["sine", f"{period:.3g}", f"{strength:.3g}", f"{p_value:.3g}"]
+    assert "e-" in row.split()[-1]
+    assert "digits 10" in s.run(":digits 10")
+    assert row.split()[1:] != s.run(SCREEN).splitlines()[3].split()[1:]  # more digits again
+    assert "expand off" in s.run(":expand off")
+    assert re.search(r"\nitem\s+s\n", s.run(SCREEN))
+    assert "expand on" in s.run(":expand")  # without a word: switch
+    assert "usage: :digits N, a whole number from 1 to 17; got '0'" in s.run(":digits 0")
+    assert "usage: :expand on|off" in s.run(":expand sideways")
+    assert "digits 10" in s.run(":digits")  # unchanged by the mistake
+    help_text = s.run(":help")
+    assert ":expand on|off" in help_text and ":digits N" in help_text
+
+
+def test_function_suggests_close_names(shell):
+    s = shell()
+    out = s.run(":function seasonalty")
+    assert "no function named 'seasonalty'; did you mean seasonality or seasonality_agg? :functions lists them" in out
+    assert "seasonality(values, min_period" in s.run(":function SEASONALITY_AGG")
+    assert "no function named 'xyzzy'; :functions lists them" in s.run(":function xyzzy")
+
+
 # The history file's place.
 
 
@@ -251,6 +293,47 @@ def test_values_render_compactly_on_one_line():
     row = ["a\nb", True, float("nan"), dt.timedelta(days=3, hours=2), b"ab\x00", ["x", None], 0.1 + 0.2]
     line = format_table([str(i) for i in range(len(row))], [row], width=200).splitlines()[2]
     assert line.split("  ") == ["a\\nb", "true", "NaN", "3 days 02:00:00", "ab\\x00", "['x', NULL]", "0.3"]
+
+
+def test_expanded_structs_are_columns_at_every_depth():
+    import pyarrow as pa
+
+    from tsql.render import expanded, format_arrow
+
+    fit = pa.array(
+        [{"period": 12.0, "p_value": 1.2e-38, "band": {"low": 11.5, "high": 12.5}}, None],
+        pa.struct(
+            [
+                ("period", pa.float64()),
+                ("p_value", pa.float64()),
+                ("band", pa.struct([("low", pa.float64()), ("high", pa.float64())])),
+            ]
+        ),
+    )
+    table = pa.table({"item": ["a", "b"], "fit": fit, "n": [1, 2]})
+    assert expanded(table).column_names == ["item", "fit.period", "fit.p_value", "fit.band.low", "fit.band.high", "n"]
+    assert format_arrow(table, width=100, expand=True).splitlines() == [
+        "item  fit.period  fit.p_value  fit.band.low  fit.band.high  n",
+        "----  ----------  -----------  ------------  -------------  -",
+        "a             12      1.2e-38          11.5           12.5  1",
+        "b           NULL         NULL          NULL           NULL  2",
+        "2 rows",
+    ]
+    assert format_arrow(table, width=100).splitlines()[0].split() == ["item", "fit", "n"]  # off by default
+
+
+def test_digits_are_significant_digits_and_small_numbers_keep_theirs():
+    row = [0.123456789012, 1.2e-38, 3.2969563881562585e-80, 123456.789, -0.0004567, [2.0 / 3.0], {"p": 1e-300}]
+    names = [str(i) for i in range(len(row))]
+    assert format_table(names, [row], width=200).splitlines()[2].split("  ") == [
+        "0.123456789", "1.2e-38", "3.296956388e-80", "123456.789", "-0.0004567", "[0.6666666667]", "{p: 1e-300}"
+    ]  # fmt: skip
+    assert format_table(names, [row], width=200, digits=3).splitlines()[2].split("  ") == [
+        "0.123", "1.2e-38", "3.3e-80", "1.23e+05", "-0.000457", "[0.667]", "{p: 1e-300}"
+    ]  # fmt: skip
+    assert (
+        format_table(["n"], [[12345678901234567]], digits=2).splitlines()[2] == "12345678901234567"
+    )  # whole numbers stay
 
 
 def test_long_results_show_the_first_rows_and_the_total():
@@ -342,3 +425,18 @@ def test_negative_zero_prints_as_zero():
     from tsql.render import format_table
 
     assert "-0" not in format_table(["r"], [(round(-0.001, 2),)], width=40, max_rows=5)
+
+
+def test_a_database_path_that_does_not_exist_needs_create(tmp_path):
+    typo = tmp_path / "shpo.duckdb"
+    env = dict(os.environ, HOME=str(tmp_path), SERIESQL_HISTORY="")
+    command = [sys.executable, "-m", "tsql", "shell", str(typo)]
+    done = subprocess.run(command, input="SELECT 1;\n", capture_output=True, text=True, env=env)
+    assert done.returncode == 2 and done.stdout == ""
+    assert done.stderr == f"seriesql shell: no database at {typo}; check the path, or pass --create to make a new one\n"
+    assert not typo.exists()
+    script = "CREATE TABLE kept AS SELECT 42 AS answer;\n"
+    done = subprocess.run([*command, "--create"], input=script, capture_output=True, text=True, env=env)
+    assert done.returncode == 0 and done.stderr == ""
+    with duckdb.connect(str(typo), read_only=True) as con:
+        assert con.sql("SELECT answer FROM kept").fetchall() == [(42,)]

@@ -7,8 +7,7 @@ import sys
 from pathlib import Path
 
 from tsql import __version__
-from tsql.reference import describe, function_list, markdown_table
-from tsql.registry import BY_NAME
+from tsql.reference import describe, find_function, function_list, markdown_table, unknown_function
 
 
 def _functions(args: argparse.Namespace) -> int:
@@ -16,9 +15,9 @@ def _functions(args: argparse.Namespace) -> int:
         print(markdown_table())
         return 0
     if args.name:
-        fn = BY_NAME.get(args.name.removesuffix("_agg"))
+        fn = find_function(args.name)
         if fn is None:
-            print(f"seriesql: no function named {args.name!r}; try `seriesql functions`", file=sys.stderr)
+            print(f"seriesql functions: {unknown_function(args.name, '`seriesql functions`')}", file=sys.stderr)
             return 2
         print(describe(fn))
         return 0
@@ -29,14 +28,22 @@ def _functions(args: argparse.Namespace) -> int:
 def _shell(args: argparse.Namespace) -> int:
     from tsql.shell import main as shell
 
-    return shell(args.database, read_only=args.read_only)
+    return shell(args.database, read_only=args.read_only, create=args.create)
 
 
 def _run_scripts(args: argparse.Namespace) -> int:
     from tsql.pipeline import UsageError, parse_params, run
 
     try:
-        return run(args.files, args.db, out=args.out, replace=args.replace, params=parse_params(args.param))
+        return run(
+            args.files,
+            args.db,
+            out=args.out,
+            replace=args.replace,
+            params=parse_params(args.param),
+            read_only=args.read_only,
+            create=args.create,
+        )
     except UsageError as error:
         print(f"seriesql run: {error}", file=sys.stderr)
         return 2
@@ -118,10 +125,17 @@ def main(argv: list[str] | None = None) -> int:
     shell = commands.add_parser("shell", help="an interactive SQL session with every function registered")
     shell.add_argument("database", nargs="?", default=":memory:", help="a DuckDB file (default: in memory)")
     shell.add_argument("--read-only", action="store_true", help="open the database read-only")
+    shell.add_argument("--create", action="store_true", help="make the database file if it does not exist")
     shell.set_defaults(run=_shell)
     script = commands.add_parser("run", help="run SQL files in order, as a pipeline step")
     script.add_argument("files", nargs="+", metavar="FILE.sql", help="SQL files, run in the order given")
     script.add_argument("--db", default=":memory:", metavar="DATABASE", help="a DuckDB file (default: in memory)")
+    script.add_argument(
+        "--read-only",
+        action="store_true",
+        help="open the database read-only: a run that only reads can share the file with other read-only processes",
+    )
+    script.add_argument("--create", action="store_true", help="make the database file if it does not exist")
     script.add_argument("--out", metavar="RESULT", help="write the last result to a .csv, .parquet, .json or .jsonl")
     script.add_argument("--replace", action="store_true", help="let --out overwrite an existing file")
     script.add_argument(
@@ -156,7 +170,11 @@ def main(argv: list[str] | None = None) -> int:
     )
     picture.add_argument("--smooth", action="store_true", help="overlay each series' harmonic_smooth_agg curve")
     picture.add_argument("--harmonics", type=int, default=3, metavar="N", help="harmonics of --smooth (default 3)")
-    picture.add_argument("--period", metavar="SPAN", help="period of --smooth: '1 day', '1 year' or a number of steps")
+    picture.add_argument(
+        "--period",
+        metavar="SPAN",
+        help="period of --smooth: '1 day', '1 year' or a number of steps (default: each series' dominant period)",
+    )
     picture.add_argument("--title", metavar="TEXT", help="a title above the picture")
     picture.add_argument("--replace", action="store_true", help="let --out overwrite an existing file")
     picture.set_defaults(run=_plot)

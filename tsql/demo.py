@@ -490,7 +490,7 @@ def _conclude(path: Path, width: int) -> None:
     print("To explore further:")
     where = shlex.quote(str(path))
     for what, command in (
-        ("The same warehouse, your own queries (try :tables):", [f"seriesql shell {where}"]),
+        ("The same warehouse, your own queries (try :tables):", [f"seriesql shell {where} --read-only"]),
         (
             "Every function, then one described with an example:",
             ["seriesql functions", "seriesql functions seasonality"],

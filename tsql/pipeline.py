@@ -37,6 +37,45 @@ class UsageError(Exception):
     """A mistake in how the command was called (exit code 2), not in the SQL."""
 
 
+def open_database(database: str, read_only: bool = False, create: bool = False) -> duckdb.DuckDBPyConnection:
+    """Open ``database`` (a DuckDB file, or ``:memory:``) with every tsql function registered.
+
+    A file that does not exist is made only when ``create`` is set, so a mistyped path stops with an
+    error instead of becoming an empty database. DuckDB lets several processes open a file read-only
+    at once, but a process that opens it for writing has it alone; a lock held elsewhere is explained
+    with what to do. Raises :class:`UsageError` with a message for the user.
+    """
+    from tsql.binding import connect
+
+    if database != ":memory:":
+        path = Path(database).expanduser()
+        if path.is_dir():
+            raise UsageError(f"{database} is a folder, not a database file")
+        if not path.exists():
+            if read_only:
+                raise UsageError(f"no database at {database}; --read-only opens an existing file (check the path)")
+            if not create:
+                raise UsageError(f"no database at {database}; check the path, or pass --create to make a new one")
+        database = str(path)
+    try:
+        return connect(database, read_only=read_only)
+    except duckdb.Error as error:
+        message = str(error).strip()
+        if "Could not set lock" not in message:
+            raise UsageError(f"cannot open {database}: {message.splitlines()[0]}") from None
+        pid = re.search(r"\(PID (\d+)\)", message)
+        who = f"another process (PID {pid[1]})" if pid else "another process"
+        if not read_only and "read-only mode" in message:  # the other process reads only
+            raise UsageError(
+                f"{database} is open read-only in {who}; pass --read-only if this only reads "
+                "(read-only processes can share a file), or close that process first"
+            ) from None
+        raise UsageError(
+            f"{database} is open for writing in {who}; close it there first (a file one process writes "
+            "cannot be opened by another, not even read-only), or open both with --read-only"
+        ) from None
+
+
 def parse_params(pairs: list[str]) -> dict[str, str]:
     """``name=value`` strings from the command line as a dict; the value is everything after the first ``=``."""
     params: dict[str, str] = {}
@@ -137,8 +176,14 @@ def run(
     out: str | None = None,
     replace: bool = False,
     params: dict[str, str] | None = None,
+    read_only: bool = False,
+    create: bool = False,
 ) -> int:
     """Run the statements of ``files`` in order; show or write the last one's result.
+
+    ``read_only`` opens the database read-only (the run may then share the file with other
+    read-only processes, such as ``seriesql shell PATH --read-only``); ``create`` lets a
+    database file that does not exist be made.
 
     Returns 0 on success and 1 when a statement fails; raises :class:`UsageError`
     for mistakes found before any SQL runs (unreadable file, a parameter with
@@ -152,12 +197,7 @@ def run(
             raise UsageError(f"{out} exists; pass --replace to overwrite it")
         if _statement_info(last.statement.text)[1] not in (duckdb.StatementType.SELECT, None):
             raise UsageError(f"{last.path}:{last.statement.line}: --out needs the last statement to be a query")
-    from tsql.binding import connect
-
-    try:
-        con = connect(database)
-    except duckdb.Error as error:
-        raise UsageError(str(error)) from None
+    con = open_database(database, read_only=read_only, create=create)
     if sys.stdout.isatty():
         con.execute("SET enable_progress_bar = true")
     with con:

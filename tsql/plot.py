@@ -4,11 +4,13 @@ The query returns one row per observation: a time, a value and, optionally, a
 series. Columns named ``time``, ``value`` and ``series`` are taken by name;
 otherwise by type: the text column is the series, the DATE or TIMESTAMP column
 the time and the numeric column the value (of two numeric columns, the first
-is the time). Each series is one line. ``marks`` is a second query whose rows
-are times, optionally with a series (a list of times, as ``change_points_agg``
-returns, counts as one mark per element); each becomes a dotted vertical line
-in its series' colour. ``smooth`` overlays ``harmonic_smooth_agg`` of each
-series, computed in SQL over the same query.
+is the time). Each series is one line, broken where its grid (as ``on_grid``
+infers it) has steps without a row or rows without a value. ``marks`` is a
+second query whose rows are times, optionally with a series (a list of times,
+as ``change_points_agg`` returns, counts as one mark per element); each becomes
+a dotted vertical line in its series' colour. ``smooth`` overlays
+``harmonic_smooth_agg`` of each series, computed in SQL over the same query, at
+the given period or else at each series' dominant period.
 
 matplotlib is an optional dependency (``pip install 'seriesql[plot]'``); it is
 imported only here, and drawn with the Agg canvas, so no display is needed.
@@ -26,6 +28,7 @@ from pathlib import Path
 from typing import Any
 
 import duckdb
+import numpy as np
 import pyarrow as pa
 
 __all__ = ["FORMATS", "MISSING_MATPLOTLIB", "Drawn", "PlotError", "Series", "plot", "plot_query"]
@@ -34,6 +37,9 @@ FORMATS = {".png": "png", ".svg": "svg"}
 MISSING_MATPLOTLIB = "matplotlib is not installed; install it with: pip install 'seriesql[plot]'"
 LEGEND_LIMIT = 12
 """More series than this get no legend (it would hide the picture)."""
+LONG_LINE = 50_000
+"""A single line (no series column) of more points than this is most likely several series or raw
+rows that were meant to be aggregated: the picture then warns."""
 _ROLES = ("time", "value", "series")
 
 
@@ -51,6 +57,8 @@ class Series:
     smooth_times: list[Any] = field(default_factory=list)
     smooth_values: list[float] = field(default_factory=list)
     marks: list[Any] = field(default_factory=list)
+    alone: list[int] = field(default_factory=list)
+    """Positions of values with no present neighbour, drawn as dots."""
 
 
 @dataclass(frozen=True)
@@ -62,6 +70,10 @@ class Drawn:
     points: int
     unsmoothed: tuple[str, ...] = ()
     """Series that got no smooth curve (too few values for the harmonics asked for)."""
+    no_period: tuple[str, ...] = ()
+    """Series smoothed over their whole record, having no dominant period (``smooth`` without ``period``)."""
+    one_long_line: bool = False
+    """The query had no series column and gave more than :data:`LONG_LINE` points."""
 
 
 def plot_query(
@@ -88,8 +100,12 @@ def plot_query(
     table = _query(con, sql, "--sql")
     roles = column_roles(table.schema, "--sql")
     series = _series(table, roles)
+    no_period: tuple[str, ...] = ()
     if smooth:
-        _add_smooth(con, sql, table.schema, roles, series, harmonics, period)
+        no_period = _add_smooth(con, sql, table.schema, roles, series, harmonics, period)
+    points = sum(len(s.times) for s in series.values())
+    for s in series.values():
+        _break_at_gaps(s)
     time_kind = _kind(table.schema.field(roles["time"]).type)
     if marks is not None:
         _add_marks(_query(con, _one_statement(marks, "--marks"), "--marks"), series, time_kind)
@@ -99,7 +115,9 @@ def plot_query(
     except (ValueError, TypeError, OverflowError) as error:  # matplotlib refusing the data
         raise PlotError(f"cannot draw the picture: {_first_line(error)}") from None
     unsmoothed = tuple(s.name for s in series.values() if smooth and not s.smooth_times)
-    return Drawn(path, len(series), sum(len(s.times) for s in series.values()), unsmoothed)
+    no_period = tuple(name for name in no_period if name not in unsmoothed)
+    long_line = "series" not in roles and points > LONG_LINE
+    return Drawn(path, len(series), points, unsmoothed, no_period, long_line)
 
 
 def check_out(out: str | os.PathLike, replace: bool) -> tuple[Path, str]:
@@ -235,6 +253,44 @@ def _sort_key(t: Any) -> Any:
     return t
 
 
+def _ticks(times: list[Any]) -> tuple[np.ndarray, bool]:
+    """Times as the grid kernel's ticks (microseconds since 1970 for dates and timestamps, UTC for a
+    zone), and whether they are temporal."""
+    if not isinstance(times[0], dt.date):
+        return np.array([float(t) for t in times]), False
+    epoch = dt.datetime(1970, 1, 1)
+    ticks = np.empty(len(times))
+    for i, t in enumerate(times):
+        delta = _sort_key(t) - epoch
+        ticks[i] = (delta.days * 86_400 + delta.seconds) * 1_000_000 + delta.microseconds
+    return ticks, True
+
+
+def _break_at_gaps(s: Series) -> None:
+    """Put a missing value between two observations with grid steps missing between them, so the line
+    breaks there; a point left alone between breaks gets a dot (a line of one point draws nothing)."""
+    from tsql.kernels.grid import on_grid
+    from tsql.kernels.ragged import Ragged
+
+    if len(s.times) < 2:
+        return
+    ticks, temporal = _ticks(s.times)
+    try:
+        grid = on_grid(Ragged.from_list([ticks]), Ragged.from_list([s.values]), temporal)
+    except ValueError:  # a grid too fine for its span: draw the line as it is
+        return
+    if len(grid.points) != len(s.times):  # no grid for this series (a stray time far away)
+        return
+    after = np.flatnonzero(np.diff(grid.points) > 1)  # a break goes after these, at the same time
+    source = np.insert(np.arange(len(s.times)), after + 1, after)
+    values = np.insert(np.asarray(s.values, dtype=np.float64), after + 1, np.nan)
+    s.times, s.values = [s.times[i] for i in source], values.tolist()
+    present = ~np.isnan(values)
+    before = np.concatenate(([False], present[:-1]))
+    later = np.concatenate((present[1:], [False]))
+    s.alone = np.flatnonzero(present & ~before & ~later).tolist()
+
+
 def _quote(name: str) -> str:
     return '"' + name.replace('"', '""') + '"'
 
@@ -265,25 +321,37 @@ def _add_smooth(
     series: dict[str, Series],
     harmonics: int,
     period: str | None,
-) -> None:
+) -> tuple[str, ...]:
+    """Fill in each series' smooth curve; returns the series smoothed without a period (none found)."""
     time, value = _quote(schema.names[roles["time"]]), _quote(schema.names[roles["value"]])
     key = _quote(schema.names[roles["series"]]) if "series" in roles else "NULL"
+    rows = f"(SELECT {key} AS k, {time} AS t, {value} AS v FROM __tsql_plot WHERE {time} IS NOT NULL)"
+    if period is None:  # each series' dominant period, in steps of its grid (as the smooth's own)
+        periods = (
+            f"(SELECT k, dominant_period(on_grid(list(v ORDER BY t), list(t ORDER BY t))) AS p FROM {rows} GROUP BY k)"
+        )
+    else:
+        periods = f"(SELECT DISTINCT k, {_period_literal(con, period)} AS p FROM {rows})"
     smooth_sql = (
-        f"WITH __tsql_plot AS ({sql}\n) SELECT {key} AS k, harmonic_smooth_agg({value}, {time}, "
-        f"harmonics := {int(harmonics)}, period := {_period_literal(con, period)}) AS s "
-        f"FROM __tsql_plot WHERE {time} IS NOT NULL GROUP BY ALL"
+        f"WITH __tsql_plot AS ({sql}\n) SELECT r.k, p.p IS NULL, harmonic_smooth_agg(r.v, r.t, "
+        f"harmonics := {int(harmonics)}, period := p.p) AS s "
+        f"FROM {rows} r JOIN {periods} p ON r.k IS NOT DISTINCT FROM p.k GROUP BY r.k, p.p"
     )
     try:
-        rows = con.execute(smooth_sql).fetchall()
+        found = con.execute(smooth_sql).fetchall()
     except duckdb.Error as error:
         raise PlotError(f"--smooth failed: {_first_line(error)}") from None
     default = schema.names[roles["value"]]
-    for k, points in rows:
+    no_period = []
+    for k, unknown, points in found:
         target = series.get(_label(k) if "series" in roles else default)
         if target is None or not points:
             continue  # a series of NULL values only, or too short to fit
         target.smooth_times = [p["time"] for p in points]
         target.smooth_values = [_number(p["value"]) for p in points]
+        if unknown and period is None:
+            no_period.append(target.name)
+    return tuple(sorted(no_period))
 
 
 def _add_marks(table: pa.Table, series: dict[str, Series], time_kind: str) -> None:
@@ -354,6 +422,8 @@ def plot(
             colour = colours[(k - 1) % len(colours)]
             temporal = temporal or isinstance(s.times[0], dt.date)
             (line,) = axes.plot(s.times, s.values, color=colour, linewidth=1.1, label=s.name)
+            if s.alone:
+                line.set(marker="o", markersize=2.5, markevery=s.alone)
             line.set_gid(f"tsql-series-{k}")
             if s.smooth_times:
                 (curve,) = axes.plot(
@@ -410,7 +480,7 @@ def main(
     """The ``seriesql plot`` command: returns the exit code and prints one line about what it wrote."""
     import sys
 
-    from tsql.binding import connect
+    from tsql.pipeline import UsageError, open_database
 
     try:
         check_out(out, replace)
@@ -418,9 +488,9 @@ def main(
         if db != ":memory:" and not Path(db).expanduser().exists():
             raise PlotError(f"no database at {db}")
         try:
-            con = connect(str(Path(db).expanduser()) if db != ":memory:" else db, read_only=db != ":memory:")
-        except duckdb.Error as error:
-            raise PlotError(f"cannot open {db}: {_first_line(error)}") from None
+            con = open_database(db, read_only=db != ":memory:")
+        except UsageError as error:
+            raise PlotError(str(error)) from None
         with con:
             con.execute("SET enable_progress_bar = false")
             drawn = plot_query(con, sql, out, marks, smooth, harmonics, period, title, replace)
@@ -430,4 +500,16 @@ def main(
     print(f"wrote {drawn.path} ({drawn.series:,} series, {drawn.points:,} points)")
     if drawn.unsmoothed:
         print(f"seriesql plot: too few values for a smooth curve: {', '.join(drawn.unsmoothed)}", file=sys.stderr)
+    if drawn.no_period:
+        print(
+            f"seriesql plot: no dominant period in {', '.join(drawn.no_period)}: smoothed over the whole record; "
+            "give one with --period",
+            file=sys.stderr,
+        )
+    if drawn.one_long_line:
+        print(
+            f"seriesql plot: warning: one line of {drawn.points:,} points; if the rows hold several series, "
+            "return the series column too (SELECT item, day, units ...), else aggregate first (one row per time)",
+            file=sys.stderr,
+        )
     return 0

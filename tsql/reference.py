@@ -6,10 +6,11 @@ per-function tables of docs/behaviour.md.
 
 from __future__ import annotations
 
+import difflib
 import sys
 from pathlib import Path
 
-from tsql.registry import FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Function
+from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Function
 
 
 def describe(fn: Function) -> str:
@@ -24,6 +25,26 @@ def describe(fn: Function) -> str:
         lines.append(f"  see also: {', '.join(fn.see_also)}")
     lines.append(f"  example: {fn.example}")
     return "\n".join(lines)
+
+
+def find_function(name: str) -> Function | None:
+    """The function called ``name`` (its ``*_agg`` form's name too; any case), or None."""
+    return BY_NAME.get(name.strip().lower().removesuffix("_agg"))
+
+
+def similar_names(name: str, count: int = 3) -> list[str]:
+    """Up to ``count`` public names (``*_agg`` forms included) close to a mistyped ``name``, closest first."""
+    names = [f.name for f in PUBLIC] + [f"{f.name}_agg" for f in FUNCTIONS if f.aggregate]
+    return difflib.get_close_matches(name.strip().lower(), names, n=count, cutoff=0.6)
+
+
+def unknown_function(name: str, listing: str) -> str:
+    """The message for a name that is no function: the close names, if any, and where the list is."""
+    close = similar_names(name)
+    guess = f"did you mean {close[0]}? " if len(close) == 1 else ""
+    if len(close) > 1:
+        guess = f"did you mean {', '.join(close[:-1])} or {close[-1]}? "
+    return f"no function named {name!r}; {guess}{listing} lists them"
 
 
 def function_list() -> str:

@@ -3,8 +3,11 @@
 Used by ``seriesql shell`` and ``seriesql run``. Layout: a header, a rule of dashes,
 the rows, and a footer line with the row count; columns two spaces apart,
 numbers right-aligned, NULL written as ``NULL``, lists as ``[1, 2]`` and
-structs as ``{name: value}``. Columns that do not fit are left out and the
-footer says how many; long results show their first rows.
+structs as ``{name: value}`` (or, expanded, one column per field: ``s.period``,
+``s.p_value``). Floating-point numbers show ``digits`` significant digits, in
+exponent form when small or large (a p-value of 1.2e-38 stays 1.2e-38). Columns
+that do not fit are left out and the footer says how many; long results show
+their first rows.
 """
 
 from __future__ import annotations
@@ -22,6 +25,10 @@ NULL = "NULL"
 GAP = "  "
 MIN_WIDTH = 12
 """Columns are narrowed, never below this (or their natural width), before any is left out."""
+DIGITS = 10
+"""Significant digits of a floating-point number, unless told otherwise."""
+MAX_DIGITS = 17
+"""Enough to tell any two doubles apart."""
 ELLIPSIS = "…"
 _ESCAPES = str.maketrans({"\n": "\\n", "\r": "\\r", "\t": "\\t"})
 
@@ -32,14 +39,16 @@ def format_table(
     width: int = 80,
     max_rows: int = 40,
     total_rows: int | None = None,
+    digits: int = DIGITS,
 ) -> str:
     """Render rows of Python values as a table at most ``width`` characters wide.
 
     At most ``max_rows`` rows are shown. ``total_rows`` is the size of the
     whole result when ``rows`` holds only its beginning (default: ``len(rows)``).
+    Floating-point numbers show ``digits`` significant digits.
     """
     total = len(rows) if total_rows is None else total_rows
-    shown = [[cell(v) for v in row] for row in rows[:max_rows]]
+    shown = [[cell(v, digits) for v in row] for row in rows[:max_rows]]
     names = [str(n).translate(_ESCAPES) for n in column_names]
     columns = list(zip(*shown)) if shown else [()] * len(names)
     numeric = [_is_numeric(row[i] for row in rows[:max_rows]) for i in range(len(names))]
@@ -66,37 +75,52 @@ def format_table(
     return "\n".join(out)
 
 
-def format_arrow(table: pa.Table, width: int = 80, max_rows: int = 40) -> str:
-    """:func:`format_table` for an Arrow table (only the rows shown are converted)."""
+def format_arrow(
+    table: pa.Table, width: int = 80, max_rows: int = 40, digits: int = DIGITS, expand: bool = False
+) -> str:
+    """:func:`format_table` for an Arrow table (only the rows shown are converted).
+
+    ``expand`` shows each STRUCT column as one column per field, named ``column.field`` (nested
+    structs too); a NULL struct shows NULL in each.
+    """
     head = table.slice(0, max_rows)
+    if expand:
+        head = expanded(head)
     rows = list(zip(*(column.to_pylist() for column in head.columns))) if head.num_columns else []
-    return format_table(table.column_names, rows, width, max_rows, total_rows=table.num_rows)
+    return format_table(head.column_names, rows, width, max_rows, total_rows=table.num_rows, digits=digits)
 
 
-def cell(value: Any) -> str:
+def expanded(table: pa.Table) -> pa.Table:
+    """``table`` with every STRUCT column replaced by its fields, named ``column.field``, at every depth."""
+    while any(pa.types.is_struct(t) for t in table.schema.types):
+        table = table.flatten()
+    return table
+
+
+def cell(value: Any, digits: int = DIGITS) -> str:
     """One value as table text: NULL for None, nested values compactly, no line breaks."""
     if isinstance(value, str):
         return value.translate(_ESCAPES)
-    return _text(value)
+    return _text(value, digits)
 
 
-def _text(value: Any) -> str:
+def _text(value: Any, digits: int = DIGITS) -> str:
     if value is None:
         return NULL
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, float):
-        return _float(value)
+        return _float(value, digits)
     if isinstance(value, str):  # inside a list or struct
         return "'" + value.replace("'", "''").translate(_ESCAPES) + "'"
     if isinstance(value, pa.MonthDayNano):
         return _interval(value.months, value.days, value.nanoseconds // 1000)
     if isinstance(value, dict):
-        return "{" + ", ".join(f"{k}: {_text(v)}" for k, v in value.items()) + "}"
+        return "{" + ", ".join(f"{k}: {_text(v, digits)}" for k, v in value.items()) + "}"
     if isinstance(value, list):
-        return "[" + ", ".join(_text(v) for v in value) + "]"
+        return "[" + ", ".join(_text(v, digits) for v in value) + "]"
     if isinstance(value, tuple):  # a map entry
-        return "(" + ", ".join(_text(v) for v in value) + ")"
+        return "(" + ", ".join(_text(v, digits) for v in value) + ")"
     if isinstance(value, dt.timedelta):
         return _interval(0, value.days, value.seconds * 1_000_000 + value.microseconds)
     if isinstance(value, bytes):
@@ -106,12 +130,12 @@ def _text(value: Any) -> str:
     return str(value)
 
 
-def _float(x: float) -> str:
+def _float(x: float, digits: int = DIGITS) -> str:
     if math.isnan(x):
         return "NaN"
     if math.isinf(x):
         return "inf" if x > 0 else "-inf"
-    return f"{x + 0.0:.10g}"  # + 0.0 turns -0.0 (e.g. a rounded -0.001) into 0
+    return f"{x + 0.0:.{digits}g}"  # + 0.0 turns -0.0 (e.g. a rounded -0.001) into 0
 
 
 def _interval(months: int, days: int, micros: int) -> str:

@@ -23,8 +23,8 @@ import pyarrow as pa
 
 from tsql import __version__
 from tsql.binding import interrupt, was_interrupted
-from tsql.pipeline import UsageError, is_query, out_options, write_result
-from tsql.render import error_message, format_arrow
+from tsql.pipeline import UsageError, is_query, open_database, out_options, write_result
+from tsql.render import DIGITS, MAX_DIGITS, error_message, format_arrow
 from tsql.statements import split_statements
 
 PROMPT = "seriesql> "
@@ -38,6 +38,8 @@ the input, Ctrl-D leaves. Every tsql function is available, e.g. SELECT acf([1, 
   :function NAME    describe one function, with an example query
   :tables           list the tables and views
   :timing           print the elapsed time after each statement (again: stop)
+  :expand on|off    show each STRUCT column as one column per field (s.period, s.p_value)
+  :digits N         significant digits of DOUBLE values shown (1 to 17; default 10)
   :save FILE        write the last result to FILE: .csv, .parquet, .json (an array) or .jsonl
   :help             this text
   :quit             leave the shell (so does Ctrl-D)"""
@@ -71,6 +73,8 @@ class Shell:
         self.label = label
         self.interactive = interactive
         self.timing = False
+        self.expand = False
+        self.digits = DIGITS
         self.last: pa.Table | None = None
 
     def loop(self) -> int:
@@ -130,7 +134,7 @@ class Shell:
             table = outcome.get("table")
             if isinstance(table, pa.Table) and (table.num_rows or is_query(sql)):
                 self.last = table
-                print(format_arrow(table, shutil.get_terminal_size().columns, MAX_ROWS))
+                print(self._table(table))
         if self.timing:
             print(f"elapsed {elapsed:.3f} s")
         return error is None
@@ -158,24 +162,49 @@ class Shell:
             self._describe(argument)
         elif name == "tables":
             table = self.con.sql(_TABLES).to_arrow_table()
-            print(format_arrow(table, shutil.get_terminal_size().columns, MAX_ROWS) if table.num_rows else "no tables")
+            print(self._table(table) if table.num_rows else "no tables")
         elif name == "timing":
             self.timing = not self.timing
             print(f"timing {'on' if self.timing else 'off'}")
+        elif name == "expand":
+            self._expand(argument)
+        elif name == "digits":
+            self._digits(argument)
         elif name == "save":
             self._save(argument)
         else:
             print(f"unknown command :{name}; :help lists the commands", file=sys.stderr)
 
-    def _describe(self, name: str) -> None:
-        from tsql.reference import describe
-        from tsql.registry import BY_NAME
+    def _table(self, table: pa.Table) -> str:
+        width = shutil.get_terminal_size().columns
+        return format_arrow(table, width, MAX_ROWS, digits=self.digits, expand=self.expand)
 
-        fn = BY_NAME.get(name.removesuffix("_agg"))
-        if fn is None:
-            print(f"no function named {name!r}; :functions lists them" if name else "usage: :function NAME")
-        else:
+    def _expand(self, argument: str) -> None:
+        if argument not in ("", "on", "off"):
+            print("usage: :expand on|off (without a word: switch)", file=sys.stderr)
+            return
+        self.expand = not self.expand if not argument else argument == "on"
+        print(f"expand {'on' if self.expand else 'off'}")
+
+    def _digits(self, argument: str) -> None:
+        if argument:
+            if not argument.isdigit() or not 1 <= int(argument) <= MAX_DIGITS:
+                print(f"usage: :digits N, a whole number from 1 to {MAX_DIGITS}; got {argument!r}", file=sys.stderr)
+                return
+            self.digits = int(argument)
+        print(f"digits {self.digits}")
+
+    def _describe(self, name: str) -> None:
+        from tsql.reference import describe, find_function, unknown_function
+
+        if not name:
+            print("usage: :function NAME", file=sys.stderr)
+            return
+        fn = find_function(name)
+        if fn is not None:
             print(describe(fn))
+            return
+        print(unknown_function(name, ":functions"), file=sys.stderr)
 
     def _save(self, argument: str) -> None:
         if not argument:
@@ -201,13 +230,14 @@ class Shell:
             self.con.unregister("__tsql_last_result")
 
 
-def main(database: str = ":memory:", read_only: bool = False) -> int:
-    """Open the database and run the session; returns the exit code."""
-    from tsql.binding import connect
+def main(database: str = ":memory:", read_only: bool = False, create: bool = False) -> int:
+    """Open the database and run the session; returns the exit code.
 
+    A database file that does not exist is made only with ``create`` (see :func:`tsql.pipeline.open_database`).
+    """
     try:
-        con = connect(database, read_only=read_only)
-    except duckdb.Error as error:
+        con = open_database(database, read_only=read_only, create=create)
+    except UsageError as error:
         print(f"seriesql shell: {error}", file=sys.stderr)
         return 2
     interactive = sys.stdin.isatty()
