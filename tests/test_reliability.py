@@ -881,11 +881,11 @@ print(con.execute("SELECT change_points(a) FROM big").fetchall()[0][0])
 def test_a_long_series_with_one_change_finishes():
     # a hang guard, not a speed test: the search for 'mean' prunes functionally (FPOP), so one long
     # segment no longer keeps every candidate start and this answers well within the timeout; plain
-    # PELT ran for minutes here
+    # PELT ran for minutes here; the bound is loose because a loaded 2-core machine can be several times slower
     try:
-        done = subprocess.run([sys.executable, "-c", _ONE_CHANGE], capture_output=True, text=True, timeout=8)
+        done = subprocess.run([sys.executable, "-c", _ONE_CHANGE], capture_output=True, text=True, timeout=60)
     except subprocess.TimeoutExpired:
-        pytest.fail("change_points on 1,000,000 points with one change did not finish within 8 s")
+        pytest.fail("change_points on 1,000,000 points with one change did not finish within 60 s")
     assert done.returncode == 0, done.stderr
     (found,) = eval(done.stdout)  # a one-element list of positions
     assert abs(found - 500_001) <= 50
