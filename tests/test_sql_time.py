@@ -151,6 +151,67 @@ def test_harmonic_profile_agg_finds_the_peak_hour_of_an_hourly_load(con):
     assert mean == pytest.approx(zero_mean, rel=1e-9)  # the profile's mean is the series' mean
 
 
+def test_profiles_start_at_midnight_whatever_hour_each_group_starts(con):
+    # two queues of an hourly load peaking at 14:00, one starting at 03:00, one at 07:00 (synthetic: the
+    # property that phase 0 is the clock's midnight; a one-harmonic daily cosine is fitted exactly)
+    con.execute(
+        """CREATE OR REPLACE TEMP TABLE queues AS
+           SELECT q, TIMESTAMP '2024-03-04' + to_hours(i) AS hour, 10 + 5 * cos(2 * pi() * (i % 24 - 14) / 24) AS v
+           FROM range(24 * 14) r(i), (VALUES ('a', 3), ('b', 7)) s(q, h0) WHERE i >= h0"""
+    )
+    rows = con.execute(
+        """SELECT q, harmonic_profile_agg(v, hour, INTERVAL 1 DAY, harmonics := 1),
+                  harmonic_profile_agg(v, hour, 24, harmonics := 1, anchor := 'first'),
+                  harmonic_profile_agg(v, hour::TIMESTAMPTZ, INTERVAL 1 DAY, harmonics := 1),
+                  hour(min(hour))
+           FROM queues GROUP BY q ORDER BY q"""
+    ).fetchall()
+    expected = 10 + 5 * np.cos(2 * np.pi * (np.arange(24) - 14) / 24)
+    for _, calendar, first, utc, h0 in rows:
+        assert calendar == pytest.approx(expected, abs=1e-9)  # element 1 is 00:00 to 01:00
+        assert calendar == list(np.roll(first, h0))  # 'first': phase 0 at the group's first hour, bit for bit
+        assert utc == calendar  # TIMESTAMPTZ: UTC hours
+    assert rows[0][1] == pytest.approx(rows[1][1], abs=1e-12)
+
+
+def test_a_weekly_profile_of_a_year_starts_on_the_first_of_january(con):
+    # weekly rows (Mondays) from November or February across year ends, a 52-week cosine peaking on
+    # 19 July 2021 (synthetic: the property that phase 0 is 1 January; 52 weeks, 364 days, reads as a year)
+    first_days = {"early": dt.date(2021, 11, 1), "late": dt.date(2022, 2, 7)}
+    peak = dt.date(2021, 7, 19)
+
+    def load(days):
+        return 10 + 5 * np.cos(2 * np.pi * np.asarray(days) / 364)
+
+    rows = [
+        (g, first + dt.timedelta(weeks=w), float(load((first - peak).days + 7 * w)))
+        for g, first in first_days.items()
+        for w in range(150)
+    ]
+    con.register("weeks", pa.table(dict(zip(("g", "week", "v"), map(list, zip(*rows))))))
+    answers = con.execute(
+        """SELECT g, harmonic_profile_agg(v, week, 52, harmonics := 1),
+                  harmonic_profile_agg(v, week, 52, harmonics := 1, anchor := 'first')
+           FROM weeks GROUP BY g ORDER BY g"""
+    ).fetchall()
+    for g, calendar, first in answers:
+        january = dt.date(first_days[g].year, 1, 1)  # of the year the group starts in
+        assert calendar == pytest.approx(load((january - peak).days + 7 * np.arange(52)), abs=1e-9), g
+        assert first == pytest.approx(load((first_days[g] - peak).days + 7 * np.arange(52)), abs=1e-9), g
+        assert int(np.argmax(calendar)) == 28  # 19 July 2021 (day 199), 18 July 2022 (day 198): week 28
+
+
+def test_calendar_phase_zero_of_numbers_is_zero(con):
+    rows = con.execute(
+        """SELECT harmonic_profile_agg(v, t, 10, harmonics := 1), harmonic_profile_agg(v, t, 10, harmonics := 1,
+                                                                                    anchor := 'first')
+           FROM (SELECT 100 + i AS t, cos(2 * pi() * (i + 100) / 10) AS v FROM range(5, 45) r(i))"""
+    ).fetchall()
+    calendar, first = rows[0]
+    assert calendar == pytest.approx(np.cos(2 * np.pi * np.arange(10) / 10), abs=1e-12)
+    assert calendar == list(np.roll(first, 5))
+
+
 def test_results_do_not_depend_on_row_order(con, sst):
     query = """SELECT dominant_period_agg(temperature, month), seasonality_agg(temperature, month),
                       change_points_agg(temperature, month), harmonic_smooth_agg(temperature, month),

@@ -194,8 +194,13 @@ def agg_macro(fn: Function) -> str:
     """``CREATE ... MACRO name_agg(value, time, ...)``: the group's observations to the grid UDF, its answer
     finished in time terms as the entry's answer kind says."""
     args = ["__tsql_observations(value, time)", "__tsql_time_type(time)", "__tsql_span(step)", "fill"]
-    call = f"{fn.udf_name}_on_grid({', '.join(args + [_passed(p, agg=True) for p in fn.params])})"
+    call = f"{fn.udf_name}_on_grid({', '.join(args + [_passed(p, agg=True) for p in agg_udf_params(fn)])})"
     return f"CREATE OR REPLACE TEMP MACRO {fn.agg_signature} AS {fn.answer.finish_sql(fn.returns, call)}"
+
+
+def agg_udf_params(fn: Function) -> tuple[Param, ...]:
+    """The arguments an ``*_agg`` UDF takes after the grid's: the function's, then its ``time_params``."""
+    return fn.params + fn.time_params
 
 
 def rows_macro(fn: Function) -> str:
@@ -237,7 +242,7 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
         params = [p.sql_type.sql for p in fn.params]
         create_udf(con, fn.udf_name, list_udf(fn), ["DOUBLE[]"] * len(fn.series) + params, fn.returns)
         if fn.aggregate:
-            params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in fn.params]
+            params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
             udf_returns = fn.answer.udf_returns(fn.returns)
             create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [_OBSERVATIONS] + grid_types + params, udf_returns)
     for fn in TABLE_FUNCTIONS:
@@ -329,7 +334,7 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
         return by_settings(len(obs), settings, run)
 
     return with_arity(
-        udf, f"{fn.udf_name}_on_grid", fn.doc, ["observations", *_GRID_ARGS] + [p.name for p in fn.params]
+        udf, f"{fn.udf_name}_on_grid", fn.doc, ["observations", *_GRID_ARGS] + [p.name for p in agg_udf_params(fn)]
     )
 
 

@@ -61,7 +61,7 @@ def positional_forms() -> list[str]:
     for fn in FUNCTIONS:
         forms.append(_form(fn.name, fn.series, fn.params))
         if fn.aggregate:
-            forms.append(_form(f"{fn.name}_agg", ("value", "time"), fn.params + GRID_PARAMS))
+            forms.append(_form(f"{fn.name}_agg", ("value", "time"), fn.agg_params))
     return forms
 
 
@@ -300,7 +300,7 @@ def _on_grid(*columns: pa.Array, **named: pa.Array) -> pa.Array:
 def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
     """The grouped-aggregate UDF of ``<name>_agg``: one group's rows in, one answer out."""
     name = f"{fn.name}_agg"
-    params = fn.params + GRID_PARAMS
+    params = fn.agg_params
     answer = fn.answer.in_steps  # a period stays in grid steps, as the list form gives it
     form = AggForm(fn, answer)
 
@@ -315,8 +315,12 @@ def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
             v = pc.cast(value, pa.float64())
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             raise ValueError(f"{name}: value must be a number, got {value.type}") from None
-        step, fill = settings[-2:]
-        arguments = [_span(name, p, c) if p.span else _plain(name, p, c) for p, c in zip(fn.params, settings[:-2])]
+        n = len(fn.params)
+        step, fill = settings[n : n + len(GRID_PARAMS)]
+        arguments = [
+            _span(name, p, c) if p.span else _plain(name, p, c)
+            for p, c in zip(fn.params + fn.time_params, settings[:n] + settings[n + len(GRID_PARAMS) :])
+        ]
         (span,), (fill,) = (
             scalar_parameter(_span(name, GRID_PARAMS[0], step)),
             scalar_parameter(_plain(name, GRID_PARAMS[1], fill)),

@@ -53,7 +53,7 @@ class AggForm:
         grid = grid_of(self.name, clock, span, fill, ticks, values)
         per_row = [
             span_in_steps(self.name, p.name, p.minimum, clock, grid, value, p.choices) if p.span else value
-            for p, value in zip(fn.params, arguments)
+            for p, value in zip(fn.params + fn.time_params, arguments)
         ]
         n_rows = grid.values.n_rows
         if n_rows and not any(isinstance(a, np.ndarray) for a in per_row):  # the same arguments on every row
@@ -63,7 +63,7 @@ class AggForm:
         keys = [tuple(None if (isinstance(x, float) and np.isnan(x)) else x for x in row) for row in zip(*columns)]
 
         def call(rows: np.ndarray | None, key: tuple) -> pa.Array:
-            kwargs = checked_arguments(fn, key, self.name)
+            kwargs = checked_arguments(fn, key, self.name, agg=True)
             sub = grid if rows is None else grid.take(rows)
             if kwargs is None:
                 return pa.nulls(sub.values.n_rows, type=self.answer.udf_returns(fn.returns).arrow)

@@ -17,7 +17,19 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from tsql.forms.arrow import to_arrow_scalar
-from tsql.kernels.grid import DAY_US, Grid
+from tsql.kernels.grid import DAY_US, Grid, add_months, month_index
+
+MONTH_DAYS = 365.2425 / 12
+"""Days in a month where a month must have a length (a period in months on a grid of days or weeks): the
+Gregorian calendar's mean, 30.436875 (a year: 365.2425 days, 52.1775 weeks)."""
+CALENDAR_LENGTHS = (1, 3, 12)
+"""The calendar lengths a period may read as, in months: a month, a quarter, a year."""
+CALENDAR_TOLERANCE = 0.02
+"""A length within this share of a calendar length is that length (a month: 29.8 to 31.0 days, a quarter:
+89.5 to 93.1, a year: 357.9 to 372.5, 51.1 to 53.2 weeks); wide enough for a period estimated off the
+Fourier grid from a few years of weekly data, narrow enough to leave 4 weeks and 29 days alone."""
+_MONDAY = 4 * DAY_US
+"""1970-01-05 00:00, a Monday: phase 0 of cycles in whole days and weeks."""
 
 Span = tuple[str | None, Any, float | None]
 """A span argument as (text, interval, number); all None when the argument is NULL."""
@@ -130,6 +142,48 @@ def span_array(clock: Clock, grid: Grid, steps: np.ndarray) -> pa.Array:
         children = [pa.nulls(n, pa.month_day_nano_interval()), to_arrow_scalar(ticks)]
         tag = 1
     return pa.UnionArray.from_sparse(pa.array(np.full(n, tag, dtype=np.int8)), children, field_names=["span", "number"])
+
+
+def calendar_months(days: np.ndarray) -> np.ndarray:
+    """The calendar length (1, 3 or 12 months) each length in days reads as, within
+    :data:`CALENDAR_TOLERANCE`; 0 where it reads as none."""
+    days = np.asarray(days, dtype=np.float64)
+    out = np.zeros(days.shape, dtype=np.int64)
+    for months in CALENDAR_LENGTHS:
+        out[np.abs(days - months * MONTH_DAYS) <= CALENDAR_TOLERANCE * months * MONTH_DAYS] = months
+    return out
+
+
+def calendar_offset(clock: Clock, grid: Grid, period: float) -> np.ndarray:
+    """Where phase 0 of a cycle of ``period`` grid steps lies on the calendar, in steps after each row's first
+    grid point (in ``(-period, 0]``).
+
+    Phase 0 is at 0 for numbers; on calendar grids at January 1970 and every ``period`` from it (a year's
+    cycle: January, a quarter's: January, April ...); on fixed grids, for a cycle that reads as a month, a
+    quarter or a year (:func:`calendar_months`), at the start of that calendar period in which the row
+    starts (the fit's cycle has the calendar's mean length, so later cycles may sit up to a day or two
+    off the calendar's), otherwise at Monday 1970-01-05 00:00 and every ``period`` from it (00:00 for a
+    day, Monday 00:00 for a week).
+    """
+    start = np.nan_to_num(grid.start)
+    steps = np.zeros(len(start))
+    fixed = grid.length > 0
+    if not clock.temporal:
+        steps[fixed] = start[fixed] / grid.length[fixed]
+        return -np.mod(steps, period)
+    calendar = grid.months > 0
+    if calendar.any():
+        steps[calendar] = month_index(start[calendar]) / grid.months[calendar]
+    if fixed.any():
+        first, length = start[fixed], grid.length[fixed]
+        months = calendar_months(period * length / DAY_US)
+        origin = np.full(len(first), float(_MONDAY))
+        monthly = months > 0
+        if monthly.any():
+            block = month_index(first[monthly]) // months[monthly] * months[monthly]
+            origin[monthly] = add_months(np.zeros(len(block)), block)
+        steps[fixed] = (first - origin) / length
+    return -np.mod(steps, period)
 
 
 # --- Arrow time columns (hosts that hand over times rather than ticks) ------------------------

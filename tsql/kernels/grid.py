@@ -31,7 +31,7 @@ import numpy as np
 
 from tsql.kernels.ragged import Ragged
 
-__all__ = ["DAY_US", "FILLS", "MAX_GRID_POINTS", "Grid", "on_grid"]
+__all__ = ["DAY_US", "FILLS", "MAX_GRID_POINTS", "Grid", "add_months", "month_index", "on_grid"]
 
 FILLS = ("null", "zero", "linear", "previous")
 MAX_GRID_POINTS = 10_000_000
@@ -275,11 +275,11 @@ def _bins(
     calendar_rows = months > 0
     if calendar_rows.any():
         first_month = np.zeros(len(start), dtype=np.int64)
-        first_month[has_obs] = _month_index(start[has_obs])
+        first_month[has_obs] = month_index(start[has_obs])
         if calendar_rows.all():
-            return (_month_index(t) - first_month[rows]) // months[rows]
+            return (month_index(t) - first_month[rows]) // months[rows]
         calendar = calendar_rows[rows]
-        bins[calendar] = (_month_index(t[calendar]) - first_month[rows[calendar]]) // months[rows[calendar]]
+        bins[calendar] = (month_index(t[calendar]) - first_month[rows[calendar]]) // months[rows[calendar]]
     fixed_rows = ~calendar_rows & (length > 0)
     if fixed_rows.all():
         return np.floor((t - start[rows]) / length[rows] + _EPS).astype(np.int64)
@@ -303,7 +303,7 @@ def add_months(ticks: np.ndarray, months: np.ndarray) -> np.ndarray:
     return out.astype(np.int64).astype(np.float64)
 
 
-def _month_index(ticks: np.ndarray) -> np.ndarray:
+def month_index(ticks: np.ndarray) -> np.ndarray:
     """Months since 1970-01 of each tick (through a table of the days spanned, which is fast)."""
     if len(ticks) == 0:
         return np.zeros(0, dtype=np.int64)
@@ -444,7 +444,7 @@ def _inferred_steps(
         match = key == candidate[gap_row]
     if match.all() and not repeats:  # one step everywhere, unless month ends make a day count mislead
         calendar = temporal and candidate < 0
-        if not calendar or np.all(np.diff(_month_index(t))[within] == candidate + 100):
+        if not calendar or np.all(np.diff(month_index(t))[within] == candidate + 100):
             if calendar:
                 months[spaced] = int(candidate + 100)
             else:  # each row's own first spacing, as below (numbers' spacings differ in their last digits)
