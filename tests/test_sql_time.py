@@ -201,6 +201,81 @@ def test_a_weekly_profile_of_a_year_starts_on_the_first_of_january(con):
         assert int(np.argmax(calendar)) == 28  # 19 July 2021 (day 199), 18 July 2022 (day 198): week 28
 
 
+def test_a_year_on_a_weekly_grid_is_52_1775_weeks_from_the_first_of_january(con):
+    # weekly rows from November and February across year ends, a yearly cosine (365.2425 days) peaking on
+    # 19 July 2021: INTERVAL 1 YEAR is 52.1775 weeks, fitted exactly; element k is 1 January + k years / 52
+    first_days = {"early": dt.date(2021, 11, 1), "late": dt.date(2022, 2, 7)}
+    peak, year = dt.date(2021, 7, 19), 365.2425
+    rows = [
+        (g, first + dt.timedelta(weeks=w), 10 + 5 * np.cos(2 * np.pi * ((first - peak).days + 7 * w) / year))
+        for g, first in first_days.items()
+        for w in range(150)
+    ]
+    con.register("years", pa.table(dict(zip(("g", "week", "v"), map(list, zip(*rows))))))
+    answers = con.execute(
+        """SELECT g, harmonic_profile_agg(v, week, INTERVAL 1 YEAR, harmonics := 1),
+                  harmonic_profile_agg(v, week, 52.1775, harmonics := 1, anchor := 'first'),
+                  harmonic_profile_agg(v, week, INTERVAL 12 MONTH, harmonics := 1, anchor := 'first')
+           FROM years GROUP BY g ORDER BY g"""
+    ).fetchall()
+    for g, by_year, by_weeks, by_months in answers:
+        january = dt.date(first_days[g].year, 1, 1)
+        k = (january - peak).days + np.arange(52) * year / 52
+        assert by_year == pytest.approx(10 + 5 * np.cos(2 * np.pi * k / year), abs=1e-9), g
+        assert by_months == by_weeks  # 12 months are 52.1775 weeks
+
+
+@pytest.fixture(scope="module")
+def co2(con):
+    """Weekly CO2 at Mauna Loa, 1958-2001 (Keeling's record, shipped inside statsmodels; 59 weeks missing)."""
+    sm = pytest.importorskip("statsmodels.api")
+    data = sm.datasets.co2.load_pandas().data
+    con.register("co2", pa.table({"week": pa.array(data.index.date, pa.date32()), "co2": data["co2"].to_numpy()}))
+    return data
+
+
+def test_a_yearly_cycle_on_weekly_data_reads_one_year(con, co2):
+    # the seasonal cycle of atmospheric CO2 is yearly (Keeling 1960); on the weekly grid it is estimated at
+    # 52.15 weeks (365.05 days), which reads as a year; a longer cycle reads in whole days
+    dominant, seasonality, cycles, stl, stl_year, exact = con.execute(
+        """SELECT dominant_period_agg(co2, week), seasonality_agg(co2, week),
+                  periods_agg(co2, week, k := 2), stl_strength_agg(co2, week),
+                  stl_strength_agg(co2, week, period := INTERVAL 1 YEAR),
+                  dominant_period_agg(co2, week) = INTERVAL 12 MONTH
+           FROM co2"""
+    ).fetchall()[0]
+    year = dt.timedelta(days=360)  # DuckDB hands 12 months to Python as 360 days
+    assert exact and dominant == seasonality["period"] == cycles[0]["period"] == stl["period"] == year
+    assert stl_year == stl  # INTERVAL 1 YEAR: 52.1775 weeks, whole for STL: 52
+    assert cycles[1]["period"].seconds == 0 and cycles[1]["period"].days > 5000  # whole days
+    steps = con.execute(
+        "SELECT seasonality(on_grid(list(co2), list(week))).period, stl_strength_agg(co2, week, period := 52) FROM co2"
+    ).fetchall()[0]
+    assert steps[0] * 7 == pytest.approx(365.05, abs=0.01)  # the estimate itself, in weeks
+    assert steps[1] == stl
+
+
+def test_daily_periods_read_in_whole_days_or_months(con):
+    # synthetic: a weekly and a 30.4-day cycle on daily rows; the period arguments take INTERVALs in months
+    daily = """(SELECT DATE '2023-01-02' + to_days(i) AS day, {} AS v FROM range(730) r(i))"""
+    weekly, monthly = con.execute(
+        "SELECT (SELECT dominant_period_agg(v, day)::VARCHAR FROM {}), (SELECT dominant_period_agg(v, day)::VARCHAR "
+        "FROM {})".format(
+            daily.format("sin(2 * pi() * i / 7) + 0.3 * cos(2 * pi() * i / 3.1)"),
+            daily.format("sin(2 * pi() * i / 30.436875)"),
+        )
+    ).fetchall()[0]
+    assert (weekly, monthly) == ("7 days", "1 month")
+    smooth = con.execute(
+        f"""SELECT harmonic_smooth_agg(v, day, period := INTERVAL 1 YEAR) = harmonic_smooth_agg(v, day, period :=
+                       365.2425),
+                   harmonic_profile_agg(v, day, INTERVAL 1 MONTH, anchor := 'first')
+                       = harmonic_profile_agg(v, day, 30.436875, anchor := 'first')
+            FROM {daily.format("sin(2 * pi() * i / 365.2425) + i / 100")}"""
+    ).fetchall()[0]
+    assert smooth == (True, True)
+
+
 def test_calendar_phase_zero_of_numbers_is_zero(con):
     rows = con.execute(
         """SELECT harmonic_profile_agg(v, t, 10, harmonics := 1), harmonic_profile_agg(v, t, 10, harmonics := 1,
@@ -261,8 +336,8 @@ def test_explicit_steps(con, sst):
             "acf_agg: max_lag must be >= 1, got 0",
         ),
         (
-            "SELECT harmonic_profile_agg(v, t, INTERVAL 1 MONTH) FROM "
-            "(SELECT i AS v, TIMESTAMP '2024-01-01' + to_hours(i) AS t FROM range(100) r(i))",
+            "SELECT harmonic_profile_agg(v, t, INTERVAL 90 DAY) FROM "
+            "(SELECT i AS v, DATE '2024-01-01' + to_months(i) AS t FROM range(100) r(i))",
             "cannot be counted in the grid's steps",
         ),
         (

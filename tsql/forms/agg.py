@@ -52,7 +52,7 @@ class AggForm:
         fn = self.fn
         grid = grid_of(self.name, clock, span, fill, ticks, values)
         per_row = [
-            span_in_steps(self.name, p.name, p.minimum, clock, grid, value, p.choices) if p.span else value
+            span_in_steps(self.name, p.name, p.minimum, clock, grid, value, p.choices, p.whole) if p.span else value
             for p, value in zip(fn.params + fn.time_params, arguments)
         ]
         n_rows = grid.values.n_rows

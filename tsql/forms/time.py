@@ -88,10 +88,14 @@ def span_in_steps(
     grid: Grid,
     span: Span | None,
     words: tuple[str, ...] = (),
+    whole: bool = False,
 ) -> Any:
     """A length-of-time argument in grid steps: one value, or one per row when it depends on the row's step.
 
     An argument that may also be a word (``seasonal := 'auto'``) names them in ``words``: one comes back as it is.
+    Months on a grid of fixed steps (``INTERVAL 1 YEAR`` on weekly data) count :data:`MONTH_DAYS` days each:
+    a year is 52.1775 weeks or 365.2425 days; an argument that must be ``whole`` takes the nearest whole
+    number of steps (52 weeks). A fixed length on a calendar grid (days on monthly data) is an error.
     """
     text, interval, number = span or NO_SPAN
     if text is None:
@@ -107,6 +111,11 @@ def span_in_steps(
         raise ValueError(f"{function}: {name} must be {what}, got {text!r}")
     months, length = interval_ticks(interval)
     steps = grid.steps(months, length)
+    fixed = grid.length > 0
+    if months and fixed.any():
+        steps[fixed] = (months * MONTH_DAYS * DAY_US + length) / grid.length[fixed]
+        if whole:
+            steps[fixed] = np.maximum(np.round(steps[fixed]), 1.0)
     # a group of one observation has no step (0) and so no span in steps: it gets the NULL meaning of
     # the argument, whatever the other groups of its batch
     stepped = (grid.months > 0) | (grid.length > 0)
@@ -114,7 +123,7 @@ def span_in_steps(
     if np.isnan(counted).any():
         raise ValueError(
             f"{function}: {name} {text!r} cannot be counted in the grid's steps "
-            "(months on a fixed step, or days on a calendar step); give it in the step's own terms"
+            "(days or hours on a calendar step of months); give it in months or as a number of steps"
         )
     if minimum is not None and (counted < minimum).any():
         raise ValueError(
@@ -124,10 +133,23 @@ def span_in_steps(
 
 
 def span_array(clock: Clock, grid: Grid, steps: np.ndarray) -> pa.Array:
-    """Periods in grid steps as spans of time: INTERVALs for temporal times, numbers otherwise."""
+    """Periods in grid steps as spans of time: INTERVALs for temporal times, numbers otherwise.
+
+    On calendar grids a period is whole months (a fraction of a month has no fixed length). On grids of
+    whole days (daily, weekly) a period within :data:`CALENDAR_TOLERANCE` of a month, a quarter or a year
+    (:func:`calendar_months`) is that many months, and any other is rounded to whole days: a yearly cycle
+    on weekly data reads ``1 year``, not ``364 days 05:06:37``. Finer grids (hours) keep the exact length.
+    """
     n = len(steps)
     missing = np.isnan(steps)
     months, ticks = grid.span(steps)
+    days = np.where(grid.length > 0, grid.length / DAY_US, np.nan)
+    in_days = (days == np.round(days)) & ~np.isnan(ticks)
+    if clock.temporal and in_days.any():
+        whole_days = np.round(ticks[in_days] / DAY_US)
+        calendar = calendar_months(ticks[in_days] / DAY_US)
+        months[in_days] = calendar
+        ticks[in_days] = np.where(calendar > 0, 0.0, whole_days * DAY_US)
     if clock.temporal:
         micros = np.where(np.isnan(ticks), 0, np.round(np.nan_to_num(ticks))).astype(np.int64)
         days, rest = np.divmod(micros, DAY_US)
