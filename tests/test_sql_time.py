@@ -255,6 +255,23 @@ def test_a_yearly_cycle_on_weekly_data_reads_one_year(con, co2):
     assert steps[1] == stl
 
 
+def test_periods_read_exactly_in_python(con, co2):
+    query = """SELECT dominant_period_agg(co2, week) AS p, seasonality_agg(co2, week) AS s,
+                      periods_agg(co2, week, k := 2) AS c, dominant_period_agg(co2, year(week) * 100 + week(week)) AS n
+               FROM co2"""
+    (lossy,) = con.execute("SELECT dominant_period_agg(co2, week) FROM co2").fetchall()[0]
+    assert lossy == dt.timedelta(days=360)  # what DuckDB hands Python for 12 months
+    table = con.sql(query).to_arrow_table()
+    year = tsql.period_parts(table["p"])
+    assert year == [(12, 0, 0)] and year[0].months == 12
+    assert tsql.period_parts(table["s"].to_pylist()[0]["period"]) == (12, 0, 0)
+    cycles = [tsql.period_parts(c["period"]) for c in table["c"].to_pylist()[0]]
+    assert cycles[0] == (12, 0, 0) and cycles[1].months == 0 and cycles[1].days > 5000
+    assert isinstance(tsql.period_parts(table["n"])[0], float)  # numeric times: the number
+    with pytest.raises(ValueError, match="tsql.period_parts: a datetime.timedelta has lost the INTERVAL's months"):
+        tsql.period_parts(lossy)
+
+
 def test_daily_periods_read_in_whole_days_or_months(con):
     # synthetic: a weekly and a 30.4-day cycle on daily rows; the period arguments take INTERVALs in months
     daily = """(SELECT DATE '2023-01-02' + to_days(i) AS day, {} AS v FROM range(730) r(i))"""

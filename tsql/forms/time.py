@@ -8,9 +8,10 @@ number (either may be None).
 
 from __future__ import annotations
 
+import datetime as dt
 from dataclasses import dataclass
 from fractions import Fraction
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 import pyarrow as pa
@@ -206,6 +207,65 @@ def calendar_offset(clock: Clock, grid: Grid, period: float) -> np.ndarray:
             origin[monthly] = add_months(np.zeros(len(block)), block)
         steps[fixed] = (first - origin) / length
     return -np.mod(steps, period)
+
+
+class PeriodParts(NamedTuple):
+    """An INTERVAL's own parts, exact: whole months, whole days and microseconds (as DuckDB keeps them)."""
+
+    months: int
+    days: int
+    microseconds: int
+
+
+def period_parts(period: Any) -> Any:
+    """A period from an ``*_agg`` answer, read exactly in Python.
+
+    DuckDB hands an INTERVAL to Python (``fetchall``, ``fetchone``, ``df``) as a ``datetime.timedelta``
+    that counts a month as 30 days: ``INTERVAL 12 MONTH`` arrives as ``timedelta(days=360)``, which
+    cannot be told from 360 days. Arrow keeps the parts: fetch the rows as Arrow
+    (``con.sql(query).to_arrow_table()``) and pass a period from there.
+
+    Parameters
+    ----------
+    period : pyarrow.MonthDayNano, pyarrow Scalar or Array, number or None
+        A period (the ``UNION(span INTERVAL, number DOUBLE)`` of ``dominant_period_agg``, the ``period``
+        field of ``seasonality_agg`` ...) as Arrow gives it; an Array or ChunkedArray of them.
+
+    Returns
+    -------
+    PeriodParts, float, None or list
+        ``PeriodParts(months, days, microseconds)`` for an INTERVAL, the number for numeric times, None
+        for NULL; a list of these for an array.
+
+    Raises
+    ------
+    ValueError
+        For a ``datetime.timedelta`` (its months are lost already) or anything that is not a period.
+
+    Examples
+    --------
+    >>> import pyarrow as pa
+    >>> period_parts(pa.MonthDayNano([12, 0, 0]))
+    PeriodParts(months=12, days=0, microseconds=0)
+    >>> period_parts(pa.array([pa.MonthDayNano([0, 7, 0]), None], pa.month_day_nano_interval()))
+    [PeriodParts(months=0, days=7, microseconds=0), None]
+    """
+    if isinstance(period, (pa.Array, pa.ChunkedArray)):
+        return [period_parts(p) for p in period.to_pylist()]
+    if isinstance(period, pa.Scalar):
+        period = period.as_py()
+    if period is None:
+        return None
+    if isinstance(period, pa.MonthDayNano):
+        return PeriodParts(period.months, period.days, period.nanoseconds // 1000)  # DuckDB keeps microseconds
+    if isinstance(period, dt.timedelta):
+        raise ValueError(
+            "tsql.period_parts: a datetime.timedelta has lost the INTERVAL's months (DuckDB hands a month to Python "
+            "as 30 days); fetch the rows as Arrow, con.sql(query).to_arrow_table(), and pass the period from there"
+        )
+    if isinstance(period, (int, float)) and not isinstance(period, bool):
+        return float(period)
+    raise ValueError(f"tsql.period_parts: expected a period (an INTERVAL from Arrow or a number), got {period!r}")
 
 
 # --- Arrow time columns (hosts that hand over times rather than ticks) ------------------------
