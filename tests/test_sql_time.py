@@ -1,6 +1,8 @@
 """Honest time through SQL: on_grid, and *_agg forms that see missing periods and answer in time terms."""
 
 import datetime as dt
+import json
+from pathlib import Path
 
 import duckdb
 import numpy as np
@@ -291,6 +293,73 @@ def test_daily_periods_read_in_whole_days_or_months(con):
             FROM {daily.format("sin(2 * pi() * i / 365.2425) + i / 100")}"""
     ).fetchall()[0]
     assert smooth == (True, True)
+
+
+@pytest.fixture(scope="module")
+def jfk(con):
+    """Monthly passengers at JFK airport, 1977-2015 (TCPD, van den Burg & Williams 2020), loaded twice over:
+    each July and August arrive as two rows at the same month, a third and the rest."""
+    path = Path(__file__).resolve().parents[1].parent / "shared" / "data" / "tcpd" / "datasets" / "jfk_passengers"
+    if not path.exists():
+        pytest.skip("shared/data/tcpd is not beside the repository")
+    data = json.loads((path / "jfk_passengers.json").read_text())
+    months = [dt.date.fromisoformat(m + "-01") for m in data["time"]["raw"]]
+    counts = [int(x) for x in data["series"][0]["raw"]]
+    rows = []
+    for month, count in zip(months, counts):
+        parts = [count // 3, count - count // 3] if month.month in (7, 8) else [count]
+        rows += [(month, part) for part in parts]
+    con.register("jfk_rows", pa.table({"month": [r[0] for r in rows], "passengers": [r[1] for r in rows]}))
+    return counts
+
+
+def test_counts_loaded_in_several_rows_add_up_with_same_time_sum(con, jfk):
+    summed, averaged, by_list, grid = con.execute(
+        """SELECT seasonality_agg(passengers, month, same_time := 'sum'), seasonality_agg(passengers, month),
+                  seasonality($counts::DOUBLE[]), on_grid(list(passengers), list(month), same_time := 'sum')
+           FROM jfk_rows""",
+        {"counts": jfk},
+    ).fetchall()[0]
+    assert grid == jfk  # the months' rows add up to the published counts
+    assert summed["strength"] == by_list["strength"] and summed["p_value"] == by_list["p_value"]
+    assert summed["period"] == dt.timedelta(days=360)  # the summer peak makes a yearly cycle
+    # the default mean halves every summer: the peak becomes a trough, and the strongest cycle is half a year
+    assert averaged["strength"] < summed["strength"] and averaged["period"] == dt.timedelta(days=180)
+
+
+def test_first_and_last_do_not_depend_on_row_order(con, jfk):
+    query = """SELECT on_grid(list(passengers), list(month), same_time := 'first'),
+                      on_grid(list(passengers), list(month), same_time := 'last'),
+                      seasonality_agg(passengers, month, same_time := 'first'),
+                      seasonality_agg(passengers, month, same_time := 'last')
+               FROM (SELECT * FROM jfk_rows ORDER BY {})"""
+    answers = [
+        con.execute(query.format(order)).fetchall()[0] for order in ("month", "hash(passengers)", "passengers DESC")
+    ]
+    assert answers[0] == answers[1] == answers[2]
+    first, last, _, _ = answers[0]
+    summer = [i for i in range(len(jfk)) if i % 12 in (6, 7)]
+    assert [first[i] for i in summer] == [jfk[i] // 3 for i in summer]  # the smaller of two rows at one time
+    assert [last[i] for i in summer] == [jfk[i] - jfk[i] // 3 for i in summer]
+
+
+def test_same_time_error_names_the_function_and_the_time(con, jfk):
+    for call in (
+        "acf_agg(passengers, month, same_time := 'error')",
+        "on_grid(list(passengers), list(month), same_time := 'error')",
+    ):
+        with pytest.raises(
+            duckdb.Error, match=r"(acf_agg|on_grid): several rows at 1977-07-01 \(same_time := 'error'\)"
+        ):
+            con.execute(f"SELECT {call} FROM jfk_rows").fetchall()
+    (ok,) = con.execute(
+        "SELECT acf_agg(passengers, month, same_time := 'error') FROM jfk_rows WHERE month(month) NOT IN (7, 8)"
+    ).fetchall()[0]
+    assert ok is not None
+    with pytest.raises(
+        duckdb.Error, match="acf_agg: same_time must be one of 'mean', 'sum', 'first', 'last', 'error', got 'median'"
+    ):
+        con.execute("SELECT acf_agg(passengers, month, same_time := 'median') FROM jfk_rows").fetchall()
 
 
 def test_calendar_phase_zero_of_numbers_is_zero(con):

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 from tsql.forms.answers import PATH, PERIOD, PERIODS, PROFILE, SAME, SEGMENTS, SERIES, STARTS, Answer
 from tsql.forms.types import BOOLEAN, DOUBLE, INTEGER, VARCHAR, ListOf, SqlType, struct
 from tsql.kernels.changepoint import MAX_PROGRAMME, MIN_SIZE, SEASONAL
-from tsql.kernels.grid import FILLS
+from tsql.kernels.grid import FILLS, SAME_TIMES
 
 
 @dataclass(frozen=True)
@@ -161,7 +161,16 @@ FILL = Param(
     choices=FILLS,
     help="grid points without a value: 'null', 'zero' (counts), 'linear', 'previous'",
 )
-GRID_PARAMS = (STEP, FILL)
+SAME_TIME = Param(
+    "same_time",
+    sql_type=VARCHAR,
+    default="'mean'",
+    none_ok=True,
+    choices=SAME_TIMES,
+    help="several rows at one grid point: 'mean' (a level read twice), 'sum' (counts), 'first' or 'last' (in time "
+    "order; rows at the very same time in value order), 'error'",
+)
+GRID_PARAMS = (STEP, FILL, SAME_TIME)
 ANCHOR = Param(
     "anchor",
     sql_type=VARCHAR,
@@ -634,7 +643,7 @@ FUNCTIONS += (
         aggregate=False,
         special=True,
         sql_body="__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
-        "__tsql_span(step), fill)",
+        "__tsql_span(step), fill, same_time)",
     ),
 )
 

@@ -278,7 +278,7 @@ def _list_udf(fn: Function) -> Callable[..., pa.Array]:
 def _on_grid(*columns: pa.Array, **named: pa.Array) -> pa.Array:
     """``on_grid(values, times, step, fill)``: the times' own type decides the grid."""
     name = "on_grid"
-    values, times, step, fill = _complete(name, ("values", "times"), GRID_PARAMS, columns, named)
+    values, times, step, fill, same_time = _complete(name, ("values", "times"), GRID_PARAMS, columns, named)
     if not len(values):
         return pa.array([], type=pa.list_(pa.float64()))
     values = _numbers_column(name, "values", values)
@@ -291,9 +291,11 @@ def _on_grid(*columns: pa.Array, **named: pa.Array) -> pa.Array:
     def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
         v = to_ragged(values if rows is None else values.take(pa.array(rows)))
         t = to_ragged(ticks if rows is None else ticks.take(pa.array(rows)))
-        return on_grid_values(lambda: clock, *key, t, v)
+        return on_grid_values(lambda: clock, key, t, v)
 
-    settings = [_span(name, GRID_PARAMS[0], step), _plain(name, GRID_PARAMS[1], fill)]
+    settings = [_span(name, GRID_PARAMS[0], step)] + [
+        _plain(name, p, c) for p, c in zip(GRID_PARAMS[1:], (fill, same_time))
+    ]
     return by_settings(len(values), settings, run)
 
 
@@ -316,20 +318,20 @@ def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             raise ValueError(f"{name}: value must be a number, got {value.type}") from None
         n = len(fn.params)
-        step, fill = settings[n : n + len(GRID_PARAMS)]
+        step, fill, same_time = settings[n : n + len(GRID_PARAMS)]
         arguments = [
             _span(name, p, c) if p.span else _plain(name, p, c)
             for p, c in zip(fn.params + fn.time_params, settings[:n] + settings[n + len(GRID_PARAMS) :])
         ]
-        (span,), (fill,) = (
+        (span,), (fill,), (same_time,) = (
             scalar_parameter(_span(name, GRID_PARAMS[0], step)),
             scalar_parameter(_plain(name, GRID_PARAMS[1], fill)),
+            scalar_parameter(_plain(name, GRID_PARAMS[2], same_time)),
         )
         offsets = np.array([0, len(ticks)], dtype=np.int64)
         group = form(
             clock,
-            span,
-            fill,
+            (span, fill, same_time),
             tuple(scalar_parameter(a)[0] for a in arguments),
             Ragged(ticks, offsets),
             Ragged(v.to_numpy(zero_copy_only=False), offsets),

@@ -307,6 +307,18 @@ def times_of(ticks: np.ndarray, kind: str) -> pa.Array:
     return pa.array(whole, type=pa.timestamp("us", tz="UTC" if kind == "timestamp" else None), mask=mask)
 
 
+def moment_text(clock: Clock, tick: float) -> str:
+    """A tick as messages show a time: ISO text for DATE and TIMESTAMP times (UTC for TIMESTAMPTZ), else the number."""
+    if not clock.temporal:
+        return f"{tick:g}"
+    moment = np.datetime64(int(tick), "us")
+    if int(tick) % 10**6 == 0:
+        moment = moment.astype("datetime64[s]")
+    if clock.kind == "date" and int(tick) % DAY_US == 0:
+        return str(moment.astype("datetime64[D]"))
+    return str(moment).replace("T", " ") + ("+00" if clock.utc else "")
+
+
 def whole_days(ticks: np.ndarray) -> bool:
     """Whether every present tick is a midnight."""
     return not (np.where(np.isnan(ticks), 0, ticks).astype(np.int64) % DAY_US).any()
