@@ -474,7 +474,7 @@ REQUIRED = {"period": "8", "band": "2"}  # values for arguments that have no def
 def call_with(fn: str, target: str | None) -> str:
     """A call of ``fn`` setting ``target`` to NULL (None: leaving it out), required arguments given."""
     base = BY_NAME[fn.removesuffix("_agg")]
-    params = base.params + (BY_NAME["on_grid"].params if fn.endswith("_agg") else ())
+    params = base.agg_params if fn.endswith("_agg") else base.params
     args = (
         ["v", "t"]
         if fn.endswith("_agg")

@@ -255,6 +255,18 @@ def test_a_yearly_cycle_on_weekly_data_reads_one_year(con, co2):
     ).fetchall()[0]
     assert steps[0] * 7 == pytest.approx(365.05, abs=0.01)  # the estimate itself, in weeks
     assert steps[1] == stl
+    # every length argument takes the year: 52.1775 weeks, or 52 where it must be whole
+    same = con.execute(
+        """SELECT stl_decompose_agg(co2, week, INTERVAL 1 YEAR) = stl_decompose_agg(co2, week, 52),
+                  change_points_agg(co2, week, seasonal := INTERVAL 1 YEAR)
+                      = change_points_agg(co2, week, seasonal := 52.1775),
+                  harmonic_smooth_agg(co2, week, period := INTERVAL 1 YEAR)
+                      = harmonic_smooth_agg(co2, week, period := 52.1775),
+                  periods_agg(co2, week, min_period := INTERVAL 1 MONTH, max_period := INTERVAL 2 YEAR)
+                      = periods_agg(co2, week, min_period := 30.436875 / 7, max_period := 104.355)
+           FROM co2"""
+    ).fetchall()[0]
+    assert same == (True, True, True, True)
 
 
 def test_periods_read_exactly_in_python(con, co2):
