@@ -78,12 +78,11 @@ def test_the_table_covers_every_public_function_and_uses_known_outcomes():
     assert sorted(row["function"] for row in INPUTS) == sorted(PUBLIC)
     for row in INPUTS:
         assert {row[c] for c in CLASSES} <= OUTCOMES, row["function"]
-    signatures = {f.name: f for f in FUNCTIONS}
     expected = set()
     for f in FUNCTIONS:
         expected |= {(f.name, p.name) for p in f.params}
         if f.aggregate:
-            expected |= {(f"{f.name}_agg", p.name) for p in f.params + (signatures["on_grid"].params)}
+            expected |= {(f"{f.name}_agg", p.name) for p in f.agg_params}
     listed = {(r["function"], r["argument"]) for r in read_table("null-arguments")}
     assert listed == expected
 
@@ -474,7 +473,7 @@ REQUIRED = {"period": "8", "band": "2"}  # values for arguments that have no def
 def call_with(fn: str, target: str | None) -> str:
     """A call of ``fn`` setting ``target`` to NULL (None: leaving it out), required arguments given."""
     base = BY_NAME[fn.removesuffix("_agg")]
-    params = base.params + (BY_NAME["on_grid"].params if fn.endswith("_agg") else ())
+    params = base.agg_params if fn.endswith("_agg") else base.params
     args = (
         ["v", "t"]
         if fn.endswith("_agg")
@@ -780,7 +779,8 @@ def check_long(con, fn: str, got, data: dict) -> None:
         fitted = design @ np.linalg.lstsq(design, p, rcond=None)[0]  # reference: numpy least squares
         assert np.abs(got.to_numpy() - fitted).max() < 1e-9
     elif name == "harmonic_profile":
-        expected = p.mean() + np.sin(2 * np.pi * np.arange(24) / 24)  # the planted cycle
+        # the planted cycle; the *_agg form's times are 1, 2, ... and its phase 0 is at time 0, a step earlier
+        expected = p.mean() + np.sin(2 * np.pi * (np.arange(24) - fn.endswith("_agg")) / 24)
         np.testing.assert_allclose(got, expected, atol=0.01)
     elif name == "sparkline":
         # bin k of the ramp 0..n-1 has mean (k + 0.5) n / 80 - 0.5: level floor(8 k / 79), the top one capped

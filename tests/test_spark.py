@@ -212,6 +212,12 @@ CONTACT_AGGREGATE_COLUMNS: Columns = [
     ("smoothing", "gaps", "harmonic_profile_agg(contacts, hour, 24)", None),
     (
         "smoothing",
+        "first",
+        "harmonic_profile_agg(contacts, hour, '1 day', 3, NULL, 'zero', 'sum', 'first')",
+        "harmonic_profile_agg(contacts, hour, '1 day', fill := 'zero', same_time := 'sum', anchor := 'first')",
+    ),
+    (
+        "smoothing",
         "smooth",
         "harmonic_smooth_agg(contacts, hour, 3, '1 day', NULL, 'zero')",
         "harmonic_smooth_agg(contacts, hour, period := '1 day', fill := 'zero')",
@@ -229,6 +235,18 @@ CONTACT_AGGREGATE_COLUMNS: Columns = [
 LITERAL_COLUMNS: Columns = [
     ("time", "num", "on_grid(array(1.0, 2.0, 4.0), array(0.0, 0.5, 1.5))", "on_grid([1.0, 2.0, 4.0], [0.0, 0.5, 1.5])"),
     ("time", "step", "on_grid(array(1, 3), array(2, 8), 2, 'linear')", "on_grid([1, 3], [2, 8], 2, 'linear')"),
+    (
+        "time",
+        "sum",
+        "on_grid(array(1, 2, 4), array(0, 0, 1), NULL, 'null', 'sum')",
+        "on_grid([1, 2, 4], [0, 0, 1], same_time := 'sum')",
+    ),
+    (
+        "time",
+        "last",
+        "on_grid(array(2, 1, 4), array(0, 0, 1), same_time => 'last')",
+        "on_grid([2, 1, 4], [0, 0, 1], same_time := 'last')",
+    ),
     ("periodicity", "null", "seasonality(CAST(NULL AS ARRAY<DOUBLE>))", "seasonality(NULL::DOUBLE[])"),
     ("correlation", "flat", "acf(array(1.0, 1.0, 1.0))", "acf([1.0, 1.0, 1.0])"),
     ("similarity", "hole", "dtw_distance(array(1.0, NULL), array(1.0))", "dtw_distance([1.0, NULL], [1.0])"),
@@ -378,7 +396,8 @@ def test_every_function_is_registered(spark: SparkSession) -> None:
     forms = tsql.spark.positional_forms()
     assert len(forms) == len(names)
     assert "lb_keogh(a, b, band)" in forms
-    assert "seasonality_agg(value, time, min_period = 2, max_period = NULL, step = NULL, fill = 'null')" in forms
+    grid = "step = NULL, fill = 'null', same_time = 'mean'"
+    assert f"seasonality_agg(value, time, min_period = 2, max_period = NULL, {grid})" in forms
 
 
 def test_periodicity(duck: duckdb.DuckDBPyConnection, sales: tuple, contacts: tuple, literals: Answers) -> None:

@@ -12,7 +12,7 @@ from registry_calls import settings
 
 import tsql
 from tsql.binding import sql_statements
-from tsql.forms.answers import PERIOD, SAME
+from tsql.forms.answers import PERIOD, PROFILE, SAME
 from tsql.forms.list_form import list_udf as make_udf
 from tsql.reference import markdown_table
 from tsql.registry import FUNCTIONS, PUBLIC
@@ -25,7 +25,7 @@ ROOT = Path(__file__).resolve().parents[1]
 # One call per function with its most unusual test setting (the registry's), and the kernel call it must equal.
 SETTINGS = {fn.name: settings(fn, fn.test_args[-1]) for fn in FUNCTIONS}
 #: Functions whose *_agg form answers in times (tests/test_sql_change.py, tests/test_sql_time.py).
-TIME_ANSWERS = {f.name for f in FUNCTIONS if f.answer not in (SAME, PERIOD)}
+TIME_ANSWERS = {f.name for f in FUNCTIONS if f.answer not in (SAME, PERIOD, PROFILE)}
 
 
 def param_columns(fn, kwargs, n):
@@ -100,9 +100,10 @@ def test_aggregate_form_equals_list_form(con, fn):
         pytest.skip("no aggregate form, or one that answers in times (tests/test_sql_change.py)")
     sql_args, _ = SETTINGS[fn.name]
     extra = f", {sql_args}" if sql_args else ""
+    first = ", anchor := 'first'" if fn.answer == PROFILE else ""  # a profile's phase 0: the first row's, as listed
     query = f"""
         WITH data AS (SELECT i % 7 AS g, i AS t, sin(i * 0.7) + (i % 5) AS v FROM range(700) r(i))
-        SELECT g, {fn.name}_agg(v, t{extra}) AS a, {fn.name}(list(v ORDER BY t){extra}) AS b
+        SELECT g, {fn.name}_agg(v, t{extra}{first}) AS a, {fn.name}(list(v ORDER BY t){extra}) AS b
         FROM data GROUP BY g ORDER BY g"""
     rows = con.execute(query).fetchall()
     assert len(rows) == 7

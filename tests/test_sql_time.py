@@ -1,6 +1,8 @@
 """Honest time through SQL: on_grid, and *_agg forms that see missing periods and answer in time terms."""
 
 import datetime as dt
+import json
+from pathlib import Path
 
 import duckdb
 import numpy as np
@@ -151,6 +153,238 @@ def test_harmonic_profile_agg_finds_the_peak_hour_of_an_hourly_load(con):
     assert mean == pytest.approx(zero_mean, rel=1e-9)  # the profile's mean is the series' mean
 
 
+def test_profiles_start_at_midnight_whatever_hour_each_group_starts(con):
+    # two queues of an hourly load peaking at 14:00, one starting at 03:00, one at 07:00 (synthetic: the
+    # property that phase 0 is the clock's midnight; a one-harmonic daily cosine is fitted exactly)
+    con.execute(
+        """CREATE OR REPLACE TEMP TABLE queues AS
+           SELECT q, TIMESTAMP '2024-03-04' + to_hours(i) AS hour, 10 + 5 * cos(2 * pi() * (i % 24 - 14) / 24) AS v
+           FROM range(24 * 14) r(i), (VALUES ('a', 3), ('b', 7)) s(q, h0) WHERE i >= h0"""
+    )
+    rows = con.execute(
+        """SELECT q, harmonic_profile_agg(v, hour, INTERVAL 1 DAY, harmonics := 1),
+                  harmonic_profile_agg(v, hour, 24, harmonics := 1, anchor := 'first'),
+                  harmonic_profile_agg(v, hour::TIMESTAMPTZ, INTERVAL 1 DAY, harmonics := 1),
+                  hour(min(hour))
+           FROM queues GROUP BY q ORDER BY q"""
+    ).fetchall()
+    expected = 10 + 5 * np.cos(2 * np.pi * (np.arange(24) - 14) / 24)
+    for _, calendar, first, utc, h0 in rows:
+        assert calendar == pytest.approx(expected, abs=1e-9)  # element 1 is 00:00 to 01:00
+        assert calendar == list(np.roll(first, h0))  # 'first': phase 0 at the group's first hour, bit for bit
+        assert utc == calendar  # TIMESTAMPTZ: UTC hours
+    assert rows[0][1] == pytest.approx(rows[1][1], abs=1e-12)
+
+
+def test_a_weekly_profile_of_a_year_starts_on_the_first_of_january(con):
+    # weekly rows (Mondays) from November or February across year ends, a 52-week cosine peaking on
+    # 19 July 2021 (synthetic: the property that phase 0 is 1 January; 52 weeks, 364 days, reads as a year)
+    first_days = {"early": dt.date(2021, 11, 1), "late": dt.date(2022, 2, 7)}
+    peak = dt.date(2021, 7, 19)
+
+    def load(days):
+        return 10 + 5 * np.cos(2 * np.pi * np.asarray(days) / 364)
+
+    rows = [
+        (g, first + dt.timedelta(weeks=w), float(load((first - peak).days + 7 * w)))
+        for g, first in first_days.items()
+        for w in range(150)
+    ]
+    con.register("weeks", pa.table(dict(zip(("g", "week", "v"), map(list, zip(*rows))))))
+    answers = con.execute(
+        """SELECT g, harmonic_profile_agg(v, week, 52, harmonics := 1),
+                  harmonic_profile_agg(v, week, 52, harmonics := 1, anchor := 'first')
+           FROM weeks GROUP BY g ORDER BY g"""
+    ).fetchall()
+    for g, calendar, first in answers:
+        january = dt.date(first_days[g].year, 1, 1)  # of the year the group starts in
+        assert calendar == pytest.approx(load((january - peak).days + 7 * np.arange(52)), abs=1e-9), g
+        assert first == pytest.approx(load((first_days[g] - peak).days + 7 * np.arange(52)), abs=1e-9), g
+        assert int(np.argmax(calendar)) == 28  # 19 July 2021 (day 199), 18 July 2022 (day 198): week 28
+
+
+def test_a_year_on_a_weekly_grid_is_52_1775_weeks_from_the_first_of_january(con):
+    # weekly rows from November and February across year ends, a yearly cosine (365.2425 days) peaking on
+    # 19 July 2021: INTERVAL 1 YEAR is 52.1775 weeks, fitted exactly; element k is 1 January + k years / 52
+    first_days = {"early": dt.date(2021, 11, 1), "late": dt.date(2022, 2, 7)}
+    peak, year = dt.date(2021, 7, 19), 365.2425
+    rows = [
+        (g, first + dt.timedelta(weeks=w), 10 + 5 * np.cos(2 * np.pi * ((first - peak).days + 7 * w) / year))
+        for g, first in first_days.items()
+        for w in range(150)
+    ]
+    con.register("years", pa.table(dict(zip(("g", "week", "v"), map(list, zip(*rows))))))
+    answers = con.execute(
+        """SELECT g, harmonic_profile_agg(v, week, INTERVAL 1 YEAR, harmonics := 1),
+                  harmonic_profile_agg(v, week, 52.1775, harmonics := 1, anchor := 'first'),
+                  harmonic_profile_agg(v, week, INTERVAL 12 MONTH, harmonics := 1, anchor := 'first')
+           FROM years GROUP BY g ORDER BY g"""
+    ).fetchall()
+    for g, by_year, by_weeks, by_months in answers:
+        january = dt.date(first_days[g].year, 1, 1)
+        k = (january - peak).days + np.arange(52) * year / 52
+        assert by_year == pytest.approx(10 + 5 * np.cos(2 * np.pi * k / year), abs=1e-9), g
+        assert by_months == by_weeks  # 12 months are 52.1775 weeks
+
+
+@pytest.fixture(scope="module")
+def co2(con):
+    """Weekly CO2 at Mauna Loa, 1958-2001 (Keeling's record, shipped inside statsmodels; 59 weeks missing)."""
+    sm = pytest.importorskip("statsmodels.api")
+    data = sm.datasets.co2.load_pandas().data
+    con.register("co2", pa.table({"week": pa.array(data.index.date, pa.date32()), "co2": data["co2"].to_numpy()}))
+    return data
+
+
+def test_a_yearly_cycle_on_weekly_data_reads_one_year(con, co2):
+    # the seasonal cycle of atmospheric CO2 is yearly (Keeling 1960); on the weekly grid it is estimated at
+    # 52.15 weeks (365.05 days), which reads as a year; a longer cycle reads in whole days
+    dominant, seasonality, cycles, stl, stl_year, exact = con.execute(
+        """SELECT dominant_period_agg(co2, week), seasonality_agg(co2, week),
+                  periods_agg(co2, week, k := 2), stl_strength_agg(co2, week),
+                  stl_strength_agg(co2, week, period := INTERVAL 1 YEAR),
+                  dominant_period_agg(co2, week) = INTERVAL 12 MONTH
+           FROM co2"""
+    ).fetchall()[0]
+    year = dt.timedelta(days=360)  # DuckDB hands 12 months to Python as 360 days
+    assert exact and dominant == seasonality["period"] == cycles[0]["period"] == stl["period"] == year
+    assert stl_year == stl  # INTERVAL 1 YEAR: 52.1775 weeks, whole for STL: 52
+    assert cycles[1]["period"].seconds == 0 and cycles[1]["period"].days > 5000  # whole days
+    steps = con.execute(
+        "SELECT seasonality(on_grid(list(co2), list(week))).period, stl_strength_agg(co2, week, period := 52) FROM co2"
+    ).fetchall()[0]
+    assert steps[0] * 7 == pytest.approx(365.05, abs=0.01)  # the estimate itself, in weeks
+    assert steps[1] == stl
+    # every length argument takes the year: 52.1775 weeks, or 52 where it must be whole
+    same = con.execute(
+        """SELECT stl_decompose_agg(co2, week, INTERVAL 1 YEAR) = stl_decompose_agg(co2, week, 52),
+                  change_points_agg(co2, week, seasonal := INTERVAL 1 YEAR)
+                      = change_points_agg(co2, week, seasonal := 52.1775),
+                  harmonic_smooth_agg(co2, week, period := INTERVAL 1 YEAR)
+                      = harmonic_smooth_agg(co2, week, period := 52.1775),
+                  periods_agg(co2, week, min_period := INTERVAL 1 MONTH, max_period := INTERVAL 2 YEAR)
+                      = periods_agg(co2, week, min_period := 30.436875 / 7, max_period := 104.355)
+           FROM co2"""
+    ).fetchall()[0]
+    assert same == (True, True, True, True)
+
+
+def test_periods_read_exactly_in_python(con, co2):
+    query = """SELECT dominant_period_agg(co2, week) AS p, seasonality_agg(co2, week) AS s,
+                      periods_agg(co2, week, k := 2) AS c, dominant_period_agg(co2, year(week) * 100 + week(week)) AS n
+               FROM co2"""
+    (lossy,) = con.execute("SELECT dominant_period_agg(co2, week) FROM co2").fetchall()[0]
+    assert lossy == dt.timedelta(days=360)  # what DuckDB hands Python for 12 months
+    table = con.sql(query).to_arrow_table()
+    year = tsql.period_parts(table["p"])
+    assert year == [(12, 0, 0)] and year[0].months == 12
+    assert tsql.period_parts(table["s"].to_pylist()[0]["period"]) == (12, 0, 0)
+    cycles = [tsql.period_parts(c["period"]) for c in table["c"].to_pylist()[0]]
+    assert cycles[0] == (12, 0, 0) and cycles[1].months == 0 and cycles[1].days > 5000
+    assert isinstance(tsql.period_parts(table["n"])[0], float)  # numeric times: the number
+    with pytest.raises(ValueError, match="tsql.period_parts: a datetime.timedelta has lost the INTERVAL's months"):
+        tsql.period_parts(lossy)
+
+
+def test_daily_periods_read_in_whole_days_or_months(con):
+    # synthetic: a weekly and a 30.4-day cycle on daily rows; the period arguments take INTERVALs in months
+    daily = """(SELECT DATE '2023-01-02' + to_days(i) AS day, {} AS v FROM range(730) r(i))"""
+    weekly, monthly = con.execute(
+        "SELECT (SELECT dominant_period_agg(v, day)::VARCHAR FROM {}), (SELECT dominant_period_agg(v, day)::VARCHAR "
+        "FROM {})".format(
+            daily.format("sin(2 * pi() * i / 7) + 0.3 * cos(2 * pi() * i / 3.1)"),
+            daily.format("sin(2 * pi() * i / 30.436875)"),
+        )
+    ).fetchall()[0]
+    assert (weekly, monthly) == ("7 days", "1 month")
+    smooth = con.execute(
+        f"""SELECT harmonic_smooth_agg(v, day, period := INTERVAL 1 YEAR) = harmonic_smooth_agg(v, day, period :=
+                       365.2425),
+                   harmonic_profile_agg(v, day, INTERVAL 1 MONTH, anchor := 'first')
+                       = harmonic_profile_agg(v, day, 30.436875, anchor := 'first')
+            FROM {daily.format("sin(2 * pi() * i / 365.2425) + i / 100")}"""
+    ).fetchall()[0]
+    assert smooth == (True, True)
+
+
+@pytest.fixture(scope="module")
+def jfk(con):
+    """Monthly passengers at JFK airport, 1977-2015 (TCPD, van den Burg & Williams 2020), loaded twice over:
+    each July and August arrive as two rows at the same month, a third and the rest."""
+    path = Path(__file__).resolve().parents[1].parent / "shared" / "data" / "tcpd" / "datasets" / "jfk_passengers"
+    if not path.exists():
+        pytest.skip("shared/data/tcpd is not beside the repository")
+    data = json.loads((path / "jfk_passengers.json").read_text())
+    months = [dt.date.fromisoformat(m + "-01") for m in data["time"]["raw"]]
+    counts = [int(x) for x in data["series"][0]["raw"]]
+    rows = []
+    for month, count in zip(months, counts):
+        parts = [count // 3, count - count // 3] if month.month in (7, 8) else [count]
+        rows += [(month, part) for part in parts]
+    con.register("jfk_rows", pa.table({"month": [r[0] for r in rows], "passengers": [r[1] for r in rows]}))
+    return counts
+
+
+def test_counts_loaded_in_several_rows_add_up_with_same_time_sum(con, jfk):
+    summed, averaged, by_list, grid = con.execute(
+        """SELECT seasonality_agg(passengers, month, same_time := 'sum'), seasonality_agg(passengers, month),
+                  seasonality($counts::DOUBLE[]), on_grid(list(passengers), list(month), same_time := 'sum')
+           FROM jfk_rows""",
+        {"counts": jfk},
+    ).fetchall()[0]
+    assert grid == jfk  # the months' rows add up to the published counts
+    assert summed["strength"] == by_list["strength"] and summed["p_value"] == by_list["p_value"]
+    assert summed["period"] == dt.timedelta(days=360)  # the summer peak makes a yearly cycle
+    # the default mean halves every summer: the peak becomes a trough, and the strongest cycle is half a year
+    assert averaged["strength"] < summed["strength"] and averaged["period"] == dt.timedelta(days=180)
+
+
+def test_first_and_last_do_not_depend_on_row_order(con, jfk):
+    query = """SELECT on_grid(list(passengers), list(month), same_time := 'first'),
+                      on_grid(list(passengers), list(month), same_time := 'last'),
+                      seasonality_agg(passengers, month, same_time := 'first'),
+                      seasonality_agg(passengers, month, same_time := 'last')
+               FROM (SELECT * FROM jfk_rows ORDER BY {})"""
+    answers = [
+        con.execute(query.format(order)).fetchall()[0] for order in ("month", "hash(passengers)", "passengers DESC")
+    ]
+    assert answers[0] == answers[1] == answers[2]
+    first, last, _, _ = answers[0]
+    summer = [i for i in range(len(jfk)) if i % 12 in (6, 7)]
+    assert [first[i] for i in summer] == [jfk[i] // 3 for i in summer]  # the smaller of two rows at one time
+    assert [last[i] for i in summer] == [jfk[i] - jfk[i] // 3 for i in summer]
+
+
+def test_same_time_error_names_the_function_and_the_time(con, jfk):
+    for call in (
+        "acf_agg(passengers, month, same_time := 'error')",
+        "on_grid(list(passengers), list(month), same_time := 'error')",
+    ):
+        with pytest.raises(
+            duckdb.Error, match=r"(acf_agg|on_grid): several rows at 1977-07-01 \(same_time := 'error'\)"
+        ):
+            con.execute(f"SELECT {call} FROM jfk_rows").fetchall()
+    (ok,) = con.execute(
+        "SELECT acf_agg(passengers, month, same_time := 'error') FROM jfk_rows WHERE month(month) NOT IN (7, 8)"
+    ).fetchall()[0]
+    assert ok is not None
+    with pytest.raises(
+        duckdb.Error, match="acf_agg: same_time must be one of 'mean', 'sum', 'first', 'last', 'error', got 'median'"
+    ):
+        con.execute("SELECT acf_agg(passengers, month, same_time := 'median') FROM jfk_rows").fetchall()
+
+
+def test_calendar_phase_zero_of_numbers_is_zero(con):
+    rows = con.execute(
+        """SELECT harmonic_profile_agg(v, t, 10, harmonics := 1), harmonic_profile_agg(v, t, 10, harmonics := 1,
+                                                                                    anchor := 'first')
+           FROM (SELECT 100 + i AS t, cos(2 * pi() * (i + 100) / 10) AS v FROM range(5, 45) r(i))"""
+    ).fetchall()
+    calendar, first = rows[0]
+    assert calendar == pytest.approx(np.cos(2 * np.pi * np.arange(10) / 10), abs=1e-12)
+    assert calendar == list(np.roll(first, 5))
+
+
 def test_results_do_not_depend_on_row_order(con, sst):
     query = """SELECT dominant_period_agg(temperature, month), seasonality_agg(temperature, month),
                       change_points_agg(temperature, month), harmonic_smooth_agg(temperature, month),
@@ -200,8 +434,8 @@ def test_explicit_steps(con, sst):
             "acf_agg: max_lag must be >= 1, got 0",
         ),
         (
-            "SELECT harmonic_profile_agg(v, t, INTERVAL 1 MONTH) FROM "
-            "(SELECT i AS v, TIMESTAMP '2024-01-01' + to_hours(i) AS t FROM range(100) r(i))",
+            "SELECT harmonic_profile_agg(v, t, INTERVAL 90 DAY) FROM "
+            "(SELECT i AS v, DATE '2024-01-01' + to_months(i) AS t FROM range(100) r(i))",
             "cannot be counted in the grid's steps",
         ),
         (

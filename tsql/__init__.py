@@ -2,7 +2,7 @@
 
 from typing import Any
 
-__all__ = ["connect", "interrupt", "register", "report", "__version__"]
+__all__ = ["connect", "interrupt", "period_parts", "register", "report", "__version__"]
 __version__ = "0.1.0"
 
 
@@ -16,4 +16,8 @@ def __getattr__(name: str) -> Any:
         from tsql.reporting import report
 
         return report
+    if name == "period_parts":
+        from tsql.forms.time import period_parts
+
+        return period_parts
     raise AttributeError(f"module 'tsql' has no attribute {name!r}")

@@ -193,9 +193,14 @@ def list_macro(fn: Function) -> str:
 def agg_macro(fn: Function) -> str:
     """``CREATE ... MACRO name_agg(value, time, ...)``: the group's observations to the grid UDF, its answer
     finished in time terms as the entry's answer kind says."""
-    args = ["__tsql_observations(value, time)", "__tsql_time_type(time)", "__tsql_span(step)", "fill"]
-    call = f"{fn.udf_name}_on_grid({', '.join(args + [_passed(p, agg=True) for p in fn.params])})"
+    args = ["__tsql_observations(value, time)", "__tsql_time_type(time)", "__tsql_span(step)", "fill", "same_time"]
+    call = f"{fn.udf_name}_on_grid({', '.join(args + [_passed(p, agg=True) for p in agg_udf_params(fn)])})"
     return f"CREATE OR REPLACE TEMP MACRO {fn.agg_signature} AS {fn.answer.finish_sql(fn.returns, call)}"
+
+
+def agg_udf_params(fn: Function) -> tuple[Param, ...]:
+    """The arguments an ``*_agg`` UDF takes after the grid's: the function's, then its ``time_params``."""
+    return fn.params + fn.time_params
 
 
 def rows_macro(fn: Function) -> str:
@@ -230,14 +235,14 @@ def _passed(p: Param, agg: bool) -> str:
 
 
 def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
-    grid_types = [VARCHAR.sql, SPAN_ARGUMENT.sql, VARCHAR.sql]  # time type, step, fill
+    grid_types = [VARCHAR.sql, SPAN_ARGUMENT.sql, VARCHAR.sql, VARCHAR.sql]  # time type, step, fill, same_time
     for fn in FUNCTIONS:
         if fn.special:
             continue
         params = [p.sql_type.sql for p in fn.params]
         create_udf(con, fn.udf_name, list_udf(fn), ["DOUBLE[]"] * len(fn.series) + params, fn.returns)
         if fn.aggregate:
-            params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in fn.params]
+            params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
             udf_returns = fn.answer.udf_returns(fn.returns)
             create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [_OBSERVATIONS] + grid_types + params, udf_returns)
     for fn in TABLE_FUNCTIONS:
@@ -262,7 +267,7 @@ def create_udf(
             raise
 
 
-_GRID_ARGS = ["time_type", "step", "fill"]
+_GRID_ARGS = ["time_type", "step", "fill", "same_time"]
 _TEMPORAL = {
     "DATE": "date",
     "TIMESTAMP": "timestamp",
@@ -319,17 +324,18 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
 
         def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
             part = obs if rows is None else obs.take(pa.array(rows))
-            type_name, span, fill, *arguments = key
+            type_name, span, fill, same_time, *arguments = key
             pieces = []
             for lo, hi in row_pieces([part], agg.PIECE_POINTS):
                 ticks, values = observations(part.slice(lo, hi - lo))
-                pieces.append(form(clock(form.name, type_name), span, fill, tuple(arguments), ticks, values))
+                grid = (span, fill, same_time)
+                pieces.append(form(clock(form.name, type_name), grid, tuple(arguments), ticks, values))
             return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)
 
         return by_settings(len(obs), settings, run)
 
     return with_arity(
-        udf, f"{fn.udf_name}_on_grid", fn.doc, ["observations", *_GRID_ARGS] + [p.name for p in fn.params]
+        udf, f"{fn.udf_name}_on_grid", fn.doc, ["observations", *_GRID_ARGS] + [p.name for p in agg_udf_params(fn)]
     )
 
 
@@ -339,7 +345,7 @@ def _on_grid_udf(values: Any, ticks: Any, *settings: Any) -> pa.Array:
     def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
         v = to_ragged(values if rows is None else values.take(pa.array(rows)))
         t = to_ragged(ticks if rows is None else ticks.take(pa.array(rows)))
-        type_name, span, fill = key
-        return agg.on_grid_values(lambda: clock("on_grid", type_name), span, fill, t, v)
+        type_name, *grid = key
+        return agg.on_grid_values(lambda: clock("on_grid", type_name), tuple(grid), t, v)
 
     return by_settings(len(values), settings, run)

@@ -290,18 +290,11 @@ LOAD = Step(
     title="Expected load by hour",
     question="How many help-desk contacts should each queue expect in each hour of the day?",
     sql="""\
-WITH profiles AS (  -- one day of the fitted pattern
+WITH by_clock AS (  -- one day of the fitted pattern, element 1: midnight to 1 am
     SELECT queue,
            harmonic_profile_agg(contacts, hour, INTERVAL 1 DAY,
-                                fill := 'zero') AS p,  -- no row: 0 contacts
-           hour(min(hour)) AS h0  -- p starts at the first row's hour
+                                fill := 'zero') AS load  -- no row: 0 contacts
     FROM hourly_contacts GROUP BY queue
-),
-by_clock AS (  -- turned so that element 1 is midnight to 1 am
-    SELECT queue,
-           list_transform(range(24), lambda c: p[(c - h0 + 24) % 24 + 1])
-               AS load
-    FROM profiles
 )
 SELECT queue, sparkline(load) AS midnight_to_midnight,
        list_position(load, list_max(load)) - 1 AS peak_hour,

@@ -10,13 +10,13 @@ import difflib
 import sys
 from pathlib import Path
 
-from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Function
+from tsql.registry import BY_NAME, FUNCTIONS, INPUT_CLASSES, PUBLIC, Function
 
 
 def describe(fn: Function) -> str:
     """What ``seriesql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
     lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.public_returns or fn.returns}; NULL for: {fn.null_rows}"]
-    for p in fn.params:
+    for p in fn.params + fn.time_params:
         if p.help:
             lines.append(f"  {p.name}: {p.help}")
     if fn.aggregate:
@@ -79,7 +79,7 @@ def null_arguments_table() -> str:
     """docs/behaviour.md's table of what a NULL argument gives: a NULL row, or the default."""
     rows = ["| function | argument | NULL gives |", "|---|---|---|"]
     forms = [(fn.name, fn.params) for fn in FUNCTIONS]
-    forms += [(f"{fn.name}_agg", fn.params + GRID_PARAMS) for fn in FUNCTIONS if fn.aggregate]
+    forms += [(f"{fn.name}_agg", fn.agg_params) for fn in FUNCTIONS if fn.aggregate]
     for name, params in forms:
         rows += [f"| {name} | {p.name} | {'default' if p.none_ok else 'null'} |" for p in params]
     return "\n".join(rows)

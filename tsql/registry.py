@@ -12,10 +12,10 @@ import importlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-from tsql.forms.answers import PATH, PERIOD, PERIODS, SAME, SEGMENTS, SERIES, STARTS, Answer
+from tsql.forms.answers import PATH, PERIOD, PERIODS, PROFILE, SAME, SEGMENTS, SERIES, STARTS, Answer
 from tsql.forms.types import BOOLEAN, DOUBLE, INTEGER, VARCHAR, ListOf, SqlType, struct
 from tsql.kernels.changepoint import MAX_PROGRAMME, MIN_SIZE, SEASONAL
-from tsql.kernels.grid import FILLS
+from tsql.kernels.grid import FILLS, SAME_TIMES
 
 
 @dataclass(frozen=True)
@@ -58,6 +58,9 @@ class Function:
     null_rows: str
     series: tuple[str, ...] = ("values",)
     params: tuple[Param, ...] = ()
+    time_params: tuple[Param, ...] = ()
+    """Arguments of the ``*_agg`` form alone, about its times (``anchor``), after the grid's (positional calls
+    keep their places); its answer kind reads them."""
     aggregate: bool = True
     relations: tuple[tuple[str, str, str], ...] = field(default=())
     """Checks between two parameters: (smaller, larger, message)."""
@@ -108,9 +111,14 @@ class Function:
 
     @property
     def agg_signature(self) -> str:
-        params = self.params + GRID_PARAMS
-        args = ["value", "time"] + [p.name if p.default is None else f"{p.name} := {p.default}" for p in params]
+        args = ["value", "time"]
+        args += [p.name if p.default is None else f"{p.name} := {p.default}" for p in self.agg_params]
         return f"{self.name}_agg({', '.join(args)})"
+
+    @property
+    def agg_params(self) -> tuple[Param, ...]:
+        """The arguments of the ``*_agg`` form after ``(value, time)``, in order."""
+        return self.params + GRID_PARAMS + self.time_params
 
     @property
     def agg_returns(self) -> SqlType:
@@ -153,7 +161,24 @@ FILL = Param(
     choices=FILLS,
     help="grid points without a value: 'null', 'zero' (counts), 'linear', 'previous'",
 )
-GRID_PARAMS = (STEP, FILL)
+SAME_TIME = Param(
+    "same_time",
+    sql_type=VARCHAR,
+    default="'mean'",
+    none_ok=True,
+    choices=SAME_TIMES,
+    help="several rows at one grid point: 'mean' (a level read twice), 'sum' (counts), 'first' or 'last' (in time "
+    "order; rows at the very same time in value order), 'error'",
+)
+GRID_PARAMS = (STEP, FILL, SAME_TIME)
+ANCHOR = Param(
+    "anchor",
+    sql_type=VARCHAR,
+    default="'calendar'",
+    choices=("calendar", "first"),
+    help="where phase 0 of the profile is: 'calendar' (00:00 for a day, Monday 00:00 for a week, 1 January for "
+    "a year, the 1st for a month; 0 for numeric times) or 'first' (the group's first time)",
+)
 
 
 MAX_LIST = 10_000_000
@@ -555,7 +580,8 @@ FUNCTIONS += (
         family="smoothing",
         returns=ListOf(DOUBLE),
         kernel_path="smoothing:harmonic_profile",
-        doc="One cycle of the fitted pattern (level plus harmonics), phase 0 = the first element's phase.",
+        doc="One cycle of the fitted pattern (level plus harmonics), phase 0 = the first element's phase "
+        "(agg form: the calendar's, anchor := 'calendar').",
         example="SELECT harmonic_profile([3, 9, 4, 1, 3, 8, 5, 1, 2, 9, 4, 2], 4, harmonics := 1) AS cycle;",
         null_rows="NULL or empty list, too few present values, or a pattern the data cannot determine",
         see_also=("harmonic_smooth", "seasonality"),
@@ -571,6 +597,8 @@ FUNCTIONS += (
             ),
             Param("harmonics", default="3", minimum=1, whole=True, help="number of cosine/sine pairs"),
         ),
+        time_params=(ANCHOR,),
+        answer=PROFILE,
     ),
     Function(
         name="sparkline",
@@ -615,7 +643,7 @@ FUNCTIONS += (
         aggregate=False,
         special=True,
         sql_body="__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
-        "__tsql_span(step), fill)",
+        "__tsql_span(step), fill, same_time)",
     ),
 )
 

@@ -61,7 +61,7 @@ def positional_forms() -> list[str]:
     for fn in FUNCTIONS:
         forms.append(_form(fn.name, fn.series, fn.params))
         if fn.aggregate:
-            forms.append(_form(f"{fn.name}_agg", ("value", "time"), fn.params + GRID_PARAMS))
+            forms.append(_form(f"{fn.name}_agg", ("value", "time"), fn.agg_params))
     return forms
 
 
@@ -278,7 +278,7 @@ def _list_udf(fn: Function) -> Callable[..., pa.Array]:
 def _on_grid(*columns: pa.Array, **named: pa.Array) -> pa.Array:
     """``on_grid(values, times, step, fill)``: the times' own type decides the grid."""
     name = "on_grid"
-    values, times, step, fill = _complete(name, ("values", "times"), GRID_PARAMS, columns, named)
+    values, times, step, fill, same_time = _complete(name, ("values", "times"), GRID_PARAMS, columns, named)
     if not len(values):
         return pa.array([], type=pa.list_(pa.float64()))
     values = _numbers_column(name, "values", values)
@@ -291,16 +291,18 @@ def _on_grid(*columns: pa.Array, **named: pa.Array) -> pa.Array:
     def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
         v = to_ragged(values if rows is None else values.take(pa.array(rows)))
         t = to_ragged(ticks if rows is None else ticks.take(pa.array(rows)))
-        return on_grid_values(lambda: clock, *key, t, v)
+        return on_grid_values(lambda: clock, key, t, v)
 
-    settings = [_span(name, GRID_PARAMS[0], step), _plain(name, GRID_PARAMS[1], fill)]
+    settings = [_span(name, GRID_PARAMS[0], step)] + [
+        _plain(name, p, c) for p, c in zip(GRID_PARAMS[1:], (fill, same_time))
+    ]
     return by_settings(len(values), settings, run)
 
 
 def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
     """The grouped-aggregate UDF of ``<name>_agg``: one group's rows in, one answer out."""
     name = f"{fn.name}_agg"
-    params = fn.params + GRID_PARAMS
+    params = fn.agg_params
     answer = fn.answer.in_steps  # a period stays in grid steps, as the list form gives it
     form = AggForm(fn, answer)
 
@@ -315,17 +317,21 @@ def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
             v = pc.cast(value, pa.float64())
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             raise ValueError(f"{name}: value must be a number, got {value.type}") from None
-        step, fill = settings[-2:]
-        arguments = [_span(name, p, c) if p.span else _plain(name, p, c) for p, c in zip(fn.params, settings[:-2])]
-        (span,), (fill,) = (
+        n = len(fn.params)
+        step, fill, same_time = settings[n : n + len(GRID_PARAMS)]
+        arguments = [
+            _span(name, p, c) if p.span else _plain(name, p, c)
+            for p, c in zip(fn.params + fn.time_params, settings[:n] + settings[n + len(GRID_PARAMS) :])
+        ]
+        (span,), (fill,), (same_time,) = (
             scalar_parameter(_span(name, GRID_PARAMS[0], step)),
             scalar_parameter(_plain(name, GRID_PARAMS[1], fill)),
+            scalar_parameter(_plain(name, GRID_PARAMS[2], same_time)),
         )
         offsets = np.array([0, len(ticks)], dtype=np.int64)
         group = form(
             clock,
-            span,
-            fill,
+            (span, fill, same_time),
             tuple(scalar_parameter(a)[0] for a in arguments),
             Ragged(ticks, offsets),
             Ragged(v.to_numpy(zero_copy_only=False), offsets),

@@ -18,21 +18,34 @@ import pyarrow as pa
 from tsql.forms.answers import Answer
 from tsql.forms.arguments import by_keys, check_argument, checked_arguments
 from tsql.forms.arrow import to_arrow_list
-from tsql.forms.time import Clock, Span, span_in_steps, step
-from tsql.kernels.grid import Grid, on_grid
+from tsql.forms.time import Clock, Span, moment_text, span_in_steps, step
+from tsql.kernels.grid import Grid, RepeatedTime, on_grid
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged
-from tsql.registry import FILL, Function
+from tsql.registry import FILL, SAME_TIME, Function
 
 PIECE_POINTS = CACHE_ELEMENTS
 """Observations per piece of a call (a group is never split): the work stays in cache."""
 
 
-def grid_of(function: str, clock: Clock, span: Span | None, fill: str | None, ticks: Ragged, values: Ragged) -> Grid:
+Settings = tuple[Span | None, str | None, str | None]
+"""The grid's settings as a host hands them over: the step (a span), ``fill`` and ``same_time``."""
+
+
+def grid_of(function: str, clock: Clock, settings: Settings, ticks: Ragged, values: Ragged) -> Grid:
     """Each group on its regular grid; errors name ``function``."""
+    span, fill, same_time = settings
     months, length = step(function, clock, span)
     fill = check_argument(function, FILL, fill if fill is not None else "null")
+    same_time = check_argument(function, SAME_TIME, same_time if same_time is not None else "mean")
     try:
-        return on_grid(ticks, values, clock.temporal, months, length, fill)
+        return on_grid(ticks, values, clock.temporal, months, length, fill, same_time)
+    except RepeatedTime as error:
+        first, second = (moment_text(clock, t) for t in error.ticks)
+        where = f"at {first}" if first == second else f"at {first} and {second}, on one grid point"
+        raise ValueError(
+            f"{function}: several rows {where} (same_time := 'error'); aggregate them first, or say how to "
+            "combine them: same_time := 'mean', 'sum' (counts), 'first' or 'last'"
+        ) from None
     except ValueError as error:
         raise ValueError(f"{function}: {error}") from None
 
@@ -45,15 +58,13 @@ class AggForm:
         self.name = f"{fn.name}_agg"
         self.answer = answer or fn.answer
 
-    def __call__(
-        self, clock: Clock, span: Span | None, fill: str | None, arguments: tuple, ticks: Ragged, values: Ragged
-    ) -> pa.Array:
-        """The answers of a batch of groups that share their settings."""
+    def __call__(self, clock: Clock, settings: Settings, arguments: tuple, ticks: Ragged, values: Ragged) -> pa.Array:
+        """The answers of a batch of groups that share their settings (the grid's, and the plain ``arguments``)."""
         fn = self.fn
-        grid = grid_of(self.name, clock, span, fill, ticks, values)
+        grid = grid_of(self.name, clock, settings, ticks, values)
         per_row = [
-            span_in_steps(self.name, p.name, p.minimum, clock, grid, value, p.choices) if p.span else value
-            for p, value in zip(fn.params, arguments)
+            span_in_steps(self.name, p.name, p.minimum, clock, grid, value, p.choices, p.whole) if p.span else value
+            for p, value in zip(fn.params + fn.time_params, arguments)
         ]
         n_rows = grid.values.n_rows
         if n_rows and not any(isinstance(a, np.ndarray) for a in per_row):  # the same arguments on every row
@@ -63,7 +74,7 @@ class AggForm:
         keys = [tuple(None if (isinstance(x, float) and np.isnan(x)) else x for x in row) for row in zip(*columns)]
 
         def call(rows: np.ndarray | None, key: tuple) -> pa.Array:
-            kwargs = checked_arguments(fn, key, self.name)
+            kwargs = checked_arguments(fn, key, self.name, agg=True)
             sub = grid if rows is None else grid.take(rows)
             if kwargs is None:
                 return pa.nulls(sub.values.n_rows, type=self.answer.udf_returns(fn.returns).arrow)
@@ -72,9 +83,7 @@ class AggForm:
         return by_keys(keys or [()] * n_rows, call)
 
 
-def on_grid_values(
-    clock: Callable[[], Clock], span: Span | None, fill: str | None, times: Ragged, values: Ragged
-) -> pa.Array:
+def on_grid_values(clock: Callable[[], Clock], settings: Settings, times: Ragged, values: Ragged) -> pa.Array:
     """``on_grid(values, times)``: rows pair values with ticks element by element (NULL on either side: NULL).
 
     ``clock()`` gives the times' clock once their lengths are found to pair up.
@@ -86,7 +95,7 @@ def on_grid_values(
     if (v.lengths != t.lengths).any():  # a NULL row on one side only
         keep = np.flatnonzero(valid)
         v, t = _with_rows(v.take(keep), len(valid), keep), _with_rows(t.take(keep), len(valid), keep)
-    return to_arrow_list(grid_of("on_grid", clock(), span, fill, t, v).values)
+    return to_arrow_list(grid_of("on_grid", clock(), settings, t, v).values)
 
 
 def _with_rows(batch: Ragged, n_rows: int, rows: np.ndarray) -> Ragged:

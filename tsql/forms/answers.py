@@ -13,7 +13,7 @@ import numpy as np
 import pyarrow as pa
 
 from tsql.forms.arrow import to_arrow, to_arrow_list
-from tsql.forms.time import Clock, span_array
+from tsql.forms.time import Clock, calendar_offset, span_array
 from tsql.forms.types import DOUBLE, INTEGER, MOMENT, SPAN, TIME, TINYINT, ListOf, SqlType, Struct, struct
 from tsql.kernels.grid import Grid
 from tsql.kernels.ragged import Ragged, RaggedRecords
@@ -86,6 +86,17 @@ class Period(Answer):
     @property
     def in_steps(self) -> Answer:
         return SAME
+
+
+class Profile(Answer):
+    """One cycle by phase (``harmonic_profile``), phase 0 where ``anchor`` says: 'calendar' (the calendar's,
+    :func:`~tsql.forms.time.calendar_offset`) or 'first' (the group's first time, as the list form)."""
+
+    def compute(self, kernel: Kernel, returns: SqlType, clock: Clock, grid: Grid, kwargs: dict) -> pa.Array:
+        kwargs = dict(kwargs)
+        if kwargs.pop("anchor") == "calendar":
+            kwargs["offset"] = calendar_offset(clock, grid, kwargs["period"])
+        return to_arrow(returns, kernel(grid.values, **kwargs), grid.values.row_valid)
 
 
 class Starts(Answer):
@@ -292,4 +303,12 @@ def _at(positions: pa.Array, in_order: np.ndarray, times: Times) -> pa.Array:
     return times(in_order[rows])
 
 
-PERIOD, PERIODS, STARTS, SEGMENTS, SERIES, PATH = Period(), Periods(), Starts(), Segments(), Series(), Path()
+PERIOD, PERIODS, PROFILE, STARTS, SEGMENTS, SERIES, PATH = (
+    Period(),
+    Periods(),
+    Profile(),
+    Starts(),
+    Segments(),
+    Series(),
+    Path(),
+)

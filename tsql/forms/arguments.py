@@ -50,14 +50,15 @@ def by_keys(keys: list[tuple], run: Callable[[np.ndarray | None, tuple], pa.Arra
     return joined.take(pa.array(np.argsort(np.concatenate(order), kind="stable")))
 
 
-def checked_arguments(fn: Function, key: tuple, name: str | None = None) -> dict | None:
+def checked_arguments(fn: Function, key: tuple, name: str | None = None, agg: bool = False) -> dict | None:
     """The plain arguments as keyword arguments for the kernel, checked; None when a NULL one makes the row NULL.
 
-    Errors name ``name`` (default: the function's own name; the *_agg forms pass theirs).
+    Errors name ``name`` (default: the function's own name; the *_agg forms pass theirs). ``agg``: ``key``
+    also holds the ``*_agg`` form's ``time_params``, for its answer kind.
     """
     name = name or fn.name
     kwargs = {}
-    for p, value in zip(fn.params, key):
+    for p, value in zip(fn.params + fn.time_params if agg else fn.params, key):
         if value is None:
             if not p.none_ok:
                 return None

@@ -8,16 +8,29 @@ number (either may be None).
 
 from __future__ import annotations
 
+import datetime as dt
 from dataclasses import dataclass
 from fractions import Fraction
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
 from tsql.forms.arrow import to_arrow_scalar
-from tsql.kernels.grid import DAY_US, Grid
+from tsql.kernels.grid import DAY_US, Grid, add_months, month_index
+
+MONTH_DAYS = 365.2425 / 12
+"""Days in a month where a month must have a length (a period in months on a grid of days or weeks): the
+Gregorian calendar's mean, 30.436875 (a year: 365.2425 days, 52.1775 weeks)."""
+CALENDAR_LENGTHS = (1, 3, 12)
+"""The calendar lengths a period may read as, in months: a month, a quarter, a year."""
+CALENDAR_TOLERANCE = 0.02
+"""A length within this share of a calendar length is that length (a month: 29.8 to 31.0 days, a quarter:
+89.5 to 93.1, a year: 357.9 to 372.5, 51.1 to 53.2 weeks); wide enough for a period estimated off the
+Fourier grid from a few years of weekly data, narrow enough to leave 4 weeks and 29 days alone."""
+_MONDAY = 4 * DAY_US
+"""1970-01-05 00:00, a Monday: phase 0 of cycles in whole days and weeks."""
 
 Span = tuple[str | None, Any, float | None]
 """A span argument as (text, interval, number); all None when the argument is NULL."""
@@ -76,10 +89,14 @@ def span_in_steps(
     grid: Grid,
     span: Span | None,
     words: tuple[str, ...] = (),
+    whole: bool = False,
 ) -> Any:
     """A length-of-time argument in grid steps: one value, or one per row when it depends on the row's step.
 
     An argument that may also be a word (``seasonal := 'auto'``) names them in ``words``: one comes back as it is.
+    Months on a grid of fixed steps (``INTERVAL 1 YEAR`` on weekly data) count :data:`MONTH_DAYS` days each:
+    a year is 52.1775 weeks or 365.2425 days; an argument that must be ``whole`` takes the nearest whole
+    number of steps (52 weeks). A fixed length on a calendar grid (days on monthly data) is an error.
     """
     text, interval, number = span or NO_SPAN
     if text is None:
@@ -95,6 +112,11 @@ def span_in_steps(
         raise ValueError(f"{function}: {name} must be {what}, got {text!r}")
     months, length = interval_ticks(interval)
     steps = grid.steps(months, length)
+    fixed = grid.length > 0
+    if months and fixed.any():
+        steps[fixed] = (months * MONTH_DAYS * DAY_US + length) / grid.length[fixed]
+        if whole:
+            steps[fixed] = np.maximum(np.round(steps[fixed]), 1.0)
     # a group of one observation has no step (0) and so no span in steps: it gets the NULL meaning of
     # the argument, whatever the other groups of its batch
     stepped = (grid.months > 0) | (grid.length > 0)
@@ -102,7 +124,7 @@ def span_in_steps(
     if np.isnan(counted).any():
         raise ValueError(
             f"{function}: {name} {text!r} cannot be counted in the grid's steps "
-            "(months on a fixed step, or days on a calendar step); give it in the step's own terms"
+            "(days or hours on a calendar step of months); give it in months or as a number of steps"
         )
     if minimum is not None and (counted < minimum).any():
         raise ValueError(
@@ -112,10 +134,23 @@ def span_in_steps(
 
 
 def span_array(clock: Clock, grid: Grid, steps: np.ndarray) -> pa.Array:
-    """Periods in grid steps as spans of time: INTERVALs for temporal times, numbers otherwise."""
+    """Periods in grid steps as spans of time: INTERVALs for temporal times, numbers otherwise.
+
+    On calendar grids a period is whole months (a fraction of a month has no fixed length). On grids of
+    whole days (daily, weekly) a period within :data:`CALENDAR_TOLERANCE` of a month, a quarter or a year
+    (:func:`calendar_months`) is that many months, and any other is rounded to whole days: a yearly cycle
+    on weekly data reads ``1 year``, not ``364 days 05:06:37``. Finer grids (hours) keep the exact length.
+    """
     n = len(steps)
     missing = np.isnan(steps)
     months, ticks = grid.span(steps)
+    days = np.where(grid.length > 0, grid.length / DAY_US, np.nan)
+    in_days = (days == np.round(days)) & ~np.isnan(ticks)
+    if clock.temporal and in_days.any():
+        whole_days = np.round(ticks[in_days] / DAY_US)
+        calendar = calendar_months(ticks[in_days] / DAY_US)
+        months[in_days] = calendar
+        ticks[in_days] = np.where(calendar > 0, 0.0, whole_days * DAY_US)
     if clock.temporal:
         micros = np.where(np.isnan(ticks), 0, np.round(np.nan_to_num(ticks))).astype(np.int64)
         days, rest = np.divmod(micros, DAY_US)
@@ -130,6 +165,107 @@ def span_array(clock: Clock, grid: Grid, steps: np.ndarray) -> pa.Array:
         children = [pa.nulls(n, pa.month_day_nano_interval()), to_arrow_scalar(ticks)]
         tag = 1
     return pa.UnionArray.from_sparse(pa.array(np.full(n, tag, dtype=np.int8)), children, field_names=["span", "number"])
+
+
+def calendar_months(days: np.ndarray) -> np.ndarray:
+    """The calendar length (1, 3 or 12 months) each length in days reads as, within
+    :data:`CALENDAR_TOLERANCE`; 0 where it reads as none."""
+    days = np.asarray(days, dtype=np.float64)
+    out = np.zeros(days.shape, dtype=np.int64)
+    for months in CALENDAR_LENGTHS:
+        out[np.abs(days - months * MONTH_DAYS) <= CALENDAR_TOLERANCE * months * MONTH_DAYS] = months
+    return out
+
+
+def calendar_offset(clock: Clock, grid: Grid, period: float) -> np.ndarray:
+    """Where phase 0 of a cycle of ``period`` grid steps lies on the calendar, in steps after each row's first
+    grid point (in ``(-period, 0]``).
+
+    Phase 0 is at 0 for numbers; on calendar grids at January 1970 and every ``period`` from it (a year's
+    cycle: January, a quarter's: January, April ...); on fixed grids, for a cycle that reads as a month, a
+    quarter or a year (:func:`calendar_months`), at the start of that calendar period in which the row
+    starts (the fit's cycle has the calendar's mean length, so later cycles may sit up to a day or two
+    off the calendar's), otherwise at Monday 1970-01-05 00:00 and every ``period`` from it (00:00 for a
+    day, Monday 00:00 for a week).
+    """
+    start = np.nan_to_num(grid.start)
+    steps = np.zeros(len(start))
+    fixed = grid.length > 0
+    if not clock.temporal:
+        steps[fixed] = start[fixed] / grid.length[fixed]
+        return -np.mod(steps, period)
+    calendar = grid.months > 0
+    if calendar.any():
+        steps[calendar] = month_index(start[calendar]) / grid.months[calendar]
+    if fixed.any():
+        first, length = start[fixed], grid.length[fixed]
+        months = calendar_months(period * length / DAY_US)
+        origin = np.full(len(first), float(_MONDAY))
+        monthly = months > 0
+        if monthly.any():
+            block = month_index(first[monthly]) // months[monthly] * months[monthly]
+            origin[monthly] = add_months(np.zeros(len(block)), block)
+        steps[fixed] = (first - origin) / length
+    return -np.mod(steps, period)
+
+
+class PeriodParts(NamedTuple):
+    """An INTERVAL's own parts, exact: whole months, whole days and microseconds (as DuckDB keeps them)."""
+
+    months: int
+    days: int
+    microseconds: int
+
+
+def period_parts(period: Any) -> Any:
+    """A period from an ``*_agg`` answer, read exactly in Python.
+
+    DuckDB hands an INTERVAL to Python (``fetchall``, ``fetchone``, ``df``) as a ``datetime.timedelta``
+    that counts a month as 30 days: ``INTERVAL 12 MONTH`` arrives as ``timedelta(days=360)``, which
+    cannot be told from 360 days. Arrow keeps the parts: fetch the rows as Arrow
+    (``con.sql(query).to_arrow_table()``) and pass a period from there.
+
+    Parameters
+    ----------
+    period : pyarrow.MonthDayNano, pyarrow Scalar or Array, number or None
+        A period (the ``UNION(span INTERVAL, number DOUBLE)`` of ``dominant_period_agg``, the ``period``
+        field of ``seasonality_agg`` ...) as Arrow gives it; an Array or ChunkedArray of them.
+
+    Returns
+    -------
+    PeriodParts, float, None or list
+        ``PeriodParts(months, days, microseconds)`` for an INTERVAL, the number for numeric times, None
+        for NULL; a list of these for an array.
+
+    Raises
+    ------
+    ValueError
+        For a ``datetime.timedelta`` (its months are lost already) or anything that is not a period.
+
+    Examples
+    --------
+    >>> import pyarrow as pa
+    >>> period_parts(pa.MonthDayNano([12, 0, 0]))
+    PeriodParts(months=12, days=0, microseconds=0)
+    >>> period_parts(pa.array([pa.MonthDayNano([0, 7, 0]), None], pa.month_day_nano_interval()))
+    [PeriodParts(months=0, days=7, microseconds=0), None]
+    """
+    if isinstance(period, (pa.Array, pa.ChunkedArray)):
+        return [period_parts(p) for p in period.to_pylist()]
+    if isinstance(period, pa.Scalar):
+        period = period.as_py()
+    if period is None:
+        return None
+    if isinstance(period, pa.MonthDayNano):
+        return PeriodParts(period.months, period.days, period.nanoseconds // 1000)  # DuckDB keeps microseconds
+    if isinstance(period, dt.timedelta):
+        raise ValueError(
+            "tsql.period_parts: a datetime.timedelta has lost the INTERVAL's months (DuckDB hands a month to Python "
+            "as 30 days); fetch the rows as Arrow, con.sql(query).to_arrow_table(), and pass the period from there"
+        )
+    if isinstance(period, (int, float)) and not isinstance(period, bool):
+        return float(period)
+    raise ValueError(f"tsql.period_parts: expected a period (an INTERVAL from Arrow or a number), got {period!r}")
 
 
 # --- Arrow time columns (hosts that hand over times rather than ticks) ------------------------
@@ -169,6 +305,18 @@ def times_of(ticks: np.ndarray, kind: str) -> pa.Array:
     if kind == "date":
         return pa.array((whole // DAY_US).astype(np.int32), type=pa.date32(), mask=mask)
     return pa.array(whole, type=pa.timestamp("us", tz="UTC" if kind == "timestamp" else None), mask=mask)
+
+
+def moment_text(clock: Clock, tick: float) -> str:
+    """A tick as messages show a time: ISO text for DATE and TIMESTAMP times (UTC for TIMESTAMPTZ), else the number."""
+    if not clock.temporal:
+        return f"{tick:g}"
+    moment = np.datetime64(int(tick), "us")
+    if int(tick) % 10**6 == 0:
+        moment = moment.astype("datetime64[s]")
+    if clock.kind == "date" and int(tick) % DAY_US == 0:
+        return str(moment.astype("datetime64[D]"))
+    return str(moment).replace("T", " ") + ("+00" if clock.utc else "")
 
 
 def whole_days(ticks: np.ndarray) -> bool:

@@ -15,7 +15,8 @@ and 12 months.
 
 Observations are binned to the grid point at or before them,
 ``floor((t - t0) / step)`` (calendar steps count months); several observations
-at one grid point are averaged. Grid points without a number are then filled:
+at one grid point are combined as ``same_time`` says (see :data:`SAME_TIMES`).
+Grid points without a number are then filled:
 ``'null'`` leaves them missing (NaN), ``'zero'`` puts 0 (counts: an hour with no
 row had no calls), ``'linear'`` interpolates between the neighbouring numbers
 and ``'previous'`` carries the last number forward. Leading missing points stay
@@ -31,9 +32,34 @@ import numpy as np
 
 from tsql.kernels.ragged import Ragged
 
-__all__ = ["DAY_US", "FILLS", "MAX_GRID_POINTS", "Grid", "on_grid"]
+__all__ = [
+    "DAY_US",
+    "FILLS",
+    "MAX_GRID_POINTS",
+    "SAME_TIMES",
+    "Grid",
+    "RepeatedTime",
+    "add_months",
+    "month_index",
+    "on_grid",
+]
 
 FILLS = ("null", "zero", "linear", "previous")
+SAME_TIMES = ("mean", "sum", "first", "last", "error")
+"""How several observations at one grid point combine (NULL values left out; none present: missing):
+their mean (a level measured twice), their sum (counts: two rows of one hour's calls), the first or the
+last in time order, where observations at the very same time are ordered by value (so 'first' takes the
+smallest, 'last' the largest, whatever order the rows came in), or an error (:class:`RepeatedTime`)."""
+
+
+class RepeatedTime(ValueError):
+    """Two observations on one grid point under ``same_time='error'``: ``ticks`` holds their times."""
+
+    def __init__(self, ticks: tuple[float, float]):
+        super().__init__(f"two observations on one grid point, at {ticks[0]!r} and {ticks[1]!r}")
+        self.ticks = ticks
+
+
 MAX_GRID_POINTS = 10_000_000
 """Per series. A given step far finer than the data that would make more points is an error; a
 series whose own most common spacing would (a stray time far away) gets no grid (NULL)."""
@@ -135,6 +161,7 @@ def on_grid(
     step_months: int = 0,
     step_length: float = 0.0,
     fill: str = "null",
+    same_time: str = "mean",
 ) -> Grid:
     """Place each series on the regular grid from its first to its last time.
 
@@ -150,6 +177,8 @@ def on_grid(
         infer each row's step from its most common spacing.
     fill : {'null', 'zero', 'linear', 'previous'}
         What grid points without a number get.
+    same_time : {'mean', 'sum', 'first', 'last', 'error'}
+        How several observations at one grid point combine (:data:`SAME_TIMES`).
 
     Returns
     -------
@@ -158,6 +187,8 @@ def on_grid(
     """
     if fill not in FILLS:
         raise ValueError(f"fill must be one of {FILLS}, got {fill!r}")
+    if same_time not in SAME_TIMES:
+        raise ValueError(f"same_time must be one of {SAME_TIMES}, got {same_time!r}")
     if not np.array_equal(times.lengths, values.lengths):
         raise ValueError("times and values must have the same length in every row")
     times = _without_infinite_times(times)
@@ -186,7 +217,7 @@ def on_grid(
         # centuries away, say) gives that row no grid (NULL), not an error for the whole batch
         huge = _too_many_points(t, obs_offsets, start, length, has_obs)
         if huge.any():
-            return on_grid(_as_null_rows(times, huge), values, temporal, fill=fill)
+            return on_grid(_as_null_rows(times, huge), values, temporal, fill=fill, same_time=same_time)
     _check_extent(t, obs_offsets, start, length, has_obs)
     bins = _bins(t, rows, start, months, length, has_obs)
     if isinstance(regular, np.ndarray):  # such rows are their own grid here too, however their times round
@@ -204,16 +235,9 @@ def on_grid(
 
     total = int(grid_offsets[-1])
     gridded = np.full(total, np.nan)
-    if np.all(where[1:] > where[:-1]):  # at most one observation per grid point: no averaging
-        gridded[where] = v
-    else:  # points with one observation keep it as it is (-0.0, a NaN's sign), as in a row without repeats
-        gridded[where] = v
-        several = np.bincount(where, minlength=total) > 1
-        present = ~np.isnan(v)
-        sums = np.bincount(where[present], weights=v[present], minlength=total)
-        counts = np.bincount(where[present], minlength=total)
-        np.divide(sums, counts, out=gridded, where=several & (counts > 0))
-        gridded[several & (counts == 0)] = np.nan
+    gridded[where] = v
+    if not np.all(where[1:] > where[:-1]):  # repeats; a point with one observation keeps it as it is
+        _combine(gridded, where, t, v, same_time)
     gridded = _filled(gridded, grid_offsets, fill)
 
     return Grid(
@@ -224,6 +248,32 @@ def on_grid(
         points=where,
         observation_offsets=obs_offsets,
     )
+
+
+def _combine(gridded: np.ndarray, where: np.ndarray, t: np.ndarray, v: np.ndarray, same_time: str) -> None:
+    """Points with several observations (``where`` ascends: they are in time order, then value order) as
+    ``same_time`` says."""
+    if same_time == "error":
+        i = int(np.flatnonzero(where[1:] == where[:-1])[0])
+        raise RepeatedTime((float(t[i]), float(t[i + 1])))
+    total = len(gridded)
+    several = np.bincount(where, minlength=total) > 1
+    present = ~np.isnan(v)
+    counts = np.bincount(where[present], minlength=total)
+    if same_time in ("mean", "sum"):
+        sums = np.bincount(where[present], weights=v[present], minlength=total)
+        if same_time == "mean":
+            np.divide(sums, counts, out=gridded, where=several & (counts > 0))
+        else:
+            gridded[several & (counts > 0)] = sums[several & (counts > 0)]
+    else:
+        kept = np.flatnonzero(present)
+        at = where[kept]
+        ends = np.flatnonzero(at[1:] != at[:-1])  # the last of each point's run
+        pick = np.concatenate([[0], ends + 1]) if same_time == "first" else np.concatenate([ends, [len(at) - 1]])
+        pick = pick[several[at[pick]]] if len(at) else pick[:0]
+        gridded[at[pick]] = v[kept[pick]]
+    gridded[several & (counts == 0)] = np.nan
 
 
 def _without_infinite_times(times: Ragged) -> Ragged:
@@ -275,11 +325,11 @@ def _bins(
     calendar_rows = months > 0
     if calendar_rows.any():
         first_month = np.zeros(len(start), dtype=np.int64)
-        first_month[has_obs] = _month_index(start[has_obs])
+        first_month[has_obs] = month_index(start[has_obs])
         if calendar_rows.all():
-            return (_month_index(t) - first_month[rows]) // months[rows]
+            return (month_index(t) - first_month[rows]) // months[rows]
         calendar = calendar_rows[rows]
-        bins[calendar] = (_month_index(t[calendar]) - first_month[rows[calendar]]) // months[rows[calendar]]
+        bins[calendar] = (month_index(t[calendar]) - first_month[rows[calendar]]) // months[rows[calendar]]
     fixed_rows = ~calendar_rows & (length > 0)
     if fixed_rows.all():
         return np.floor((t - start[rows]) / length[rows] + _EPS).astype(np.int64)
@@ -303,7 +353,7 @@ def add_months(ticks: np.ndarray, months: np.ndarray) -> np.ndarray:
     return out.astype(np.int64).astype(np.float64)
 
 
-def _month_index(ticks: np.ndarray) -> np.ndarray:
+def month_index(ticks: np.ndarray) -> np.ndarray:
     """Months since 1970-01 of each tick (through a table of the days spanned, which is fast)."""
     if len(ticks) == 0:
         return np.zeros(0, dtype=np.int64)
@@ -444,7 +494,7 @@ def _inferred_steps(
         match = key == candidate[gap_row]
     if match.all() and not repeats:  # one step everywhere, unless month ends make a day count mislead
         calendar = temporal and candidate < 0
-        if not calendar or np.all(np.diff(_month_index(t))[within] == candidate + 100):
+        if not calendar or np.all(np.diff(month_index(t))[within] == candidate + 100):
             if calendar:
                 months[spaced] = int(candidate + 100)
             else:  # each row's own first spacing, as below (numbers' spacings differ in their last digits)

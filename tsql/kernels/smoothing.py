@@ -79,7 +79,7 @@ def harmonic_smooth(batch: Ragged, harmonics: int = 3, period: float | None = No
     return _ragged_like(batch, out, valid)
 
 
-def harmonic_profile(batch: Ragged, period: float, harmonics: int = 3) -> Ragged:
+def harmonic_profile(batch: Ragged, period: float, harmonics: int = 3, offset: float | np.ndarray = 0.0) -> Ragged:
     """One cycle of each series' fitted seasonal pattern: its level plus the harmonics.
 
     The model of :func:`harmonic_smooth` with this period is fitted (level, trend, cos/sin pairs
@@ -88,8 +88,8 @@ def harmonic_profile(batch: Ragged, period: float, harmonics: int = 3) -> Ragged
 
         profile_k = a + sum_j (alpha_j cos(2 pi j k / L) + beta_j sin(2 pi j k / L)),  k = 0..L-1
 
-    that is, the pattern ``k * period / L`` samples after the row's first element (``k`` samples
-    when the period is whole). Element ``i`` of the list (1-based) is phase ``i - 1``; so
+    that is, the pattern ``offset + k * period / L`` samples after the row's first element (``k``
+    samples when the period is whole and ``offset`` 0). Element ``i`` of the list (1-based) is phase ``i - 1``; so
     ``list_position(p, list_max(p))`` is the 1-based phase of the peak, and with hourly data
     starting at midnight the peak hour is that position minus 1.
 
@@ -101,6 +101,11 @@ def harmonic_profile(batch: Ragged, period: float, harmonics: int = 3) -> Ragged
         Length of the cycle in samples (>= 2).
     harmonics : int
         Number of cos/sin pairs (>= 1); pairs with ``2 j >= period`` are dropped.
+    offset : float or array
+        Where phase 0 lies, in samples after the row's first element (one value, or one per row;
+        any real number: the cycle repeats). A whole ``offset`` with a whole period turns the
+        profile by that many elements, bit for bit; the ``*_agg`` form puts phase 0 on the
+        calendar with it.
 
     Returns
     -------
@@ -133,13 +138,15 @@ def harmonic_profile(batch: Ragged, period: float, harmonics: int = 3) -> Ragged
     """
     period = float(period)
     length = int(np.floor(period + 0.5))
+    # the offset in elements of the profile, within one cycle
+    shift = np.mod(np.broadcast_to(np.asarray(offset, dtype=np.float64), (batch.n_rows,)) * (length / period), length)
     table = np.full((batch.n_rows, length), np.nan)
     valid = np.zeros(batch.n_rows, dtype=bool)
     for fit in _fits(batch, int(harmonics), period):
         coef, determined = fit.coefficients()
         rows = fit.rows[determined]
         valid[rows] = True
-        table[rows] = _evaluate_cycle(coef[determined], fit.design.j, length)
+        table[rows] = _evaluate_cycle(coef[determined], fit.design.j, length, shift[rows])
     lengths = np.where(valid, length, 0)
     offsets = np.zeros(batch.n_rows + 1, dtype=np.int64)
     np.cumsum(lengths, out=offsets[1:])
@@ -413,9 +420,10 @@ def _fits(batch: Ragged, harmonics: int, period: float | None) -> Iterator[_Buck
         yield _BucketFit(_Design(n, period, harmonics), rows, matrix, present)
 
 
-def _evaluate_cycle(coef: np.ndarray, j: np.ndarray, length: int) -> np.ndarray:
-    """``a + sum_j alpha_j cos(2 pi j k / L) + beta_j sin(2 pi j k / L)`` for ``k = 0..L-1``."""
-    k = np.arange(length, dtype=np.float64)
+def _evaluate_cycle(coef: np.ndarray, j: np.ndarray, length: int, shift: np.ndarray) -> np.ndarray:
+    """``a + sum_j alpha_j cos(2 pi j (k + s) / L) + beta_j sin(2 pi j (k + s) / L)`` for ``k = 0..L-1``, with
+    each row's shift ``s`` in elements."""
+    k = np.arange(length, dtype=np.float64) + shift[:, None]
     out = np.repeat(coef[:, :1], length, axis=1)
     for i, harmonic in enumerate(j):
         angle = (2.0 * np.pi / length) * np.mod(harmonic * k, length)
