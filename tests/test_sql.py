@@ -282,7 +282,8 @@ def test_macros_and_registry_are_in_step(con):
     listed = {
         r[0]
         for r in con.execute(
-            "SELECT function_name FROM duckdb_functions() WHERE function_type = 'macro' AND database_name = 'temp'"
+            "SELECT function_name FROM duckdb_functions() WHERE function_type IN ('macro', 'table_macro') "
+            "AND database_name = 'temp'"
         ).fetchall()
     }
     assert expected <= listed

@@ -9,10 +9,10 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from tsql.registry import FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Function
+from tsql.registry import FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Function, TableMacro
 
 
-def describe(fn: Function) -> str:
+def describe(fn: Function | TableMacro) -> str:
     """What ``tsql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
     lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.public_returns or fn.returns}; NULL for: {fn.null_rows}"]
     for p in fn.params:
