@@ -12,7 +12,7 @@ import importlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-from tsql.forms.answers import PATH, PERIOD, PERIODS, SAME, SEGMENTS, SERIES, STARTS, Answer
+from tsql.forms.answers import PATH, PERIOD, PERIODS, PROFILE, SAME, SEGMENTS, SERIES, STARTS, Answer
 from tsql.forms.types import BOOLEAN, DOUBLE, INTEGER, VARCHAR, ListOf, SqlType, struct
 from tsql.kernels.changepoint import MAX_PROGRAMME, MIN_SIZE, SEASONAL
 from tsql.kernels.grid import FILLS
@@ -746,6 +746,39 @@ FUNCTIONS += (
                 help="the null hypothesis: stationary around a constant 'c' or a line 'ct'",
             ),
         ),
+    ),
+)
+
+FUNCTIONS += (
+    Function(
+        name="screen",
+        family="screening",
+        returns=struct(
+            points=INTEGER,
+            missing=INTEGER,
+            merged=INTEGER,
+            period=DOUBLE,
+            strength=DOUBLE,
+            p_value=DOUBLE,
+            trend_tau=DOUBLE,
+            trend_p_value=DOUBLE,
+            trend_slope=DOUBLE,
+            autocorrelation=DOUBLE,
+            ljung_box_p_value=DOUBLE,
+            adf_p_value=DOUBLE,
+            spectral_entropy=DOUBLE,
+            changes=INTEGER,
+        ),
+        kernel_path="screen:screen",
+        doc="One profile per series: points, missing, merged rows, seasonality, trend_test, lag-1 autocorrelation, "
+        "Ljung-Box, ADF and spectral entropy p's and values, number of change points, each as its own function.",
+        example="SELECT screen([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2, 3, 9, 4, 1, 2, 8, 5, 1]) AS profile;",
+        null_rows="NULL list, empty, or no present value; a field is NULL where its own function's answer is "
+        "(merged counts the *_agg form's rows that fell on a grid point another row held: 0 in the list form)",
+        see_also=("seasonality", "trend_test", "adf_test", "change_points", "with_q_values"),
+        outcomes="null null partial null value partial partial partial value value value value value value value "
+        "- - -",
+        answer=PROFILE,
     ),
 )
 
