@@ -776,8 +776,7 @@ FUNCTIONS += (
         null_rows="NULL list, empty, or no present value; a field is NULL where its own function's answer is "
         "(merged counts the *_agg form's rows that fell on a grid point another row held: 0 in the list form)",
         see_also=("seasonality", "trend_test", "adf_test", "change_points", "with_q_values"),
-        outcomes="null null partial null value partial partial partial value value value value value value value "
-        "- - -",
+        outcomes="null null partial null value partial partial partial value value value value value value value - - -",
         answer=PROFILE,
     ),
 )
