@@ -137,6 +137,11 @@ def test_rows_without_support_are_null_and_the_query_goes_on(con, fn, values):
     elif fn.family == "smoothing" and values == "[2, 2, 2, 2, 2, 2]":
         # a constant series is smooth already: its curve and its cycle are that constant
         assert rows[0][0] and all(v == pytest.approx(2.0, rel=1e-12) for v in rows[0][0])
+    elif fn.name == "screen" and values in ("[1.0]", "[2, 2, 2, 2, 2, 2]"):
+        # the profile of what there is: its size and no change, but no statistic
+        profile = rows[0][0]
+        assert (profile["points"], profile["missing"], profile["changes"]) == (1 if values == "[1.0]" else 6, 0, 0)
+        assert profile["p_value"] is profile["trend_tau"] is profile["adf_p_value"] is None
     elif fn.name == "sparkline" and values != "NULL":
         # every list has a picture (stretched to width 12): '' when empty, spaces for NULLs,
         # the middle block when constant
