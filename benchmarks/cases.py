@@ -430,6 +430,7 @@ def cases() -> list[Case]:
         "ljung_box_agg(v, t).p_value + adf_test_agg(v, t).p_value + spectral_entropy_agg(v, t) + "
         "len(change_points_agg(v, t))"
     )  # a sum, NULL when a part is: count() needs every part (it would drop the aggregates of a struct_pack)
+    rows.append(Case("screen", "list", "series", "screen(list(v ORDER BY t))", note="against the floor only"))
     rows.append(
         Case(
             "screen",
