@@ -770,8 +770,8 @@ FUNCTIONS += (
             changes=INTEGER,
         ),
         kernel_path="screen:screen",
-        doc="One profile per series: points, missing, merged rows, seasonality, trend_test, lag-1 autocorrelation, "
-        "Ljung-Box, ADF and spectral entropy p's and values, number of change points, each as its own function.",
+        doc="The main diagnostics of a series at once (size, gaps, cycle, trend, memory, unit root, entropy, "
+        "change points), each field its own function's answer.",
         example="SELECT screen([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2, 3, 9, 4, 1, 2, 8, 5, 1]) AS profile;",
         null_rows="NULL list, empty, or no present value; a field is NULL where its own function's answer is "
         "(merged counts the *_agg form's rows that fell on a grid point another row held: 0 in the list form)",
