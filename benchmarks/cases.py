@@ -425,6 +425,23 @@ def cases() -> list[Case]:
         )
         for form, expr in (("list", "trend_test(list(v ORDER BY t))"), ("agg", "trend_test_agg(v, t)"))
     ]
+    one_by_one = (
+        "seasonality_agg(v, t).p_value + trend_test_agg(v, t).p_value + autocorrelation_agg(v, t) + "
+        "ljung_box_agg(v, t).p_value + adf_test_agg(v, t).p_value + spectral_entropy_agg(v, t) + "
+        "len(change_points_agg(v, t))"
+    )  # a sum, NULL when a part is: count() needs every part (it would drop the aggregates of a struct_pack)
+    rows.append(Case("screen", "list", "series", "screen(list(v ORDER BY t))", note="against the floor only"))
+    rows.append(
+        Case(
+            "screen",
+            "agg",
+            "series",
+            "screen_agg(v, t)",
+            native=Reference("its parts one by one", sql=query("{table}", one_by_one)),
+            bars=(Bar("floor", 4.0), Bar("native", 1.0)),
+            note="every field equals its own function (tests/test_screen.py); benchmarks/screen_sql.py has the parts",
+        )
+    )
     rows += registry_cases({c.function for c in rows})
     return rows
 

@@ -22,7 +22,7 @@ import pyarrow as pa
 import pytest
 
 import tsql
-from tsql.registry import FUNCTIONS, PUBLIC
+from tsql.registry import FUNCTIONS, PUBLIC, TABLE_MACROS
 from tsql.shell import _TABLES as SHELL_TABLES
 
 pytestmark = pytest.mark.filterwarnings("ignore::RuntimeWarning")
@@ -286,7 +286,9 @@ def test_the_reminders_are_one_tidy_in_memory_catalog():
     listed = con.execute(
         "SELECT function_name, function_type FROM duckdb_functions() WHERE database_name = 'tsql_needs_register'"
     ).fetchall()
-    assert sorted(listed) == sorted((n, "macro") for n in names)  # once each, however often registered
+    tables = {f.name for f in TABLE_MACROS}
+    kinds = [(n, "table_macro" if n in tables else "macro") for n in names]
+    assert sorted(listed) == sorted(kinds)  # once each, however often registered
     assert con.execute(
         "SELECT path, type FROM duckdb_databases() WHERE database_name = 'tsql_needs_register'"
     ).fetchall() == [(None, "duckdb")]  # in memory: nothing on disk

@@ -27,10 +27,14 @@ from scipy import stats
 
 import tsql
 from tsql.cli import main
-from tsql.kernels.changepoint import MAX_PROGRAMME
+from tsql.kernels.changepoint import MAX_PROGRAMME, change_points
+from tsql.kernels.correlation import autocorrelation
+from tsql.kernels.periodicity import seasonality
 from tsql.kernels.ragged import Ragged
 from tsql.kernels.sparkline import BLOCKS
 from tsql.kernels.stl import stl_decompose
+from tsql.kernels.trend import trend_test
+from tsql.kernels.unitroot import adf_test
 from tsql.reference import regenerate
 from tsql.registry import FUNCTIONS
 
@@ -123,7 +127,10 @@ PAIRS = {"dtw_distance", "dtw_path", "lb_keogh"}
 # parts of an answer in the series' own units: they scale with the series (the rest must not move)
 LINEAR = {"dtw_distance", "lb_keogh", "harmonic_smooth", "harmonic_profile", "on_grid"}
 LINEAR_FIELDS = {"mean", "slope", "value"}
-LINEAR_FIELDS_OF = {"stl_decompose": {"trend", "seasonal", "remainder"}}  # stl_strength's trend is a ratio
+LINEAR_FIELDS_OF = {
+    "stl_decompose": {"trend", "seasonal", "remainder"},
+    "screen": {"trend_slope"},
+}  # stl_strength's trend is a ratio
 
 
 def list_case(cls: str) -> tuple[list, list, list]:
@@ -651,6 +658,12 @@ LONG_CALLS |= {
     "kpss_test": (f"kpss_test({_SHORT_P})", "long_lists"),
     "kpss_test_agg": ("kpss_test_agg(v, t)", _SHORT_ROWS),
 }
+# screen: 20,000 points (its ADF tries 45 lags, as adfuller's default would), the fields against the kernels alone
+LONG_PROFILE = 20_000
+LONG_CALLS |= {
+    "screen": (f"screen(p[1:{LONG_PROFILE}])", "long_lists"),
+    "screen_agg": ("screen_agg(v, t)", f"long_rows_p WHERE t <= {LONG_PROFILE}"),
+}
 BIG_ANSWERS = {"harmonic_smooth", "harmonic_smooth_agg", "dtw_path", "on_grid"}
 
 
@@ -736,6 +749,18 @@ def check_long(con, fn: str, got, data: dict) -> None:
     planted = list(range(SEGMENT + 1, LONG + 1, SEGMENT))  # 1-based first element of each new level
     if name == "dominant_period":
         assert got == pytest.approx(24, abs=0.01)
+    elif name == "screen":
+        x = Ragged.from_list([p[:LONG_PROFILE]])
+        alone = {
+            "period": seasonality(x)["period"],
+            "trend_tau": trend_test(x)["tau"],
+            "autocorrelation": autocorrelation(x),
+            "adf_p_value": adf_test(x)["p_value"],
+            "changes": change_points(x).lengths,
+        }
+        assert got["points"] == LONG_PROFILE and got["missing"] == got["merged"] == 0
+        assert {n: got[n] for n in alone} == {n: float(v[0]) for n, v in alone.items()}
+        assert got["period"] == pytest.approx(24, abs=0.01)
     elif name == "seasonality":
         assert got["period"] == pytest.approx(24, abs=0.01)
         assert got["p_value"] < 1e-10

@@ -32,7 +32,7 @@ from pyspark.sql import SparkSession  # noqa: E402
 import tsql  # noqa: E402
 import tsql.spark  # noqa: E402
 from tsql import sample_db  # noqa: E402
-from tsql.forms.answers import PERIOD, PERIODS  # noqa: E402
+from tsql.forms.answers import PERIOD, PERIODS, SCREEN  # noqa: E402
 from tsql.registry import BY_NAME, FUNCTIONS  # noqa: E402
 
 TOLERANCE = 1e-12
@@ -140,7 +140,8 @@ def _registry_columns() -> tuple[Columns, Columns]:
         series = ", ".join(["v"] * len(fn.series))
         lists.append(("registry", fn.name, f"{fn.name}({series}{spark_args})", f"{fn.name}({series}{args})"))
         if fn.aggregate:
-            in_steps = fn.answer in (PERIOD, PERIODS)  # Spark answers periods in grid steps
+            # Spark answers periods in grid steps (screen's merged rows: none in the sales, as in the list form)
+            in_steps = fn.answer in (PERIOD, PERIODS, SCREEN)
             duck = f"{fn.name}(on_grid({V}, {T}){args})" if in_steps else f"{fn.name}_agg(units, month{args})"
             aggregates.append(("registry", fn.name, f"{fn.name}_agg(units, month{spark_args})", duck))
     return lists, aggregates

@@ -12,7 +12,7 @@ from registry_calls import settings
 
 import tsql
 from tsql.binding import sql_statements
-from tsql.forms.answers import PERIOD, PROFILE, SAME
+from tsql.forms.answers import PERIOD, PROFILE, SAME, SCREEN
 from tsql.forms.list_form import list_udf as make_udf
 from tsql.reference import markdown_table
 from tsql.registry import FUNCTIONS, PUBLIC
@@ -25,7 +25,7 @@ ROOT = Path(__file__).resolve().parents[1]
 # One call per function with its most unusual test setting (the registry's), and the kernel call it must equal.
 SETTINGS = {fn.name: settings(fn, fn.test_args[-1]) for fn in FUNCTIONS}
 #: Functions whose *_agg form answers in times (tests/test_sql_change.py, tests/test_sql_time.py).
-TIME_ANSWERS = {f.name for f in FUNCTIONS if f.answer not in (SAME, PERIOD, PROFILE)}
+TIME_ANSWERS = {f.name for f in FUNCTIONS if f.answer not in (SAME, PERIOD, PROFILE, SCREEN)}
 
 
 def param_columns(fn, kwargs, n):
@@ -138,6 +138,11 @@ def test_rows_without_support_are_null_and_the_query_goes_on(con, fn, values):
     elif fn.family == "smoothing" and values == "[2, 2, 2, 2, 2, 2]":
         # a constant series is smooth already: its curve and its cycle are that constant
         assert rows[0][0] and all(v == pytest.approx(2.0, rel=1e-12) for v in rows[0][0])
+    elif fn.name == "screen" and values in ("[1.0]", "[2, 2, 2, 2, 2, 2]"):
+        # the profile of what there is: its size and no change, but no statistic
+        profile = rows[0][0]
+        assert (profile["points"], profile["missing"], profile["changes"]) == (1 if values == "[1.0]" else 6, 0, 0)
+        assert profile["p_value"] is profile["trend_tau"] is profile["adf_p_value"] is None
     elif fn.name == "sparkline" and values != "NULL":
         # every list has a picture (stretched to width 12): '' when empty, spaces for NULLs,
         # the middle block when constant
@@ -283,7 +288,8 @@ def test_macros_and_registry_are_in_step(con):
     listed = {
         r[0]
         for r in con.execute(
-            "SELECT function_name FROM duckdb_functions() WHERE function_type = 'macro' AND database_name = 'temp'"
+            "SELECT function_name FROM duckdb_functions() WHERE function_type IN ('macro', 'table_macro') "
+            "AND database_name = 'temp'"
         ).fetchall()
     }
     assert expected <= listed

@@ -30,7 +30,7 @@ from tsql.forms.time import Clock
 from tsql.forms.types import SPAN_ARGUMENT, VARCHAR, SqlType
 from tsql.kernels.cancel import INTERRUPTED, Cancellation, watching
 from tsql.kernels.ragged import Ragged
-from tsql.registry import BY_NAME, FUNCTIONS, PUBLIC, TABLE_FUNCTIONS, Function, Param
+from tsql.registry import BY_NAME, FUNCTIONS, PUBLIC, TABLE_FUNCTIONS, TABLE_MACROS, Function, Param
 from tsql.statements import split_statements
 
 
@@ -89,9 +89,15 @@ def _add_reminders(con: duckdb.DuckDBPyConnection) -> None:
             con.execute(f"ATTACH ':memory:' AS {REMINDER_CATALOG} (READ_WRITE)")
         except duckdb.Error:
             return
-        signatures = [fn.signature for fn in PUBLIC] + [fn.agg_signature for fn in FUNCTIONS if fn.aggregate]
+        signatures = [fn.signature for fn in PUBLIC if fn not in TABLE_MACROS]
+        signatures += [fn.agg_signature for fn in FUNCTIONS if fn.aggregate]
         macros = [
             f"CREATE MACRO {REMINDER_CATALOG}.main.{s} AS error('{reminder(s.split('(')[0])}')" for s in signatures
+        ]
+        macros += [
+            f"CREATE MACRO {REMINDER_CATALOG}.main.{fn.signature} AS TABLE "
+            f"SELECT *, error('{reminder(fn.name)}') AS q_value FROM query_table({fn.tables[0]})"
+            for fn in TABLE_MACROS
         ]
         try:
             con.execute(";\n".join(macros))
@@ -181,6 +187,7 @@ def sql_statements() -> list[str]:
         if fn.aggregate:
             statements.append(agg_macro(fn))
     statements += [rows_macro(fn) for fn in TABLE_FUNCTIONS]
+    statements += [f"CREATE OR REPLACE TEMP MACRO {fn.signature} AS TABLE {fn.body}" for fn in TABLE_MACROS]
     return statements
 
 

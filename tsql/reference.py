@@ -10,10 +10,10 @@ import difflib
 import sys
 from pathlib import Path
 
-from tsql.registry import BY_NAME, FUNCTIONS, INPUT_CLASSES, PUBLIC, Function
+from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Function, TableMacro
 
 
-def describe(fn: Function) -> str:
+def describe(fn: Function | TableMacro) -> str:
     """What ``seriesql functions NAME`` prints: signatures, doc, NULL rows, arguments, example."""
     lines = [fn.signature, f"  {fn.doc}", f"  returns {fn.public_returns or fn.returns}; NULL for: {fn.null_rows}"]
     for p in fn.params + fn.time_params:

@@ -12,7 +12,7 @@ import importlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-from tsql.forms.answers import PATH, PERIOD, PERIODS, PROFILE, SAME, SEGMENTS, SERIES, STARTS, Answer
+from tsql.forms.answers import PATH, PERIOD, PERIODS, PROFILE, SAME, SCREEN, SEGMENTS, SERIES, STARTS, Answer
 from tsql.forms.types import BOOLEAN, DOUBLE, INTEGER, VARCHAR, ListOf, SqlType, struct
 from tsql.kernels.changepoint import MAX_PROGRAMME, MIN_SIZE, SEASONAL
 from tsql.kernels.grid import FILLS, SAME_TIMES
@@ -777,6 +777,38 @@ FUNCTIONS += (
     ),
 )
 
+FUNCTIONS += (
+    Function(
+        name="screen",
+        family="screening",
+        returns=struct(
+            points=INTEGER,
+            missing=INTEGER,
+            merged=INTEGER,
+            period=DOUBLE,
+            strength=DOUBLE,
+            p_value=DOUBLE,
+            trend_tau=DOUBLE,
+            trend_p_value=DOUBLE,
+            trend_slope=DOUBLE,
+            autocorrelation=DOUBLE,
+            ljung_box_p_value=DOUBLE,
+            adf_p_value=DOUBLE,
+            spectral_entropy=DOUBLE,
+            changes=INTEGER,
+        ),
+        kernel_path="screen:screen",
+        doc="The main diagnostics of a series at once (size, gaps, cycle, trend, memory, unit root, entropy, "
+        "change points), each field its own function's answer.",
+        example="SELECT screen([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2, 3, 9, 4, 1, 2, 8, 5, 1]) AS profile;",
+        null_rows="NULL list, empty, or no present value; a field is NULL where its own function's answer is "
+        "(merged counts the *_agg form's rows that fell on a grid point another row held: 0 in the list form)",
+        see_also=("seasonality", "trend_test", "adf_test", "change_points", "with_q_values"),
+        outcomes="null null partial null value partial partial partial value value value value value value value - - -",
+        answer=SCREEN,
+    ),
+)
+
 NEAREST = struct(item=INTEGER, neighbor=INTEGER, distance=DOUBLE, rank=INTEGER)
 
 BAND_AS_DTW = Param(
@@ -857,7 +889,93 @@ TABLE_FUNCTIONS: tuple[Function, ...] = (
 )
 """Aggregates over the rows of a query (``over_rows``): kept apart from :data:`FUNCTIONS`, whose entries
 are all functions of one row's series and share the per-row checks and tables."""
-PUBLIC: tuple[Function, ...] = FUNCTIONS + TABLE_FUNCTIONS
+
+
+@dataclass(frozen=True)
+class TableMacro:
+    """A public table macro written in SQL, without a kernel: a table in, its rows with added columns out.
+
+    ``tables`` names the arguments that are a table (a table, view or CTE name) or one of its columns.
+    """
+
+    name: str
+    family: str
+    tables: tuple[str, ...]
+    public_returns: str
+    doc: str
+    example: str
+    null_rows: str
+    body: str
+    params: tuple[Param, ...] = ()
+    see_also: tuple[str, ...] = ()
+    aggregate = False
+    time_params: tuple[Param, ...] = ()
+
+    @property
+    def signature(self) -> str:
+        args = list(self.tables) + [p.name if p.default is None else f"{p.name} := {p.default}" for p in self.params]
+        return f"{self.name}({', '.join(args)})"
+
+
+_NUMERIC_TYPE = (
+    "(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT|FLOAT|DOUBLE|DECIMAL.*|NULL)"
+)
+Q_VALUES_SQL = f"""
+WITH __tsql_rows AS (
+    SELECT *,
+           CASE WHEN typeof(p_column) NOT SIMILAR TO '{_NUMERIC_TYPE}'
+                THEN error('with_q_values: p_column must be a numeric column of p-values, got ' || typeof(p_column)
+                           || ' (name the column without quotes: with_q_values(t, p_value))')
+                WHEN p_column IS NULL OR p_column::DOUBLE BETWEEN 0 AND 1 THEN p_column::DOUBLE
+                ELSE error('with_q_values: p-values must lie in [0, 1], got ' || p_column::VARCHAR) END AS __tsql_p
+    FROM query_table(table_name)
+),
+__tsql_screen AS (  -- m present p-values; 'by' scales by c(m) = 1 + 1/2 + ... + 1/m, summed in order
+    SELECT count(__tsql_p) AS __tsql_m,
+           CASE lower(method) WHEN 'bh' THEN 1.0
+                WHEN 'by' THEN list_sum(list_transform(range(1, count(__tsql_p) + 1), lambda k: 1 / k))
+                ELSE error('with_q_values: method must be ''bh'' (Benjamini-Hochberg) or ''by'' '
+                           || '(Benjamini-Yekutieli), got ' || coalesce('''' || method || '''', 'NULL')) END AS __tsql_c
+    FROM __tsql_rows
+),
+__tsql_ranked AS (
+    SELECT *, row_number() OVER (ORDER BY __tsql_p NULLS LAST) AS __tsql_rank FROM __tsql_rows
+)
+SELECT * EXCLUDE (__tsql_p, __tsql_rank, __tsql_m, __tsql_c),
+       CASE WHEN __tsql_p IS NOT NULL THEN least(1.0, min(__tsql_p * (__tsql_m / __tsql_rank) * __tsql_c)
+           OVER (ORDER BY __tsql_rank DESC ROWS UNBOUNDED PRECEDING)) END AS q_value
+FROM __tsql_ranked, __tsql_screen"""
+"""Benjamini-Hochberg: with the m present p-values sorted, q_(i) = min over j >= i of p_(j) m / j, at most 1
+(the step-up procedure's adjusted p-values; tied p-values get the same q). 'by' multiplies by c(m)."""
+
+TABLE_MACROS: tuple[TableMacro, ...] = (
+    TableMacro(
+        name="with_q_values",
+        family="screening",
+        tables=("table_name", "p_column"),
+        public_returns="TABLE(the table's columns, q_value DOUBLE)",
+        doc="Table macro: the rows of a table or CTE with q_value, the false-discovery-rate adjusted p_column.",
+        example="WITH screen(item, p) AS (VALUES ('a', 0.01), ('b', 0.04), ('c', 0.03), ('d', NULL)) "
+        "SELECT * FROM with_q_values(screen, p) ORDER BY item;",
+        null_rows="a NULL p-value (its q_value is NULL and it does not count among the m tests); rows come in no "
+        "particular order (ORDER BY them)",
+        body=Q_VALUES_SQL,
+        params=(
+            Param(
+                "method",
+                sql_type=VARCHAR,
+                default="'bh'",
+                choices=("bh", "by"),
+                help="'bh' (Benjamini-Hochberg 1995: independent or positively dependent tests) or 'by' "
+                "(Benjamini-Yekutieli 2001: any dependence, more conservative)",
+            ),
+        ),
+        see_also=("seasonality", "periods", "trend_test"),
+    ),
+)
+"""Public table macros written in SQL (``with_q_values``): a whole table in, no kernel, no per-row checks."""
+
+PUBLIC: tuple[Function | TableMacro, ...] = FUNCTIONS + TABLE_FUNCTIONS + TABLE_MACROS
 """Every public function: ``seriesql functions``, the README table and the macros."""
 
-BY_NAME: dict[str, Function] = {f.name: f for f in PUBLIC}
+BY_NAME: dict[str, Function | TableMacro] = {f.name: f for f in PUBLIC}

@@ -71,7 +71,10 @@ class Period(Answer):
         return returns.replace(period=SPAN) if isinstance(returns, Struct) else SPAN
 
     def compute(self, kernel: Kernel, returns: SqlType, clock: Clock, grid: Grid, kwargs: dict) -> pa.Array:
-        result = kernel(grid.values, **kwargs)
+        return self.in_spans(kernel(grid.values, **kwargs), returns, clock, grid)
+
+    def in_spans(self, result: Any, returns: SqlType, clock: Clock, grid: Grid) -> pa.Array:
+        """A kernel's answer (per-row periods, or a dict with a ``period`` field) with its periods as spans."""
         valid = grid.values.row_valid
         is_struct = isinstance(returns, Struct)
         steps = result["period"] if is_struct else result
@@ -97,6 +100,41 @@ class Profile(Answer):
         if kwargs.pop("anchor") == "calendar":
             kwargs["offset"] = calendar_offset(clock, grid, kwargs["period"])
         return to_arrow(returns, kernel(grid.values, **kwargs), grid.values.row_valid)
+
+
+class Screen(Period):
+    """A record describing a series (``screen``): its ``period`` a span of time as :class:`Period` gives it, and its
+    ``merged`` field the number of the group's rows that fell on a grid point another row already held."""
+
+    def compute(self, kernel: Kernel, returns: SqlType, clock: Clock, grid: Grid, kwargs: dict) -> pa.Array:
+        return self.in_spans(_screen(kernel, grid, kwargs), returns, clock, grid)
+
+    @property
+    def in_steps(self) -> Answer:
+        return SCREEN_IN_STEPS
+
+
+class ScreenInSteps(Answer):
+    """:class:`Screen` with its period in grid steps, for hosts that cannot answer in spans (Spark)."""
+
+    def compute(self, kernel: Kernel, returns: SqlType, clock: Clock, grid: Grid, kwargs: dict) -> pa.Array:
+        return to_arrow(returns, _screen(kernel, grid, kwargs), grid.values.row_valid)
+
+
+def _screen(kernel: Kernel, grid: Grid, kwargs: dict) -> dict[str, np.ndarray]:
+    result = kernel(grid.values, **kwargs)
+    return dict(result, merged=merged_rows(grid, result["merged"]))
+
+
+def merged_rows(grid: Grid, answered: np.ndarray) -> np.ndarray:
+    """Per row, the observations that share their grid point with an earlier one (NaN where ``answered`` is)."""
+    points = grid.points
+    counts = np.diff(grid.observation_offsets)
+    repeat = np.zeros(len(points), dtype=bool)
+    repeat[1:] = points[1:] == points[:-1]  # in time order; rows never share a grid point
+    rows = np.repeat(np.arange(len(counts)), counts)
+    merged = np.bincount(rows[repeat], minlength=len(counts)).astype(np.float64)
+    return np.where(np.isnan(answered), np.nan, merged)
 
 
 class Starts(Answer):
@@ -312,3 +350,4 @@ PERIOD, PERIODS, PROFILE, STARTS, SEGMENTS, SERIES, PATH = (
     Series(),
     Path(),
 )
+SCREEN, SCREEN_IN_STEPS = Screen(), ScreenInSteps()

@@ -183,7 +183,12 @@ def ljung_box(batch: Ragged, lags: int = 10) -> dict[str, np.ndarray]:
         ``q`` and ``p_value`` per row; NaN where the row is constant, or has
         no more present values than ``lags``.
     """
-    table = acf(batch, lags)
+    return ljung_box_of(batch, acf(batch, lags), lags)
+
+
+def ljung_box_of(batch: Ragged, table: Ragged, lags: int) -> dict[str, np.ndarray]:
+    """:func:`ljung_box` from the batch's ``acf(batch, lags)`` table, when it serves several statistics
+    (:func:`tsql.kernels.screen.screen`)."""
     r = table.values.reshape(batch.n_rows, lags)
     present = batch.present.astype(np.float64) if batch.has_missing else np.ones(len(batch.values))
     n = batch.segment_sum(present)
