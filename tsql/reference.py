@@ -10,7 +10,7 @@ import difflib
 import sys
 from pathlib import Path
 
-from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, INPUT_CLASSES, PUBLIC, Function, TableMacro
+from tsql.registry import BY_NAME, FUNCTIONS, INPUT_CLASSES, PUBLIC, Function, TableMacro
 
 
 def describe(fn: Function | TableMacro) -> str:
