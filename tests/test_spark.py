@@ -141,8 +141,9 @@ def _registry_columns() -> tuple[Columns, Columns]:
         lists.append(("registry", fn.name, f"{fn.name}({series}{spark_args})", f"{fn.name}({series}{args})"))
         if fn.aggregate:
             in_steps = fn.answer in (PERIOD, PERIODS)  # Spark answers periods in grid steps
-            duck = f"{fn.name}(on_grid({V}, {T}){args})" if in_steps else f"{fn.name}_agg(units, month{args})"
-            aggregates.append(("registry", fn.name, f"{fn.name}_agg(units, month{spark_args})", duck))
+            units = ", ".join(["units"] * len(fn.series))  # two series: units against itself
+            duck = f"{fn.name}(on_grid({V}, {T}){args})" if in_steps else f"{fn.name}_agg({units}, month{args})"
+            aggregates.append(("registry", fn.name, f"{fn.name}_agg({units}, month{spark_args})", duck))
     return lists, aggregates
 
 

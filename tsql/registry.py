@@ -107,9 +107,16 @@ class Function:
         return f"{self.name}({', '.join(args)})"
 
     @property
+    def agg_values(self) -> tuple[str, ...]:
+        """The value columns of the ``*_agg`` form: ``value``, or one per series (``a_value, b_value``)."""
+        return ("value",) if len(self.series) == 1 else tuple(f"{s}_value" for s in self.series)
+
+    @property
     def agg_signature(self) -> str:
         params = self.params + GRID_PARAMS
-        args = ["value", "time"] + [p.name if p.default is None else f"{p.name} := {p.default}" for p in params]
+        args = [*self.agg_values, "time"] + [
+            p.name if p.default is None else f"{p.name} := {p.default}" for p in params
+        ]
         return f"{self.name}_agg({', '.join(args)})"
 
     @property
@@ -366,7 +373,7 @@ CROSS_MAX_LAG = Param(
     minimum=0,
     maximum=MAX_LIST // 2,
     whole=True,
-    help="lags -max_lag..max_lag, in samples (10 as for acf)",
+    help="lags -max_lag..max_lag, in samples (grid steps in the *_agg form; 10 as for acf)",
 )
 
 FUNCTIONS += (
@@ -383,7 +390,6 @@ FUNCTIONS += (
         test_args=("max_lag := 3", "max_lag := 0"),
         series=("a", "b"),
         params=(CROSS_MAX_LAG,),
-        aggregate=False,
     ),
     Function(
         name="lead_lag",
@@ -399,7 +405,6 @@ FUNCTIONS += (
         test_args=("max_lag := 3", "max_lag := 6"),
         series=("a", "b"),
         params=(CROSS_MAX_LAG,),
-        aggregate=False,
     ),
 )
 
