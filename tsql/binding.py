@@ -27,7 +27,7 @@ from tsql.forms.arrow import ragged, row_pieces, single, to_ragged
 from tsql.forms.list_form import list_udf
 from tsql.forms.rows_form import rows_udf
 from tsql.forms.time import Clock
-from tsql.forms.types import SPAN_ARGUMENT, VARCHAR, SqlType
+from tsql.forms.types import BOOLEAN, SPAN_ARGUMENT, VARCHAR, SqlType
 from tsql.kernels.cancel import INTERRUPTED, Cancellation, watching
 from tsql.kernels.ragged import Ragged
 from tsql.registry import BY_NAME, FUNCTIONS, PUBLIC, TABLE_FUNCTIONS, Function, Param
@@ -204,8 +204,9 @@ def rows_macro(fn: Function) -> str:
     and answers in positions of that order, which become ids; rows with a NULL id are left out, a repeated
     id is an error."""
     ids = "(list(id ORDER BY id) FILTER (WHERE id IS NOT NULL))"
-    series = "list(series ORDER BY id) FILTER (WHERE id IS NOT NULL)"
-    call = f"{fn.udf_name}({', '.join([series] + [_passed(p, agg=False) for p in fn.params])})"
+    per_item = [f"COALESCE({p.name}, false)" if p.sql_type == BOOLEAN else p.name for p in fn.params if p.per_item]
+    gathered = [f"list({x} ORDER BY id) FILTER (WHERE id IS NOT NULL)" for x in ["series", *per_item]]
+    call = f"{fn.udf_name}({', '.join(gathered + [_passed(p, agg=False) for p in fn.params if not p.per_item])})"
     fields = [
         f"{'id' if n == 'item' else n} := {f'{ids}[r.{n}]' if n in fn.positions else f'r.{n}'}"
         for n, _ in fn.returns.element.fields
@@ -243,7 +244,9 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
             packed = _OBSERVATIONS if len(fn.agg_values) == 1 else _PAIRS
             create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [packed] + grid_types + params, udf_returns)
     for fn in TABLE_FUNCTIONS:
-        create_udf(con, fn.udf_name, rows_udf(fn), ["DOUBLE[][]"] + [p.sql_type.sql for p in fn.params], fn.returns)
+        per_item = [f"{p.sql_type.sql}[]" for p in fn.params if p.per_item]
+        settings = [p.sql_type.sql for p in fn.params if not p.per_item]
+        create_udf(con, fn.udf_name, rows_udf(fn), ["DOUBLE[][]", *per_item, *settings], fn.returns)
     on_grid = with_arity(_on_grid_udf, "__tsql_on_grid", BY_NAME["on_grid"].doc, ["values", "times", *_GRID_ARGS])
     create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, BY_NAME["on_grid"].returns)
 

@@ -41,6 +41,8 @@ class Param:
     choices: tuple[str, ...] = ()
     number_ok: bool = False
     span: bool = False
+    per_item: bool = False
+    """Of an aggregate over rows: a value per row (item), gathered in id order beside the series."""
     help: str = ""
 
 
@@ -789,6 +791,14 @@ TABLE_FUNCTIONS: tuple[Function, ...] = (
                 sql_type=BOOLEAN,
                 default="false",
                 help="z-normalise each (filled) series first, as for dtw_distance",
+            ),
+            Param(
+                "reference",
+                sql_type=BOOLEAN,
+                default="true",
+                per_item=True,
+                help="per row: whether its item may be a neighbour (a reference set, such as the training rows "
+                "of a 1-NN classifier; NULL: no); every item gets its neighbours among those rows",
             ),
         ),
         aggregate=False,
