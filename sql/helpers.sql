@@ -22,6 +22,12 @@ CREATE OR REPLACE TEMP MACRO __tsql_bits(x) AS
 CREATE OR REPLACE TEMP MACRO __tsql_observations(value, time) AS
     list((__tsql_bits(__tsql_tick(time)) << 64) | __tsql_bits(value));
 
+-- The same for a function of two series (cross_correlation_agg): per row one struct of the tick and
+-- both values (NULL as NaN), so that neither value parts from its time.
+CREATE OR REPLACE TEMP MACRO __tsql_pairs(a, b, time) AS
+    list({'tick': COALESCE(__tsql_tick(time)::DOUBLE, 'NaN'::DOUBLE), 'a': COALESCE(a::DOUBLE, 'NaN'::DOUBLE),
+          'b': COALESCE(b::DOUBLE, 'NaN'::DOUBLE)});
+
 CREATE OR REPLACE TEMP MACRO __tsql_time_type(time) AS any_value(typeof(time));
 
 -- A grid time from its tick and kind (0: TIMESTAMP, 1: TIMESTAMPTZ, 2: a number). Each value is cast

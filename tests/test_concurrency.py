@@ -74,7 +74,8 @@ for _fn in FUNCTIONS:
     elif _fn.series == ("values",) and _fn.name not in _written(LIST_FORMS):
         LIST_FORMS.append(f"{_fn.name}(x{_args})")
     if _fn.aggregate and f"{_fn.name}_agg" not in _written(AGG_FORMS):
-        AGG_FORMS.append(f"{_fn.name}_agg(v, t{_args})")
+        _values = "v, v + 2 * cos(t)" if len(_fn.series) == 2 else "v"  # two series: a second one of the rows
+        AGG_FORMS.append(f"{_fn.name}_agg({_values}, t{_args})")
 GROUPS = 2600  # more than one vector (2,048 rows) of groups: batch boundaries fall differently
 
 

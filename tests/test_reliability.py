@@ -119,10 +119,20 @@ LIST_CALLS = {
     for f in FUNCTIONS
 }
 AGG_CALLS = {
-    f"{name}_agg": call.replace(name + "(a", name + "_agg(v, t", 1)
+    f"{name}_agg": call.replace(
+        name + "(a, b" if call.startswith(name + "(a, b") else name + "(a", name + "_agg(v, t", 1
+    )
     for name, call in LIST_CALLS.items()
     if f"{name}_agg" in PUBLIC
 }
+# the *_agg forms of two series take a second value column w (b's series at the same times)
+AGG_CALLS.update(
+    {
+        n: c.replace("_agg(v, t", "_agg(v, w, t", 1)
+        for n, c in AGG_CALLS.items()
+        if n[:-4] in {f.name for f in FUNCTIONS if len(f.series) == 2}
+    }
+)
 PAIRS = {"dtw_distance", "dtw_path", "lb_keogh"}
 # parts of an answer in the series' own units: they scale with the series (the rest must not move)
 LINEAR = {"dtw_distance", "lb_keogh", "harmonic_smooth", "harmonic_profile", "on_grid"}
@@ -187,15 +197,19 @@ def list_table(a, b, times, cls: str) -> pa.Table:
     )
 
 
-def agg_table(values: list, times: list, cls: str = "ordinary") -> pa.Table:
-    """Rows (g, t, v): group 0 holds ``values`` at ``times``, group 1 the ordinary series."""
+def agg_table(values: list, times: list, cls: str = "ordinary", second: list | None = None) -> pa.Table:
+    """Rows (g, t, v, w): group 0 holds ``values`` at ``times``, group 1 the ordinary series; w is the second
+    series of the two-series forms (default: the ordinary b at the same rows)."""
     value_type = CASTS.get(cls, pa.float64())
     time_type = pa.float64() if cls == "inf_time" else pa.int64()
+    if second is None:
+        second = [None] if values == [None] else ordinary(BASE_B, cls)[: len(values)]
     return pa.table(
         {
             "g": [0] * len(values) + [1] * N,
             "t": pa.array(list(times) + TIMES, time_type),
             "v": pa.array(list(values) + ordinary(BASE_A, cls), value_type),
+            "w": pa.array(list(second) + ordinary(BASE_B, cls), value_type),
         }
     )
 
@@ -286,7 +300,8 @@ def run_agg(con, fn: str, cls: str, table: pa.Table | None = None):
     table = agg_rows(cls) if table is None else table
     call = AGG_CALLS[fn]
     if table is None:  # no rows: a plain aggregate over an empty relation
-        con.register("cell", pa.table({"g": pa.array([], pa.int64()), "t": pa.array([], pa.int64()), "v": []}))
+        empty = {"g": pa.array([], pa.int64()), "t": pa.array([], pa.int64()), "v": [], "w": []}
+        con.register("cell", pa.table(empty))
         try:
             return con.execute(f"SELECT {call} FROM cell").fetchall()[0][0]
         finally:
@@ -407,14 +422,15 @@ def test_matrix_cell(con, fn, cls, expected):
     elif cls in SCALE:
         a, b, times = BASE_A.tolist(), BASE_B.tolist(), list(TIMES)
         if is_agg:
-            ordinary = answer(table=agg_table(a, times))
+            plain = answer(table=agg_table(a, times))
         else:
-            ordinary = answer("ordinary", override=(a, b, times))
-        assert_close(got, rescaled(ordinary, SCALE[cls], fn), rel=1e-6)
+            plain = answer("ordinary", override=(a, b, times))
+        assert_close(got, rescaled(plain, SCALE[cls], fn), rel=1e-6)
     elif cls in CASTS:
         if is_agg:
             a, _, times = list_case(cls)
-            reference = answer(table=agg_table([float(x) for x in a], times))
+            b = [float(x) for x in ordinary(BASE_B, cls)]
+            reference = answer(table=agg_table([float(x) for x in a], times, second=b))
         else:
             a, b, times = list_case(cls)
             reference = answer("ordinary", override=([float(x) for x in a], [float(x) for x in b], times))
@@ -422,7 +438,9 @@ def test_matrix_cell(con, fn, cls, expected):
     elif cls == "null_time":
         if is_agg:
             a, _, times = list_case("null_time")
-            reference = answer(table=agg_table(a[:HOLE] + a[HOLE + 1 :], times[:HOLE] + times[HOLE + 1 :]))
+            b = BASE_B.tolist()
+            cut = (a[:HOLE] + a[HOLE + 1 :], times[:HOLE] + times[HOLE + 1 :])
+            reference = answer(table=agg_table(*cut, second=b[:HOLE] + b[HOLE + 1 :]))
         else:
             a, b, times = list_case("null_time")
             reference = answer("ordinary", override=(a[:HOLE] + a[HOLE + 1 :], b, times[:HOLE] + times[HOLE + 1 :]))
@@ -482,7 +500,7 @@ def call_with(fn: str, target: str | None) -> str:
     base = BY_NAME[fn.removesuffix("_agg")]
     params = base.agg_params if fn.endswith("_agg") else base.params
     args = (
-        ["v", "t"]
+        ["v", "w", "t"][-len(base.series) - 1 :]
         if fn.endswith("_agg")
         else list({"values": "a", "a": "a", "b": "b", "times": "times"}[s] for s in base.series)
     )
@@ -607,6 +625,7 @@ def long_data(con):
         ),
     )
     con.register("long_rows_p", pa.table({"t": t + 1, "v": p}))  # row order: tests/test_concurrency.py
+    con.register("long_rows_pq", pa.table({"t": t + 1, "v": p, "w": q}))  # the two-series *_agg forms
     con.register("long_rows_c", pa.table({"t": t + 1, "v": c}))
     con.register("long_rows_r", pa.table({"t": tr + 1, "v": r}))
     return {"p": p, "q": q, "c": c, "r": r, "t": t}
@@ -718,6 +737,8 @@ def long_call(fn: str) -> tuple[str, str]:
         return LONG_CALLS[fn]
     entry = BY_NAME[fn.removesuffix("_agg")]
     args = f", {entry.test_args[0]}" if entry.test_args[0] else ""
+    if fn.endswith("_agg") and len(entry.series) == 2:
+        return f"{entry.name}_agg(v, w, t{args})", "long_rows_pq"
     if fn.endswith("_agg"):
         return f"{entry.name}_agg(v, t{args})", "long_rows_p"
     return f"{entry.name}({', '.join('pq'[: len(entry.series)])}{args})", "long_lists"

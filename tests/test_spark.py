@@ -142,8 +142,9 @@ def _registry_columns() -> tuple[Columns, Columns]:
         if fn.aggregate:
             # Spark answers periods in grid steps (screen's merged rows: none in the sales, as in the list form)
             in_steps = fn.answer in (PERIOD, PERIODS, SCREEN)
-            duck = f"{fn.name}(on_grid({V}, {T}){args})" if in_steps else f"{fn.name}_agg(units, month{args})"
-            aggregates.append(("registry", fn.name, f"{fn.name}_agg(units, month{spark_args})", duck))
+            units = ", ".join(["units"] * len(fn.series))  # two series: units against itself
+            duck = f"{fn.name}(on_grid({V}, {T}){args})" if in_steps else f"{fn.name}_agg({units}, month{args})"
+            aggregates.append(("registry", fn.name, f"{fn.name}_agg({units}, month{spark_args})", duck))
     return lists, aggregates
 
 

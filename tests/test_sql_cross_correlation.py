@@ -87,3 +87,91 @@ def test_rows_without_an_answer_are_null(con):
 def test_bad_max_lag_names_the_function(con, call):
     with pytest.raises(duckdb.Error, match=call.split("(")[0] + r".*max_lag"):
         con.execute(f"SELECT {call}").fetchall()
+
+
+# --------------------------------------------------------------------------- #
+# the *_agg forms: two values per time, through the time grid
+# --------------------------------------------------------------------------- #
+
+
+@pytest.fixture(scope="module")
+def monthly(con):
+    """Rows (item, month, a, b) in shuffled order: months without a row (gaps on the grid), NULL values on
+    either side; b follows a by item % 4 months."""
+    rng = np.random.default_rng(180)
+    rows = []
+    for item in range(30):
+        base = rng.standard_normal(50)
+        follower = np.roll(base, item % 4) + 0.2 * rng.standard_normal(50)
+        for m in range(50):
+            if m > 3 and rng.random() < 0.06:
+                continue  # no row this month
+            a = None if rng.random() < 0.03 else float(base[m])
+            b = None if rng.random() < 0.03 else float(follower[m])
+            rows.append((item, m, a, b))
+    order = rng.permutation(len(rows))
+    columns = list(zip(*[rows[i] for i in order]))
+    con.register("monthly_arrow", pa.table(dict(zip(["item", "m", "a", "b"], columns))))
+    con.execute(
+        "CREATE TEMP TABLE monthly AS SELECT item, DATE '2020-01-01' + to_months(m) AS month, a, b FROM monthly_arrow"
+    )
+    return "monthly"
+
+
+def test_agg_forms_equal_the_list_forms_on_the_grid(con, monthly):
+    # the reference: each side put on the monthly grid by on_grid, then the list forms
+    rows = con.execute(
+        """SELECT item,
+                  cross_correlation_agg(a, b, month, max_lag := 4) AS r,
+                  lead_lag_agg(a, b, month, max_lag := 6) AS found,
+                  cross_correlation(on_grid(list(a), list(month)), on_grid(list(b), list(month)), max_lag := 4),
+                  lead_lag(on_grid(list(a), list(month)), on_grid(list(b), list(month)), max_lag := 6),
+                  count(*) < 50
+           FROM monthly GROUP BY item ORDER BY item"""
+    ).fetchall()
+    assert len(rows) == 30 and sum(r[5] for r in rows) > 20  # most items have months without a row
+    for item, r, found, r_list, found_list, _ in rows:
+        assert r is not None and r == r_list, item
+        assert found == found_list, item
+        assert found["lag"] == item % 4  # the planted lead, in grid steps (months)
+
+
+def test_agg_form_lags_are_grid_steps_and_fill_applies_to_both(con):
+    # weekly rows: a lag of 2 is 2 weeks; b's missing week filled linearly equals the list form on the filled grid
+    query = """
+        WITH d AS (SELECT TIMESTAMP '2024-01-01' + to_days(7 * i) AS t, sin(i * 0.4) AS a,
+                          CASE WHEN i = 11 THEN NULL ELSE sin((i - 2) * 0.4) END AS b FROM range(60) r(i))
+        SELECT lead_lag_agg(a, b, t, max_lag := 5, fill := 'linear'),
+               lead_lag(on_grid(list(a), list(t), fill := 'linear'), on_grid(list(b), list(t), fill := 'linear'),
+                        max_lag := 5)
+        FROM d"""
+    got, expected = con.execute(query).fetchone()
+    assert got == expected and got["lag"] == 2
+
+
+def test_agg_form_equals_statsmodels_ccf(con):
+    # reference: statsmodels.tsa.stattools.ccf (adjusted=False), as in the list form's check above; regular
+    # hourly rows in shuffled order, so the grid is the rows themselves
+    stattools = pytest.importorskip("statsmodels.tsa.stattools")
+    rng = np.random.default_rng(7)
+    a = np.cumsum(rng.standard_normal(80))
+    b = np.roll(a, 3) + rng.standard_normal(80)
+    order = rng.permutation(80)
+    cur = tsql.register(con.cursor())
+    cur.register("hourly", pa.table({"h": order, "a": a[order], "b": b[order]}))
+    ((got,),) = cur.execute(
+        "SELECT cross_correlation_agg(a, b, TIMESTAMP '2024-03-01' + to_hours(h), max_lag := 5) FROM hourly"
+    ).fetchall()
+    cur.close()
+    backward = stattools.ccf(a, b, adjusted=False, fft=False)[:6]
+    forward = stattools.ccf(b, a, adjusted=False, fft=False)[:6]
+    np.testing.assert_allclose(got, np.r_[backward[::-1], forward[1:]], rtol=0, atol=1e-12)
+
+
+def test_agg_form_errors_name_it(con):
+    with pytest.raises(duckdb.Error, match=r"cross_correlation_agg: max_lag must be >= 0"):
+        con.execute("SELECT cross_correlation_agg(i, i, i, max_lag := -1) FROM range(9) r(i)").fetchall()
+    with pytest.raises(duckdb.Error, match=r"lead_lag_agg: step must be a number for numeric times"):
+        con.execute("SELECT lead_lag_agg(i, i, i, step := INTERVAL 1 MONTH) FROM range(9) r(i)").fetchall()
+    (none,) = con.execute("SELECT lead_lag_agg(a, b, t) FROM (SELECT 1.0, 2.0, 1) d(a, b, t) WHERE t > 5").fetchone()
+    assert none is None  # an aggregate over no rows

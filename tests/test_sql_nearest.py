@@ -123,3 +123,19 @@ def test_bad_input_names_the_function(rows, args, message):
 def test_the_registry_examples_run(fn):
     rows = tsql.connect().execute(fn.example).fetchall()
     assert rows and all(r[0] is not None for r in rows)
+
+
+def test_a_reference_set_equals_the_self_join_against_those_rows_only(con):
+    # every item searches only the rows whose reference flag is true (NULL: not one of them)
+    reference = "id < 'item-040' OR CASE WHEN id = 'twin' THEN NULL END"
+    brute = BRUTE.format(k=3, band="2", normalize="false").replace(
+        "ON a.id <> b.id", f"ON a.id <> b.id AND (SELECT {reference.replace('id', 'b.id')})"
+    )
+    expected = con.execute(brute).fetchall()
+    got = con.execute(
+        f"""SELECT r.id, r.neighbor, r.distance, r.rank
+            FROM (SELECT unnest(dtw_nearest(id, s, k := 3, band := 2, reference := {reference})) AS r FROM items)
+            ORDER BY r.id, r.rank"""
+    ).fetchall()
+    assert len(got) == 92 * 3 and got == expected
+    assert {n for _, n, _, _ in got} == {f"item-{i:03d}" for i in range(40)}  # twin (NULL flag) is nobody's

@@ -15,6 +15,7 @@ so that band is 0, and DTW with band 0 is the Euclidean distance.
 
 1-NN through the kernel: train and test series in one call, the training items as the reference set, k = 1;
 ids are row numbers, so a tie goes to the first training series, as a plain loop over the training set does.
+The same through SQL: train and test rows in one table, ``dtw_nearest(..., reference := split = 'train')``.
 """
 
 import importlib.util
@@ -57,3 +58,63 @@ def test_published_one_nn_error_rates(name, window, euclidean, learned, full):
     assert round(one_nn_error(name, 0), 4) == euclidean
     assert round(one_nn_error(name, math.floor(window / 100 * length)), 4) == learned
     assert round(one_nn_error(name, None), 4) == full
+
+
+@pytest.fixture(scope="module")
+def con():
+    import pyarrow as pa
+
+    import tsql
+
+    c = tsql.connect()
+    for name, *_ in PUBLISHED:
+        train = np.loadtxt(ROOT / name / f"{name}_TRAIN.txt")
+        test = np.loadtxt(ROOT / name / f"{name}_TEST.txt")
+        rows = np.vstack([train, test])
+        table = pa.table(
+            {
+                "id": np.arange(len(rows)),  # training rows first: a tie goes to the first training series
+                "split": ["train"] * len(train) + ["test"] * len(test),
+                "label": rows[:, 0].astype(np.int64),
+                "series": pa.array(list(rows[:, 1:]), pa.list_(pa.float64())),
+            }
+        )
+        c.register(f"{name}_arrow", table)
+        c.execute(f"CREATE TEMP TABLE {name} AS SELECT * FROM {name}_arrow")
+    yield c
+    c.close()
+
+
+def sql_one_nn_error(con, name: str, band: str) -> float:
+    """The test set's 1-NN error in SQL: every row searches the training rows only (``reference``)."""
+    query = f"""
+        WITH nn AS (SELECT unnest(dtw_nearest(id, series, k := 1, band := {band}, reference := split = 'train'),
+                                  recursive := true) FROM {name})
+        SELECT count(*), avg((q.label <> r.label)::INTEGER), bool_and(r.split = 'train')
+        FROM nn JOIN {name} q ON q.id = nn.id JOIN {name} r ON r.id = nn.neighbor
+        WHERE q.split = 'test'"""
+    n, error, only_train = con.execute(query).fetchone()
+    assert only_train and n == con.execute(f"SELECT count(*) FROM {name} WHERE split = 'test'").fetchone()[0]
+    return float(error)
+
+
+@pytest.mark.parametrize(("name", "window", "euclidean", "learned", "full"), PUBLISHED)
+def test_published_one_nn_error_rates_through_sql(con, name, window, euclidean, learned, full):
+    length = np.loadtxt(ROOT / name / f"{name}_TRAIN.txt", max_rows=1).size - 1
+    assert round(sql_one_nn_error(con, name, "0"), 4) == euclidean
+    assert round(sql_one_nn_error(con, name, str(math.floor(window / 100 * length))), 4) == learned
+    assert round(sql_one_nn_error(con, name, "NULL"), 4) == full
+
+
+def test_training_rows_search_the_other_training_rows(con):
+    # leave-one-out on the training set (how the archive learns its window): each training row's nearest
+    # is another training row, the same as the kernel with the training rows alone
+    train = np.loadtxt(ROOT / "GunPoint" / "GunPoint_TRAIN.txt")[:, 1:]
+    batch = Ragged(train.ravel().copy(), np.arange(len(train) + 1, dtype=np.int64) * train.shape[1])
+    alone = dtw_nearest(np.arange(len(train)), batch, k=3, band=2)
+    rows = con.execute(
+        """SELECT unnest(dtw_nearest(id, series, k := 3, band := 2, reference := split = 'train'), recursive := true)
+           FROM GunPoint"""
+    ).fetchall()
+    mine = [(i, n, d, r) for i, n, d, r in rows if i < len(train)]
+    assert mine == list(zip(*(alone[f].tolist() for f in ("item", "neighbor", "distance", "rank"))))

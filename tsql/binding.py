@@ -27,7 +27,7 @@ from tsql.forms.arrow import ragged, row_pieces, single, to_ragged
 from tsql.forms.list_form import list_udf
 from tsql.forms.rows_form import rows_udf
 from tsql.forms.time import Clock
-from tsql.forms.types import SPAN_ARGUMENT, VARCHAR, SqlType
+from tsql.forms.types import BOOLEAN, SPAN_ARGUMENT, VARCHAR, SqlType
 from tsql.kernels.cancel import INTERRUPTED, Cancellation, watching
 from tsql.kernels.ragged import Ragged
 from tsql.registry import BY_NAME, FUNCTIONS, PUBLIC, TABLE_FUNCTIONS, TABLE_MACROS, Function, Param
@@ -200,7 +200,9 @@ def list_macro(fn: Function) -> str:
 def agg_macro(fn: Function) -> str:
     """``CREATE ... MACRO name_agg(value, time, ...)``: the group's observations to the grid UDF, its answer
     finished in time terms as the entry's answer kind says."""
-    args = ["__tsql_observations(value, time)", "__tsql_time_type(time)", "__tsql_span(step)", "fill", "same_time"]
+    packed = "__tsql_observations" if len(fn.agg_values) == 1 else "__tsql_pairs"
+    args = [f"{packed}({', '.join(fn.agg_values)}, time)", "__tsql_time_type(time)", "__tsql_span(step)", "fill"]
+    args.append("same_time")
     call = f"{fn.udf_name}_on_grid({', '.join(args + [_passed(p, agg=True) for p in agg_udf_params(fn)])})"
     return f"CREATE OR REPLACE TEMP MACRO {fn.agg_signature} AS {fn.answer.finish_sql(fn.returns, call)}"
 
@@ -215,8 +217,9 @@ def rows_macro(fn: Function) -> str:
     and answers in positions of that order, which become ids; rows with a NULL id are left out, a repeated
     id is an error."""
     ids = "(list(id ORDER BY id) FILTER (WHERE id IS NOT NULL))"
-    series = "list(series ORDER BY id) FILTER (WHERE id IS NOT NULL)"
-    call = f"{fn.udf_name}({', '.join([series] + [_passed(p, agg=False) for p in fn.params])})"
+    per_item = [f"COALESCE({p.name}, false)" if p.sql_type == BOOLEAN else p.name for p in fn.params if p.per_item]
+    gathered = [f"list({x} ORDER BY id) FILTER (WHERE id IS NOT NULL)" for x in ["series", *per_item]]
+    call = f"{fn.udf_name}({', '.join(gathered + [_passed(p, agg=False) for p in fn.params if not p.per_item])})"
     fields = [
         f"{'id' if n == 'item' else n} := {f'{ids}[r.{n}]' if n in fn.positions else f'r.{n}'}"
         for n, _ in fn.returns.element.fields
@@ -251,9 +254,12 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
         if fn.aggregate:
             params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
             udf_returns = fn.answer.udf_returns(fn.returns)
-            create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [_OBSERVATIONS] + grid_types + params, udf_returns)
+            packed = _OBSERVATIONS if len(fn.agg_values) == 1 else _PAIRS
+            create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [packed] + grid_types + params, udf_returns)
     for fn in TABLE_FUNCTIONS:
-        create_udf(con, fn.udf_name, rows_udf(fn), ["DOUBLE[][]"] + [p.sql_type.sql for p in fn.params], fn.returns)
+        per_item = [f"{p.sql_type.sql}[]" for p in fn.params if p.per_item]
+        settings = [p.sql_type.sql for p in fn.params if not p.per_item]
+        create_udf(con, fn.udf_name, rows_udf(fn), ["DOUBLE[][]", *per_item, *settings], fn.returns)
     on_grid = with_arity(_on_grid_udf, "__tsql_on_grid", BY_NAME["on_grid"].doc, ["values", "times", *_GRID_ARGS])
     create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, BY_NAME["on_grid"].returns)
 
@@ -291,6 +297,8 @@ _NUMERIC = (
 # high 64 bits and of its value (DOUBLE, NaN for NULL) in the low 64
 _OBSERVATIONS = "UHUGEINT[]"
 _TICK_WORD, _VALUE_WORD = (0, 1) if sys.byteorder == "big" else (1, 0)
+# of a function of two series (macro __tsql_pairs): per row its tick and both values (NaN for NULL)
+_PAIRS = "STRUCT(tick DOUBLE, a DOUBLE, b DOUBLE)[]"
 
 
 def clock(function: str, type_name: str | None) -> Clock:
@@ -322,9 +330,25 @@ def observations(column: Any) -> tuple[Ragged, Ragged]:
     return ticks, ragged(np.ascontiguousarray(words[_VALUE_WORD::2]), offsets, valid)
 
 
+def pairs(column: Any) -> tuple[Ragged, tuple[Ragged, Ragged]]:
+    """Ticks and both values of each group from the macro's packed structs."""
+    arr = single(column)
+    offsets = np.asarray(arr.offsets, dtype=np.int64)
+    first = int(offsets[0])
+    records = arr.values.slice(first, int(offsets[-1]) - first)
+    offsets = offsets - first
+    valid = np.asarray(arr.is_valid(), dtype=bool) if arr.null_count else None
+    # never NULL (NaN stands for NULL): each field is one plain buffer of doubles
+    tick, a, b = (
+        np.asarray(records.field(n).to_numpy(zero_copy_only=False), dtype=np.float64) for n in ("tick", "a", "b")
+    )
+    return ragged(tick, offsets, valid), (ragged(a, offsets, valid), ragged(b, offsets, valid))
+
+
 def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
     """The UDF behind ``<name>_agg``: groups in pieces of about :data:`tsql.forms.agg.PIECE_POINTS` observations."""
     form = agg.AggForm(fn)
+    unpack = observations if len(fn.agg_values) == 1 else pairs
 
     def udf(packed: Any, *settings: Any) -> pa.Array:
         obs = single(packed)
@@ -334,7 +358,7 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
             type_name, span, fill, same_time, *arguments = key
             pieces = []
             for lo, hi in row_pieces([part], agg.PIECE_POINTS):
-                ticks, values = observations(part.slice(lo, hi - lo))
+                ticks, values = unpack(part.slice(lo, hi - lo))
                 grid = (span, fill, same_time)
                 pieces.append(form(clock(form.name, type_name), grid, tuple(arguments), ticks, values))
             return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)

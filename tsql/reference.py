@@ -57,7 +57,7 @@ def markdown_table() -> str:
     """The README's function table."""
     rows = ["| family | function | returns | what it answers |", "|---|---|---|---|"]
     for fn in PUBLIC:
-        agg = f" · `{fn.name}_agg(value, time, …)`" if fn.aggregate else ""
+        agg = f" · `{fn.name}_agg({', '.join(fn.agg_values)}, time, …)`" if fn.aggregate else ""
         returns = f"`{fn.public_returns or fn.returns}`"
         if fn.aggregate and fn.agg_returns != fn.returns:
             returns += f" · agg: `{fn.agg_returns}`"

@@ -41,6 +41,8 @@ class Param:
     choices: tuple[str, ...] = ()
     number_ok: bool = False
     span: bool = False
+    per_item: bool = False
+    """Of an aggregate over rows: a value per row (item), gathered in id order beside the series."""
     help: str = ""
 
 
@@ -110,8 +112,13 @@ class Function:
         return f"{self.name}({', '.join(args)})"
 
     @property
+    def agg_values(self) -> tuple[str, ...]:
+        """The value columns of the ``*_agg`` form: ``value``, or one per series (``a_value, b_value``)."""
+        return ("value",) if len(self.series) == 1 else tuple(f"{s}_value" for s in self.series)
+
+    @property
     def agg_signature(self) -> str:
-        args = ["value", "time"]
+        args = [*self.agg_values, "time"]
         args += [p.name if p.default is None else f"{p.name} := {p.default}" for p in self.agg_params]
         return f"{self.name}_agg({', '.join(args)})"
 
@@ -391,7 +398,7 @@ CROSS_MAX_LAG = Param(
     minimum=0,
     maximum=MAX_LIST // 2,
     whole=True,
-    help="lags -max_lag..max_lag, in samples (10 as for acf)",
+    help="lags -max_lag..max_lag, in samples (grid steps in the *_agg form; 10 as for acf)",
 )
 
 FUNCTIONS += (
@@ -408,7 +415,6 @@ FUNCTIONS += (
         test_args=("max_lag := 3", "max_lag := 0"),
         series=("a", "b"),
         params=(CROSS_MAX_LAG,),
-        aggregate=False,
     ),
     Function(
         name="lead_lag",
@@ -424,7 +430,6 @@ FUNCTIONS += (
         test_args=("max_lag := 3", "max_lag := 6"),
         series=("a", "b"),
         params=(CROSS_MAX_LAG,),
-        aggregate=False,
     ),
 )
 
@@ -844,6 +849,14 @@ TABLE_FUNCTIONS: tuple[Function, ...] = (
                 sql_type=BOOLEAN,
                 default="false",
                 help="z-normalise each (filled) series first, as for dtw_distance",
+            ),
+            Param(
+                "reference",
+                sql_type=BOOLEAN,
+                default="true",
+                per_item=True,
+                help="per row: whether its item may be a neighbour (a reference set, such as the training rows "
+                "of a 1-NN classifier; NULL: no); every item gets its neighbours among those rows",
             ),
         ),
         aggregate=False,

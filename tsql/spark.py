@@ -61,7 +61,7 @@ def positional_forms() -> list[str]:
     for fn in FUNCTIONS:
         forms.append(_form(fn.name, fn.series, fn.params))
         if fn.aggregate:
-            forms.append(_form(f"{fn.name}_agg", ("value", "time"), fn.agg_params))
+            forms.append(_form(f"{fn.name}_agg", (*fn.agg_values, "time"), fn.agg_params))
     return forms
 
 
@@ -307,16 +307,19 @@ def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
     form = AggForm(fn, answer)
 
     def body(*columns: pa.Array, **named: pa.Array) -> pa.Scalar:
-        columns = _complete(name, ("value", "time"), params, columns, named)
-        value, time = columns[:2]
-        settings = [_constant(name, p, c) for p, c in zip(params, columns[2:])]
+        k = len(fn.agg_values)
+        columns = _complete(name, (*fn.agg_values, "time"), params, columns, named)
+        time = columns[k]
+        settings = [_constant(name, p, c) for p, c in zip(params, columns[k + 1 :])]
         spark_name = _time_type_name(name, time.type)
         clock = _clock(name, time.type)
         ticks = ticks_of(time)
-        try:
-            v = pc.cast(value, pa.float64())
-        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
-            raise ValueError(f"{name}: value must be a number, got {value.type}") from None
+        values = []
+        for argument, value in zip(fn.agg_values, columns[:k]):
+            try:
+                values.append(pc.cast(value, pa.float64()).to_numpy(zero_copy_only=False))
+            except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+                raise ValueError(f"{name}: {argument} must be a number, got {value.type}") from None
         n = len(fn.params)
         step, fill, same_time = settings[n : n + len(GRID_PARAMS)]
         arguments = [
@@ -334,7 +337,7 @@ def _agg_udf(fn: Function, time_type: str) -> Callable[..., pa.Scalar]:
             (span, fill, same_time),
             tuple(scalar_parameter(a)[0] for a in arguments),
             Ragged(ticks, offsets),
-            Ragged(v.to_numpy(zero_copy_only=False), offsets),
+            tuple(Ragged(v, offsets) for v in values) if k > 1 else Ragged(values[0], offsets),
         )
         in_order = np.sort(ticks)  # the rows' times in time order, NULL (NaN) last
         return answer.in_host_times(group, in_order, lambda t: _times(name, time_type, clock, spark_name, t))[0]

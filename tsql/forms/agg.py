@@ -11,6 +11,7 @@ as in the list forms. How the answer is put in time terms is the entry's
 from __future__ import annotations
 
 from collections.abc import Callable
+from functools import partial
 
 import numpy as np
 import pyarrow as pa
@@ -58,10 +59,24 @@ class AggForm:
         self.name = f"{fn.name}_agg"
         self.answer = answer or fn.answer
 
-    def __call__(self, clock: Clock, settings: Settings, arguments: tuple, ticks: Ragged, values: Ragged) -> pa.Array:
-        """The answers of a batch of groups that share their settings (the grid's, and the plain ``arguments``)."""
+    def __call__(
+        self,
+        clock: Clock,
+        settings: Settings,
+        arguments: tuple,
+        ticks: Ragged,
+        values: Ragged | tuple[Ragged, ...],
+    ) -> pa.Array:
+        """The answers of a batch of groups that share their settings (the grid's, and the plain ``arguments``).
+
+        A function of several series (``cross_correlation``) gets a tuple of values, one per series, all at
+        ``ticks``: each goes on the grid its times make (the same for all), the kernel takes them in order.
+        """
         fn = self.fn
-        grid = grid_of(self.name, clock, settings, ticks, values)
+        grids = [
+            grid_of(self.name, clock, settings, ticks, v) for v in (values if isinstance(values, tuple) else (values,))
+        ]
+        grid = grids[0]
         per_row = [
             span_in_steps(self.name, p.name, p.minimum, clock, grid, value, p.choices, p.whole) if p.span else value
             for p, value in zip(fn.params + fn.time_params, arguments)
@@ -75,12 +90,20 @@ class AggForm:
 
         def call(rows: np.ndarray | None, key: tuple) -> pa.Array:
             kwargs = checked_arguments(fn, key, self.name, agg=True)
-            sub = grid if rows is None else grid.take(rows)
+            sub, *others = grids if rows is None else [g.take(rows) for g in grids]
             if kwargs is None:
                 return pa.nulls(sub.values.n_rows, type=self.answer.udf_returns(fn.returns).arrow)
-            return self.answer.compute(fn.kernel, fn.returns, clock, sub, kwargs)
+            kernel = fn.kernel
+            if others:
+                kernel = partial(_with_others, kernel, [g.values for g in others])
+            return self.answer.compute(kernel, fn.returns, clock, sub, kwargs)
 
         return by_keys(keys or [()] * n_rows, call)
+
+
+def _with_others(kernel: Callable, others: list[Ragged], values: Ragged, **kwargs) -> object:
+    """``kernel(values, *others)``: the first series of a function of several, the others beside it."""
+    return kernel(values, *others, **kwargs)
 
 
 def on_grid_values(clock: Callable[[], Clock], settings: Settings, times: Ragged, values: Ragged) -> pa.Array:

@@ -7,6 +7,7 @@ group in 1-based positions of that list, which the macro turns into ids with ``l
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -20,21 +21,34 @@ from tsql.registry import Function
 
 
 def rows_udf(fn: Function) -> Callable[..., pa.Array]:
-    """The vectorised function a host calls: per row, one group's series (a list of lists) and the settings."""
+    """The vectorised function a host calls: per row, one group's series (a list of lists), its per-item
+    lists (``Param.per_item``, in id order as the series) and the settings."""
+    per_item = [p.name for p in fn.params if p.per_item]
+    plain = replace(fn, params=tuple(p for p in fn.params if not p.per_item))  # the settings alone
 
-    def udf(items: Any, *settings: Any) -> pa.Array:
+    def udf(items: Any, *columns: Any) -> pa.Array:
         groups = single(items)
+        lists = [single(c) for c in columns[: len(per_item)]]
 
         def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
-            subset = groups if rows is None else groups.take(pa.array(rows))
-            kwargs = checked_arguments(fn, key)
+            take = (lambda c: c) if rows is None else (lambda c: c.take(pa.array(rows)))
+            subset, subset_lists = take(groups), [take(c) for c in lists]
+            kwargs = checked_arguments(plain, key, fn.name)
             if kwargs is None:
                 return pa.nulls(len(subset), type=fn.returns.arrow)
-            return pa.concat_arrays([_group(fn, subset[i : i + 1], kwargs) for i in range(len(subset))])
+            answers = []
+            for i in range(len(subset)):
+                given = {
+                    n: c[i].values.to_numpy(zero_copy_only=False)
+                    for n, c in zip(per_item, subset_lists)
+                    if c[i].is_valid
+                }
+                answers.append(_group(fn, subset[i : i + 1], {**kwargs, **given}))
+            return pa.concat_arrays(answers)
 
-        return by_settings(len(groups), settings, run)
+        return by_settings(len(groups), columns[len(per_item) :], run)
 
-    return with_arity(udf, fn.udf_name, fn.doc, ["series"] + [p.name for p in fn.params])
+    return with_arity(udf, fn.udf_name, fn.doc, ["series", *per_item] + [p.name for p in plain.params])
 
 
 def _group(fn: Function, group: pa.ListArray, kwargs: dict) -> pa.Array:

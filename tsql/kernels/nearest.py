@@ -861,6 +861,16 @@ def dtw_nearest(
     then the bounds and the warping programme on the pairs that survive. On
     series that form groups most pairs fall to the first bound.
 
+    The bounds work on differences of level, range and (within a band) local
+    shape. z-normalised series (``normalize``) share their level and nearly
+    their range, so more pairs reach the programme. On the first 1,000 of the
+    sample warehouse's monthly curves, at the final k-th distance (k = 5), the
+    pairs left after both bounds are 2 % with a band of 2 and 12 % without one
+    when not normalised, 26 % and 74 % when normalised (without a band the
+    envelope is the whole range; bounds over the first and last few steps of
+    the path, as in LB_Enhanced, would still leave about 60 %). Give ``band``
+    with ``normalize`` where the shapes may only shift a little.
+
     See Also
     --------
     tsql.kernels.dtw.dtw_distance : the distance of one pair.
