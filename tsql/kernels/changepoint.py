@@ -39,7 +39,7 @@ from numba import njit, prange
 from scipy.stats import chi2
 
 from tsql.kernels import parallel
-from tsql.kernels.ragged import Ragged, RaggedRecords
+from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
 
 __all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
 
@@ -1339,20 +1339,25 @@ def _segment_row(
     out_slope,
     counts,
     row_ok,
+    residual,
 ) -> None:
     """Segment row ``r``: its segments go to ``out_*[offsets[r]:]``, their number to ``counts[r]``.
 
     A row of ``n`` values has at most ``n`` segments, so the rows' output slots do
     not overlap. ``row_ok[r]`` is False when the row has no answer (NULL, no present
-    value, or an infinite one). Every work buffer is the row's own, so the answer
+    value, or an infinite one). Unless ``residual`` is empty, ``residual[offsets[r]:offsets[r + 1]]``
+    gets each value minus its segment's level (for 'trend', its line; NaN where missing and in
+    rows without an answer). Every work buffer is the row's own, so the answer
     does not depend on what else runs, before, after or at the same time.
     """
     counts[r] = 0
     row_ok[r] = False
-    if not valid[r]:
-        return
     lo = offsets[r]
     n = offsets[r + 1] - lo
+    if len(residual):
+        residual[lo : lo + n] = np.nan
+    if not valid[r]:
+        return
     y, p, m, finite = _present(values, lo, n)
     if m == 0 or not finite:
         return
@@ -1429,7 +1434,24 @@ def _segment_row(
         out_first[w] = 1 if k == 0 else p[a] + 1
         out_last[w] = p[b] if k + 1 < n_seg else n
         out_mean[w], out_slope[w] = _segment_stats(y, p, a, b)
+        if len(residual):
+            _residual(y, p, a, b, out_mean[w], out_slope[w], code == TREND, residual[lo:])
     counts[r] = n_seg
+
+
+@njit(cache=True, error_model="numpy")
+def _residual(y, p, a, b, level, slope, trend, out) -> None:
+    """``out[p[i]] = y[i] -`` its segment's level (for 'trend', its line) for ``a <= i < b``."""
+    if trend and not np.isnan(slope):
+        centre = 0.0
+        for i in range(a, b):
+            centre += float(p[i])
+        centre /= b - a
+        for i in range(a, b):
+            out[p[i]] = y[i] - (level + slope * (float(p[i]) - centre))
+    else:
+        for i in range(a, b):
+            out[p[i]] = y[i] - level
 
 
 # numba releases the GIL around a parallel region (nogil or not), so two Python threads
@@ -1454,6 +1476,7 @@ def _segment_rows(
     out_slope,
     counts,
     row_ok,
+    residual,
 ) -> None:
     """Segment every row (see :func:`_segment_row`), the rows in parallel."""
     for r in prange(len(offsets) - 1):
@@ -1475,6 +1498,7 @@ def _segment_rows(
             out_slope,
             counts,
             row_ok,
+            residual,
         )
 
 
@@ -1496,6 +1520,7 @@ def _segment_rows_in_order(
     out_slope,
     counts,
     row_ok,
+    residual,
 ) -> None:
     """:func:`_segment_rows` on this thread alone, for where numba's parallel layer cannot run."""
     for r in range(len(offsets) - 1):
@@ -1517,6 +1542,7 @@ def _segment_rows_in_order(
             out_slope,
             counts,
             row_ok,
+            residual,
         )
 
 
@@ -1551,13 +1577,20 @@ def _check(model: str, min_size: int, seasonal: str | float, max_changes: int | 
 
 
 def _run(
-    batch: Ragged, spec: CostModel, kind: int, value: float, min_size: int, max_changes: int | None
-) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray]:
+    batch: Ragged,
+    spec: CostModel,
+    kind: int,
+    value: float,
+    min_size: int,
+    max_changes: int | None,
+    with_residual: bool = False,
+) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Segment the batch as it is (no cycle removed).
 
     Returns the segment columns as the kernel left them (row r's ``counts[r]``
     segments from ``slots[r]`` on, with unused space between rows), ``counts``,
-    ``slots`` and the rows' validity.
+    ``slots``, the rows' validity and, ``with_residual``, each value minus its
+    segment's level or line (NaN where missing and in invalid rows; else empty).
     """
     values = np.ascontiguousarray(batch.values, dtype=np.float64)
     offsets = np.ascontiguousarray(batch.offsets, dtype=np.int64)
@@ -1573,6 +1606,7 @@ def _run(
     }
     counts = np.empty(n_rows, dtype=np.int64)
     row_ok = np.empty(n_rows, dtype=np.bool_)
+    residual = np.empty(capacity if with_residual else 0)
     kernel = _segment_rows_in_order if parallel.forked_after_openmp() else _segment_rows
     with parallel.kernel_lock():
         kernel(
@@ -1592,8 +1626,9 @@ def _run(
             fields["slope"],
             counts,
             row_ok,
+            residual,
         )
-    return fields, counts, offsets[:-1], row_ok
+    return fields, counts, offsets[:-1], row_ok, residual
 
 
 def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -1608,28 +1643,6 @@ def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarr
 
 
 # --------------------------------------------------------------------------- cycles
-
-
-def _fitted(batch: Ragged, fields: dict[str, np.ndarray], counts: np.ndarray, slots: np.ndarray, trend: bool):
-    """Each element's segment level (and line, for 'trend') from a first segmentation; NaN outside valid rows."""
-    offsets, source = _gather(counts, slots)
-    row_of_segment = np.repeat(np.arange(batch.n_rows), counts)
-    first = fields["first"][source] - 1 + batch.offsets[row_of_segment]
-    last = fields["last"][source] + batch.offsets[row_of_segment]
-    fit = np.full(len(batch.values), np.nan)
-    lengths = last - first
-    element = np.repeat(np.arange(len(source)), lengths)
-    where = np.repeat(first, lengths) + (np.arange(lengths.sum()) - np.repeat(np.cumsum(lengths) - lengths, lengths))
-    fit[where] = fields["mean"][source][element]
-    if trend:
-        present = ~np.isnan(batch.values[where])
-        position = (where - np.repeat(batch.offsets[row_of_segment], lengths)).astype(np.float64)
-        count = np.bincount(element, weights=present, minlength=len(source))
-        centre = np.bincount(element, weights=np.where(present, position, 0.0), minlength=len(source))
-        centre = centre / np.maximum(count, 1.0)
-        slope = np.nan_to_num(fields["slope"][source])
-        fit[where] += slope[element] * (position - centre[element])
-    return fit
 
 
 def _harmonics(period: float) -> int:
@@ -1656,29 +1669,31 @@ def _cycle(values: np.ndarray, periods: np.ndarray) -> np.ndarray:
     design *= used[:, :, None]
     present = ~np.isnan(values)
     weighted = design * present[:, None, :]
-    gram = (weighted[:, :, None, :] * design[:, None, :, :]).sum(axis=3)
+    gram = np.empty((rows, design.shape[1], design.shape[1]))
+    for i in range(design.shape[1]):
+        gram[:, i, :] = (weighted[:, i, None, :] * design).sum(axis=2)
     gram += np.eye(design.shape[1])[None] * ~used[:, :, None]
     rhs = (weighted * np.where(present, values, 0.0)[:, None, :]).sum(axis=2)
     coef = np.linalg.solve(gram, rhs[:, :, None])[:, :, 0]
     return (design.transpose(0, 2, 1) * coef[:, None, :]).sum(axis=2)
 
 
-def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> np.ndarray:
-    """The batch's values minus, in rows with a finite period, the cycle fitted to ``residual``."""
-    out = np.array(batch.values, dtype=np.float64, copy=True)
-    work = Ragged(residual, batch.offsets, batch.valid)
+def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> tuple[np.ndarray, Ragged]:
+    """The rows with a finite period and their values minus the cycle fitted to ``residual``."""
+    cyclic = np.flatnonzero(np.isfinite(periods))
+    values = batch.take(cyclic)
+    out = np.array(values.values, dtype=np.float64, copy=True)
+    work = Ragged(residual, batch.offsets, batch.valid).take(cyclic)
     for n, rows, matrix in work.by_length():
-        keep = np.isfinite(periods[rows])
-        if n == 0 or not keep.any():
+        if n == 0:
             continue
-        rows, matrix = rows[keep], matrix[keep]
         # rows of one length, in pieces of about CYCLE_ELEMENTS elements (a row is never split)
         step = max(1, CYCLE_ELEMENTS // n)
         for lo in range(0, len(rows), step):
             part = rows[lo : lo + step]
-            fitted = _cycle(matrix[lo : lo + step], periods[part])
-            out[batch.offsets[part][:, None] + np.arange(n)] -= fitted
-    return out
+            fitted = _cycle(matrix[lo : lo + step], periods[cyclic[part]])
+            out[work.offsets[part][:, None] + np.arange(n)] -= fitted
+    return cyclic, Ragged(out, values.offsets, values.valid)
 
 
 def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: str | float) -> np.ndarray:
@@ -1708,23 +1723,26 @@ def _fisher_screen(batch: Ragged) -> np.ndarray:
     """Fisher's g p-value of each row as :func:`~tsql.kernels.periodicity.seasonality` computes it, up to rounding.
 
     Only a screen: rows well above the level are left out before the full analysis (which also
-    refines the period), and the decision is the full analysis' own.
+    refines the period), and the decision is the full analysis' own. Rows of one length go in
+    pieces of about ``CACHE_ELEMENTS`` values, so the transforms' temporaries stay in cache.
     """
     from tsql.kernels.periodicity import detrend, fisher_g_pvalue
 
     p = np.ones(batch.n_rows)
     for n, rows, matrix in batch.by_length():
-        if n < 5:
-            continue
-        present = ~np.isnan(matrix)
-        resid = detrend(matrix, None if present.all() else present)[0]
-        power = np.abs(np.fft.rfft(resid, axis=1)) ** 2
-        ordinates = power[:, 2 : (n - 1) // 2 + 1]  # periods n / k for 2 <= k < n / 2
-        if ordinates.shape[1] == 0:
-            continue
-        total = ordinates.sum(axis=1)
-        g = np.where(total > 0, ordinates.max(axis=1) / np.where(total > 0, total, 1.0), 0.0)
-        p[rows] = fisher_g_pvalue(g, np.full(len(rows), float(ordinates.shape[1])))
+        if n < 5 or (n - 1) // 2 < 2:
+            continue  # no period n / k with 2 <= k < n / 2
+        step = max(1, CACHE_ELEMENTS // n)
+        g = np.empty(len(rows))
+        for lo in range(0, len(rows), step):
+            part = matrix[lo : lo + step]
+            present = ~np.isnan(part)
+            resid = detrend(part, None if present.all() else present)[0]
+            power = np.abs(np.fft.rfft(resid, axis=1)) ** 2
+            ordinates = power[:, 2 : (n - 1) // 2 + 1]  # periods n / k for 2 <= k < n / 2
+            total = ordinates.sum(axis=1)
+            g[lo : lo + step] = np.where(total > 0, ordinates.max(axis=1) / np.where(total > 0, total, 1.0), 0.0)
+        p[rows] = fisher_g_pvalue(g, np.full(len(rows), float((n - 1) // 2 - 1)))
     return p
 
 
@@ -1771,19 +1789,19 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
     """:func:`_segment` on a batch whose magnitudes are in range."""
     spec = _check(model, min_size, seasonal, max_changes)
     kind, value = _penalty(penalty)
-    fields, counts, slots, row_ok = _run(batch, spec, kind, value, min_size, max_changes)
+    cycles = seasonal != "none" and batch.n_rows > 0
+    fields, counts, slots, row_ok, residual = _run(batch, spec, kind, value, min_size, max_changes, cycles)
     cyclic = np.empty(0, dtype=np.int64)
-    if seasonal != "none" and batch.n_rows:
-        residual = batch.values - _fitted(batch, fields, counts, slots, spec.code == TREND)
+    if cycles:
         periods = _periods(batch, residual, row_ok, seasonal)
-        cyclic = np.flatnonzero(np.isfinite(periods))
+        if np.isfinite(periods).any():
+            cyclic, adjusted = _remove_cycles(batch, residual, periods)
     skip = int(skip_first)
     if len(cyclic) == 0:
         offsets, source = _gather(np.maximum(counts - skip, 0), slots + skip)
         return {name: column[source] for name, column in fields.items()}, offsets, row_ok
     # the rows with a cycle are segmented again without it; the others keep the first answer
-    adjusted = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid).take(cyclic)
-    again, counts2, slots2, ok2 = _run(adjusted, spec, kind, value, min_size, max_changes)
+    again, counts2, slots2, ok2, _ = _run(adjusted, spec, kind, value, min_size, max_changes)
     row_ok = row_ok.copy()
     row_ok[cyclic] &= ok2  # with max_changes, a long row may have no answer without its cycle
     first_counts = np.maximum(counts - skip, 0)
@@ -2112,11 +2130,16 @@ def change_points_path(
     k_max = int(max_changes)
     batch = _in_range(batch)[0]  # the path has no answer in the series' units
     if seasonal != "none" and batch.n_rows:
-        fields, counts, slots, row_ok = _run(batch, spec, _BIC, 0.0, min_size, None)
-        residual = batch.values - _fitted(batch, fields, counts, slots, spec.code == TREND)
+        _, _, _, row_ok, residual = _run(batch, spec, _BIC, 0.0, min_size, None, True)
         periods = _periods(batch, residual, row_ok, seasonal)
         if np.isfinite(periods).any():
-            batch = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid)
+            cyclic, adjusted = _remove_cycles(batch, residual, periods)
+            values = np.array(batch.values, dtype=np.float64, copy=True)
+            lengths = batch.lengths[cyclic]
+            values[np.repeat(batch.offsets[cyclic] - adjusted.offsets[:-1], lengths) + np.arange(lengths.sum())] = (
+                adjusted.values
+            )
+            batch = Ragged(values, batch.offsets, batch.valid)
     n_rows = batch.n_rows
     values = np.ascontiguousarray(batch.values, dtype=np.float64)
     offsets = np.ascontiguousarray(batch.offsets, dtype=np.int64)
