@@ -75,7 +75,7 @@ LONG_RUN_MIN = 20
 LONG_RUN_RHO = 0.99
 
 #: Most cumulative sums any model keeps (rows of the ``stats`` table).
-MAX_STATS = 5
+MAX_STATS = 6
 
 MEAN, MEANVAR, TREND = 0, 1, 2
 
@@ -96,7 +96,7 @@ class CostModel:
 MODELS: dict[str, CostModel] = {
     "mean": CostModel("mean", MEAN, n_stats=2, params_per_change=2, min_size=1),
     "meanvar": CostModel("meanvar", MEANVAR, n_stats=2, params_per_change=3, min_size=2),
-    "trend": CostModel("trend", TREND, n_stats=5, params_per_change=3, min_size=2),
+    "trend": CostModel("trend", TREND, n_stats=6, params_per_change=3, min_size=2),
 }
 
 
@@ -315,33 +315,70 @@ def _cost_meanvar(stats, rows, starts, base, m, t, out) -> None:
 # --------------------------------------------------------------------------- 'trend'
 
 
+#: the sum of squared positions is kept as an integer split in two exact float64 rows: the multiple
+#: of this power of two, and the rest
+_SQUARES_SPLIT = 1 << 24
+
+
 @njit(cache=True, error_model="numpy")
 def _prepare_trend(y, p, m, stats, work) -> bool:
-    centre, _, sigma = _line_residual_sd(y, p, m)
+    """Sums over the positions ``u`` (centred on the middle one) and ``z``, the values' residuals
+    about the whole series' line in units of their standard deviation.
+
+    Rows: ``sum u`` (0), ``sum u^2`` as an exact multiple of ``_SQUARES_SPLIT`` (1) and the
+    rest (5), ``sum z`` (2), ``sum z^2`` (3), ``sum u z`` (4). A segment's least-squares line
+    does not change its residuals when a line is taken from the values, so the costs are
+    those of the raw values; the small ``u`` and ``z`` keep the sums well-conditioned, and the
+    positions' sums are exact (:func:`_trend_local`).
+    """
+    centre, slope, sigma = _line_residual_sd(y, p, m)
     if not sigma > _rounding(y, m):
         return False
-    st = 0.0
-    stt = 0.0
+    mp = 0.0
+    for i in range(m):
+        mp += p[i]
+    mp /= m
+    origin = p[m // 2]
+    st = np.int64(0)
+    stt = np.int64(0)
     sx = 0.0
     sxx = 0.0
     stx = 0.0
-    for k in range(5):
+    for k in range(6):
         stats[k, 0] = 0.0
     for i in range(m):
-        # positions are integers: their sums stay exact in float64 up to ~2e5 elements
-        t = float(p[i])
-        z = (y[i] - centre) / sigma
-        st += t
-        stt += t * t
+        u = p[i] - origin
+        z = (y[i] - centre - slope * (p[i] - mp)) / sigma
+        st += u
+        stt += u * u
         sx += z
         sxx += z * z
-        stx += t * z
-        stats[0, i + 1] = st
-        stats[1, i + 1] = stt
+        stx += float(u) * z
+        rest = stt % _SQUARES_SPLIT
+        stats[0, i + 1] = float(st)
+        stats[1, i + 1] = float(stt - rest)
+        stats[5, i + 1] = float(rest)
         stats[2, i + 1] = sx
         stats[3, i + 1] = sxx
         stats[4, i + 1] = stx
     return True
+
+
+@njit(cache=True, error_model="numpy")
+def _trend_local(length, o, dt, dtt_high, dtt_rest, dx, dtx) -> tuple[float, float, float]:
+    """A segment's ``sum (u - o)``, ``sum (u - o)^2`` and ``sum (u - o) z`` from its differences of
+    the cumulative sums, ``o`` an integral position near it.
+
+    The positions' sums are integers, combined exactly in int64 (two's complement: exact
+    whenever the result fits, whatever the intermediate products).
+    """
+    n = np.int64(length)
+    c = np.int64(o)
+    t1 = np.int64(dt)
+    t2 = np.int64(dtt_high) + np.int64(dtt_rest)
+    s1 = t1 - n * c
+    s2 = t2 - 2 * c * t1 + n * c * c
+    return float(s1), float(s2), dtx - o * dx
 
 
 @njit(cache=True, error_model="numpy")
@@ -352,21 +389,24 @@ def _cost_trend(stats, rows, starts, base, m, t, out) -> None:
     a_x = stats[2, t]
     a_xx = stats[3, t]
     a_tx = stats[4, t]
+    a_rest = stats[5, t]
+    o = a_t - stats[0, t - 1]  # the segment's last position
     c_t = rows[0]
     c_tt = rows[1]
     c_x = rows[2]
     c_xx = rows[3]
     c_tx = rows[4]
+    c_rest = rows[5]
     tf = float(t)
     for j in range(m):
-        # with L the length and S the sums over the segment, L times the centred sums:
-        # tt = L Stt - St^2 (integer-exact for positions), tx = L Stx - St Sx, xx = L Sxx - Sx^2;
+        # with L the length and S the sums over the segment (positions less o), L times the
+        # centred sums: tt = L Stt - St^2, tx = L Stx - St Sx, xx = L Sxx - Sx^2;
         # RSS = (xx - tx^2 / tt) / L, with one division
         length = tf - starts[j]
-        dt = a_t - c_t[j]
         dx = a_x - c_x[j]
-        tt = length * (a_tt - c_tt[j]) - dt * dt
-        tx = length * (a_tx - c_tx[j]) - dt * dx
+        st, stt, stx = _trend_local(length, o, a_t - c_t[j], a_tt - c_tt[j], a_rest - c_rest[j], dx, a_tx - c_tx[j])
+        tt = length * stt - st * st
+        tx = length * stx - st * dx
         xx = length * (a_xx - c_xx[j]) - dx * dx
         # a one-point segment (tt == 0) has no residual
         rss = (xx * tt - tx * tx) / (tt * length) if tt > 0.0 else 0.0
@@ -573,7 +613,7 @@ def _rounding_scale(code, stats, m) -> float:
         return _SQUARES_MARGIN * stats[1, m]
     if code == MEANVAR:
         return _SQUARES_MARGIN * stats[1, m] / VARIANCE_FLOOR
-    return _SQUARES_MARGIN * (stats[3, m] + math.sqrt(stats[3, m] * stats[1, m]))
+    return _SQUARES_MARGIN * (stats[3, m] + math.sqrt(stats[3, m] * (stats[1, m] + stats[5, m])))
 
 
 @njit(cache=True, error_model="numpy")
@@ -611,7 +651,8 @@ def _meanvar_fit(length, s1, s2) -> tuple[float, float, float]:
 def _trend_fit(length, dt, dtt, dx, dxx, dtx) -> tuple[float, float, float, float, float]:
     """Mean position, mean value, slope, ``sum (p - mean p)^2`` and RSS of a segment from its sums.
 
-    RSS as :func:`_cost_trend` computes it; slope 0 and spread 0 for one value.
+    The sums are :func:`_trend_local`'s, over positions less an origin, and so is the mean
+    position. RSS as :func:`_cost_trend` computes it; slope 0 and spread 0 for one value.
     """
     tt = length * dtt - dt * dt
     tx = length * dtx - dt * dx
@@ -798,15 +839,18 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
         return
     length = float(s - e)
     if code == TREND:
-        p_mean, z_mean, slope, spread, cost = _trend_fit(
+        dx = stats[2, s] - stats[2, e]
+        st, stt, stx = _trend_local(
             length,
+            x0,
             stats[0, s] - stats[0, e],
             stats[1, s] - stats[1, e],
-            stats[2, s] - stats[2, e],
-            stats[3, s] - stats[3, e],
+            stats[5, s] - stats[5, e],
+            dx,
             stats[4, s] - stats[4, e],
         )
-        c0, c1, a00, a01, a11 = _trend_ellipse(length, p_mean, z_mean, slope, spread, x0)
+        p_mean, z_mean, slope, spread, cost = _trend_fit(length, st, stt, dx, stats[3, s] - stats[3, e], stx)
+        c0, c1, a00, a01, a11 = _trend_ellipse(length, p_mean, z_mean, slope, spread, 0.0)
         box[5, k] = c0
         box[6, k] = c1
         box[7, k] = a00
@@ -823,7 +867,7 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
 
 @njit(cache=True, error_model="numpy")
 def _narrow_box(
-    code, rows, starts, f_start, box, visit, n, c, f_c, stats_c, t, length_term, use_length_term, rounding
+    code, rows, starts, f_start, box, visit, n, c, f_c, stats_c, x0_c, t, length_term, use_length_term, rounding
 ) -> tuple[int, int]:
     """Geometric functional pruning (Pishchagina, Rigaill & Runge 2024) for 'meanvar' and 'trend', by start ``c``.
 
@@ -831,12 +875,13 @@ def _narrow_box(
     still be best: for 'meanvar' (segment mean, log of variance + floor), for 'trend'
     (the line's level at ``s``'s first position, slope). ``c`` (usable from step ``t``
     on, newer than every start here) shrinks the box to the bounding box of its meet
-    with ``R_sc`` (:func:`_clip_trend` / :func:`_clip_meanvar`; the room is
+    with ``R_sc`` (:func:`_clip_ellipse` / :func:`_clip_meanvar`; the room is
     ``gap = F(c) - F(s) - C(s, c)``); then the regions where two older starts beat ``s``
     are cut out (:func:`_cut_ellipse` / :func:`_cut_meanvar`): the one remembered
     (``box[4:11]``, :func:`_remember_region`) and one drawn by a fixed rule from the
     starts kept. A start whose box is empty can never be best again and is retired.
 
+    ``x0_c`` is ``c``'s first position ('trend': the origin of the sums of ``(s, c]``).
     Margins as in :func:`_narrow_mean`, with ``rounding`` (:func:`_rounding_scale`) for
     the costs. With 'mbic' an older start only loses more by its length term, so the
     first cut holds as it is; in the second a newer start gains at most
@@ -852,11 +897,13 @@ def _narrow_box(
     a2 = stats_c[2]
     a3 = stats_c[3]
     a4 = stats_c[4]
+    a5 = stats_c[5]
     c0 = rows[0]
     c1 = rows[1]
     c2 = rows[2]
     c3 = rows[3]
     c4 = rows[4]
+    c5 = rows[5]
     trend = code == TREND
     best = -1
     best_shut = 0.0
@@ -870,9 +917,10 @@ def _narrow_box(
         visit[j] = tf + 1.0 + _REVISIT * length
         margin = base + _PRUNE_MARGIN * abs(fs)
         if trend:
-            p_mean, z_mean, slope, spread, cost = _trend_fit(
-                length, a0 - c0[j], a1 - c1[j], a2 - c2[j], a3 - c3[j], a4 - c4[j]
-            )
+            dx = a2 - c2[j]
+            st, stt, stx = _trend_local(length, x0_c, a0 - c0[j], a1 - c1[j], a5 - c5[j], dx, a4 - c4[j])
+            p_mean, z_mean, slope, spread, cost = _trend_fit(length, st, stt, dx, a3 - c3[j], stx)
+            p_mean += x0_c
         else:
             z_mean, v, cost = _meanvar_fit(length, a0 - c0[j], a1 - c1[j])
         gap = f_c - fs - cost
@@ -915,10 +963,12 @@ def _narrow_box(
             if use_length_term:
                 r -= length_term[t - e] - length_term[t - s]
             if trend:
-                p_mean, z_mean, slope, spread, cost = _trend_fit(
-                    e_len, c0[j] - c0[i], c1[j] - c1[i], c2[j] - c2[i], c3[j] - c3[i], c4[j] - c4[i]
+                dx = c2[j] - c2[i]
+                st, stt, stx = _trend_local(
+                    e_len, box[11, j], c0[j] - c0[i], c1[j] - c1[i], c5[j] - c5[i], dx, c4[j] - c4[i]
                 )
-                e0, e1, e00, e01, e11 = _trend_ellipse(e_len, p_mean, z_mean, slope, spread, box[11, j])
+                p_mean, z_mean, slope, spread, cost = _trend_fit(e_len, st, stt, dx, c3[j] - c3[i], stx)
+                e0, e1, e00, e01, e11 = _trend_ellipse(e_len, p_mean, z_mean, slope, spread, 0.0)
                 live = not _cut_ellipse(box, j, e0, e1, e00, e01, e11, r - cost)
             else:
                 mean, v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
@@ -991,7 +1041,7 @@ def _pelt(
     for t in range(1, min_size):
         F[t] = np.inf
         last[t] = 0
-    rows = (cand[0], cand[1], cand[2], cand[3], cand[4])
+    rows = (cand[0], cand[1], cand[2], cand[3], cand[4], cand[5])
     rounding = _rounding_scale(code, stats, m)
     n_cand = 0
     n_pruned = 0
@@ -1019,6 +1069,7 @@ def _pelt(
                     s,
                     F[s],
                     stats[:, s],
+                    stats[0, s + 1] - stats[0, s],
                     t,
                     length_term,
                     use_length_term,
@@ -1128,7 +1179,7 @@ def _neighbourhood(code, stats, m, length_term, use_length_term, min_size, k_max
             hi = t - min_size if j > 0 else 0
             count = hi - lo + 1
             base = D[j - 1, lo:] if j > 0 else zero
-            rows = (stats[0, lo:], stats[1, lo:], stats[2, lo:], stats[3, lo:], stats[4, lo:])
+            rows = (stats[0, lo:], stats[1, lo:], stats[2, lo:], stats[3, lo:], stats[4, lo:], stats[5, lo:])
             if code == MEAN:
                 _cost_mean(stats, rows, place[lo:], base, count, t, vals)
             elif code == MEANVAR:
