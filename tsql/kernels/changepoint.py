@@ -2141,7 +2141,12 @@ def change_points_path(
         ``positions.offsets`` as its offsets.)
 
     A row of more than :data:`MAX_PROGRAMME` (10,000) present values is
-    invalid: the programme below is quadratic in the row's length.
+    invalid: the programme below is quadratic in the row's length. (CROPS
+    over PELT runs would be near-linear, but it finds the optimal
+    segmentations of every size, and one with more than ``max_changes``
+    changes may hide the best of those with fewer from every penalty: the
+    path here, the hull of the segmentations with at most ``max_changes``,
+    would not be exact.)
 
     Notes
     -----
