@@ -5,8 +5,9 @@ is least. The search is exact and kept apart from the cost models: PELT
 (Killick, Fearnhead & Eckley 2012), pruned functionally for 'mean' (FPOP,
 Maidstone et al. 2017) and geometrically for 'meanvar' and 'trend' (boxes of
 the parameters where a start can still be best; Pishchagina, Rigaill & Runge
-2024), so one change in a long series costs little more than its length; :func:`segments` and :func:`change_points`
-give the optimum at one penalty (optionally with at most ``max_changes``
+2024): for 'mean' one change in a long series costs little more than its length (for
+'meanvar' and 'trend' the starts kept still grow about as its square root); :func:`segments` and
+:func:`change_points` give the optimum at one penalty (optionally with at most ``max_changes``
 changes), :func:`change_points_path` every optimum as the penalty varies.
 Cycles are removed first (``seasonal``). How the costs, noise scale and
 penalties are defined and chosen is in :func:`segments`, Notes.
