@@ -617,9 +617,14 @@ def search_reference(stats, model: str, beta: float, mbic: bool, min_size: int):
             var = np.maximum((stats[1, end] - stats[1, start]) / length - mean**2, 0.0)
             cost = length * np.log(var + FLOOR)
         else:
+            # rows: sums of u, u^2 (two exact parts: 1 and 5), z, z^2, u z, with the positions u
+            # taken from the segment's last one, o (exact integers here)
             d = stats[:, end, None] - stats[:, start]
-            tt = length * d[1] - d[0] ** 2
-            tx = length * d[4] - d[0] * d[2]
+            o = stats[0, end] - stats[0, end - 1]
+            st = d[0] - length * o
+            stt = (d[1] + d[5]) - 2 * o * d[0] + length * o * o
+            tt = length * stt - st**2
+            tx = length * (d[4] - o * d[2]) - st * d[2]
             xx = length * d[3] - d[2] ** 2
             with np.errstate(divide="ignore", invalid="ignore"):
                 cost = np.where(tt > 0, np.maximum((xx * tt - tx**2) / (tt * length), 0.0), 0.0)
@@ -711,6 +716,27 @@ def test_geometric_pruning_on_long_calm_series(model):
             F_old, last_old, _, _ = search(x, model, penalty, 2, functional=False)
             np.testing.assert_array_equal(last_new, last_old)
             np.testing.assert_array_equal(F_new, F_old)
+
+
+def test_trend_costs_on_a_million_points_equal_direct_least_squares():
+    # reference: numpy.linalg.lstsq on each segment alone (positions from the segment's first one),
+    # its RSS in units of the kernel's whole-series residual variance. A million positions with
+    # gaps: sums of squared positions pass 2^53 (about 3e5 points), where plain float sums had
+    # costs of short segments at the end wrong in the first digit
+    rng = np.random.default_rng(48)
+    p = np.flatnonzero(rng.random(1_000_000) > 0.1).astype(np.int64)
+    y = 5.0 + 0.002 * p + rng.standard_normal(len(p))
+    m = len(p)
+    stats = np.empty((changepoint.MAX_STATS, m + 1))
+    assert changepoint._prepare(changepoint.TREND, y, p, m, stats, np.empty(2 * m + 2))
+    variance = changepoint._line_residual_sd(y, p, m)[2] ** 2
+    pairs = [(m - 3, m), (m - 10, m), (m - 100, m), (m - 5000, m - 17), (m // 2, m // 2 + 7), (10, 200_000), (0, m)]
+    for s, t in pairs:
+        out = np.empty(1)
+        changepoint._cost_trend(stats, tuple(stats[:, s : s + 1]), np.array([float(s)]), np.zeros(1), 1, t, out)
+        design = np.c_[np.ones(t - s), (p[s:t] - p[s]).astype(float)]
+        residual = y[s:t] - design @ np.linalg.lstsq(design, y[s:t], rcond=None)[0]
+        assert out[0] == pytest.approx(residual @ residual / variance, rel=1e-9, abs=1e-7), (s, t)
 
 
 def test_meanvar_cost_is_a_least_sum_of_point_losses():

@@ -5,8 +5,9 @@ is least. The search is exact and kept apart from the cost models: PELT
 (Killick, Fearnhead & Eckley 2012), pruned functionally for 'mean' (FPOP,
 Maidstone et al. 2017) and geometrically for 'meanvar' and 'trend' (boxes of
 the parameters where a start can still be best; Pishchagina, Rigaill & Runge
-2024), so one change in a long series costs little more than its length; :func:`segments` and :func:`change_points`
-give the optimum at one penalty (optionally with at most ``max_changes``
+2024): for 'mean' one change in a long series costs little more than its length (for
+'meanvar' and 'trend' the starts kept still grow about as its square root); :func:`segments` and
+:func:`change_points` give the optimum at one penalty (optionally with at most ``max_changes``
 changes), :func:`change_points_path` every optimum as the penalty varies.
 Cycles are removed first (``seasonal``). How the costs, noise scale and
 penalties are defined and chosen is in :func:`segments`, Notes.
@@ -39,7 +40,7 @@ from numba import njit, prange
 from scipy.stats import chi2
 
 from tsql.kernels import parallel
-from tsql.kernels.ragged import Ragged, RaggedRecords
+from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
 
 __all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
 
@@ -75,7 +76,7 @@ LONG_RUN_MIN = 20
 LONG_RUN_RHO = 0.99
 
 #: Most cumulative sums any model keeps (rows of the ``stats`` table).
-MAX_STATS = 5
+MAX_STATS = 6
 
 MEAN, MEANVAR, TREND = 0, 1, 2
 
@@ -96,7 +97,7 @@ class CostModel:
 MODELS: dict[str, CostModel] = {
     "mean": CostModel("mean", MEAN, n_stats=2, params_per_change=2, min_size=1),
     "meanvar": CostModel("meanvar", MEANVAR, n_stats=2, params_per_change=3, min_size=2),
-    "trend": CostModel("trend", TREND, n_stats=5, params_per_change=3, min_size=2),
+    "trend": CostModel("trend", TREND, n_stats=6, params_per_change=3, min_size=2),
 }
 
 
@@ -315,33 +316,70 @@ def _cost_meanvar(stats, rows, starts, base, m, t, out) -> None:
 # --------------------------------------------------------------------------- 'trend'
 
 
+#: the sum of squared positions is kept as an integer split in two exact float64 rows: the multiple
+#: of this power of two, and the rest
+_SQUARES_SPLIT = 1 << 24
+
+
 @njit(cache=True, error_model="numpy")
 def _prepare_trend(y, p, m, stats, work) -> bool:
-    centre, _, sigma = _line_residual_sd(y, p, m)
+    """Sums over the positions ``u`` (centred on the middle one) and ``z``, the values' residuals
+    about the whole series' line in units of their standard deviation.
+
+    Rows: ``sum u`` (0), ``sum u^2`` as an exact multiple of ``_SQUARES_SPLIT`` (1) and the
+    rest (5), ``sum z`` (2), ``sum z^2`` (3), ``sum u z`` (4). A segment's least-squares line
+    does not change its residuals when a line is taken from the values, so the costs are
+    those of the raw values; the small ``u`` and ``z`` keep the sums well-conditioned, and the
+    positions' sums are exact (:func:`_trend_local`).
+    """
+    centre, slope, sigma = _line_residual_sd(y, p, m)
     if not sigma > _rounding(y, m):
         return False
-    st = 0.0
-    stt = 0.0
+    mp = 0.0
+    for i in range(m):
+        mp += p[i]
+    mp /= m
+    origin = p[m // 2]
+    st = np.int64(0)
+    stt = np.int64(0)
     sx = 0.0
     sxx = 0.0
     stx = 0.0
-    for k in range(5):
+    for k in range(6):
         stats[k, 0] = 0.0
     for i in range(m):
-        # positions are integers: their sums stay exact in float64 up to ~2e5 elements
-        t = float(p[i])
-        z = (y[i] - centre) / sigma
-        st += t
-        stt += t * t
+        u = p[i] - origin
+        z = (y[i] - centre - slope * (p[i] - mp)) / sigma
+        st += u
+        stt += u * u
         sx += z
         sxx += z * z
-        stx += t * z
-        stats[0, i + 1] = st
-        stats[1, i + 1] = stt
+        stx += float(u) * z
+        rest = stt % _SQUARES_SPLIT
+        stats[0, i + 1] = float(st)
+        stats[1, i + 1] = float(stt - rest)
+        stats[5, i + 1] = float(rest)
         stats[2, i + 1] = sx
         stats[3, i + 1] = sxx
         stats[4, i + 1] = stx
     return True
+
+
+@njit(cache=True, error_model="numpy")
+def _trend_local(length, o, dt, dtt_high, dtt_rest, dx, dtx) -> tuple[float, float, float]:
+    """A segment's ``sum (u - o)``, ``sum (u - o)^2`` and ``sum (u - o) z`` from its differences of
+    the cumulative sums, ``o`` an integral position near it.
+
+    The positions' sums are integers, combined exactly in int64 (two's complement: exact
+    whenever the result fits, whatever the intermediate products).
+    """
+    n = np.int64(length)
+    c = np.int64(o)
+    t1 = np.int64(dt)
+    t2 = np.int64(dtt_high) + np.int64(dtt_rest)
+    s1 = t1 - n * c
+    s2 = t2 - 2 * c * t1 + n * c * c
+    return float(s1), float(s2), dtx - o * dx
 
 
 @njit(cache=True, error_model="numpy")
@@ -352,21 +390,24 @@ def _cost_trend(stats, rows, starts, base, m, t, out) -> None:
     a_x = stats[2, t]
     a_xx = stats[3, t]
     a_tx = stats[4, t]
+    a_rest = stats[5, t]
+    o = a_t - stats[0, t - 1]  # the segment's last position
     c_t = rows[0]
     c_tt = rows[1]
     c_x = rows[2]
     c_xx = rows[3]
     c_tx = rows[4]
+    c_rest = rows[5]
     tf = float(t)
     for j in range(m):
-        # with L the length and S the sums over the segment, L times the centred sums:
-        # tt = L Stt - St^2 (integer-exact for positions), tx = L Stx - St Sx, xx = L Sxx - Sx^2;
+        # with L the length and S the sums over the segment (positions less o), L times the
+        # centred sums: tt = L Stt - St^2, tx = L Stx - St Sx, xx = L Sxx - Sx^2;
         # RSS = (xx - tx^2 / tt) / L, with one division
         length = tf - starts[j]
-        dt = a_t - c_t[j]
         dx = a_x - c_x[j]
-        tt = length * (a_tt - c_tt[j]) - dt * dt
-        tx = length * (a_tx - c_tx[j]) - dt * dx
+        st, stt, stx = _trend_local(length, o, a_t - c_t[j], a_tt - c_tt[j], a_rest - c_rest[j], dx, a_tx - c_tx[j])
+        tt = length * stt - st * st
+        tx = length * stx - st * dx
         xx = length * (a_xx - c_xx[j]) - dx * dx
         # a one-point segment (tt == 0) has no residual
         rss = (xx * tt - tx * tx) / (tt * length) if tt > 0.0 else 0.0
@@ -573,7 +614,7 @@ def _rounding_scale(code, stats, m) -> float:
         return _SQUARES_MARGIN * stats[1, m]
     if code == MEANVAR:
         return _SQUARES_MARGIN * stats[1, m] / VARIANCE_FLOOR
-    return _SQUARES_MARGIN * (stats[3, m] + math.sqrt(stats[3, m] * stats[1, m]))
+    return _SQUARES_MARGIN * (stats[3, m] + math.sqrt(stats[3, m] * (stats[1, m] + stats[5, m])))
 
 
 @njit(cache=True, error_model="numpy")
@@ -611,7 +652,8 @@ def _meanvar_fit(length, s1, s2) -> tuple[float, float, float]:
 def _trend_fit(length, dt, dtt, dx, dxx, dtx) -> tuple[float, float, float, float, float]:
     """Mean position, mean value, slope, ``sum (p - mean p)^2`` and RSS of a segment from its sums.
 
-    RSS as :func:`_cost_trend` computes it; slope 0 and spread 0 for one value.
+    The sums are :func:`_trend_local`'s, over positions less an origin, and so is the mean
+    position. RSS as :func:`_cost_trend` computes it; slope 0 and spread 0 for one value.
     """
     tt = length * dtt - dt * dt
     tx = length * dtx - dt * dx
@@ -798,15 +840,18 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
         return
     length = float(s - e)
     if code == TREND:
-        p_mean, z_mean, slope, spread, cost = _trend_fit(
+        dx = stats[2, s] - stats[2, e]
+        st, stt, stx = _trend_local(
             length,
+            x0,
             stats[0, s] - stats[0, e],
             stats[1, s] - stats[1, e],
-            stats[2, s] - stats[2, e],
-            stats[3, s] - stats[3, e],
+            stats[5, s] - stats[5, e],
+            dx,
             stats[4, s] - stats[4, e],
         )
-        c0, c1, a00, a01, a11 = _trend_ellipse(length, p_mean, z_mean, slope, spread, x0)
+        p_mean, z_mean, slope, spread, cost = _trend_fit(length, st, stt, dx, stats[3, s] - stats[3, e], stx)
+        c0, c1, a00, a01, a11 = _trend_ellipse(length, p_mean, z_mean, slope, spread, 0.0)
         box[5, k] = c0
         box[6, k] = c1
         box[7, k] = a00
@@ -823,7 +868,7 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
 
 @njit(cache=True, error_model="numpy")
 def _narrow_box(
-    code, rows, starts, f_start, box, visit, n, c, f_c, stats_c, t, length_term, use_length_term, rounding
+    code, rows, starts, f_start, box, visit, n, c, f_c, stats_c, x0_c, t, length_term, use_length_term, rounding
 ) -> tuple[int, int]:
     """Geometric functional pruning (Pishchagina, Rigaill & Runge 2024) for 'meanvar' and 'trend', by start ``c``.
 
@@ -831,12 +876,13 @@ def _narrow_box(
     still be best: for 'meanvar' (segment mean, log of variance + floor), for 'trend'
     (the line's level at ``s``'s first position, slope). ``c`` (usable from step ``t``
     on, newer than every start here) shrinks the box to the bounding box of its meet
-    with ``R_sc`` (:func:`_clip_trend` / :func:`_clip_meanvar`; the room is
+    with ``R_sc`` (:func:`_clip_ellipse` / :func:`_clip_meanvar`; the room is
     ``gap = F(c) - F(s) - C(s, c)``); then the regions where two older starts beat ``s``
     are cut out (:func:`_cut_ellipse` / :func:`_cut_meanvar`): the one remembered
     (``box[4:11]``, :func:`_remember_region`) and one drawn by a fixed rule from the
     starts kept. A start whose box is empty can never be best again and is retired.
 
+    ``x0_c`` is ``c``'s first position ('trend': the origin of the sums of ``(s, c]``).
     Margins as in :func:`_narrow_mean`, with ``rounding`` (:func:`_rounding_scale`) for
     the costs. With 'mbic' an older start only loses more by its length term, so the
     first cut holds as it is; in the second a newer start gains at most
@@ -852,11 +898,13 @@ def _narrow_box(
     a2 = stats_c[2]
     a3 = stats_c[3]
     a4 = stats_c[4]
+    a5 = stats_c[5]
     c0 = rows[0]
     c1 = rows[1]
     c2 = rows[2]
     c3 = rows[3]
     c4 = rows[4]
+    c5 = rows[5]
     trend = code == TREND
     best = -1
     best_shut = 0.0
@@ -870,9 +918,10 @@ def _narrow_box(
         visit[j] = tf + 1.0 + _REVISIT * length
         margin = base + _PRUNE_MARGIN * abs(fs)
         if trend:
-            p_mean, z_mean, slope, spread, cost = _trend_fit(
-                length, a0 - c0[j], a1 - c1[j], a2 - c2[j], a3 - c3[j], a4 - c4[j]
-            )
+            dx = a2 - c2[j]
+            st, stt, stx = _trend_local(length, x0_c, a0 - c0[j], a1 - c1[j], a5 - c5[j], dx, a4 - c4[j])
+            p_mean, z_mean, slope, spread, cost = _trend_fit(length, st, stt, dx, a3 - c3[j], stx)
+            p_mean += x0_c
         else:
             z_mean, v, cost = _meanvar_fit(length, a0 - c0[j], a1 - c1[j])
         gap = f_c - fs - cost
@@ -915,10 +964,12 @@ def _narrow_box(
             if use_length_term:
                 r -= length_term[t - e] - length_term[t - s]
             if trend:
-                p_mean, z_mean, slope, spread, cost = _trend_fit(
-                    e_len, c0[j] - c0[i], c1[j] - c1[i], c2[j] - c2[i], c3[j] - c3[i], c4[j] - c4[i]
+                dx = c2[j] - c2[i]
+                st, stt, stx = _trend_local(
+                    e_len, box[11, j], c0[j] - c0[i], c1[j] - c1[i], c5[j] - c5[i], dx, c4[j] - c4[i]
                 )
-                e0, e1, e00, e01, e11 = _trend_ellipse(e_len, p_mean, z_mean, slope, spread, box[11, j])
+                p_mean, z_mean, slope, spread, cost = _trend_fit(e_len, st, stt, dx, c3[j] - c3[i], stx)
+                e0, e1, e00, e01, e11 = _trend_ellipse(e_len, p_mean, z_mean, slope, spread, 0.0)
                 live = not _cut_ellipse(box, j, e0, e1, e00, e01, e11, r - cost)
             else:
                 mean, v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
@@ -991,7 +1042,7 @@ def _pelt(
     for t in range(1, min_size):
         F[t] = np.inf
         last[t] = 0
-    rows = (cand[0], cand[1], cand[2], cand[3], cand[4])
+    rows = (cand[0], cand[1], cand[2], cand[3], cand[4], cand[5])
     rounding = _rounding_scale(code, stats, m)
     n_cand = 0
     n_pruned = 0
@@ -1019,6 +1070,7 @@ def _pelt(
                     s,
                     F[s],
                     stats[:, s],
+                    stats[0, s + 1] - stats[0, s],
                     t,
                     length_term,
                     use_length_term,
@@ -1128,7 +1180,7 @@ def _neighbourhood(code, stats, m, length_term, use_length_term, min_size, k_max
             hi = t - min_size if j > 0 else 0
             count = hi - lo + 1
             base = D[j - 1, lo:] if j > 0 else zero
-            rows = (stats[0, lo:], stats[1, lo:], stats[2, lo:], stats[3, lo:], stats[4, lo:])
+            rows = (stats[0, lo:], stats[1, lo:], stats[2, lo:], stats[3, lo:], stats[4, lo:], stats[5, lo:])
             if code == MEAN:
                 _cost_mean(stats, rows, place[lo:], base, count, t, vals)
             elif code == MEANVAR:
@@ -1339,20 +1391,25 @@ def _segment_row(
     out_slope,
     counts,
     row_ok,
+    residual,
 ) -> None:
     """Segment row ``r``: its segments go to ``out_*[offsets[r]:]``, their number to ``counts[r]``.
 
     A row of ``n`` values has at most ``n`` segments, so the rows' output slots do
     not overlap. ``row_ok[r]`` is False when the row has no answer (NULL, no present
-    value, or an infinite one). Every work buffer is the row's own, so the answer
+    value, or an infinite one). Unless ``residual`` is empty, ``residual[offsets[r]:offsets[r + 1]]``
+    gets each value minus its segment's level (for 'trend', its line; NaN where missing and in
+    rows without an answer). Every work buffer is the row's own, so the answer
     does not depend on what else runs, before, after or at the same time.
     """
     counts[r] = 0
     row_ok[r] = False
-    if not valid[r]:
-        return
     lo = offsets[r]
     n = offsets[r + 1] - lo
+    if len(residual):
+        residual[lo : lo + n] = np.nan
+    if not valid[r]:
+        return
     y, p, m, finite = _present(values, lo, n)
     if m == 0 or not finite:
         return
@@ -1429,7 +1486,24 @@ def _segment_row(
         out_first[w] = 1 if k == 0 else p[a] + 1
         out_last[w] = p[b] if k + 1 < n_seg else n
         out_mean[w], out_slope[w] = _segment_stats(y, p, a, b)
+        if len(residual):
+            _residual(y, p, a, b, out_mean[w], out_slope[w], code == TREND, residual[lo:])
     counts[r] = n_seg
+
+
+@njit(cache=True, error_model="numpy")
+def _residual(y, p, a, b, level, slope, trend, out) -> None:
+    """``out[p[i]] = y[i] -`` its segment's level (for 'trend', its line) for ``a <= i < b``."""
+    if trend and not np.isnan(slope):
+        centre = 0.0
+        for i in range(a, b):
+            centre += float(p[i])
+        centre /= b - a
+        for i in range(a, b):
+            out[p[i]] = y[i] - (level + slope * (float(p[i]) - centre))
+    else:
+        for i in range(a, b):
+            out[p[i]] = y[i] - level
 
 
 # numba releases the GIL around a parallel region (nogil or not), so two Python threads
@@ -1454,6 +1528,7 @@ def _segment_rows(
     out_slope,
     counts,
     row_ok,
+    residual,
 ) -> None:
     """Segment every row (see :func:`_segment_row`), the rows in parallel."""
     for r in prange(len(offsets) - 1):
@@ -1475,6 +1550,7 @@ def _segment_rows(
             out_slope,
             counts,
             row_ok,
+            residual,
         )
 
 
@@ -1496,6 +1572,7 @@ def _segment_rows_in_order(
     out_slope,
     counts,
     row_ok,
+    residual,
 ) -> None:
     """:func:`_segment_rows` on this thread alone, for where numba's parallel layer cannot run."""
     for r in range(len(offsets) - 1):
@@ -1517,6 +1594,7 @@ def _segment_rows_in_order(
             out_slope,
             counts,
             row_ok,
+            residual,
         )
 
 
@@ -1551,13 +1629,20 @@ def _check(model: str, min_size: int, seasonal: str | float, max_changes: int | 
 
 
 def _run(
-    batch: Ragged, spec: CostModel, kind: int, value: float, min_size: int, max_changes: int | None
-) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray]:
+    batch: Ragged,
+    spec: CostModel,
+    kind: int,
+    value: float,
+    min_size: int,
+    max_changes: int | None,
+    with_residual: bool = False,
+) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Segment the batch as it is (no cycle removed).
 
     Returns the segment columns as the kernel left them (row r's ``counts[r]``
     segments from ``slots[r]`` on, with unused space between rows), ``counts``,
-    ``slots`` and the rows' validity.
+    ``slots``, the rows' validity and, ``with_residual``, each value minus its
+    segment's level or line (NaN where missing and in invalid rows; else empty).
     """
     values = np.ascontiguousarray(batch.values, dtype=np.float64)
     offsets = np.ascontiguousarray(batch.offsets, dtype=np.int64)
@@ -1573,6 +1658,7 @@ def _run(
     }
     counts = np.empty(n_rows, dtype=np.int64)
     row_ok = np.empty(n_rows, dtype=np.bool_)
+    residual = np.empty(capacity if with_residual else 0)
     kernel = _segment_rows_in_order if parallel.forked_after_openmp() else _segment_rows
     with parallel.kernel_lock():
         kernel(
@@ -1592,8 +1678,9 @@ def _run(
             fields["slope"],
             counts,
             row_ok,
+            residual,
         )
-    return fields, counts, offsets[:-1], row_ok
+    return fields, counts, offsets[:-1], row_ok, residual
 
 
 def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -1608,28 +1695,6 @@ def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarr
 
 
 # --------------------------------------------------------------------------- cycles
-
-
-def _fitted(batch: Ragged, fields: dict[str, np.ndarray], counts: np.ndarray, slots: np.ndarray, trend: bool):
-    """Each element's segment level (and line, for 'trend') from a first segmentation; NaN outside valid rows."""
-    offsets, source = _gather(counts, slots)
-    row_of_segment = np.repeat(np.arange(batch.n_rows), counts)
-    first = fields["first"][source] - 1 + batch.offsets[row_of_segment]
-    last = fields["last"][source] + batch.offsets[row_of_segment]
-    fit = np.full(len(batch.values), np.nan)
-    lengths = last - first
-    element = np.repeat(np.arange(len(source)), lengths)
-    where = np.repeat(first, lengths) + (np.arange(lengths.sum()) - np.repeat(np.cumsum(lengths) - lengths, lengths))
-    fit[where] = fields["mean"][source][element]
-    if trend:
-        present = ~np.isnan(batch.values[where])
-        position = (where - np.repeat(batch.offsets[row_of_segment], lengths)).astype(np.float64)
-        count = np.bincount(element, weights=present, minlength=len(source))
-        centre = np.bincount(element, weights=np.where(present, position, 0.0), minlength=len(source))
-        centre = centre / np.maximum(count, 1.0)
-        slope = np.nan_to_num(fields["slope"][source])
-        fit[where] += slope[element] * (position - centre[element])
-    return fit
 
 
 def _harmonics(period: float) -> int:
@@ -1656,29 +1721,31 @@ def _cycle(values: np.ndarray, periods: np.ndarray) -> np.ndarray:
     design *= used[:, :, None]
     present = ~np.isnan(values)
     weighted = design * present[:, None, :]
-    gram = (weighted[:, :, None, :] * design[:, None, :, :]).sum(axis=3)
+    gram = np.empty((rows, design.shape[1], design.shape[1]))
+    for i in range(design.shape[1]):
+        gram[:, i, :] = (weighted[:, i, None, :] * design).sum(axis=2)
     gram += np.eye(design.shape[1])[None] * ~used[:, :, None]
     rhs = (weighted * np.where(present, values, 0.0)[:, None, :]).sum(axis=2)
     coef = np.linalg.solve(gram, rhs[:, :, None])[:, :, 0]
     return (design.transpose(0, 2, 1) * coef[:, None, :]).sum(axis=2)
 
 
-def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> np.ndarray:
-    """The batch's values minus, in rows with a finite period, the cycle fitted to ``residual``."""
-    out = np.array(batch.values, dtype=np.float64, copy=True)
-    work = Ragged(residual, batch.offsets, batch.valid)
+def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> tuple[np.ndarray, Ragged]:
+    """The rows with a finite period and their values minus the cycle fitted to ``residual``."""
+    cyclic = np.flatnonzero(np.isfinite(periods))
+    values = batch.take(cyclic)
+    out = np.array(values.values, dtype=np.float64, copy=True)
+    work = Ragged(residual, batch.offsets, batch.valid).take(cyclic)
     for n, rows, matrix in work.by_length():
-        keep = np.isfinite(periods[rows])
-        if n == 0 or not keep.any():
+        if n == 0:
             continue
-        rows, matrix = rows[keep], matrix[keep]
         # rows of one length, in pieces of about CYCLE_ELEMENTS elements (a row is never split)
         step = max(1, CYCLE_ELEMENTS // n)
         for lo in range(0, len(rows), step):
             part = rows[lo : lo + step]
-            fitted = _cycle(matrix[lo : lo + step], periods[part])
-            out[batch.offsets[part][:, None] + np.arange(n)] -= fitted
-    return out
+            fitted = _cycle(matrix[lo : lo + step], periods[cyclic[part]])
+            out[work.offsets[part][:, None] + np.arange(n)] -= fitted
+    return cyclic, Ragged(out, values.offsets, values.valid)
 
 
 def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: str | float) -> np.ndarray:
@@ -1708,23 +1775,26 @@ def _fisher_screen(batch: Ragged) -> np.ndarray:
     """Fisher's g p-value of each row as :func:`~tsql.kernels.periodicity.seasonality` computes it, up to rounding.
 
     Only a screen: rows well above the level are left out before the full analysis (which also
-    refines the period), and the decision is the full analysis' own.
+    refines the period), and the decision is the full analysis' own. Rows of one length go in
+    pieces of about ``CACHE_ELEMENTS`` values, so the transforms' temporaries stay in cache.
     """
     from tsql.kernels.periodicity import detrend, fisher_g_pvalue
 
     p = np.ones(batch.n_rows)
     for n, rows, matrix in batch.by_length():
-        if n < 5:
-            continue
-        present = ~np.isnan(matrix)
-        resid = detrend(matrix, None if present.all() else present)[0]
-        power = np.abs(np.fft.rfft(resid, axis=1)) ** 2
-        ordinates = power[:, 2 : (n - 1) // 2 + 1]  # periods n / k for 2 <= k < n / 2
-        if ordinates.shape[1] == 0:
-            continue
-        total = ordinates.sum(axis=1)
-        g = np.where(total > 0, ordinates.max(axis=1) / np.where(total > 0, total, 1.0), 0.0)
-        p[rows] = fisher_g_pvalue(g, np.full(len(rows), float(ordinates.shape[1])))
+        if n < 5 or (n - 1) // 2 < 2:
+            continue  # no period n / k with 2 <= k < n / 2
+        step = max(1, CACHE_ELEMENTS // n)
+        g = np.empty(len(rows))
+        for lo in range(0, len(rows), step):
+            part = matrix[lo : lo + step]
+            present = ~np.isnan(part)
+            resid = detrend(part, None if present.all() else present)[0]
+            power = np.abs(np.fft.rfft(resid, axis=1)) ** 2
+            ordinates = power[:, 2 : (n - 1) // 2 + 1]  # periods n / k for 2 <= k < n / 2
+            total = ordinates.sum(axis=1)
+            g[lo : lo + step] = np.where(total > 0, ordinates.max(axis=1) / np.where(total > 0, total, 1.0), 0.0)
+        p[rows] = fisher_g_pvalue(g, np.full(len(rows), float((n - 1) // 2 - 1)))
     return p
 
 
@@ -1771,19 +1841,19 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
     """:func:`_segment` on a batch whose magnitudes are in range."""
     spec = _check(model, min_size, seasonal, max_changes)
     kind, value = _penalty(penalty)
-    fields, counts, slots, row_ok = _run(batch, spec, kind, value, min_size, max_changes)
+    cycles = seasonal != "none" and batch.n_rows > 0
+    fields, counts, slots, row_ok, residual = _run(batch, spec, kind, value, min_size, max_changes, cycles)
     cyclic = np.empty(0, dtype=np.int64)
-    if seasonal != "none" and batch.n_rows:
-        residual = batch.values - _fitted(batch, fields, counts, slots, spec.code == TREND)
+    if cycles:
         periods = _periods(batch, residual, row_ok, seasonal)
-        cyclic = np.flatnonzero(np.isfinite(periods))
+        if np.isfinite(periods).any():
+            cyclic, adjusted = _remove_cycles(batch, residual, periods)
     skip = int(skip_first)
     if len(cyclic) == 0:
         offsets, source = _gather(np.maximum(counts - skip, 0), slots + skip)
         return {name: column[source] for name, column in fields.items()}, offsets, row_ok
     # the rows with a cycle are segmented again without it; the others keep the first answer
-    adjusted = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid).take(cyclic)
-    again, counts2, slots2, ok2 = _run(adjusted, spec, kind, value, min_size, max_changes)
+    again, counts2, slots2, ok2, _ = _run(adjusted, spec, kind, value, min_size, max_changes)
     row_ok = row_ok.copy()
     row_ok[cyclic] &= ok2  # with max_changes, a long row may have no answer without its cycle
     first_counts = np.maximum(counts - skip, 0)
@@ -2072,7 +2142,12 @@ def change_points_path(
         ``positions.offsets`` as its offsets.)
 
     A row of more than :data:`MAX_PROGRAMME` (10,000) present values is
-    invalid: the programme below is quadratic in the row's length.
+    invalid: the programme below is quadratic in the row's length. (CROPS
+    over PELT runs would be near-linear, but it finds the optimal
+    segmentations of every size, and one with more than ``max_changes``
+    changes may hide the best of those with fewer from every penalty: the
+    path here, the hull of the segmentations with at most ``max_changes``,
+    would not be exact.)
 
     Notes
     -----
@@ -2112,11 +2187,16 @@ def change_points_path(
     k_max = int(max_changes)
     batch = _in_range(batch)[0]  # the path has no answer in the series' units
     if seasonal != "none" and batch.n_rows:
-        fields, counts, slots, row_ok = _run(batch, spec, _BIC, 0.0, min_size, None)
-        residual = batch.values - _fitted(batch, fields, counts, slots, spec.code == TREND)
+        _, _, _, row_ok, residual = _run(batch, spec, _BIC, 0.0, min_size, None, True)
         periods = _periods(batch, residual, row_ok, seasonal)
         if np.isfinite(periods).any():
-            batch = Ragged(_remove_cycles(batch, residual, periods), batch.offsets, batch.valid)
+            cyclic, adjusted = _remove_cycles(batch, residual, periods)
+            values = np.array(batch.values, dtype=np.float64, copy=True)
+            lengths = batch.lengths[cyclic]
+            values[np.repeat(batch.offsets[cyclic] - adjusted.offsets[:-1], lengths) + np.arange(lengths.sum())] = (
+                adjusted.values
+            )
+            batch = Ragged(values, batch.offsets, batch.valid)
     n_rows = batch.n_rows
     values = np.ascontiguousarray(batch.values, dtype=np.float64)
     offsets = np.ascontiguousarray(batch.offsets, dtype=np.int64)
