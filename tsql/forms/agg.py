@@ -16,9 +16,9 @@ import numpy as np
 import pyarrow as pa
 
 from tsql.forms.answers import Answer
-from tsql.forms.arguments import by_keys, check_argument, checked_arguments
+from tsql.forms.arguments import argument_problem, by_keys, check_argument, checked_arguments
 from tsql.forms.arrow import to_arrow_list
-from tsql.forms.time import Clock, Span, span_in_steps, step
+from tsql.forms.time import Clock, Span, span_in_steps, static_span, step
 from tsql.kernels.grid import Grid, on_grid
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged
 from tsql.registry import FILL, Function
@@ -70,6 +70,45 @@ class AggForm:
             return self.answer.compute(fn.kernel, fn.returns, clock, sub, kwargs)
 
         return by_keys(keys or [()] * n_rows, call)
+
+
+def agg_problem(
+    name: str, fn: Function | None, clock: Callable[[], Clock], span: Span | None, fill: str | None, arguments: tuple
+) -> str | None:
+    """What an ``*_agg`` call (or ``on_grid``: ``fn`` None) would refuse before looking at its data; None if nothing.
+
+    The time type (``clock()``), the step, ``fill`` and the plain arguments; a length of time given as an
+    INTERVAL is checked here only as a span (whether it fits a group's grid depends on its data).
+    """
+    try:
+        clocked = clock()
+        if clocked.kind is None:  # an aggregate over no rows answers NULL
+            return None
+        step(name, clocked, span)
+        check_argument(name, FILL, fill if fill is not None else "null")
+        if fn is None:
+            return None
+        key = []
+        for p, value in zip(fn.params, arguments):
+            if p.span:
+                value = static_span(name, p.name, clocked, value, p.choices)
+                if value is ...:  # an INTERVAL: its count of grid steps depends on the data
+                    return _each_plain(name, fn, arguments)
+            key.append(value)
+    except ValueError as error:
+        return str(error)
+    return argument_problem(fn, tuple(key), name)
+
+
+def _each_plain(name: str, fn: Function, arguments: tuple) -> str | None:
+    """The plain (not span) arguments checked one by one."""
+    try:
+        for p, value in zip(fn.params, arguments):
+            if not p.span and value is not None:
+                check_argument(name, p, value)
+    except ValueError as error:
+        return str(error)
+    return None
 
 
 def on_grid_values(
