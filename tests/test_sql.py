@@ -168,7 +168,7 @@ def test_nan_counts_as_missing(con):
         ("autocorrelation([1, 2, 3], lag := 0)", "autocorrelation: lag must be >= 1, got 0"),
         ("autocorrelation([1, 2, 3], lag := 1.5)", "autocorrelation: lag must be a whole number, got 1.5"),
         ("acf([1, 2, 3], max_lag := 0)", "acf: max_lag must be >= 1, got 0"),
-        ("ljung_box([1, 2, 3], lags := -2)", "ljung_box: lags must be >= 1, got -2"),
+        ("ljung_box([1, 2, 3], max_lag := -2)", "ljung_box: max_lag must be >= 1, got -2"),
         ("dominant_period([1, 2, 3], min_period := 1)", "dominant_period: min_period must be >= 2, got 1"),
         (
             "seasonality([1, 2, 3], min_period := 6, max_period := 4)",
