@@ -47,7 +47,8 @@ def main() -> None:
         for run in runs.values():
             run()  # warm up
         got = side_by_side(runs, args.repeat)
-        print(f"  {form:<10} macro {got[public]:7.3f} s   bare UDF {got[bare]:7.3f} s   {got[public] / got[bare]:5.2f}x")
+        ratio = got[public] / got[bare]
+        print(f"  {form:<10} macro {got[public]:7.3f} s   bare UDF {got[bare]:7.3f} s   {ratio:5.2f}x")
 
 
 if __name__ == "__main__":
