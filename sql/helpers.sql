@@ -41,3 +41,8 @@ CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, kind) AS
                                                                                 number DOUBLE)
         ELSE tick::DOUBLE::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
     END;
+
+-- An *_agg UDF's answer, or its error message (an error found in the data) raised as an error naming
+-- the function. The lambda reads the UDF's one result twice without calling it twice.
+CREATE OR REPLACE TEMP MACRO __tsql_answer(r) AS
+    list_transform([r], lambda x: CASE WHEN x.error IS NULL THEN x.answer ELSE error(x.error) END)[1];

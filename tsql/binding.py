@@ -27,7 +27,7 @@ from tsql.forms.arrow import ragged, row_pieces, single, to_ragged
 from tsql.forms.list_form import list_udf
 from tsql.forms.rows_form import rows_udf
 from tsql.forms.time import Clock
-from tsql.forms.types import SPAN_ARGUMENT, VARCHAR, SqlType
+from tsql.forms.types import SPAN_ARGUMENT, VARCHAR, SqlType, Struct
 from tsql.kernels.cancel import INTERRUPTED, Cancellation, watching
 from tsql.kernels.ragged import Ragged
 from tsql.registry import BY_NAME, FUNCTIONS, GRID_PARAMS, PUBLIC, TABLE_FUNCTIONS, Function, Param
@@ -206,6 +206,7 @@ def agg_macro(fn: Function) -> str:
     grid = ["__tsql_time_type(time)", "__tsql_span(step)", "fill"]
     passed = [_passed(p, agg=True) for p in fn.params]
     call = f"{fn.udf_name}_on_grid({', '.join([f'__tsql_observations({name!r}, value, time)', *grid, *passed])})"
+    call = f"__tsql_answer({call})"
     check = f"{_check_name(name)}({', '.join(grid + passed)})"
     body = _checked(check, fn.answer.finish_sql(fn.returns, call))
     return _overloaded(name, ("value", "time"), fn.params + GRID_PARAMS, body, list_name=fn.name)
@@ -335,7 +336,7 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
         create_udf(con, fn.udf_name, list_udf(fn), ["DOUBLE[]"] * len(fn.series) + params, fn.returns)
         if fn.aggregate:
             params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in fn.params]
-            udf_returns = fn.answer.udf_returns(fn.returns)
+            udf_returns = _or_error(fn.answer.udf_returns(fn.returns))
             create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [_OBSERVATIONS] + grid_types + params, udf_returns)
     for fn in TABLE_FUNCTIONS:
         create_udf(con, fn.udf_name, rows_udf(fn), ["DOUBLE[][]"] + [p.sql_type.sql for p in fn.params], fn.returns)
@@ -347,7 +348,8 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
             create_udf(con, _check_name(f"{fn.name}_agg"), _agg_check(fn), grid_types + params, VARCHAR)
     create_udf(con, _check_name("on_grid"), _agg_check(None), grid_types, VARCHAR)
     on_grid = with_arity(_on_grid_udf, "__tsql_on_grid", BY_NAME["on_grid"].doc, ["values", "times", *_GRID_ARGS])
-    create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, BY_NAME["on_grid"].returns)
+    on_grid_returns = _or_error(BY_NAME["on_grid"].returns)
+    create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, on_grid_returns)
 
 
 def create_udf(
@@ -444,9 +446,31 @@ def _messages(n_rows: int, settings: Any, problem: Callable[[tuple], str | None]
     return by_settings(n_rows, settings, run)
 
 
+def _or_error(answer: SqlType) -> Struct:
+    """What an ``*_agg`` UDF returns: its answer, or the message of an error found in the data, for the macro's
+    ``error()`` (``__tsql_answer``): raised in Python, DuckDB would wrap it in its own words."""
+    return Struct((("answer", answer), ("error", VARCHAR)))
+
+
+def _answers_or_error(name: str, n: int, answers: Callable[[], pa.Array], answer_type: pa.DataType) -> pa.Array:
+    """``answers()`` with no errors, or no answers and the message of an error of ``name``'s on every row."""
+    try:
+        found, errors = answers(), pa.nulls(n, pa.string())
+    except ValueError as error:
+        if not str(error).startswith(f"{name}: "):
+            raise
+        found, errors = pa.nulls(n, answer_type), pa.array([str(error)] * n, pa.string())
+    return pa.StructArray.from_arrays([found, errors], names=["answer", "error"])
+
+
 def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
-    """The UDF behind ``<name>_agg``: groups in pieces of about :data:`tsql.forms.agg.PIECE_POINTS` observations."""
+    """The UDF behind ``<name>_agg``: groups in pieces of about :data:`tsql.forms.agg.PIECE_POINTS` observations.
+
+    An error the data reveals (a given step that makes too many grid points, a length of time shorter than
+    allowed on a group's grid) comes back as the message of every row (see :func:`_or_error`).
+    """
     form = agg.AggForm(fn)
+    answer_type = fn.answer.udf_returns(fn.returns).arrow
 
     def udf(packed: Any, *settings: Any) -> pa.Array:
         obs = single(packed)
@@ -460,7 +484,7 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
                 pieces.append(form(clock(form.name, type_name), span, fill, tuple(arguments), ticks, values))
             return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)
 
-        return by_settings(len(obs), settings, run)
+        return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)
 
     return with_arity(
         udf, f"{fn.udf_name}_on_grid", fn.doc, ["observations", *_GRID_ARGS] + [p.name for p in fn.params]
@@ -476,4 +500,6 @@ def _on_grid_udf(values: Any, ticks: Any, *settings: Any) -> pa.Array:
         type_name, span, fill = key
         return agg.on_grid_values(lambda: clock("on_grid", type_name), span, fill, t, v)
 
-    return by_settings(len(values), settings, run)
+    return _answers_or_error(
+        "on_grid", len(values), lambda: by_settings(len(values), settings, run), pa.list_(pa.float64())
+    )

@@ -614,8 +614,8 @@ FUNCTIONS += (
         params=GRID_PARAMS,
         aggregate=False,
         special=True,
-        sql_body="__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
-        "__tsql_span(step), fill)",
+        sql_body="__tsql_answer(__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
+        "__tsql_span(step), fill))",
     ),
 )
 
