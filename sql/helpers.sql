@@ -19,13 +19,21 @@ CREATE OR REPLACE TEMP MACRO __tsql_bits(x) AS
 -- each as one UHUGEINT: the tick's bits above the value's. DuckDB builds a list of one plain type
 -- far faster than a list of {t, v} structs, and a time cannot part from its value (two lists,
 -- list(t) and list(v), have no promise of the same order). Then the time column's type.
-CREATE OR REPLACE TEMP MACRO __tsql_observations(value, time) AS
-    list((__tsql_bits(__tsql_tick(time)) << 64) | __tsql_bits(value));
+-- The time column as it is, or an error naming the function when its type is not a time or a number
+-- (typeof is known when DuckDB plans the query: nothing is added per row).
+CREATE OR REPLACE TEMP MACRO __tsql_time(function, time) AS
+    CASE WHEN regexp_full_match(typeof(time), 'DATE|TIMESTAMP(_S|_MS|_NS| WITH TIME ZONE)?|.?NULL.?|'
+                                              || 'U?(TINY|SMALL|BIG|HUGE)?INT(EGER)?|FLOAT|DOUBLE|DECIMAL\(\d+,\d+\)')
+         THEN time
+         ELSE error(function || ': time must be DATE, TIMESTAMP, TIMESTAMPTZ or a number, got ' || typeof(time)) END;
+
+CREATE OR REPLACE TEMP MACRO __tsql_observations(function, value, time) AS
+    list((__tsql_bits(__tsql_tick(__tsql_time(function, time))) << 64) | __tsql_bits(value));
 
 -- The same for a function of two series (cross_correlation_agg): per row one struct of the tick and
 -- both values (NULL as NaN), so that neither value parts from its time.
-CREATE OR REPLACE TEMP MACRO __tsql_pairs(a, b, time) AS
-    list({'tick': COALESCE(__tsql_tick(time)::DOUBLE, 'NaN'::DOUBLE), 'a': COALESCE(a::DOUBLE, 'NaN'::DOUBLE),
+CREATE OR REPLACE TEMP MACRO __tsql_pairs(function, a, b, time) AS
+    list({'tick': COALESCE(__tsql_tick(__tsql_time(function, time))::DOUBLE, 'NaN'::DOUBLE), 'a': COALESCE(a::DOUBLE, 'NaN'::DOUBLE),
           'b': COALESCE(b::DOUBLE, 'NaN'::DOUBLE)});
 
 CREATE OR REPLACE TEMP MACRO __tsql_time_type(time) AS any_value(typeof(time));
@@ -39,3 +47,8 @@ CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, kind) AS
                                                                                 number DOUBLE)
         ELSE tick::DOUBLE::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
     END;
+
+-- An *_agg UDF's answer, or its error message (an error found in the data) raised as an error naming
+-- the function. The lambda reads the UDF's one result twice without calling it twice.
+CREATE OR REPLACE TEMP MACRO __tsql_answer(r) AS
+    list_transform([r], lambda x: CASE WHEN x.error IS NULL THEN x.answer ELSE error(x.error) END)[1];

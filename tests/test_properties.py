@@ -70,7 +70,7 @@ def test_acf_is_at_most_one_and_agrees_with_autocorrelation(con, x, max_lag):
 @SETTINGS
 @given(x=series, lags=st.integers(1, 12))
 def test_ljung_box_p_value_is_a_probability(con, x, lags):
-    lb = one(con, "ljung_box($x::DOUBLE[], lags := $k)", x=x, k=lags)
+    lb = one(con, "ljung_box($x::DOUBLE[], max_lag := $k)", x=x, k=lags)
     if lb is None:
         return
     assert lb["q"] >= 0 and 0 <= lb["p_value"] <= 1
@@ -248,7 +248,7 @@ KERNEL_SETTINGS = {
     "seasonality": {"min_period": 3, "max_period": 20},
     "autocorrelation": {"lag": 2},
     "acf": {"max_lag": 4},
-    "ljung_box": {"lags": 3},
+    "ljung_box": {"max_lag": 3},
     "trend_test": {},
     "change_points": {"model": "mean", "penalty": "bic", "min_size": 2, "seasonal": "auto", "max_changes": None},
     "segments": {"model": "trend", "penalty": "mbic", "min_size": 3, "seasonal": "none", "max_changes": 2},

@@ -636,7 +636,7 @@ LONG_CALLS = {
     "seasonality": ("seasonality(p)", "long_lists"),
     "autocorrelation": ("autocorrelation(p, lag := 24)", "long_lists"),
     "acf": ("acf(p, max_lag := 3)", "long_lists"),
-    "ljung_box": ("ljung_box(p, lags := 3)", "long_lists"),
+    "ljung_box": ("ljung_box(p, max_lag := 3)", "long_lists"),
     "trend_test": ("trend_test(r)", "long_lists"),
     "change_points": ("change_points(c)", "long_lists"),
     "segments": ("segments(c)", "long_lists"),
@@ -652,7 +652,7 @@ LONG_CALLS = {
     "seasonality_agg": ("seasonality_agg(v, t)", "long_rows_p"),
     "autocorrelation_agg": ("autocorrelation_agg(v, t, lag := 24)", "long_rows_p"),
     "acf_agg": ("acf_agg(v, t, max_lag := 3)", "long_rows_p"),
-    "ljung_box_agg": ("ljung_box_agg(v, t, lags := 3)", "long_rows_p"),
+    "ljung_box_agg": ("ljung_box_agg(v, t, max_lag := 3)", "long_rows_p"),
     "trend_test_agg": ("trend_test_agg(v, t)", "long_rows_r"),
     "change_points_agg": ("change_points_agg(v, t)", "long_rows_c"),
     "segments_agg": ("segments_agg(v, t)", "long_rows_c"),
@@ -988,7 +988,7 @@ USER_QUERIES = [
     "SELECT item, dominant_period_agg(units, month), seasonality_agg(units, month),"
     " acf_agg(units, month, max_lag := 3), change_points_agg(units, month), segments_agg(units, month),"
     " harmonic_smooth_agg(units, month), harmonic_profile_agg(units, month, 12), trend_test_agg(units, month),"
-    " ljung_box_agg(units, month, lags := 3), autocorrelation_agg(units, month) FROM sales GROUP BY item",
+    " ljung_box_agg(units, month, max_lag := 3), autocorrelation_agg(units, month) FROM sales GROUP BY item",
     "WITH s AS (SELECT item, list(units ORDER BY month) c FROM sales GROUP BY item)"
     " SELECT a.item, b.item, dtw_distance(a.c, b.c), dtw_path(a.c, b.c, band := 2), lb_keogh(a.c, b.c, 2),"
     " sparkline(a.c), on_grid(a.c, range(len(a.c))) FROM s a, s b",

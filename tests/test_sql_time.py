@@ -486,7 +486,7 @@ def _received(settings: dict, sql: str) -> pa.Array:
         return pa.array(np.zeros(len(observations)))
 
     c.create_function("keep_observations", keep, ["UHUGEINT[]"], "DOUBLE", type="arrow")
-    c.execute(sql.replace("OBSERVATIONS", "keep_observations(__tsql_observations(v, t))")).fetchall()
+    c.execute(sql.replace("OBSERVATIONS", "keep_observations(__tsql_observations('acf_agg', v, t))")).fetchall()
     c.close()
     return seen[0]
 

@@ -14,6 +14,7 @@ import threading
 import time
 import weakref
 from collections.abc import Callable
+from dataclasses import replace
 from importlib import resources
 from typing import Any
 
@@ -22,12 +23,12 @@ import numpy as np
 import pyarrow as pa
 
 from tsql.forms import agg
-from tsql.forms.arguments import by_settings, with_arity
+from tsql.forms.arguments import argument_problem, by_settings, with_arity
 from tsql.forms.arrow import ragged, row_pieces, single, to_ragged
 from tsql.forms.list_form import list_udf
 from tsql.forms.rows_form import rows_udf
 from tsql.forms.time import Clock
-from tsql.forms.types import BOOLEAN, SPAN_ARGUMENT, VARCHAR, SqlType
+from tsql.forms.types import BOOLEAN, SPAN_ARGUMENT, VARCHAR, SqlType, Struct
 from tsql.kernels.cancel import INTERRUPTED, Cancellation, watching
 from tsql.kernels.ragged import Ragged
 from tsql.registry import BY_NAME, FUNCTIONS, PUBLIC, TABLE_FUNCTIONS, TABLE_MACROS, Function, Param
@@ -192,19 +193,32 @@ def sql_statements() -> list[str]:
 
 
 def list_macro(fn: Function) -> str:
-    """``CREATE ... MACRO name(values, p := default) AS __tsql_name(values, p)``."""
+    """``CREATE ... MACRO name(values DOUBLE[], p := default) AS __tsql_name(values, p)``, its arguments checked
+    first (:func:`_checked`), and an untyped overload that says what is wrong with the arguments' types."""
     args = ", ".join(list(fn.series) + [_passed(p, agg=False) for p in fn.params])
-    return f"CREATE OR REPLACE TEMP MACRO {fn.signature} AS {fn.sql_body or f'{fn.udf_name}({args})'}"
+    body = fn.sql_body or f"{fn.udf_name}({args})"
+    if fn.name == "on_grid":
+        check = "__tsql_check_on_grid(typeof(times), __tsql_span(step), fill, same_time)"
+        lengths = "error('on_grid: values and times must have the same length in every row')"
+        body = f"CASE WHEN len(values) <> len(times) THEN {lengths} ELSE {body} END"
+    else:
+        check = f"{_check_name(fn.name)}({', '.join(_passed(p, agg=False) for p in fn.params)})" if fn.params else ""
+    return _overloaded(fn.name, fn.series, fn.params, _checked(check, body), aggregate=fn.aggregate)
 
 
 def agg_macro(fn: Function) -> str:
-    """``CREATE ... MACRO name_agg(value, time, ...)``: the group's observations to the grid UDF, its answer
-    finished in time terms as the entry's answer kind says."""
+    """``CREATE ... MACRO name_agg(value DOUBLE, time, ...)``: the group's observations to the grid UDF, its answer
+    finished in time terms as the entry's answer kind says; arguments checked first, and an untyped overload
+    that says what is wrong with the arguments' types."""
+    name = f"{fn.name}_agg"
+    grid = ["__tsql_time_type(time)", "__tsql_span(step)", "fill", "same_time"]
+    passed = [_passed(p, agg=True) for p in agg_udf_params(fn)]
     packed = "__tsql_observations" if len(fn.agg_values) == 1 else "__tsql_pairs"
-    args = [f"{packed}({', '.join(fn.agg_values)}, time)", "__tsql_time_type(time)", "__tsql_span(step)", "fill"]
-    args.append("same_time")
-    call = f"{fn.udf_name}_on_grid({', '.join(args + [_passed(p, agg=True) for p in agg_udf_params(fn)])})"
-    return f"CREATE OR REPLACE TEMP MACRO {fn.agg_signature} AS {fn.answer.finish_sql(fn.returns, call)}"
+    observations = f"{packed}({name!r}, {', '.join(fn.agg_values)}, time)"
+    call = f"__tsql_answer({fn.udf_name}_on_grid({', '.join([observations, *grid, *passed])}))"
+    check = f"{_check_name(name)}({', '.join(grid + passed)})"
+    body = _checked(check, fn.answer.finish_sql(fn.returns, call))
+    return _overloaded(name, (*fn.agg_values, "time"), fn.agg_params, body, list_name=fn.name)
 
 
 def agg_udf_params(fn: Function) -> tuple[Param, ...]:
@@ -226,9 +240,95 @@ def rows_macro(fn: Function) -> str:
     ]
     finish = f"list_transform({call}, lambda r: struct_pack({', '.join(fields)}))"
     repeated = f"error('{fn.name}: id must be unique (one row per item); found a repeated id')"
+    body = f"CASE WHEN count(DISTINCT id) < count(id) THEN {repeated} ELSE {finish} END"
+    check = f"{_check_name(fn.name)}({', '.join(_passed(p, agg=False) for p in _checked_params(fn))})"
+    return _overloaded(fn.name, fn.series, fn.params, _checked(check, body), aggregate=False)
+
+
+def _check_name(name: str) -> str:
+    return f"__tsql_check_{name}"
+
+
+def _checked(check: str, body: str) -> str:
+    """``body`` once ``check`` (SQL giving a message or NULL) finds nothing wrong; else the message as an error.
+
+    With constant arguments DuckDB folds the check when it plans the query: nothing is added per row.
+    """
+    return f"CASE WHEN {check} IS NULL THEN {body} ELSE error({check}) END" if check else body
+
+
+# the SQL type names (typeof) of numbers
+_NUMBER_TYPE = r"(U?(TINY|SMALL|BIG|HUGE)?INT(EGER)?|FLOAT|DOUBLE|DECIMAL\(\d+,\d+\))"
+_TIME_TYPE = r"(DATE|TIMESTAMP(_S|_MS|_NS| WITH TIME ZONE)?)"
+_NULL = ".?NULL.?"  # typeof(NULL) is "NULL", quotes included
+
+
+def _overloaded(
+    name: str, series: tuple[str, ...], params: tuple[Param, ...], body: str, aggregate: bool = False, list_name=""
+) -> str:
+    """The macro with its series typed (``values DOUBLE[]``; an ``*_agg`` form's ``value DOUBLE``), then overloads
+    whose body is an error naming the argument that does not fit and the fix. DuckDB picks the typed one
+    whenever the arguments can be cast to its types.
+
+    Plain arguments stay untyped: DuckDB converts what it can (the text of ``seriesql run --param`` too) and
+    its conversion error points at the argument. A list of text that reads as numbers is converted too:
+    a separate ``VARCHAR[]`` overload would make DuckDB find a bare NULL (or a list beside untyped
+    arguments) fitting two overloads equally well and refuse the call.
+    """
+    agg = bool(list_name)
+    bare = list(series) + [p.name if p.default is None else f"{p.name} := {p.default}" for p in params]
+    typed, whens, text = [], [], ""
+    for s in series:
+        if agg and s.endswith("value"):  # value, or a_value and b_value of two series
+            typed.append(f"{s} DOUBLE")
+            whens.append(_value_misuse(name, list_name, s))
+            if series == ("value", "time"):
+                as_text = ", ".join([f"{s} VARCHAR"] + bare[1:])
+                text = f", ({as_text}) AS error('{name}: {s} must be a number, got VARCHAR: cast it, {s}::DOUBLE')"
+        elif s == "times":
+            typed.append(s)
+            whens.append(
+                f"WHEN NOT regexp_full_match(typeof(times), '{_TIME_TYPE}\\[\\]|{_NUMBER_TYPE}\\[\\]|{_NULL}') THEN "
+                f"'{name}: times must be a list of DATE, TIMESTAMP, TIMESTAMPTZ or numbers, one per value, got ' "
+                "|| typeof(times)"
+            )
+        elif s == "id" or (agg and s == "time"):  # any type that sorts; a time (checked by __tsql_time)
+            typed.append(s)
+        else:
+            typed.append(f"{s} DOUBLE[]")
+            whens.append(_series_misuse(name, s, aggregate))
+    typed += bare[len(series) :]
+    signature = _quoted(f"{name}({', '.join(bare)})")
+    misuse = f"CASE {' '.join(whens)} ELSE '{name}: the arguments do not fit {signature}' END"
     return (
-        f"CREATE OR REPLACE TEMP MACRO {fn.signature} AS "
-        f"CASE WHEN count(DISTINCT id) < count(id) THEN {repeated} ELSE {finish} END"
+        f"CREATE OR REPLACE TEMP MACRO {name}({', '.join(typed)}) AS {body}{text}, "
+        f"({', '.join(bare)}) AS error({misuse})"
+    )
+
+
+def _quoted(text: str) -> str:
+    return text.replace("'", "''")
+
+
+def _series_misuse(name: str, s: str, aggregate: bool) -> str:
+    rows = f", or {name}_agg(x, t) over the rows" if aggregate else ""
+    return (
+        f"WHEN NOT regexp_full_match(typeof({s}), '{_NUMBER_TYPE}\\[\\]|{_NULL}') THEN "
+        f"'{name}: {s} must be a list of numbers (one series per row), got ' || typeof({s}) || CASE "
+        f"WHEN typeof({s}) LIKE '%[]' THEN ': cast the elements, list(x::DOUBLE ORDER BY t)' "
+        f"ELSE ': aggregate each series to a list, list(x ORDER BY t) ... GROUP BY the series{rows}' END"
+    )
+
+
+def _value_misuse(name: str, list_name: str, s: str = "value") -> str:
+    order = "(value, time)" if s == "value" else "(a_value, b_value, time)"
+    return (
+        f"WHEN NOT regexp_full_match(typeof({s}), '{_NUMBER_TYPE}|{_NULL}') THEN "
+        f"'{name}: {s} must be a number, got ' || typeof({s}) || CASE "
+        f"WHEN regexp_full_match(typeof({s}), '{_TIME_TYPE}') "
+        f"THEN ': the arguments are {order}, in that order' "
+        f"WHEN typeof({s}) LIKE '%[]' THEN ': one row per observation; for a list use {list_name}(values)' "
+        f"ELSE ': cast it, {s}::DOUBLE' END"
     )
 
 
@@ -253,15 +353,25 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
         create_udf(con, fn.udf_name, list_udf(fn), ["DOUBLE[]"] * len(fn.series) + params, fn.returns)
         if fn.aggregate:
             params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
-            udf_returns = fn.answer.udf_returns(fn.returns)
+            udf_returns = _or_error(fn.answer.udf_returns(fn.returns))
             packed = _OBSERVATIONS if len(fn.agg_values) == 1 else _PAIRS
             create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [packed] + grid_types + params, udf_returns)
     for fn in TABLE_FUNCTIONS:
         per_item = [f"{p.sql_type.sql}[]" for p in fn.params if p.per_item]
         settings = [p.sql_type.sql for p in fn.params if not p.per_item]
         create_udf(con, fn.udf_name, rows_udf(fn), ["DOUBLE[][]", *per_item, *settings], fn.returns)
+    for fn in FUNCTIONS + TABLE_FUNCTIONS:
+        if _checked_params(fn) and not fn.special:
+            create_udf(
+                con, _check_name(fn.name), _list_check(fn), [p.sql_type.sql for p in _checked_params(fn)], VARCHAR
+            )
+        if fn.aggregate:
+            params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
+            create_udf(con, _check_name(f"{fn.name}_agg"), _agg_check(fn), grid_types + params, VARCHAR)
+    create_udf(con, _check_name("on_grid"), _agg_check(None), grid_types, VARCHAR)
     on_grid = with_arity(_on_grid_udf, "__tsql_on_grid", BY_NAME["on_grid"].doc, ["values", "times", *_GRID_ARGS])
-    create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, BY_NAME["on_grid"].returns)
+    on_grid_returns = _or_error(BY_NAME["on_grid"].returns)
+    create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, on_grid_returns)
 
 
 def create_udf(
@@ -345,10 +455,71 @@ def pairs(column: Any) -> tuple[Ragged, tuple[Ragged, Ragged]]:
     return ragged(tick, offsets, valid), (ragged(a, offsets, valid), ragged(b, offsets, valid))
 
 
+def _checked_params(fn: Function) -> tuple[Param, ...]:
+    """The arguments a macro checks before its call: the settings, not the per-item columns of an aggregate
+    over rows (``dtw_nearest``'s ``reference``), which are data."""
+    return tuple(p for p in fn.params if not p.per_item)
+
+
+def _list_check(fn: Function) -> Callable[..., pa.Array]:
+    """The UDF behind a macro's check of its plain arguments: per row the message of what is wrong, or NULL."""
+    settings_only = replace(fn, params=_checked_params(fn))
+
+    def udf(*settings: Any) -> pa.Array:
+        return _messages(len(settings[0]), settings, lambda key: argument_problem(settings_only, key))
+
+    return with_arity(udf, _check_name(fn.name), fn.doc, [p.name for p in settings_only.params])
+
+
+def _agg_check(fn: Function | None) -> Callable[..., pa.Array]:
+    """The UDF behind an ``*_agg`` macro's (or ``on_grid``'s) check of its time type and arguments."""
+    name = f"{fn.name}_agg" if fn else "on_grid"
+
+    def udf(type_column: Any, *settings: Any) -> pa.Array:
+        def problem(key: tuple) -> str | None:
+            type_name, span, fill, same_time, *arguments = key
+            return agg.agg_problem(name, fn, lambda: clock(name, type_name), (span, fill, same_time), tuple(arguments))
+
+        return _messages(len(type_column), (type_column, *settings), problem)
+
+    return with_arity(
+        udf, _check_name(name), name, [*_GRID_ARGS] + ([p.name for p in agg_udf_params(fn)] if fn else [])
+    )
+
+
+def _messages(n_rows: int, settings: Any, problem: Callable[[tuple], str | None]) -> pa.Array:
+    def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
+        return pa.array([problem(key)] * (n_rows if rows is None else len(rows)), pa.string())
+
+    return by_settings(n_rows, settings, run)
+
+
+def _or_error(answer: SqlType) -> Struct:
+    """What an ``*_agg`` UDF returns: its answer, or the message of an error found in the data, for the macro's
+    ``error()`` (``__tsql_answer``): raised in Python, DuckDB would wrap it in its own words."""
+    return Struct((("answer", answer), ("error", VARCHAR)))
+
+
+def _answers_or_error(name: str, n: int, answers: Callable[[], pa.Array], answer_type: pa.DataType) -> pa.Array:
+    """``answers()`` with no errors, or no answers and the message of an error of ``name``'s on every row."""
+    try:
+        found, errors = answers(), pa.nulls(n, pa.string())
+    except ValueError as error:
+        if not str(error).startswith(f"{name}: "):
+            raise
+        found, errors = pa.nulls(n, answer_type), pa.array([str(error)] * n, pa.string())
+    return pa.StructArray.from_arrays([found, errors], names=["answer", "error"])
+
+
 def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
-    """The UDF behind ``<name>_agg``: groups in pieces of about :data:`tsql.forms.agg.PIECE_POINTS` observations."""
+    """The UDF behind ``<name>_agg``: groups in pieces of about :data:`tsql.forms.agg.PIECE_POINTS` observations.
+
+    An error the data reveals (a given step that makes too many grid points, a length of time shorter than
+    allowed on a group's grid) comes back as the message of every row (see :func:`_or_error`).
+    """
     form = agg.AggForm(fn)
     unpack = observations if len(fn.agg_values) == 1 else pairs
+    answer_type = fn.answer.udf_returns(fn.returns).arrow
 
     def udf(packed: Any, *settings: Any) -> pa.Array:
         obs = single(packed)
@@ -363,7 +534,7 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
                 pieces.append(form(clock(form.name, type_name), grid, tuple(arguments), ticks, values))
             return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)
 
-        return by_settings(len(obs), settings, run)
+        return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)
 
     return with_arity(
         udf, f"{fn.udf_name}_on_grid", fn.doc, ["observations", *_GRID_ARGS] + [p.name for p in agg_udf_params(fn)]
@@ -379,4 +550,6 @@ def _on_grid_udf(values: Any, ticks: Any, *settings: Any) -> pa.Array:
         type_name, *grid = key
         return agg.on_grid_values(lambda: clock("on_grid", type_name), tuple(grid), t, v)
 
-    return by_settings(len(values), settings, run)
+    return _answers_or_error(
+        "on_grid", len(values), lambda: by_settings(len(values), settings, run), pa.list_(pa.float64())
+    )

@@ -280,19 +280,19 @@ FUNCTIONS: tuple[Function, ...] = (
         returns=struct(q=DOUBLE, p_value=DOUBLE),
         kernel_path="correlation:ljung_box",
         doc="Ljung-Box test that the first lags show no autocorrelation.",
-        example="SELECT ljung_box([2, 4, 3, 5, 4, 6, 5, 7, 6, 8, 7, 9], lags := 3) AS lb;",
-        null_rows=SERIES_TOO_SHORT.format(n="lags + 1"),
+        example="SELECT ljung_box([2, 4, 3, 5, 4, 6, 5, 7, 6, 8, 7, 9], max_lag := 3) AS lb;",
+        null_rows=SERIES_TOO_SHORT.format(n="max_lag + 1"),
         see_also=("acf",),
         outcomes=STATISTIC,
-        test_args=("lags := 3", "lags := 4"),
+        test_args=("max_lag := 3", "max_lag := 4"),
         params=(
             Param(
-                "lags",
+                "max_lag",
                 default="10",
                 minimum=1,
                 maximum=MAX_LIST,
                 whole=True,
-                help="number of lags (degrees of freedom)",
+                help="lags tested, 1..max_lag (the degrees of freedom); named as for acf",
             ),
         ),
     ),
@@ -647,8 +647,8 @@ FUNCTIONS += (
         params=GRID_PARAMS,
         aggregate=False,
         special=True,
-        sql_body="__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
-        "__tsql_span(step), fill, same_time)",
+        sql_body="__tsql_answer(__tsql_on_grid(values, list_transform(times, lambda t: __tsql_tick(t)), typeof(times), "
+        "__tsql_span(step), fill, same_time))",
     ),
 )
 

@@ -17,9 +17,9 @@ import numpy as np
 import pyarrow as pa
 
 from tsql.forms.answers import Answer
-from tsql.forms.arguments import by_keys, check_argument, checked_arguments
+from tsql.forms.arguments import argument_problem, by_keys, check_argument, checked_arguments
 from tsql.forms.arrow import to_arrow_list
-from tsql.forms.time import Clock, Span, moment_text, span_in_steps, step
+from tsql.forms.time import Clock, Span, moment_text, span_in_steps, static_span, step
 from tsql.kernels.grid import Grid, RepeatedTime, on_grid
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged
 from tsql.registry import FILL, SAME_TIME, Function
@@ -104,6 +104,48 @@ class AggForm:
 def _with_others(kernel: Callable, others: list[Ragged], values: Ragged, **kwargs) -> object:
     """``kernel(values, *others)``: the first series of a function of several, the others beside it."""
     return kernel(values, *others, **kwargs)
+
+
+def agg_problem(
+    name: str, fn: Function | None, clock: Callable[[], Clock], settings: Settings, arguments: tuple
+) -> str | None:
+    """What an ``*_agg`` call (or ``on_grid``: ``fn`` None) would refuse before looking at its data; None if nothing.
+
+    The time type (``clock()``), the grid's settings (step, ``fill``, ``same_time``) and the plain arguments; a
+    length of time given as an INTERVAL is checked here only as a span (whether it fits a group's grid depends
+    on its data).
+    """
+    span, fill, same_time = settings
+    try:
+        clocked = clock()
+        if clocked.kind is None:  # an aggregate over no rows answers NULL
+            return None
+        step(name, clocked, span)
+        check_argument(name, FILL, fill if fill is not None else "null")
+        check_argument(name, SAME_TIME, same_time if same_time is not None else "mean")
+        if fn is None:
+            return None
+        key = []
+        for p, value in zip(fn.params, arguments):
+            if p.span:
+                value = static_span(name, p.name, clocked, value, p.choices)
+                if value is ...:  # an INTERVAL: its count of grid steps depends on the data
+                    return _each_plain(name, fn, arguments)
+            key.append(value)
+    except ValueError as error:
+        return str(error)
+    return argument_problem(fn, tuple(key), name)
+
+
+def _each_plain(name: str, fn: Function, arguments: tuple) -> str | None:
+    """The plain (not span) arguments checked one by one."""
+    try:
+        for p, value in zip(fn.params, arguments):
+            if not p.span and value is not None:
+                check_argument(name, p, value)
+    except ValueError as error:
+        return str(error)
+    return None
 
 
 def on_grid_values(clock: Callable[[], Clock], settings: Settings, times: Ragged, values: Ragged) -> pa.Array:

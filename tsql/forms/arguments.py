@@ -102,3 +102,15 @@ def check_argument(function: str, p: Param, value: Any) -> Any:
 
 def _show(x: Any) -> str:
     return str(int(x)) if isinstance(x, float) and x.is_integer() else str(x)
+
+
+def argument_problem(fn: Function, key: tuple, name: str | None = None) -> str | None:
+    """What :func:`checked_arguments` would refuse in ``key``, as a message; None when the arguments are fine.
+
+    A host raises it in its own terms (DuckDB: the macro's ``error(...)``), before any series is touched.
+    """
+    try:
+        checked_arguments(fn, key, name)
+    except ValueError as error:
+        return str(error)
+    return None

@@ -56,7 +56,7 @@ class Clock:
 def step(function: str, clock: Clock, span: Span | None) -> tuple[int, float]:
     """The grid step as (months, length in ticks); (0, 0) means infer it."""
     text, interval, number = span or NO_SPAN
-    if text is None:
+    if text is None or clock.kind is None:  # inferred, or an aggregate over no rows (no grid)
         return 0, 0.0
     if number is not None:
         if clock.temporal:
@@ -81,6 +81,24 @@ def interval_ticks(value: Any) -> tuple[int, float]:
     return int(value.months), value.days * float(DAY_US) + value.nanoseconds / 1000.0
 
 
+def static_span(function: str, name: str, clock: Clock, span: Span | None, words: tuple[str, ...] = ()) -> Any:
+    """A length-of-time argument as far as it can be read without the data: None (NULL), a word, a number of
+    grid steps, or ``...`` for an INTERVAL on temporal times; an error for anything else (as :func:`span_in_steps`)."""
+    text, interval, number = span or NO_SPAN
+    if text is None:
+        return None
+    if text in words:
+        return text
+    if number is not None:
+        return float(number)
+    if interval is None or not clock.temporal:
+        what = "an INTERVAL or a number of grid steps" if clock.temporal else "a number of grid steps"
+        if words:
+            what = ", ".join(repr(w) for w in words) + ", " + what
+        raise ValueError(f"{function}: {name} must be {what}, got {text!r}")
+    return ...
+
+
 def span_in_steps(
     function: str,
     name: str,
@@ -98,18 +116,10 @@ def span_in_steps(
     a year is 52.1775 weeks or 365.2425 days; an argument that must be ``whole`` takes the nearest whole
     number of steps (52 weeks). A fixed length on a calendar grid (days on monthly data) is an error.
     """
-    text, interval, number = span or NO_SPAN
-    if text is None:
-        return None
-    if text in words:
-        return text
-    if number is not None:
-        return float(number)  # grid steps, as in the list form
-    if interval is None or not clock.temporal:
-        what = "an INTERVAL or a number of grid steps" if clock.temporal else "a number of grid steps"
-        if words:
-            what = ", ".join(repr(w) for w in words) + ", " + what
-        raise ValueError(f"{function}: {name} must be {what}, got {text!r}")
+    read = static_span(function, name, clock, span, words)
+    if read is not ...:
+        return read  # NULL, a word, or grid steps as in the list form
+    text, interval, _ = span
     months, length = interval_ticks(interval)
     steps = grid.steps(months, length)
     fixed = grid.length > 0

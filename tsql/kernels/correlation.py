@@ -170,8 +170,8 @@ def _circular_autocorrelation(matrix: np.ndarray, size: int, max_lag: int) -> np
     return fft.irfft(np.multiply(spectrum, conjugate), n=size, axis=1)[:, 1 : max_lag + 1]
 
 
-def ljung_box(batch: Ragged, lags: int = 10) -> dict[str, np.ndarray]:
-    """Ljung–Box portmanteau test of no autocorrelation up to ``lags``.
+def ljung_box(batch: Ragged, max_lag: int = 10) -> dict[str, np.ndarray]:
+    """Ljung–Box portmanteau test of no autocorrelation up to ``max_lag``.
 
     ``Q = n (n + 2) sum_{k=1..h} r_k^2 / (n - k)`` with ``n`` the number of
     present values, compared with a chi-squared distribution on ``h`` degrees
@@ -181,22 +181,22 @@ def ljung_box(batch: Ragged, lags: int = 10) -> dict[str, np.ndarray]:
     -------
     dict
         ``q`` and ``p_value`` per row; NaN where the row is constant, or has
-        no more present values than ``lags``.
+        no more present values than ``max_lag``.
     """
-    return ljung_box_of(batch, acf(batch, lags), lags)
+    return ljung_box_of(batch, acf(batch, max_lag), max_lag)
 
 
-def ljung_box_of(batch: Ragged, table: Ragged, lags: int) -> dict[str, np.ndarray]:
-    """:func:`ljung_box` from the batch's ``acf(batch, lags)`` table, when it serves several statistics
+def ljung_box_of(batch: Ragged, table: Ragged, max_lag: int) -> dict[str, np.ndarray]:
+    """:func:`ljung_box` from the batch's ``acf(batch, max_lag)`` table, when it serves several statistics
     (:func:`tsql.kernels.screen.screen`)."""
-    r = table.values.reshape(batch.n_rows, lags)
+    r = table.values.reshape(batch.n_rows, max_lag)
     present = batch.present.astype(np.float64) if batch.has_missing else np.ones(len(batch.values))
     n = batch.segment_sum(present)
-    k = np.arange(1, lags + 1)
+    k = np.arange(1, max_lag + 1)
     with np.errstate(invalid="ignore", divide="ignore"):
         q = n * (n + 2) * np.sum(r * r / (n[:, None] - k), axis=1)
-    q[~table.row_valid | (n <= lags) | np.isnan(q)] = np.nan
-    return {"q": q, "p_value": special.chdtrc(lags, q)}
+    q[~table.row_valid | (n <= max_lag) | np.isnan(q)] = np.nan
+    return {"q": q, "p_value": special.chdtrc(max_lag, q)}
 
 
 # ---------------------------------------------------------------------------
