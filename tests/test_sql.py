@@ -15,7 +15,7 @@ from tsql.binding import sql_statements
 from tsql.forms.answers import PERIOD, PROFILE, SAME, SCREEN
 from tsql.forms.list_form import list_udf as make_udf
 from tsql.reference import markdown_table
-from tsql.registry import FUNCTIONS, PUBLIC
+from tsql.registry import FUNCTIONS, PUBLIC, TABLE_FUNCTIONS, TABLE_MACROS
 
 SINGLE = [f for f in FUNCTIONS if len(f.series) == 1]
 
@@ -281,7 +281,9 @@ def test_macros_and_registry_are_in_step(con):
     defined = {m for m in re.findall(r"CREATE OR REPLACE TEMP MACRO (\w+)\(", text) if not m.startswith("__tsql_")}
     expected = {f.name for f in PUBLIC} | {f"{f.name}_agg" for f in FUNCTIONS if f.aggregate}
     assert defined == expected
-    for fn in PUBLIC:  # the signature is the untyped overload's (the typed one adds the series' types)
+    for fn in TABLE_MACROS:
+        assert f"MACRO {fn.signature} AS TABLE" in text, fn.signature
+    for fn in FUNCTIONS + TABLE_FUNCTIONS:  # the signature is the untyped overload's (the typed one adds types)
         assert f", ({fn.signature.split('(', 1)[1]} AS error(" in text, fn.signature
         if fn.aggregate:
             assert f", ({fn.agg_signature.split('(', 1)[1]} AS error(" in text, fn.agg_signature
