@@ -73,8 +73,7 @@ def screen_queries(
     a section whose list is not given is left out.
 
     The per-series diagnostics are one ``GROUP BY`` of the ``*_agg`` functions; the
-    q-values are Benjamini-Hochberg's, written as a window expression (the part marked
-    ``q-values`` is the piece a shared ``with_q_values`` macro replaces).
+    q-values are Benjamini-Hochberg's, from the ``with_q_values`` table macro.
     """
     base = (
         f"WITH source AS (\n    SELECT {_quote(series)}::VARCHAR AS series, {_quote(time)} AS time,\n"
@@ -96,24 +95,13 @@ per_series AS (
     FROM source
     GROUP BY series
 ),
--- q-values: Benjamini-Hochberg across the screen, q(i) = min over j >= i of m * p(j) / j
-ranked AS (
-    SELECT *,
-           row_number() OVER (ORDER BY season.p_value NULLS LAST, series) AS season_rank,
-           count(season.p_value) OVER () AS season_m,
-           row_number() OVER (ORDER BY trend.p_value NULLS LAST, series) AS trend_rank,
-           count(trend.p_value) OVER () AS trend_m
-    FROM per_series
+-- q-values: Benjamini-Hochberg across the screen (with_q_values), of the cycles' and of the trends' p-values
+season_q AS (
+    SELECT * RENAME (q_value AS season_q) FROM with_q_values(per_series, season.p_value)
 ),
 q_values AS (
-    SELECT *,
-           least(1, min(season.p_value * season_m / season_rank) OVER (
-               ORDER BY season_rank DESC ROWS UNBOUNDED PRECEDING)) AS season_q,
-           least(1, min(trend.p_value * trend_m / trend_rank) OVER (
-               ORDER BY trend_rank DESC ROWS UNBOUNDED PRECEDING)) AS trend_q
-    FROM ranked
+    SELECT * RENAME (q_value AS trend_q) FROM with_q_values(season_q, trend.p_value)
 )
--- end of q-values
 SELECT series, rows, present, first_time, last_time,
        season.period::VARCHAR AS period,
        coalesce(epoch(union_extract(season.period, 'span')) / 86400,
