@@ -22,7 +22,7 @@ QUERIES = {
     "agg form": (
         "SELECT g, acf_agg(v, t, max_lag := 3) FROM series GROUP BY g",
         "SELECT g, __tsql_acf_on_grid(list((__tsql_bits(__tsql_tick(t)) << 64) | __tsql_bits(v)), "
-        "__tsql_time_type(t), __tsql_span(NULL), 'null', 3) FROM series GROUP BY g",
+        "__tsql_time_type(t), __tsql_span(NULL), 'null', 'mean', 3) FROM series GROUP BY g",
     ),
 }
 
