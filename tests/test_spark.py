@@ -142,7 +142,7 @@ def _registry_columns() -> tuple[Columns, Columns]:
         if fn.aggregate:
             # Spark answers periods in grid steps (screen's merged rows: none in the sales, as in the list form)
             in_steps = fn.answer in (PERIOD, PERIODS, SCREEN)
-            units = ", ".join(["units"] * len(fn.series))  # two series: units against itself
+            units = ", ".join(["units", "sqrt(units)"][: len(fn.series)])  # two series: units and a bent copy
             duck = f"{fn.name}(on_grid({V}, {T}){args})" if in_steps else f"{fn.name}_agg({units}, month{args})"
             aggregates.append(("registry", fn.name, f"{fn.name}_agg({units}, month{spark_args})", duck))
     return lists, aggregates
