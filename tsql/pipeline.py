@@ -97,6 +97,26 @@ def out_options(path: str | Path) -> str:
     return options
 
 
+def quote_name(name: str) -> str:
+    """A column or table name as a quoted SQL identifier."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def output_path(out: str | os.PathLike, replace: bool, suffixes: tuple[str, ...]) -> Path:
+    """The file a command writes; ``ValueError`` (the user's message) for another extension, a missing folder,
+    a folder, or an existing file unless ``replace``."""
+    path = Path(out).expanduser()
+    if path.suffix.lower() not in suffixes:
+        raise ValueError(f"--out must end in {' or '.join(suffixes)}, got {str(path)!r}")
+    if not path.parent.is_dir():
+        raise ValueError(f"folder {str(path.parent)!r} does not exist")
+    if path.is_dir():
+        raise ValueError(f"{path} is a folder")
+    if path.exists() and not replace:
+        raise ValueError(f"{path} exists; pass --replace to overwrite it")
+    return path
+
+
 def partial_path(path: Path) -> Path:
     """A hidden file beside ``path`` to write into, renamed to ``path`` once complete."""
     return path.with_name(f".{path.name}.{os.getpid()}.partial{path.suffix}")

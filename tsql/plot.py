@@ -31,6 +31,8 @@ import duckdb
 import numpy as np
 import pyarrow as pa
 
+from tsql.pipeline import UsageError, open_database, output_path, quote_name
+
 __all__ = ["FORMATS", "MISSING_MATPLOTLIB", "Drawn", "PlotError", "Series", "plot", "plot_query"]
 
 FORMATS = {".png": "png", ".svg": "svg"}
@@ -122,17 +124,11 @@ def plot_query(
 
 def check_out(out: str | os.PathLike, replace: bool) -> tuple[Path, str]:
     """The output path and its format; refuses an unknown extension, a missing folder, an existing file."""
-    path = Path(out).expanduser()
-    fmt = FORMATS.get(path.suffix.lower())
-    if fmt is None:
-        raise PlotError(f"--out must end in {' or '.join(FORMATS)}, got {str(path)!r}")
-    if not path.parent.is_dir():
-        raise PlotError(f"folder {str(path.parent)!r} does not exist")
-    if path.is_dir():
-        raise PlotError(f"{path} is a folder")
-    if path.exists() and not replace:
-        raise PlotError(f"{path} exists; pass --replace to overwrite it")
-    return path, fmt
+    try:
+        path = output_path(out, replace, tuple(FORMATS))
+    except ValueError as error:
+        raise PlotError(str(error)) from None
+    return path, FORMATS[path.suffix.lower()]
 
 
 def _matplotlib() -> tuple[Any, Any]:
@@ -291,10 +287,6 @@ def _break_at_gaps(s: Series) -> None:
     s.alone = np.flatnonzero(present & ~before & ~later).tolist()
 
 
-def _quote(name: str) -> str:
-    return '"' + name.replace('"', '""') + '"'
-
-
 def _period_literal(con: duckdb.DuckDBPyConnection, period: str | None) -> str:
     if period is None:
         return "NULL"
@@ -323,8 +315,8 @@ def _add_smooth(
     period: str | None,
 ) -> tuple[str, ...]:
     """Fill in each series' smooth curve; returns the series smoothed without a period (none found)."""
-    time, value = _quote(schema.names[roles["time"]]), _quote(schema.names[roles["value"]])
-    key = _quote(schema.names[roles["series"]]) if "series" in roles else "NULL"
+    time, value = quote_name(schema.names[roles["time"]]), quote_name(schema.names[roles["value"]])
+    key = quote_name(schema.names[roles["series"]]) if "series" in roles else "NULL"
     rows = f"(SELECT {key} AS k, {time} AS t, {value} AS v FROM __tsql_plot WHERE {time} IS NOT NULL)"
     if period is None:  # each series' dominant period, in steps of its grid (as the smooth's own)
         periods = (
@@ -479,8 +471,6 @@ def main(
 ) -> int:
     """The ``seriesql plot`` command: returns the exit code and prints one line about what it wrote."""
     import sys
-
-    from tsql.pipeline import UsageError, open_database
 
     try:
         check_out(out, replace)

@@ -18,6 +18,8 @@ from typing import Any
 
 import duckdb
 
+from tsql.pipeline import output_path, partial_path, quote_name
+
 __all__ = ["DETAILS", "GROUP_ITEMS", "LOAD_SERIES", "ReportError", "gather", "main", "report", "screen_queries"]
 
 DETAILS = 24
@@ -39,10 +41,6 @@ MODELS = ("mean", "meanvar", "trend")
 
 class ReportError(Exception):
     """Input the report cannot screen (exit code 2); the message is for the user."""
-
-
-def _quote(name: str) -> str:
-    return '"' + name.replace('"', '""') + '"'
 
 
 def _literal(text: str) -> str:
@@ -76,8 +74,8 @@ def screen_queries(
     q-values are Benjamini-Hochberg's, from the ``with_q_values`` table macro.
     """
     base = (
-        f"WITH source AS (\n    SELECT {_quote(series)}::VARCHAR AS series, {_quote(time)} AS time,\n"
-        f"           {_quote(value)}::DOUBLE AS value\n    FROM {source}\n)"
+        f"WITH source AS (\n    SELECT {quote_name(series)}::VARCHAR AS series, {quote_name(time)} AS time,\n"
+        f"           {quote_name(value)}::DOUBLE AS value\n    FROM {source}\n)"
     )
     m = _literal(model)
     k = SPARK_POINTS
@@ -185,7 +183,7 @@ def _source(con: duckdb.DuckDBPyConnection, table: str | None, query: str | None
     if (table is None) == (query is None):
         raise ReportError("give either a table or a query")
     if table is not None:
-        return ".".join(_quote(part) for part in table.split(".")), table
+        return ".".join(quote_name(part) for part in table.split(".")), table
     from tsql.statements import split_statements
 
     statements = split_statements(query)
@@ -229,7 +227,7 @@ def _check(con: duckdb.DuckDBPyConnection, source: str, label: str, series: str,
         )
     if _kind(typed[value]) != "numeric":
         raise ReportError(f"--value: column {value!r} is {typed[value]}, not a number; cast it in --query")
-    s, t, v = _quote(series), _quote(time), _quote(value)
+    s, t, v = quote_name(series), quote_name(time), quote_name(value)
     try:
         rows, names, null_series, null_times, values, one = con.sql(
             f"SELECT count(*), count(DISTINCT {s}), count(*) - count({s}), count(*) - count({t}), count({v}), "
@@ -303,9 +301,10 @@ def _step_phase(con: duckdb.DuckDBPyConnection, source: str, series: str, time: 
     """'hour' for hourly timestamps, 'weekday' for daily ones, else None (no load section)."""
     if kind != "temporal":
         return None
+    t, s = quote_name(time), quote_name(series)
     sql = (
-        f"SELECT median(step) FROM (SELECT epoch({_quote(time)}::TIMESTAMP) - lag(epoch({_quote(time)}::TIMESTAMP)) "
-        f"OVER (PARTITION BY {_quote(series)} ORDER BY {_quote(time)}) AS step FROM {source}) WHERE step > 0"
+        f"SELECT median(step) FROM (SELECT epoch({t}::TIMESTAMP) - lag(epoch({t}::TIMESTAMP)) "
+        f"OVER (PARTITION BY {s} ORDER BY {t}) AS step FROM {source}) WHERE step > 0"
     )
     (step,) = con.sql(sql).fetchall()[0]
     return {3600.0: "hour", 86400.0: "weekday"}.get(step)
@@ -439,17 +438,12 @@ def gather(
 
 
 def check_out(out: str | os.PathLike, replace: bool) -> Path:
-    """The output path; refuses a missing folder, a folder, an existing file (unless ``replace``)."""
-    path = Path(out).expanduser()
-    if path.suffix.lower() not in (".html", ".htm"):
-        raise ReportError(f"--out must end in .html, got {str(path)!r}")
-    if not path.parent.is_dir():
-        raise ReportError(f"folder {str(path.parent)!r} does not exist")
-    if path.is_dir():
-        raise ReportError(f"{path} is a folder")
-    if path.exists() and not replace:
-        raise ReportError(f"{path} exists; pass --replace to overwrite it")
-    return path
+    """The output path; refuses another extension than .html, a missing folder, a folder, an existing file
+    (unless ``replace``)."""
+    try:
+        return output_path(out, replace, (".html", ".htm"))
+    except ValueError as error:
+        raise ReportError(str(error)) from None
 
 
 def report(
@@ -520,7 +514,6 @@ def report(
     ...     print(page.name, page.stat().st_size > 20_000)
     s.html True
     """
-    from tsql.pipeline import partial_path
     from tsql.report_page import render
 
     target = check_out(path, replace)
@@ -581,7 +574,7 @@ def main(
             con.execute("SET enable_progress_bar = false")
             source = table if table is not None else query
             if table is not None and any(c.isspace() for c in table):
-                source = f"SELECT * FROM {_quote(table)}"
+                source = f"SELECT * FROM {quote_name(table)}"
             written = report(
                 con,
                 source,
