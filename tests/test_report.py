@@ -373,9 +373,9 @@ def test_a_failure_while_writing_leaves_no_file(con, tmp_path, monkeypatch):
 
 
 def test_python_errors_name_the_fix(con, tmp_path):
-    with pytest.raises(ReportError, match="--value: column 'queue' is VARCHAR, not a number"):
+    with pytest.raises(ReportError, match="^tsql.report: value: column 'queue' is VARCHAR, not a number"):
         tsql.report(con, "hourly_contacts", series="hour", time="hour", value="queue", path=tmp_path / "r.html")
-    with pytest.raises(ReportError, match="must end in .html"):
+    with pytest.raises(ReportError, match="^tsql.report: path must end in .html"):
         tsql.report(con, "hourly_contacts", series="queue", time="hour", value="contacts", path=tmp_path / "r.txt")
     assert list(tmp_path.iterdir()) == []
 

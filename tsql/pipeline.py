@@ -102,12 +102,12 @@ def quote_name(name: str) -> str:
     return '"' + name.replace('"', '""') + '"'
 
 
-def output_path(out: str | os.PathLike, replace: bool, suffixes: tuple[str, ...]) -> Path:
-    """The file a command writes; ``ValueError`` (the user's message) for another extension, a missing folder,
-    a folder, or an existing file unless ``replace``."""
+def output_path(out: str | os.PathLike, replace: bool, suffixes: tuple[str, ...], name: str = "--out") -> Path:
+    """The file a command writes; ``ValueError`` (the user's message, the argument called ``name``) for another
+    extension, a missing folder, a folder, or an existing file unless ``replace``."""
     path = Path(out).expanduser()
     if path.suffix.lower() not in suffixes:
-        raise ValueError(f"--out must end in {' or '.join(suffixes)}, got {str(path)!r}")
+        raise ValueError(f"{name} must end in {' or '.join(suffixes)}, got {str(path)!r}")
     if not path.parent.is_dir():
         raise ValueError(f"folder {str(path.parent)!r} does not exist")
     if path.is_dir():

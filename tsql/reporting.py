@@ -217,16 +217,16 @@ def _check(con: duckdb.DuckDBPyConnection, source: str, label: str, series: str,
     """Refuse input the screen cannot use; returns the counts the page quotes."""
     columns = _columns(con, source, label)
     lower = {name.lower(): name for name in columns}
-    for option, name in (("--series", series), ("--time", time), ("--value", value)):
+    for option, name in (("series", series), ("time", time), ("value", value)):
         if name not in columns and name.lower() not in lower:
             raise ReportError(f"{option}: no column {name!r} in {label} (columns: {', '.join(columns)})")
     typed = {n: columns.get(n) or columns[lower[n.lower()]] for n in (series, time, value)}
     if _kind(typed[time]) == "other":
         raise ReportError(
-            f"--time: column {time!r} is {typed[time]}, not a DATE, TIMESTAMP or number; cast it in --query"
+            f"time: column {time!r} is {typed[time]}, not a DATE, TIMESTAMP or number; cast it in a query"
         )
     if _kind(typed[value]) != "numeric":
-        raise ReportError(f"--value: column {value!r} is {typed[value]}, not a number; cast it in --query")
+        raise ReportError(f"value: column {value!r} is {typed[value]}, not a number; cast it in a query")
     s, t, v = quote_name(series), quote_name(time), quote_name(value)
     try:
         rows, names, null_series, null_times, values, one = con.sql(
@@ -238,9 +238,9 @@ def _check(con: duckdb.DuckDBPyConnection, source: str, label: str, series: str,
     if rows == 0:
         raise ReportError(f"{label} has no rows; there is nothing to screen")
     if null_series:
-        raise ReportError(f"{null_series:,} rows have a NULL {series}; filter them out or coalesce them in --query")
+        raise ReportError(f"{null_series:,} rows have a NULL {series}; filter them out or coalesce them in a query")
     if null_times:
-        raise ReportError(f"{null_times:,} rows have a NULL {time}; filter them out in --query")
+        raise ReportError(f"{null_times:,} rows have a NULL {time}; filter them out in a query")
     if values == 0:
         raise ReportError(f"every {value} is NULL; there is nothing to screen")
     if names < 2:
@@ -437,11 +437,11 @@ def gather(
     return data
 
 
-def check_out(out: str | os.PathLike, replace: bool) -> Path:
+def check_out(out: str | os.PathLike, replace: bool, name: str = "--out") -> Path:
     """The output path; refuses another extension than .html, a missing folder, a folder, an existing file
     (unless ``replace``)."""
     try:
-        return output_path(out, replace, (".html", ".htm"))
+        return output_path(out, replace, (".html", ".htm"), name)
     except ValueError as error:
         raise ReportError(str(error)) from None
 
@@ -514,9 +514,27 @@ def report(
     ...     print(page.name, page.stat().st_size > 20_000)
     s.html True
     """
+    try:
+        target = check_out(path, replace, "path")
+        return _write(con, table_or_query, series, time, value, target, level, model, details)
+    except ReportError as error:
+        raise ReportError(f"tsql.report: {error}") from None
+
+
+def _write(
+    con: duckdb.DuckDBPyConnection,
+    table_or_query: str,
+    series: str,
+    time: str,
+    value: str,
+    target: Path,
+    level: float,
+    model: str,
+    details: int,
+) -> Path:
+    """:func:`report` to a checked ``target``, without its name on the errors (the command puts its own)."""
     from tsql.report_page import render
 
-    target = check_out(path, replace)
     is_query = any(c.isspace() for c in table_or_query.strip())
     data = gather(
         con,
@@ -560,7 +578,7 @@ def main(
 
     started = clock.perf_counter()
     try:
-        check_out(out, replace)
+        target = check_out(out, replace)
         if database != ":memory:" and not Path(database).expanduser().exists():
             raise ReportError(f"no database at {database}")
         try:
@@ -575,17 +593,16 @@ def main(
             source = table if table is not None else query
             if table is not None and any(c.isspace() for c in table):
                 source = f"SELECT * FROM {quote_name(table)}"
-            written = report(
+            written = _write(
                 con,
                 source,
-                series=series,
-                time=time,
-                value=value,
-                path=out,
-                level=level,
-                model=model,
-                details=details,
-                replace=replace,
+                series,
+                time,
+                value,
+                target,
+                level,
+                model,
+                details,
             )
     except ReportError as error:
         print(f"seriesql report: {error}", file=sys.stderr)
