@@ -21,3 +21,11 @@ def elnino() -> np.ndarray:
     """Monthly sea surface temperature (El Nino region) 1950-2010, shipped inside statsmodels, as one series."""
     sm = pytest.importorskip("statsmodels.api")
     return sm.datasets.elnino.load_pandas().data.iloc[:, 1:].to_numpy(dtype=float).ravel()
+
+
+@pytest.fixture(scope="session")
+def sample_warehouse(tmp_path_factory):
+    """The invented sample warehouse, built once per run; tests open it read-only."""
+    from tsql import sample_db
+
+    return sample_db.build(tmp_path_factory.mktemp("sample") / "warehouse.duckdb")

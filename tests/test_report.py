@@ -15,7 +15,6 @@ import numpy as np
 import pytest
 
 import tsql
-from tsql import sample_db
 from tsql.cli import main
 from tsql.reporting import ReportError, screen_queries
 
@@ -23,8 +22,8 @@ LEVEL = 0.05
 
 
 @pytest.fixture(scope="module")
-def warehouse(tmp_path_factory) -> Path:
-    return sample_db.build(tmp_path_factory.mktemp("report") / "warehouse.duckdb")
+def warehouse(sample_warehouse) -> Path:
+    return sample_warehouse
 
 
 @pytest.fixture(scope="module")

@@ -5,7 +5,6 @@ import pyarrow as pa
 import pytest
 
 import tsql
-from tsql import sample_db
 from tsql.kernels.ragged import Ragged
 from tsql.kernels.screen import FIELDS, screen
 
@@ -45,8 +44,8 @@ def assert_fields_equal_their_functions(con, source: str) -> int:
 
 
 @pytest.fixture(scope="module")
-def warehouse(tmp_path_factory):
-    return sample_db.ensure(tmp_path_factory.mktemp("screen") / "warehouse.duckdb")
+def warehouse(sample_warehouse):
+    return sample_warehouse
 
 
 def test_screen_agg_on_the_sample_warehouse_equals_each_function(warehouse):

@@ -31,7 +31,6 @@ from pyspark.sql import SparkSession  # noqa: E402
 
 import tsql  # noqa: E402
 import tsql.spark  # noqa: E402
-from tsql import sample_db  # noqa: E402
 from tsql.forms.answers import PERIOD, PERIODS, SCREEN  # noqa: E402
 from tsql.registry import BY_NAME, FUNCTIONS  # noqa: E402
 
@@ -281,10 +280,9 @@ def spark() -> Iterator[SparkSession]:
 
 
 @pytest.fixture(scope="module")
-def duck(spark: SparkSession, tmp_path_factory: pytest.TempPathFactory) -> duckdb.DuckDBPyConnection:
+def duck(spark: SparkSession, tmp_path_factory: pytest.TempPathFactory, sample_warehouse) -> duckdb.DuckDBPyConnection:
     """DuckDB with tsql, holding the same tables as the Spark session's views."""
-    path = sample_db.build(tmp_path_factory.mktemp("spark") / "w.duckdb")
-    source = duckdb.connect(str(path), read_only=True)
+    source = duckdb.connect(str(sample_warehouse), read_only=True)
     quoted = ", ".join(f"'{i}'" for i in INSTRUMENTS)
     tables = {
         "sales": source.sql("SELECT * FROM monthly_sales WHERE item <= 'SKU-0060'").to_arrow_table(),

@@ -8,7 +8,6 @@ import pyarrow as pa
 import pytest
 
 import tsql
-from tsql import sample_db
 from tsql.kernels import changepoint
 from tsql.kernels.ragged import Ragged
 
@@ -205,8 +204,8 @@ def test_new_arguments_errors_name_the_function(con, call, message):
         con.execute(f"SELECT {call}").fetchall()
 
 
-def test_yearly_items_without_a_planted_change_get_none(tmp_path):
-    warehouse = duckdb.connect(str(sample_db.build(tmp_path / "warehouse.duckdb")), read_only=True)
+def test_yearly_items_without_a_planted_change_get_none(sample_warehouse):
+    warehouse = duckdb.connect(str(sample_warehouse), read_only=True)
     tsql.register(warehouse)
     # the truth table plants no level change on any item; take the yearly-seasonal items without a trend
     changes = warehouse.execute(
