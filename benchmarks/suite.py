@@ -313,7 +313,7 @@ def scaling_tables(scaling: dict, sizes: bench.Sizes) -> str:
         f"Nanoseconds per value: series length at {sizes.scale_groups:,} series, then number of series at "
         f"{sizes.scale_points:,} points. The exponent is the slope of log(time) on log(size): 1.00 means time in "
         f"proportion to the data. Threads: DuckDB's `threads` setting on `{scaling['threads_table']}` "
-        "(numba's parallel rows in change_points keep their own threads).\n\n" + harness.markdown_table(header, rows)
+        "(benchmarks/threads.py measures every function).\n\n" + harness.markdown_table(header, rows)
     )
 
 
