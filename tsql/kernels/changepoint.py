@@ -233,8 +233,8 @@ def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work
     """
     if m < LONG_RUN_MIN or not variance > 0.0:
         return 1.0
-    g1 = _difference_scale(y, m, 1, centred, work)
-    g2 = _difference_scale(y, m, 2, centred, work)
+    g1 = _difference_scale(y, m, np.int64(1), centred, work)  # int64, not two literal types: one compile
+    g2 = _difference_scale(y, m, np.int64(2), centred, work)
     if not g1 > 0.0:
         return 1.0
     rho = min(max(g2 / g1 - 1.0, 0.0), LONG_RUN_RHO)
@@ -432,11 +432,9 @@ def _noise_factor(code, y, p, m, work) -> float:
     'meanvar' (trends count as drift), the residuals' about the series' line for
     'trend' (its semivariogram centred, blind to the line).
     """
-    if code == TREND:
-        variance = _line_residual_sd(y, p, m)[2] ** 2
-        return _long_run_factor(y, m, variance, True, work)
-    variance = _std(y, m)[1] ** 2
-    return _long_run_factor(y, m, variance, False, work)
+    centred = code == TREND  # one call site: a literal True / False would compile the callee twice
+    variance = _line_residual_sd(y, p, m)[2] ** 2 if centred else _std(y, m)[1] ** 2
+    return _long_run_factor(y, m, variance, centred, work)
 
 
 #: smallest ``min_size`` each model accepts
