@@ -439,8 +439,23 @@ def run(sizes: bench.Sizes, out: Path | None, only: set[str] | None = None) -> d
         return result
     out.mkdir(parents=True, exist_ok=True)
     (out / "results.json").write_text(json.dumps(finite(result), indent=1) + "\n", encoding="utf-8")
-    (out / "RESULTS.md").write_text(markdown(result), encoding="utf-8")
+    (out / "RESULTS.md").write_text(markdown(result) + kept_sections(out / "RESULTS.md"), encoding="utf-8")
     return result
+
+
+#: Sections of RESULTS.md that other scripts write (benchmarks.first_run, benchmarks.threads): kept as they are.
+KEPT = ("## First run\n", "## Threads\n")
+
+
+def kept_sections(path: Path) -> str:
+    """The sections of ``KEPT`` in the RESULTS.md at ``path``, ready to append."""
+    old = path.read_text(encoding="utf-8") if path.exists() else ""
+    parts = []
+    for head in KEPT:
+        if head in old:
+            rest = old.split(head, 1)[1]
+            parts.append(head + (rest[: rest.find("\n## ") + 1] if "\n## " in rest else rest))
+    return "".join("\n" + part.rstrip("\n") + "\n" for part in parts)
 
 
 def main(argv: list[str] | None = None) -> int:
