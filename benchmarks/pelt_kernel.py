@@ -8,8 +8,8 @@
    l2 cost is the plain RSS, ours is RSS / sigma^2), same answer checked, ratio of medians.
 2. ``--series`` series of ``--points`` points in batches of 2,048 rows, as the SQL layer hands
    them: kernel time per model, beside DuckDB's ``list_sum(list(v ORDER BY t)) ... GROUP BY g`` on
-   the same data (the floor every list function pays), as a ratio of medians; and the same
-   kernel on one numba thread, for the gain from running the rows of a batch in parallel.
+   the same data (the floor every list function pays), as a ratio of medians (one thread: the
+   batches of a query run in DuckDB's threads, see benchmarks.threads).
 3. One series of each ``--long`` length with a single level shift in the middle, model 'mean', BIC
    penalty: where PELT keeps almost every candidate start of the two long segments and functional
    pruning (FPOP) keeps a few dozen; seconds per point should stay about flat as n grows.
@@ -28,7 +28,6 @@ import math
 import statistics
 import time
 
-import numba
 import numpy as np
 
 from benchmarks.data import piecewise
@@ -91,20 +90,12 @@ def many_series(n_series: int, points: int, repeat: int) -> None:
         print(f"   {'floor: DuckDB list_sum(list(v ORDER BY t)) GROUP BY g':<56} {floor_s:7.3f} s")
     except ImportError:
         print("   (duckdb not installed: no floor measured)")
-    threads = numba.get_num_threads()
-    print(f"   numba: {threads} threads, '{numba.threading_layer()}' threading layer")
 
     def kernel(label: str, data: list[Ragged], model: str) -> None:
         seconds = median_seconds(lambda: [changepoint.change_points(b, model) for b in data], repeat)
-        numba.set_num_threads(1)
-        try:
-            alone = median_seconds(lambda: [changepoint.change_points(b, model) for b in data], repeat)
-        finally:
-            numba.set_num_threads(threads)
         found = sum(len(changepoint.change_points(b, model).values) for b in data)
         ratio = f"   {seconds / floor_s:5.2f}x floor" if floor_s else ""
         print(f"   {label:<56} {seconds:7.3f} s{ratio}   ({found} changes)")
-        print(f"   {'  the same on 1 thread':<56} {alone:7.3f} s   parallel gain {alone / seconds:4.2f}x")
 
     for model in ("mean", "trend", "meanvar"):
         kernel(f"kernel change_points(model='{model}')", batches, model)

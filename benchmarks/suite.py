@@ -313,7 +313,7 @@ def scaling_tables(scaling: dict, sizes: bench.Sizes) -> str:
         f"Nanoseconds per value: series length at {sizes.scale_groups:,} series, then number of series at "
         f"{sizes.scale_points:,} points. The exponent is the slope of log(time) on log(size): 1.00 means time in "
         f"proportion to the data. Threads: DuckDB's `threads` setting on `{scaling['threads_table']}` "
-        "(numba's parallel rows in change_points keep their own threads).\n\n" + harness.markdown_table(header, rows)
+        "(benchmarks/threads.py measures every function).\n\n" + harness.markdown_table(header, rows)
     )
 
 
@@ -439,8 +439,23 @@ def run(sizes: bench.Sizes, out: Path | None, only: set[str] | None = None) -> d
         return result
     out.mkdir(parents=True, exist_ok=True)
     (out / "results.json").write_text(json.dumps(finite(result), indent=1) + "\n", encoding="utf-8")
-    (out / "RESULTS.md").write_text(markdown(result), encoding="utf-8")
+    (out / "RESULTS.md").write_text(markdown(result) + kept_sections(out / "RESULTS.md"), encoding="utf-8")
     return result
+
+
+#: Sections of RESULTS.md that other scripts write (benchmarks.first_run, benchmarks.threads): kept as they are.
+KEPT = ("## First run\n", "## Threads\n")
+
+
+def kept_sections(path: Path) -> str:
+    """The sections of ``KEPT`` in the RESULTS.md at ``path``, ready to append."""
+    old = path.read_text(encoding="utf-8") if path.exists() else ""
+    parts = []
+    for head in KEPT:
+        if head in old:
+            rest = old.split(head, 1)[1]
+            parts.append(head + (rest[: rest.find("\n## ") + 1] if "\n## " in rest else rest))
+    return "".join("\n" + part.rstrip("\n") + "\n" for part in parts)
 
 
 def main(argv: list[str] | None = None) -> int:

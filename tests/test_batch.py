@@ -52,3 +52,21 @@ def test_results_back_to_arrow():
     fields = {"q": np.array([1.0, np.nan]), "p_value": np.array([0.5, np.nan])}
     struct = batch.to_arrow_struct(fields, {"q": pa.float64(), "p_value": pa.float64()})
     assert struct.to_pylist() == [{"q": 1.0, "p_value": 0.5}, None]
+
+
+def test_kernels_see_one_argument_type_whichever_form_made_the_batch():
+    # Arrow's zero-copy buffers are read-only, numpy's results writable; numba compiles a kernel once per
+    # mix of the two, so every batch holds read-only views (and leaves the caller's own array alone).
+    from tsql.kernels import changepoint
+    from tsql.kernels.ragged import Ragged
+
+    own = np.array([5.0, 6, 5, 6, 5, 6, 12, 13, 12, 13, 12, 13])
+    from_numpy = Ragged(own, np.array([0, 12]), np.array([True]))
+    from_arrow = batch.to_ragged(pa.array([own.tolist()], type=pa.large_list(pa.float64())))
+    for made in (from_numpy, from_arrow):
+        arrays = (made.values, made.offsets, made.row_valid)
+        assert not any(a.flags.writeable for a in arrays) and all(a.flags.c_contiguous for a in arrays)
+    assert own.flags.writeable and from_numpy.offsets.dtype == np.int64
+    answers = [changepoint.change_points(b).values.tolist() for b in (from_numpy, from_arrow)]
+    assert answers[0] == answers[1] == [7.0]
+    assert len(changepoint._segment_rows.signatures) == 1

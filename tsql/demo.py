@@ -328,11 +328,14 @@ CAUTION = (
     "acting on a result."
 )
 
+# The compiled kernels the steps call, and only those: change_points (one compiled search serves
+# every model), trend_test, sparkline and dtw_nearest's search.
 _WARM_UP = """\
-SELECT dtw_distance([0.0, 1, 2], [0.0, 2, 1], band := 1, cutoff := 9),
-       lb_keogh([0.0, 1, 2], [0.0, 2, 1], 1),
-       change_points([0.0, 0, 0, 5, 5, 5], model := 'meanvar'),
-       change_points([0.0, 1, 2, 3, 2, 1], model := 'trend')"""
+SELECT change_points([0.0, 0, 0, 5, 5, 5], model := 'meanvar'),
+       trend_test([0.0, 2, 1, 3, 5, 4]),
+       sparkline([0.0, 2, 1]),
+       (SELECT count(*) FROM (SELECT unnest(dtw_nearest(id, s, k := 1, band := 2, normalize := true))
+                              FROM (VALUES (1, [0.0, 1, 2]), (2, [0.0, 2, 1]), (3, [1.0, 1, 2])) AS c(id, s)))"""
 
 _TABLES = """\
 SELECT 'monthly_sales' AS "table", count(*) AS "rows",

@@ -23,11 +23,9 @@ one module because numba's cache checks only the source file of the function
 it loads.
 
 Rows are independent: each row is read, segmented and written by itself, into
-output slots fixed by its position, so rows run in parallel (``numba.prange``)
-and an answer depends neither on the other rows nor on the threads. Calls from
-several Python threads take turns (a lock: numba's 'workqueue' layer must not
-be entered twice at once); in a process forked after OpenMP was loaded the rows
-run on the calling thread.
+output slots fixed by its position, so an answer depends neither on the other
+rows nor on the threads. The compiled search releases the GIL: DuckDB's threads
+segment their batches at once.
 """
 
 from __future__ import annotations
@@ -36,10 +34,9 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
 from scipy.stats import chi2
 
-from tsql.kernels import parallel
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
 
 __all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
@@ -236,8 +233,8 @@ def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work
     """
     if m < LONG_RUN_MIN or not variance > 0.0:
         return 1.0
-    g1 = _difference_scale(y, m, 1, centred, work)
-    g2 = _difference_scale(y, m, 2, centred, work)
+    g1 = _difference_scale(y, m, np.int64(1), centred, work)  # int64, not two literal types: one compile
+    g2 = _difference_scale(y, m, np.int64(2), centred, work)
     if not g1 > 0.0:
         return 1.0
     rho = min(max(g2 / g1 - 1.0, 0.0), LONG_RUN_RHO)
@@ -435,11 +432,9 @@ def _noise_factor(code, y, p, m, work) -> float:
     'meanvar' (trends count as drift), the residuals' about the series' line for
     'trend' (its semivariogram centred, blind to the line).
     """
-    if code == TREND:
-        variance = _line_residual_sd(y, p, m)[2] ** 2
-        return _long_run_factor(y, m, variance, True, work)
-    variance = _std(y, m)[1] ** 2
-    return _long_run_factor(y, m, variance, False, work)
+    centred = code == TREND  # one call site: a literal True / False would compile the callee twice
+    variance = _line_residual_sd(y, p, m)[2] ** 2 if centred else _std(y, m)[1] ** 2
+    return _long_run_factor(y, m, variance, centred, work)
 
 
 #: smallest ``min_size`` each model accepts
@@ -1336,18 +1331,9 @@ def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p
     counts[r] = h
 
 
-@njit(cache=True, error_model="numpy", parallel=True)
+@njit(cache=True, error_model="numpy", nogil=True)
 def _path_rows(values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok):
-    """:func:`_path_row` for every row, the rows in parallel."""
-    for r in prange(len(offsets) - 1):
-        _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok)
-
-
-@njit(cache=True, error_model="numpy")
-def _path_rows_in_order(
-    values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok
-):
-    """:func:`_path_rows` on this thread alone, for where numba's parallel layer cannot run."""
+    """:func:`_path_row` for every row."""
     for r in range(len(offsets) - 1):
         _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok)
 
@@ -1506,11 +1492,7 @@ def _residual(y, p, a, b, level, slope, trend, out) -> None:
             out[p[i]] = y[i] - level
 
 
-# numba releases the GIL around a parallel region (nogil or not), so two Python threads
-# (DuckDB runs a UDF from several of its own) could enter the threading layer at once, which
-# its 'workqueue' layer (used where neither TBB nor OpenMP loads) answers by aborting the
-# process. Calls therefore hold parallel.kernel_lock() (see _run).
-@njit(cache=True, error_model="numpy", parallel=True)
+@njit(cache=True, error_model="numpy", nogil=True)
 def _segment_rows(
     values,
     offsets,
@@ -1530,51 +1512,7 @@ def _segment_rows(
     row_ok,
     residual,
 ) -> None:
-    """Segment every row (see :func:`_segment_row`), the rows in parallel."""
-    for r in prange(len(offsets) - 1):
-        _segment_row(
-            r,
-            values,
-            offsets,
-            valid,
-            code,
-            n_stats,
-            params_per_change,
-            penalty_kind,
-            penalty_value,
-            min_size,
-            max_changes,
-            out_first,
-            out_last,
-            out_mean,
-            out_slope,
-            counts,
-            row_ok,
-            residual,
-        )
-
-
-@njit(cache=True, error_model="numpy")
-def _segment_rows_in_order(
-    values,
-    offsets,
-    valid,
-    code,
-    n_stats,
-    params_per_change,
-    penalty_kind,
-    penalty_value,
-    min_size,
-    max_changes,
-    out_first,
-    out_last,
-    out_mean,
-    out_slope,
-    counts,
-    row_ok,
-    residual,
-) -> None:
-    """:func:`_segment_rows` on this thread alone, for where numba's parallel layer cannot run."""
+    """Segment every row (see :func:`_segment_row`)."""
     for r in range(len(offsets) - 1):
         _segment_row(
             r,
@@ -1659,27 +1597,25 @@ def _run(
     counts = np.empty(n_rows, dtype=np.int64)
     row_ok = np.empty(n_rows, dtype=np.bool_)
     residual = np.empty(capacity if with_residual else 0)
-    kernel = _segment_rows_in_order if parallel.forked_after_openmp() else _segment_rows
-    with parallel.kernel_lock():
-        kernel(
-            values,
-            offsets,
-            valid,
-            spec.code,
-            spec.n_stats,
-            float(spec.params_per_change),
-            kind,
-            value,
-            int(min_size),
-            -1 if max_changes is None else int(max_changes),
-            fields["first"],
-            fields["last"],
-            fields["mean"],
-            fields["slope"],
-            counts,
-            row_ok,
-            residual,
-        )
+    _segment_rows(
+        values,
+        offsets,
+        valid,
+        spec.code,
+        spec.n_stats,
+        float(spec.params_per_change),
+        kind,
+        value,
+        int(min_size),
+        -1 if max_changes is None else int(max_changes),
+        fields["first"],
+        fields["last"],
+        fields["mean"],
+        fields["slope"],
+        counts,
+        row_ok,
+        residual,
+    )
     return fields, counts, offsets[:-1], row_ok, residual
 
 
@@ -2210,11 +2146,9 @@ def change_points_path(
     places = np.empty(n_rows * per_row_places, dtype=np.int64)
     counts = np.empty(n_rows, dtype=np.int64)
     row_ok = np.empty(n_rows, dtype=np.bool_)
-    kernel = _path_rows_in_order if parallel.forked_after_openmp() else _path_rows
-    with parallel.kernel_lock():
-        kernel(
-            values, offsets, valid, spec.code, int(min_size), k_max, changes, cost, p_from, p_to, places, counts, row_ok
-        )
+    _path_rows(
+        values, offsets, valid, spec.code, int(min_size), k_max, changes, cost, p_from, p_to, places, counts, row_ok
+    )
     record_offsets, source = _gather(counts, np.arange(n_rows, dtype=np.int64) * per_row)
     records = RaggedRecords(
         {"changes": changes[source], "cost": cost[source], "penalty_from": p_from[source], "penalty_to": p_to[source]},

@@ -19,7 +19,7 @@ distance of only a small share of the pairs:
    distance (see :func:`_warp`), until the next bound is above it.
 
 Items are searched independently: each reads and writes only its own list,
-so the items run on all cores (``numba.prange``) and no answer depends on the
+so the items run on all cores (:mod:`tsql.kernels.parallel`) and no answer depends on the
 thread count or on which thread took which item. The price is that a pair
 that is among the nearest of both its items is computed from both sides (the
 same number bit for bit: the programme of (b, a) is the transpose of that of
@@ -35,10 +35,10 @@ bounds hold in floating point too, not only on paper.
 
 The compiled code is self-contained (numba's on-disk cache checks only the
 source file of the function it loads). The work of one call is done in pieces
-of about 0.1 s with a :func:`tsql.kernels.cancel.checkpoint` between them; a
-parallel piece holds :func:`tsql.kernels.parallel.kernel_lock` (one parallel
-region at a time in a process) and runs on the calling thread in a process
-forked after OpenMP was loaded.
+of about 0.1 s with a :func:`tsql.kernels.cancel.checkpoint` between them; the
+items of a piece are searched on all cores (:func:`tsql.kernels.parallel.run_pieces`:
+an item's search reads and writes only its own list, so no answer depends on
+which thread took which item, or when).
 
 References
 ----------
@@ -59,7 +59,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
 from tsql.kernels import parallel
 from tsql.kernels.cancel import checkpoint
@@ -73,7 +73,7 @@ _NO_BAND = -1
 _PAIRS_PER_PIECE = 1 << 18
 #: Candidates of one item stepped through the programme together, one vector lane each.
 _LANES = 8
-#: Pieces of one parallel call (the cores take them in turns).
+#: Pieces of one piece of items, taken in turns by the cores.
 _PIECES = 16
 #: Segment means summarising a series for the seeds.
 _SEGMENTS = 16
@@ -716,33 +716,6 @@ def _items(first, stop, seeds, x_all, off, ends, env_up, env_low, reference, ban
         )
 
 
-@njit(cache=True, parallel=True)
-def _items_parallel(
-    first, stop, seeds, x_all, off, ends, env_up, env_low, reference, band, k, best_d, best_j, count, kth_sq
-):
-    """:func:`_items` in ``_PIECES`` pieces on all cores. An item's search reads and writes only its own list, so
-    no answer depends on which thread took which item, or when."""
-    size = stop - first
-    for piece in prange(_PIECES):
-        _items(
-            first + piece * size // _PIECES,
-            first + (piece + 1) * size // _PIECES,
-            seeds,
-            x_all,
-            off,
-            ends,
-            env_up,
-            env_low,
-            reference,
-            band,
-            k,
-            best_d,
-            best_j,
-            count,
-            kth_sq,
-        )
-
-
 # ---------------------------------------------------------------------------
 # seeds
 # ---------------------------------------------------------------------------
@@ -932,11 +905,7 @@ def dtw_nearest(
         step = max(_PIECES, _PAIRS_PER_PIECE // count_items)
         for first in range(0, count_items, step):
             stop = min(count_items, first + step)
-            if parallel.forked_after_openmp():
-                _items(first, stop, seeds, *state)
-            else:
-                with parallel.kernel_lock():
-                    _items_parallel(first, stop, seeds, *state)
+            parallel.run_pieces(lambda a, b: _items(a, b, seeds, *state), first, stop, _PIECES)
             checkpoint()
     if scale != 1.0:
         best_d = best_d / scale

@@ -1,47 +1,57 @@
-"""When numba's parallel kernels may run on many threads: one batch at a time, and not after a fork of OpenMP."""
+"""Pieces of one kernel call on every core: compiled ``nogil`` functions run from a pool of Python threads.
+
+Kernels do not use numba's ``parallel=True``: it multiplies compile time, and DuckDB already runs a
+UDF from each of its threads (a ``nogil`` kernel lets those calls run at once). Only work that
+arrives as one call for a whole query (``dtw_nearest`` over all items) is cut into pieces here.
+"""
 
 from __future__ import annotations
 
 import os
 import threading
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 
-import numba
+__all__ = ["run_pieces"]
 
-__all__ = ["forked_after_openmp", "kernel_lock"]
-
-# numba releases the GIL around a parallel region (nogil or not), so two Python threads (DuckDB
-# runs a UDF from several of its own) could enter the threading layer at once, which its
-# 'workqueue' layer (used where neither TBB nor OpenMP loads) answers by aborting the process.
-# Calls of parallel kernels therefore take turns; each already keeps every core busy.
 _lock = threading.Lock()
-
-# True in a process forked from one that had loaded numba's OpenMP threading layer: GNU OpenMP
-# cannot run after such a fork (numba terminates the process), so there the rows run on the
-# calling thread. Inherited by further forks.
-_forked_after_openmp = False
+_pool: ThreadPoolExecutor | None = None
 
 
-def kernel_lock() -> threading.Lock:
-    """The lock every call of a parallel (``prange``) kernel holds."""
-    return _lock
-
-
-def forked_after_openmp() -> bool:
-    """Whether this process must run its parallel kernels' rows on the calling thread instead."""
-    return _forked_after_openmp
-
-
-def _openmp_layer_loaded() -> bool:
+def _threads() -> int:
     try:
-        return numba.threading_layer() == "omp"
-    except ValueError:  # no parallel function has run in this process yet
-        return False
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def run_pieces(work: Callable[[int, int], object], first: int, stop: int, pieces: int) -> None:
+    """Call ``work(a, b)`` on ``pieces`` consecutive ranges covering ``first..stop``, on all cores.
+
+    ``work`` must release the GIL (a ``nogil`` compiled function) and write only what its own range
+    owns, so that no answer depends on which thread ran which piece. Returns when every piece is
+    done; an exception of a piece is raised here.
+    """
+    global _pool
+    size = stop - first
+    bounds = [(first + p * size // pieces, first + (p + 1) * size // pieces) for p in range(pieces)]
+    threads = _threads()
+    if threads == 1 or size < 2:
+        for a, b in bounds:
+            work(a, b)
+        return
+    with _lock:
+        if _pool is None:
+            _pool = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="tsql-piece")
+        pool = _pool
+    for future in [pool.submit(work, a, b) for a, b in bounds]:
+        future.result()
 
 
 def _after_fork_in_child() -> None:
-    global _forked_after_openmp, _lock
-    _forked_after_openmp = _forked_after_openmp or _openmp_layer_loaded()
-    _lock = threading.Lock()  # another thread of the parent may have held it
+    global _pool, _lock
+    _pool = None  # the parent's threads do not exist in the child
+    _lock = threading.Lock()
 
 
 if hasattr(os, "register_at_fork"):

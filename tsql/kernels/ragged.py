@@ -28,6 +28,14 @@ class Ragged:
     offsets: np.ndarray
     valid: np.ndarray | None = None
 
+    def __post_init__(self) -> None:
+        # The compiled kernels see one type per argument whatever made the batch (Arrow's buffers
+        # are read-only, numpy's results writable; numba compiles once per mix): read-only views.
+        object.__setattr__(self, "values", frozen(self.values))
+        object.__setattr__(self, "offsets", frozen(self.offsets, np.int64))
+        if self.valid is not None:
+            object.__setattr__(self, "valid", frozen(self.valid, np.bool_))
+
     @classmethod
     def from_list(cls, series: list, valid: np.ndarray | None = None) -> Ragged:
         """Build a batch from a list of 1-D sequences (None = NULL row)."""
@@ -69,7 +77,7 @@ class Ragged:
 
     @cached_property
     def row_valid(self) -> np.ndarray:
-        return np.ones(self.n_rows, dtype=bool) if self.valid is None else self.valid
+        return frozen(np.ones(self.n_rows, dtype=bool)) if self.valid is None else self.valid
 
     def row(self, i: int) -> np.ndarray:
         return self.values[self.offsets[i] : self.offsets[i + 1]]
@@ -113,6 +121,19 @@ class Ragged:
             else:
                 matrix = self.values[starts[:, None] + np.arange(n)]
             yield n, group, matrix
+
+
+def frozen(a: np.ndarray, dtype: type | None = None) -> np.ndarray:
+    """``a`` as a read-only, C-contiguous array (of ``dtype`` when given): a view when it already is one.
+
+    Arguments of compiled kernels go through this (the batch's arrays do by themselves), so that a
+    kernel compiles once rather than once per mix of read-only and writable arrays.
+    """
+    out = np.ascontiguousarray(a, dtype=dtype)
+    if out.flags.writeable:
+        out = out.view()
+        out.flags.writeable = False
+    return out
 
 
 #: Elements worked on at once by the numpy kernels and the agg forms' grid: their temporaries then

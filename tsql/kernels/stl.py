@@ -241,7 +241,7 @@ def _run(
 # --------------------------------------------------------------------------------------------
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", nogil=True)
 def _decompose_rows(values, first, last, period, ns, nt, nl, inner, outer, trend_out, seasonal_out):
     for r in range(len(first)):
         y = values[first[r] : last[r] + 1].copy()
@@ -423,7 +423,7 @@ def _robustness_weights(y, fit, rw):
             rw[i] = 0.0
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", nogil=True)
 def _strengths(values, offsets, trend, seasonal, answer, out):
     """``1 - Var(R) / Var(T + R)`` and ``1 - Var(R) / Var(S + R)`` over each row's present elements."""
     for r in range(len(answer)):

@@ -286,7 +286,7 @@ def _line_residuals(x: np.ndarray) -> np.ndarray:
 # --------------------------------------------------------------------------------------------
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", nogil=True)
 def _adf_rows(x, p, terms, out):
     """``out[r] = (statistic, used lag)`` of each row of ``x`` (NaN, NaN without an answer)."""
     for r in range(x.shape[0]):
