@@ -733,7 +733,9 @@ def test_trend_costs_on_a_million_points_equal_direct_least_squares():
     pairs = [(m - 3, m), (m - 10, m), (m - 100, m), (m - 5000, m - 17), (m // 2, m // 2 + 7), (10, 200_000), (0, m)]
     for s, t in pairs:
         out = np.empty(1)
-        changepoint._cost_trend(stats, tuple(stats[:, s : s + 1]), np.array([float(s)]), np.zeros(1), 1, t, out)
+        changepoint._cost_trend(
+            stats, tuple(stats[:, s : s + 1]), np.array([float(s)]), np.zeros(1), np.zeros(1, np.int64), 1, t, out
+        )
         design = np.c_[np.ones(t - s), (p[s:t] - p[s]).astype(float)]
         residual = y[s:t] - design @ np.linalg.lstsq(design, y[s:t], rcond=None)[0]
         assert out[0] == pytest.approx(residual @ residual / variance, rel=1e-9, abs=1e-7), (s, t)
