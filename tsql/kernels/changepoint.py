@@ -1044,7 +1044,8 @@ def _pelt(
     where it may drop an optimal start; ``functional=False`` is kept for the
     benchmark and the tests that compare them.
 
-    With ``functional`` the kept starts are also looked at lazily. Every cost
+    With ``functional`` the kept starts of 'meanvar' and 'trend' are also
+    looked at lazily ('mean' keeps few, each cheap to cost). Every cost
     here is a least sum of per-point losses, so ``C(s, t) >= C(s, tau) +
     C(tau, t)`` for ``s < tau < t`` (PELT's own inequality, Killick et al.
     2012), and the length term only grows. A full pass at step ``tau`` sets
@@ -1174,7 +1175,7 @@ def _pelt(
             k += 1
         F[t] = best + beta
         last[t] = int(starts[idx[k]])
-        if full and functional:
+        if full and functional and code != MEAN:
             # set aside the starts worse than the best by more than half a penalty
             tau = t
             at_tau = best
