@@ -695,6 +695,40 @@ def test_geometric_pruning_on_long_calm_series(model):
             np.testing.assert_array_equal(F_new, F_old)
 
 
+@pytest.mark.parametrize("model", ["meanvar", "trend"])
+def test_lazy_evaluation_equals_plain_pelt_on_seeded_signals(model):
+    # reference: plain PELT on the same sums (Killick et al. 2012, K = 0: every start costed at
+    # every step until PELT's own rule drops it) and, on the short ones, search_reference above.
+    # The search costs a start set aside by a full pass again only when the leader's gain since the
+    # pass could reach its excess: long calm stretches, a change after one (the gain grows), changes
+    # of mean, spread and slope, rounded values (ties), gaps, several penalties and min_size
+    rng = np.random.default_rng({"meanvar": 51, "trend": 52}[model])
+    runs = 0
+    for case in range(24):
+        n = int(rng.integers(60, 400)) if case % 3 else int(rng.integers(1500, 4000))
+        t = np.arange(n, dtype=float)
+        x = rng.standard_normal(n) * math.exp(rng.normal(0.0, 1.0))
+        for cut in np.sort(rng.integers(1, n, int(rng.integers(0, 4)))):
+            x[cut:] += rng.normal(0.0, 2.0)
+            x[cut:] *= math.exp(rng.normal(0.0, 0.7)) if model == "meanvar" else 1.0
+            x[cut:] += (t[cut:] - cut) * rng.normal(0.0, 0.02) if model == "trend" else 0.0
+        if case % 4 == 1:
+            x = np.round(x, 1)
+        if case % 5 == 2:
+            x[rng.integers(0, n, n // 20)] = np.nan
+        penalty, min_size = [("bic", 2), ("mbic", 2), (3.0, 3), (0.5, 2), ("bic", 5), (25.0, 2)][case % 6]
+        F, last, stats, beta = search(x, model, penalty, min_size)
+        F_old, last_old, _, _ = search(x, model, penalty, min_size, functional=False)
+        where = f"case {case}: {n} points, {penalty}, min_size {min_size}"
+        np.testing.assert_array_equal(last, last_old, err_msg=where)
+        np.testing.assert_array_equal(F, F_old, err_msg=where)
+        if n < 400:
+            F_ref, last_ref = search_reference(stats, model, beta, penalty == "mbic", min_size)
+            np.testing.assert_allclose(F[min_size:], F_ref[min_size:], rtol=1e-12, atol=1e-9, err_msg=where)
+        runs += 1
+    assert runs == 24
+
+
 def test_trend_costs_on_a_million_points_equal_direct_least_squares():
     # reference: numpy.linalg.lstsq on each segment alone (positions from the segment's first one),
     # its RSS in units of the kernel's whole-series residual variance. A million positions with
@@ -710,7 +744,9 @@ def test_trend_costs_on_a_million_points_equal_direct_least_squares():
     pairs = [(m - 3, m), (m - 10, m), (m - 100, m), (m - 5000, m - 17), (m // 2, m // 2 + 7), (10, 200_000), (0, m)]
     for s, t in pairs:
         out = np.empty(1)
-        changepoint._cost_trend(stats, tuple(stats[:, s : s + 1]), np.array([float(s)]), np.zeros(1), 1, t, out)
+        changepoint._cost_trend(
+            stats, tuple(stats[:, s : s + 1]), np.array([float(s)]), np.zeros(1), np.zeros(1, np.int64), 1, t, out
+        )
         design = np.c_[np.ones(t - s), (p[s:t] - p[s]).astype(float)]
         residual = y[s:t] - design @ np.linalg.lstsq(design, y[s:t], rcond=None)[0]
         assert out[0] == pytest.approx(residual @ residual / variance, rel=1e-9, abs=1e-7), (s, t)

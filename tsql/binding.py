@@ -512,7 +512,7 @@ def _answers_or_error(name: str, n: int, answers: Callable[[], pa.Array], answer
 
 
 def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
-    """The UDF behind ``<name>_agg``: groups in pieces of about :data:`tsql.forms.agg.PIECE_POINTS` observations.
+    """The UDF behind ``<name>_agg``: groups in pieces of about ``AggForm.piece_points`` observations.
 
     An error the data reveals (a given step that makes too many grid points, a length of time shorter than
     allowed on a group's grid) comes back as the message of every row (see :func:`_or_error`).
@@ -528,7 +528,7 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
             part = obs if rows is None else obs.take(pa.array(rows))
             type_name, span, fill, same_time, *arguments = key
             pieces = []
-            for lo, hi in row_pieces([part], agg.PIECE_POINTS):
+            for lo, hi in row_pieces([part], form.piece_points):
                 ticks, values = unpack(part.slice(lo, hi - lo))
                 grid = (span, fill, same_time)
                 pieces.append(form(clock(form.name, type_name), grid, tuple(arguments), ticks, values))

@@ -270,16 +270,17 @@ def _prepare_mean(y, p, m, stats, work) -> bool:
 
 
 @njit(cache=True, error_model="numpy")
-def _cost_mean(stats, rows, starts, base, m, t, out) -> None:
-    """RSS about the segment mean, in units of sigma^2."""
+def _cost_mean(stats, rows, starts, base, idx, m, t, out) -> None:
+    """RSS about the segment mean, in units of sigma^2 (``out[k]`` for candidate ``idx[k]``, ``k < m``)."""
     a1 = stats[0, t]
     a2 = stats[1, t]
     c1 = rows[0]
     c2 = rows[1]
     tf = float(t)
-    for j in range(m):
+    for k in range(m):
+        j = idx[k]
         d = a1 - c1[j]
-        out[j] = base[j] + ((a2 - c2[j]) - d * d / (tf - starts[j]))
+        out[k] = base[j] + ((a2 - c2[j]) - d * d / (tf - starts[j]))
 
 
 # --------------------------------------------------------------------------- 'meanvar'
@@ -295,19 +296,20 @@ def _prepare_meanvar(y, p, m, stats, work) -> bool:
 
 
 @njit(cache=True, error_model="numpy")
-def _cost_meanvar(stats, rows, starts, base, m, t, out) -> None:
+def _cost_meanvar(stats, rows, starts, base, idx, m, t, out) -> None:
     """L log(var + floor), the series scaled to unit variance (floor = VARIANCE_FLOOR)."""
     a1 = stats[0, t]
     a2 = stats[1, t]
     c1 = rows[0]
     c2 = rows[1]
     tf = float(t)
-    for j in range(m):
+    for k in range(m):
+        j = idx[k]
         length = tf - starts[j]
         inv = 1.0 / length
         mean = (a1 - c1[j]) * inv
         var = max((a2 - c2[j]) * inv - mean * mean, 0.0)
-        out[j] = base[j] + length * math.log(var + VARIANCE_FLOOR)
+        out[k] = base[j] + length * math.log(var + VARIANCE_FLOOR)
 
 
 # --------------------------------------------------------------------------- 'trend'
@@ -380,7 +382,7 @@ def _trend_local(length, o, dt, dtt_high, dtt_rest, dx, dtx) -> tuple[float, flo
 
 
 @njit(cache=True, error_model="numpy")
-def _cost_trend(stats, rows, starts, base, m, t, out) -> None:
+def _cost_trend(stats, rows, starts, base, idx, m, t, out) -> None:
     """RSS about the segment's least-squares line, in units of sigma^2."""
     a_t = stats[0, t]
     a_tt = stats[1, t]
@@ -396,7 +398,8 @@ def _cost_trend(stats, rows, starts, base, m, t, out) -> None:
     c_tx = rows[4]
     c_rest = rows[5]
     tf = float(t)
-    for j in range(m):
+    for k in range(m):
+        j = idx[k]
         # with L the length and S the sums over the segment (positions less o), L times the
         # centred sums: tt = L Stt - St^2, tx = L Stx - St Sx, xx = L Sxx - Sx^2;
         # RSS = (xx - tx^2 / tt) / L, with one division
@@ -408,7 +411,7 @@ def _cost_trend(stats, rows, starts, base, m, t, out) -> None:
         xx = length * (a_xx - c_xx[j]) - dx * dx
         # a one-point segment (tt == 0) has no residual
         rss = (xx * tt - tx * tx) / (tt * length) if tt > 0.0 else 0.0
-        out[j] = base[j] + max(rss, 0.0)
+        out[k] = base[j] + max(rss, 0.0)
 
 
 @njit(cache=True, error_model="numpy")
@@ -484,6 +487,10 @@ _REVISIT = 1.0 / 8.0
 #: ... and each time tested against this many older starts' regions of victory: the one it
 #: remembers and others drawn by a fixed rule from those kept
 _EXCLUSIONS = 3
+
+#: lazy evaluation: the starts looked at every step may grow by this many plus the square root of
+#: this many times the starts kept before all are looked at again
+_NEAR_GROWTH = 16
 
 #: geometric functional pruning ('meanvar', 'trend') widens its boxes by this share, for
 #: rounding in their own arithmetic
@@ -1031,6 +1038,23 @@ def _pelt(
     rounding of 'trend' costs on exact lines (zero residuals, penalty 0),
     where it may drop an optimal start; ``functional=False`` is kept for the
     benchmark and the tests that compare them.
+
+    With ``functional`` the kept starts of 'meanvar' and 'trend' are also
+    looked at lazily ('mean' keeps few, each cheap to cost). Every cost
+    here is a least sum of per-point losses, so ``C(s, t) >= C(s, tau) +
+    C(tau, t)`` for ``s < tau < t`` (PELT's own inequality, Killick et al.
+    2012), and the length term only grows. A full pass at step ``tau`` sets
+    aside the starts whose total exceeds the least, the leader's ``A(tau)``,
+    by more than half a penalty; at a later ``t`` each of them totals at least
+    ``A(tau) + excess + C(tau, t)``, while the optimum is at most the leader's
+    ``A(t)``. So they cannot be best (nor tied) while the leader's gain from a
+    change at ``tau``, ``A(t) - A(tau) - C(tau, t)``, stays below their least
+    excess less the margin; the other starts and those admitted since are
+    costed every step, and a full pass comes when the gain gets there (a
+    change), when those grow by ``_NEAR_GROWTH`` plus the square root of
+    ``_NEAR_GROWTH`` times the starts kept, or after a compaction. The answer
+    is the same bit for bit; on a long calm stretch a step costs a few dozen
+    segment costs instead of one per kept start.
     """
     F[0] = -beta
     last[0] = 0
@@ -1043,6 +1067,21 @@ def _pelt(
     n_pruned = 0
     next_prune = 0
     next_compaction = 0
+    # lazy evaluation (see Notes): the starts looked at since the last full pass (``near``, in
+    # order), the leader's slot among them, the pass's step, least value and least excess of the rest
+    ident = np.arange(m + 1)
+    near = np.empty(m + 1, dtype=np.int64)
+    n_near = 0
+    lead = 0
+    tau = 0
+    at_tau = 0.0
+    far = np.inf
+    near_limit = 0
+    full = True
+    here = np.empty(1)
+    tail_cost = np.empty(1)
+    nothing = np.zeros(1)
+    first = np.zeros(1, dtype=np.int64)
     for t in range(min_size, m + 1):
         # admit the newest start; F is infinite (never a segment end) for 0 < s < min_size
         s = t - min_size
@@ -1083,24 +1122,35 @@ def _pelt(
             until[n_cand] = 0.0 if functional else np.inf
             for k in range(n_stats):
                 cand[k, n_cand] = stats[k, s]
+            near[n_near] = n_cand
+            n_near += 1
             n_cand += 1
-        # vals[j] = F(s_j) + C(s_j, t); one branch per model (see the cost models above)
-        if code == MEAN:
-            _cost_mean(stats, rows, starts, f_start, n_cand, t, vals)
-        elif code == MEANVAR:
-            _cost_meanvar(stats, rows, starts, f_start, n_cand, t, vals)
+        if not full:
+            # the starts set aside stay worse than the leader by more than the margin while the
+            # leader's segment gains less than their excess by a change at tau
+            _costs(code, stats, rows, starts, f_start, near, n_near, t, length_term, use_length_term, vals)
+            here[0] = float(tau)
+            tail = (stats[0, tau:], stats[1, tau:], stats[2, tau:], stats[3, tau:], stats[4, tau:], stats[5, tau:])
+            _costs(code, stats, tail, here, nothing, first, 1, t, length_term, False, tail_cost)
+            at_t = vals[lead]
+            gain = at_t - at_tau - tail_cost[0]
+            margin = _PRUNE_MARGIN * (2.0 + abs(at_tau) + abs(at_t)) + 2.0 * rounding
+            full = not gain + margin < far or n_near > near_limit
+        # vals[k] = F(s_j) + C(s_j, t) (+ length term) for the k-th start j looked at
+        if full:
+            _costs(code, stats, rows, starts, f_start, ident, n_cand, t, length_term, use_length_term, vals)
+            idx = ident
+            count = n_cand
         else:
-            _cost_trend(stats, rows, starts, f_start, n_cand, t, vals)
-        if use_length_term:
-            for j in range(n_cand):
-                vals[j] += length_term[t - int(starts[j])]
+            idx = near
+            count = n_near
         # least value, with four running minima so the loop is not one long dependency chain
         b0 = np.inf
         b1 = np.inf
         b2 = np.inf
         b3 = np.inf
         j = 0
-        while j + 4 <= n_cand:
+        while j + 4 <= count:
             v0 = vals[j]
             v1 = vals[j + 1]
             v2 = vals[j + 2]
@@ -1110,16 +1160,34 @@ def _pelt(
             b2 = v2 if v2 < b2 else b2
             b3 = v3 if v3 < b3 else b3
             j += 4
-        while j < n_cand:
+        while j < count:
             v0 = vals[j]
             b0 = v0 if v0 < b0 else b0
             j += 1
         best = min(min(b0, b1), min(b2, b3))
-        j = 0
-        while j < n_cand - 1 and vals[j] != best:
-            j += 1
+        k = 0
+        while k < count - 1 and vals[k] != best:
+            k += 1
         F[t] = best + beta
-        last[t] = int(starts[j])
+        last[t] = int(starts[idx[k]])
+        if full and functional and code != MEAN:
+            # set aside the starts worse than the best by more than half a penalty
+            tau = t
+            at_tau = best
+            far = np.inf
+            n_near = 0
+            threshold = 0.5 * beta
+            for j in range(n_cand):
+                excess = vals[j] - best
+                if excess <= threshold:
+                    if j == idx[k]:
+                        lead = n_near
+                    near[n_near] = j
+                    n_near += 1
+                else:
+                    far = min(far, excess)
+            near_limit = n_near + _NEAR_GROWTH + int(math.sqrt(_NEAR_GROWTH * n_cand))
+            full = False
         # prune, every PRUNE_EVERY steps (any step may prune; a pass costs about as much as
         # the costs themselves), and retire the starts whose grace has run out
         if not functional and t >= next_prune:
@@ -1150,6 +1218,21 @@ def _pelt(
                     kept += 1
             n_cand = kept
             n_pruned = 0
+            full = True
+
+
+@njit(cache=True, error_model="numpy")
+def _costs(code, stats, rows, starts, base, idx, count, t, length_term, use_length_term, out) -> None:
+    """``out[k] = base[j] + C(s_j, t)`` (plus the length term) for the ``count`` starts ``j = idx[k]``."""
+    if code == MEAN:
+        _cost_mean(stats, rows, starts, base, idx, count, t, out)
+    elif code == MEANVAR:
+        _cost_meanvar(stats, rows, starts, base, idx, count, t, out)
+    else:
+        _cost_trend(stats, rows, starts, base, idx, count, t, out)
+    if use_length_term:
+        for k in range(count):
+            out[k] += length_term[t - int(starts[idx[k]])]
 
 
 # --------------------------------------------------------------------------- at most k changes
@@ -1167,6 +1250,7 @@ def _neighbourhood(code, stats, m, length_term, use_length_term, min_size, k_max
     D[:, :] = np.inf
     back[:, :] = 0
     place = np.arange(m + 1).astype(np.float64)
+    ident = np.arange(m + 1)
     vals = np.empty(m + 1)
     zero = np.zeros(m + 1)
     for j in range(k_max + 1):
@@ -1177,11 +1261,11 @@ def _neighbourhood(code, stats, m, length_term, use_length_term, min_size, k_max
             base = D[j - 1, lo:] if j > 0 else zero
             rows = (stats[0, lo:], stats[1, lo:], stats[2, lo:], stats[3, lo:], stats[4, lo:], stats[5, lo:])
             if code == MEAN:
-                _cost_mean(stats, rows, place[lo:], base, count, t, vals)
+                _cost_mean(stats, rows, place[lo:], base, ident, count, t, vals)
             elif code == MEANVAR:
-                _cost_meanvar(stats, rows, place[lo:], base, count, t, vals)
+                _cost_meanvar(stats, rows, place[lo:], base, ident, count, t, vals)
             else:
-                _cost_trend(stats, rows, place[lo:], base, count, t, vals)
+                _cost_trend(stats, rows, place[lo:], base, ident, count, t, vals)
             best = np.inf
             arg = lo
             for i in range(count):
