@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from tsql.kernels.cancel import checkpoint
-from tsql.kernels.periodicity import Group, Sums, allowed_bins, fisher_g_pvalue, refine
+from tsql.kernels.periodicity import Group, Sums, allowed_bins, cycle_p_value, fill_gaps, refine
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords, in_safe_range
 
 __all__ = ["periods"]
@@ -127,6 +127,7 @@ def _search(matrix: np.ndarray, bins: np.ndarray, k: int, min_period: float, max
     m, n = matrix.shape
     out = np.full((m, k, 3), np.nan)
     present = ~np.isnan(matrix)
+    gaps = not present.all()
     usable = (present.sum(axis=1) >= _MIN_PRESENT) & ~np.isinf(matrix).any(axis=1)
     w = present.astype(np.float64)
     y = np.where(present & usable[:, None], matrix, 0.0)
@@ -154,14 +155,11 @@ def _search(matrix: np.ndarray, bins: np.ndarray, k: int, min_period: float, max
         spectrum = np.fft.rfft(resid, axis=1)
         power = spectrum.real**2 + spectrum.imag**2
         peak = np.argmax(np.where(candidates, power, -1.0), axis=1)
-        in_test = fisher & ~excluded
-        count = in_test.sum(axis=1)
-        total = np.where(in_test, power, 0.0).sum(axis=1)
-        top = np.where(in_test, power, 0.0).max(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            g = np.where((count > 0) & (total > 0), top / total, np.nan)
-        p_value = fisher_g_pvalue(g, np.maximum(count, 1))
-        p_value = np.where(count > 0, p_value, np.nan)
+        test_power = power
+        if gaps:
+            filled = np.fft.rfft(fill_gaps(resid, present), axis=1)
+            test_power = filled.real**2 + filled.imag**2
+        p_value = cycle_p_value(test_power, n, peak, fisher & ~excluded)
         period = np.full(m, np.nan)
         idx = np.flatnonzero(live)
         period[idx] = _refined_period(resid[idx], present[idx], spectrum[idx], peak[idx], n, f_lo, min_period, p_hi)

@@ -38,7 +38,7 @@ import numpy as np
 
 from tsql.kernels.ragged import Ragged, full, in_safe_range
 
-__all__ = ["dominant_period", "seasonality", "fisher_g_pvalue"]
+__all__ = ["dominant_period", "seasonality", "fisher_g_pvalue", "cycle_p_value", "fill_gaps"]
 
 _MIN_PRESENT = 4  # fewer present values than this: no answer
 _CONSTANT_RTOL = 1e-12  # residual rms below this share of the values' scale: constant
@@ -47,6 +47,8 @@ _NEWTON_STEPS = (0.02, 0.002, 0.001)  # half-width of the central differences, i
 _MAX_STEP = (0.25, 0.05, 0.01)  # largest frequency move per Newton step, in Fourier bins
 _FISHER_TERMS = 128  # terms of the exact alternating sum that are ever evaluated
 _FISHER_MAX_TERM = 1e6  # a larger term means cancellation: use the stable approximation
+_MAX_PHI = 0.999  # the red-noise background's lag-1 coefficient is kept below a unit root
+_RED_Z = 1.96  # a lag-1 autocorrelation within +-1.96 / sqrt(n) (Bartlett's 95 % band) is white
 
 
 # --------------------------------------------------------------------------------------------
@@ -257,7 +259,7 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
     row_valid = batch.row_valid
     may_have_gaps = batch.has_missing
     groups: list[Group] = []
-    peak, near, tss, g, m = [], [], [], [], []
+    peak, near, tss, p_values = [], [], [], []
     for n, rows, matrix in batch.by_length():
         if n < _MIN_PRESENT:
             continue
@@ -282,14 +284,13 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
                 found = _spectral_peak(sub, gaps, bins, stats)
             if found is None:
                 continue
-            answer, resid, present, k, near_bins, row_tss, row_g = found
+            answer, resid, present, k, near_bins, row_tss, row_p = found
             groups.append(Group(sub_rows[answer], resid, present))
             peak.append(k)
             near.append(near_bins)
             tss.append(row_tss)
             if stats:
-                g.append(row_g)
-                m.append(np.full(len(k), float(np.count_nonzero(2 * bins < n))))
+                p_values.append(row_p)
     if not groups:
         return result
 
@@ -308,7 +309,7 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
     if stats:
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             result["strength"][rows] = _harmonic_strength(sums, groups, period, np.concatenate(tss))
-        result["p_value"][rows] = fisher_g_pvalue(np.concatenate(g), np.concatenate(m))
+        result["p_value"][rows] = np.concatenate(p_values)
     return result
 
 
@@ -356,15 +357,82 @@ def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool
     mirror = near > n // 2
     picked = np.take_along_axis(spectrum, np.where(mirror, n - near, near), axis=1)
     near_bins = np.where(mirror, np.conj(picked), picked)
-    g = None
+    p_value = None
     fisher_bins = bins[2 * bins < n]  # Nyquist excluded: its ordinate has one degree of freedom
     if stats:
-        g = np.full(len(k), np.nan)
+        p_value = np.full(len(k), np.nan)
         if len(fisher_bins):
-            ordinates = power[:, fisher_bins[0] : fisher_bins[-1] + 1]
-            total = ordinates.sum(axis=1)
-            g = np.where(total > 0, ordinates.max(axis=1) / np.where(total > 0, total, 1.0), np.nan)
-    return answer, resid, present, k, near_bins, tss, g
+            tested = np.zeros(power.shape[1], dtype=bool)
+            tested[fisher_bins] = True
+            test_power = power
+            if present is not None:
+                filled = np.fft.rfft(fill_gaps(resid, present), axis=1)
+                test_power = filled.real**2 + filled.imag**2
+            p_value = cycle_p_value(test_power, n, k, tested)
+    return answer, resid, present, k, near_bins, tss, p_value
+
+
+def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarray) -> np.ndarray:
+    """p-value of the periodogram ordinate at ``peak``: Fisher's g against a white and against a red
+    background, whichever is larger.
+
+    ``power`` holds the periodogram ordinates ``|X_k|^2``, ``k = 0..n // 2``, of each row (of
+    the detrended series, gaps filled, see :func:`fill_gaps`); ``peak`` the bin of each row's
+    reported cycle; ``tested`` (``(n // 2 + 1,)`` or one mask per row) the bins of the ratio.
+
+    Each background ``S`` turns the ordinates into ``J_k = I_k / S(f_k)`` and the statistic into
+    ``g = J_peak / sum_tested J``, referred to Fisher's distribution with ``m`` = the number of
+    tested bins (a peak outside them, at Nyquist, is replaced by the largest tested ``J``).
+    White: ``S = 1`` (Fisher's own test). Red: the spectrum of an AR(1) process,
+    ``S(f) ∝ 1 / (1 - 2 phi cos(2 pi f) + phi^2)``, with ``phi`` the row's lag-1 (circular)
+    autocorrelation ``sum_k w_k I_k cos(2 pi k / n) / sum_k w_k I_k`` (``w_k`` = 1 at 0 and
+    Nyquist, 2 elsewhere), clipped to [-0.999, 0.999]. NaN where a sum is 0 or nothing is tested.
+    """
+    rows, width = power.shape
+    tested = np.broadcast_to(tested, power.shape)
+    m = tested.sum(axis=1).astype(np.float64)
+    cos = np.cos(2.0 * np.pi * np.arange(width) / n)
+    weight = np.full(width, 2.0)
+    weight[0] = 1.0
+    if n % 2 == 0:
+        weight[-1] = 1.0
+    weighted = power * weight
+    total = weighted.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        phi = np.clip((weighted * cos).sum(axis=1) / total, -_MAX_PHI, _MAX_PHI)
+    phi = np.where((total > 0) & (np.abs(phi) > _RED_Z / np.sqrt(n)), phi, 0.0)[:, None]
+    at_peak = np.take_along_axis(tested, peak[:, None], axis=1)[:, 0]
+    p_value = np.zeros(rows)
+    for background in (np.ones(1), 1.0 - 2.0 * phi * cos + phi * phi):
+        whitened = np.where(tested, power * background, 0.0)
+        top = np.where(at_peak, np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0], whitened.max(axis=1))
+        denominator = whitened.sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            g = np.where(denominator > 0, top / denominator, np.nan)
+        p_value = np.maximum(p_value, fisher_g_pvalue(g, np.maximum(m, 1.0)))  # NaN stays NaN
+    return np.where(m > 0, p_value, np.nan)
+
+
+def fill_gaps(resid: np.ndarray, present: np.ndarray) -> np.ndarray:
+    """``resid`` with each missing element on the line between the present elements either side of
+    it (the nearest present one before the first or after the last), row by row.
+
+    Zero-filling is right for the least-squares sums but not for a background spectrum: the
+    pattern of gaps (weekends on a daily grid) modulates a slowly wandering series and throws
+    its low-frequency power onto the gaps' own frequencies.
+    """
+    rows, n = resid.shape
+    t = np.arange(n)
+    before = np.maximum.accumulate(np.where(present, t, -1), axis=1)
+    after = np.minimum.accumulate(np.where(present, t, n)[:, ::-1], axis=1)[:, ::-1]
+    lo = np.where(before >= 0, before, after)
+    hi = np.where(after < n, after, lo)
+    lo = np.where(before >= 0, lo, hi)
+    left = np.take_along_axis(resid, np.minimum(lo, n - 1), axis=1)
+    right = np.take_along_axis(resid, np.minimum(hi, n - 1), axis=1)
+    span = hi - lo
+    share = np.where(span > 0, (t - lo) / np.where(span > 0, span, 1), 0.0)
+    return np.where(present, resid, left + share * (right - left))
 
 
 def refine(sums: Sums, k: np.ndarray, near_bins: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
