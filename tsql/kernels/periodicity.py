@@ -1,4 +1,4 @@
-"""Periodicity: the dominant period of each series, how seasonal it is, and Fisher's g test.
+"""Periodicity: the dominant period of each series, how seasonal it is, and whether its cycle stands out.
 
 All functions take a :class:`~tsql.kernels.ragged.Ragged` batch and answer one value per row;
 NaN means "no answer" (the binding turns it into SQL NULL).
@@ -21,6 +21,8 @@ How a row is analysed
    differences (half-widths 0.02, 0.002 and 0.001 bin). The refined period is clamped into
    ``[min_period, min(max_period, n / 2)]``. Numerically the refined frequency is within about
    1e-7 (relative) of the criterion's local maximum.
+5. ``seasonality``'s p-value tests the peak's ordinate against a white and against a red (AR(1))
+   background (:func:`cycle_p_value`), so that wandering series are not called seasonal.
 
 ``Q``'s Gram matrix is evaluated in closed form (Dirichlet-kernel sums over ``t = 0..n-1``); the
 data sums ``sum_t x_t exp(i w t)`` come from the DFT at Fourier frequencies and otherwise, for
@@ -106,7 +108,7 @@ def dominant_period(batch: Ragged, min_period: float = 2.0, max_period: float | 
 
 
 def seasonality(batch: Ragged, min_period: float = 2.0, max_period: float | None = None) -> dict[str, np.ndarray]:
-    """Dominant period, the share of variance its harmonics explain, and Fisher's g p-value.
+    """Dominant period, the share of variance its harmonics explain, and a p-value robust to red noise.
 
     Parameters
     ----------
@@ -132,23 +134,67 @@ def seasonality(batch: Ragged, min_period: float = 2.0, max_period: float | None
             fitted together, so the strength does not depend on the cycle's phase (a line
             fitted first would take part of a sine's variance but not of a cosine's).
         ``p_value``
-            Fisher's g test for the periodogram maximum, ``g = max_k I(f_k) / sum_k I(f_k)``,
-            over the Fourier frequencies ``f_k = k / n`` of the allowed range (periods in
-            ``[min_period, max_period]`` and at most ``n / 2``) excluding Nyquist; ``m`` is the
-            number of those frequencies. The range is restricted so that the test is about the
-            very peak the period was taken from: a strong cycle outside the range the caller
-            asked for does not make an in-range period look significant. Under Gaussian white
-            noise the periodogram ordinates are independent and identically distributed, so the
-            null distribution of ``g`` over any fixed set of ``m`` of them is Fisher's (see
-            :func:`fisher_g_pvalue`). NaN when no such frequency exists (``m = 0``). With gaps
-            (zero-filled) the null distribution is approximate.
+            Whether the cycle stands out of the noise: Fisher's g test of the periodogram
+            ordinate at the reported period (its Fourier bin), made twice, against a white and
+            against a red-noise background, and the larger p-value kept (see
+            :func:`cycle_p_value`). The ratio runs over the Fourier frequencies ``f_k = k / n``
+            of the allowed range (periods in ``[min_period, max_period]`` and at most ``n / 2``)
+            excluding Nyquist; ``m`` is their number, so a strong cycle outside the range the
+            caller asked for does not make an in-range period look significant. NaN when no
+            such frequency exists (``m = 0``).
+
+    Notes
+    -----
+    Why two backgrounds. Fisher's test assumes white noise, whose periodogram ordinates are
+    independent and identically distributed. Most business and economic series wander: a random
+    walk or a persistent AR(1) has a red spectrum, power rising towards low frequencies, and its
+    largest low-frequency ordinate is then "significant" against white noise in nearly every
+    record (a random walk of 200 points: p < 0.05 in all of 400 seeded runs). The red
+    background is the spectrum of an AR(1) process, ``1 / (1 - 2 phi cos(2 pi f) + phi^2)``, the
+    classical red-noise null of spectral analysis [3]_, [4]_, [5]_; ``phi`` is the series' own
+    lag-1 autocorrelation (from its periodogram, so no extra pass), used only when it lies
+    outside Bartlett's 95 % band ``+-1.96 / sqrt(n)`` (otherwise the background is white). The
+    ordinates are divided by it and Fisher's g taken again. A trend that is not a straight line
+    plus white noise also reads as a high ``phi``; against that background the white test is the
+    right one, so the larger p-value is kept: a cycle must stand out of both. The statistic is
+    the ordinate of the reported peak, not the largest divided ordinate, so the test is about the
+    very period reported; when another ordinate is larger after the division the test is
+    conservative.
+
+    How it was checked (seeded simulations, ``tests/test_kernel_periodicity.py``): p < 0.05 in
+    4.7 %, 4.7 %, 4.5 % and 5.0 % of white-noise runs of 64, 128, 301 and 1,000 points; in at
+    most 5.5 % of AR(1) runs with phi from 0.1 to 0.95 and 72 to 1,000 points, and in under 1 %
+    of random walks (the red background is conservative where the spectrum is steep). The
+    yearly cycles of monthly airline passengers (p = 4e-9) and of CO2 (2e-127), the sunspot
+    cycle (5e-17) and El Nino's yearly cycle (2e-227) stay far below any threshold; real GDP,
+    CPI and M1 in levels and the Nile's flow (all significant against white noise alone, down to
+    p = 4e-48) get p > 0.3. The 1.96 band and the AR(1) form are the textbook choices, not tuned.
+
+    Gaps: the periodogram of the test is taken after each missing element is put on the line
+    between its present neighbours (:func:`fill_gaps`): zero-filling would modulate a wandering
+    series by the pattern of its gaps (weekends on a daily grid) and make a cycle of that
+    pattern. With gaps the null distribution is approximate (the filled values are smoother
+    than noise, which makes the test conservative: 1 % of weekday-only white-noise runs of
+    1,000 days pass p < 0.05).
 
     References
     ----------
-    R. A. Fisher, "Tests of significance in harmonic analysis", Proc. Royal Society A 125,
-    54-59 (1929).
-    D. B. Percival and A. T. Walden, "Spectral Analysis for Physical Applications", Cambridge
-    University Press (1993), chapter 10.
+    .. [1] R. A. Fisher, "Tests of significance in harmonic analysis", Proc. Royal Society A 125,
+       54-59 (1929).
+    .. [2] D. B. Percival and A. T. Walden, "Spectral Analysis for Physical Applications",
+       Cambridge University Press (1993), chapter 10.
+    .. [3] D. L. Gilman, F. J. Fuglister and J. M. Mitchell, "On the power spectrum of 'red
+       noise'", Journal of the Atmospheric Sciences 20(2), 182-184 (1963).
+    .. [4] M. E. Mann and J. M. Lees, "Robust estimation of background noise and signal detection
+       in climatic time series", Climatic Change 33, 409-445 (1996).
+    .. [5] M. Schulz and M. Mudelsee, "REDFIT: estimating red-noise spectra directly from unevenly
+       spaced paleoclimatic time series", Computers & Geosciences 28, 421-426 (2002).
+    .. [6] M. S. Bartlett, "On the theoretical specification and sampling properties of
+       autocorrelated time-series", Supplement to the JRSS 8(1), 27-41 (1946).
+
+    See Also
+    --------
+    cycle_p_value : the test itself.
 
     Examples
     --------
@@ -330,7 +376,7 @@ def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool
     """Detrend rows of one length, take the periodogram and its peak among ``bins``.
 
     Returns ``(answerable rows mask, residuals, present mask, peak bin k, the DFT at bins
-    k - 1, k, k + 1, TSS, Fisher's g)`` for the answerable rows, or None if there are none.
+    k - 1, k, k + 1, TSS, p-value)`` for the answerable rows, or None if there are none.
     """
     n = matrix.shape[1]
     present = ~np.isnan(matrix) if gaps else None
@@ -386,7 +432,26 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
     White: ``S = 1`` (Fisher's own test). Red: the spectrum of an AR(1) process,
     ``S(f) ∝ 1 / (1 - 2 phi cos(2 pi f) + phi^2)``, with ``phi`` the row's lag-1 (circular)
     autocorrelation ``sum_k w_k I_k cos(2 pi k / n) / sum_k w_k I_k`` (``w_k`` = 1 at 0 and
-    Nyquist, 2 elsewhere), clipped to [-0.999, 0.999]. NaN where a sum is 0 or nothing is tested.
+    Nyquist, 2 elsewhere), clipped to [-0.999, 0.999], and 0 (white) inside Bartlett's band
+    ``+-1.96 / sqrt(n)``. NaN where a sum is 0 or nothing is tested. Why and how it was checked:
+    :func:`seasonality`, Notes.
+
+    References
+    ----------
+    .. [1] R. A. Fisher, "Tests of significance in harmonic analysis", Proc. Royal Society A 125,
+       54-59 (1929).
+    .. [2] M. Schulz and M. Mudelsee, "REDFIT: estimating red-noise spectra directly from unevenly
+       spaced paleoclimatic time series", Computers & Geosciences 28, 421-426 (2002).
+
+    Examples
+    --------
+    >>> x = np.cumsum(np.random.default_rng(0).standard_normal(200))  # a random walk
+    >>> spectrum = np.abs(np.fft.rfft(x - np.polyval(np.polyfit(np.arange(200), x, 1), np.arange(200)))) ** 2
+    >>> tested = (np.arange(101) >= 2) & (np.arange(101) < 100)
+    >>> peak = np.array([2 + np.argmax(spectrum[2:101])])
+    >>> white = fisher_g_pvalue(spectrum[peak] / spectrum[tested].sum(), tested.sum())
+    >>> bool(white[0] < 1e-5), bool(cycle_p_value(spectrum[None], 200, peak, tested)[0] > 0.05)
+    (True, True)
     """
     rows, width = power.shape
     tested = np.broadcast_to(tested, power.shape)
@@ -802,7 +867,7 @@ def spectral_entropy(batch: Ragged) -> np.ndarray:
     See Also
     --------
     dominant_period : the period of the strongest cycle.
-    seasonality : that cycle's strength and Fisher's g test.
+    seasonality : that cycle's strength and p-value.
 
     Examples
     --------
