@@ -2,8 +2,8 @@
 
 Each step searches the periodogram of what the cycles found so far leave unexplained, refines the
 peak off the Fourier grid as :func:`~tsql.kernels.periodicity.dominant_period` does, tests it as
-``seasonality`` does (white and red backgrounds) over the ordinates still in play, and adds the cycle's harmonics to one least-squares
-fit of all cycles found so far (with a constant and a line).
+``seasonality`` does (white and red backgrounds) over the ordinates still in play, and adds the
+cycle's harmonics to one least-squares fit of all cycles found so far (with a constant and a line).
 """
 
 from __future__ import annotations
