@@ -50,6 +50,30 @@ def test_monthly_sea_surface_temperature_has_a_twelve_month_cycle():
     assert s["p_value"][0] < 1e-20
 
 
+def test_yearly_cycles_of_shipped_monthly_series_stand_out_of_their_red_background():
+    # reference: monthly international airline passengers 1949-1960 (Box & Jenkins series G,
+    # shipped in statsmodels' SARIMAX test results) and statsmodels.datasets.co2 as monthly means
+    # (weekly Mauna Loa 1958-2001, empty months interpolated); both wander and trend, and both
+    # have a yearly cycle (calendar fact)
+    sm = pytest.importorskip("statsmodels.api")
+    results = pytest.importorskip("statsmodels.tsa.statespace.tests.results.results_sarimax")
+    airline = np.asarray(results.air2_data, dtype=float)
+    co2 = sm.datasets.co2.load_pandas().data["co2"].resample("MS").mean().interpolate().to_numpy()
+    s = seasonality(Ragged.from_list([airline, np.log(airline), co2]))
+    np.testing.assert_allclose(s["period"], 12.0, atol=0.15)
+    assert (s["p_value"] < 1e-8).all()
+
+
+def test_wandering_shipped_series_are_not_called_seasonal(nile):
+    # reference: statsmodels.datasets.macrodata (US quarterly 1959-2009: real GDP, CPI and M1 in
+    # levels, trending and wandering without a cycle) and statsmodels.datasets.nile (annual flow,
+    # a level shift in 1898); Fisher's white-noise test alone gives realgdp p = 1e-11, CPI 4e-48
+    # and M1 1e-26 at their longest allowed period
+    macro = pytest.importorskip("statsmodels.api").datasets.macrodata.load_pandas().data
+    rows = [macro[name].to_numpy(dtype=float) for name in ("realgdp", "cpi", "m1")] + [nile]
+    assert (seasonality(Ragged.from_list(rows))["p_value"] > 0.01).all()
+
+
 # --------------------------------------------------------------------------------------------
 # off-grid refinement
 # --------------------------------------------------------------------------------------------
@@ -193,7 +217,9 @@ def test_strength_of_harmonic_signal_and_of_noise():
     # the single-sinusoid optimum is pulled slightly by the harmonics' leakage
     assert s["period"][0] == pytest.approx(24, abs=0.05)
     assert s["strength"][0] > 0.99
-    assert s["p_value"][0] < 1e-30
+    # the red background's lag-1 coefficient is fitted to the whole series, cycle included (0.97
+    # here, no noise to speak of), so the harmonics weigh against the peak: p about 2e-25
+    assert s["p_value"][0] < 1e-20
     # with the period pinned to 24 the three harmonics, fitted with the line, explain it all
     pinned = seasonality(one(x), min_period=24, max_period=24)
     assert pinned["period"][0] == 24
@@ -306,6 +332,62 @@ def test_g_statistic_matches_scipy_periodogram(n, min_period, max_period):
     want = fisher_g_pvalue(np.array([g]), np.array([allowed.sum()]))[0]
     got = seasonality(one(x), min_period=min_period, max_period=max_period)["p_value"][0]
     assert got == pytest.approx(want, rel=1e-8)
+
+
+def red_noise(rng, phi: float, rows: int, n: int) -> np.ndarray:
+    """Seeded AR(1) rows (a random walk for phi = 1), started in their stationary state."""
+    shocks = rng.standard_normal((rows, n))
+    if phi == 1.0:
+        return np.cumsum(shocks, axis=1)
+    return signal.lfilter([1.0], [1.0, -phi], shocks, axis=1, zi=shocks[:, :1] / np.sqrt(1 - phi * phi))[0]
+
+
+@pytest.mark.parametrize("phi", [0.3, 0.5, 0.8, 0.95, 1.0])
+def test_seasonality_p_value_holds_against_red_noise(phi):
+    # seeded calibration: AR(1) and random-walk rows have no cycle; their spectrum is red, so the
+    # white-noise test alone calls most of them seasonal (a random walk of 200 points: p < 0.05
+    # in every run). The fraction with p < a must not exceed a by more than four binomial
+    # standard deviations (the test is conservative under strong red noise)
+    rng = np.random.default_rng(int(phi * 100))
+    rows = 1500
+    for n in (72, 300, 1000):
+        p = seasonality(Ragged.from_list(list(red_noise(rng, phi, rows, n))))["p_value"]
+        for a in (0.05, 0.01):
+            assert np.mean(p < a) - a <= 4 * np.sqrt(a * (1 - a) / rows), (phi, n, a, np.mean(p < a))
+
+
+def test_random_walks_on_weekdays_are_not_seasonal():
+    # seeded calibration: a random walk seen on weekdays only, on a daily grid (weekends missing);
+    # zero-filling alone would throw its low-frequency power onto the weekly frequencies
+    rng = np.random.default_rng(7)
+    x = red_noise(rng, 1.0, 1000, 7 * 150)
+    x[:, np.arange(x.shape[1]) % 7 >= 5] = np.nan
+    p = seasonality(Ragged.from_list(list(x)))["p_value"]
+    assert np.mean(p < 0.05) <= 0.05 + 4 * np.sqrt(0.05 * 0.95 / 1000)
+
+
+@pytest.mark.parametrize("n", [200, 301])
+def test_red_background_matches_scipy_periodogram(n):
+    # reference: scipy.signal.periodogram with linear detrending, whitened by the AR(1) spectrum
+    # 1 / (1 - 2 phi cos w + phi^2) with phi the circular lag-1 autocorrelation of the detrended
+    # series computed in the time domain; the p-value is the larger of the white and the red test
+    # of the periodogram peak
+    rng = np.random.default_rng(n)
+    x = red_noise(rng, 0.7, 1, n)[0] + 2.0 * cycle(n, 9.3) + 0.01 * np.arange(n)
+    freqs, power = signal.periodogram(x, detrend="linear")
+    d = signal.detrend(x)
+    phi = (d * np.roll(d, -1)).sum() / (d * d).sum()
+    assert phi > 1.96 / np.sqrt(n)  # red enough for the red background to count
+    k = np.arange(len(freqs))
+    allowed = (k >= 2) & (2 * k < n)
+    peak = np.argmax(np.where((k >= 2) & (2 * k <= n), power, -1.0))
+    want = 0.0
+    for ordinates in (power, power * (1 - 2 * phi * np.cos(2 * np.pi * freqs) + phi * phi)):
+        g = ordinates[peak] / ordinates[allowed].sum()
+        want = max(want, fisher_g_pvalue(np.array([g]), np.array([allowed.sum()]))[0])
+    got = seasonality(one(x))["p_value"][0]
+    assert got == pytest.approx(want, rel=1e-8)
+    assert got > fisher_g_pvalue(np.array([power[allowed].max() / power[allowed].sum()]), np.array([allowed.sum()]))[0]
 
 
 # --------------------------------------------------------------------------------------------

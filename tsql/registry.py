@@ -227,7 +227,7 @@ FUNCTIONS: tuple[Function, ...] = (
         family="periodicity",
         returns=struct(period=DOUBLE, strength=DOUBLE, p_value=DOUBLE),
         kernel_path="periodicity:seasonality",
-        doc="Dominant period, share of variance its harmonics explain, and Fisher's g p-value.",
+        doc="Dominant period, share of variance its harmonics explain, and a p-value that holds against red noise.",
         example="SELECT seasonality([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2]) AS s;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no period fits two cycles",
         see_also=("dominant_period", "spectral_entropy", "harmonic_profile"),
@@ -716,8 +716,8 @@ FUNCTIONS += (
         family="periodicity",
         returns=ListOf(struct(period=DOUBLE, strength=DOUBLE, p_value=DOUBLE)),
         kernel_path="cycles:periods",
-        doc="Up to k distinct cycles, strongest first: period, share of variance, Fisher's g p-value after the "
-        "earlier ones.",
+        doc="Up to k distinct cycles, strongest first: period, share of variance, p-value (as seasonality's) after "
+        "the earlier ones.",
         example="SELECT periods([3, 8, 4, 1, 3, 9, 4, 1, 2, 8, 5, 1, 3, 8, 4, 2], k := 2) AS cycles;",
         null_rows=SERIES_TOO_SHORT.format(n=4) + ", or no Fourier period in the range",
         see_also=("seasonality", "dominant_period", "stl_strength"),

@@ -1,9 +1,9 @@
 """Several cycles per series: the strongest cycle, then the strongest of what is left, and so on.
 
 Each step searches the periodogram of what the cycles found so far leave unexplained, refines the
-peak off the Fourier grid as :func:`~tsql.kernels.periodicity.dominant_period` does, tests it with
-Fisher's g over the ordinates still in play, and adds the cycle's harmonics to one least-squares
-fit of all cycles found so far (with a constant and a line).
+peak off the Fourier grid as :func:`~tsql.kernels.periodicity.dominant_period` does, tests it as
+``seasonality`` does (white and red backgrounds) over the ordinates still in play, and adds the
+cycle's harmonics to one least-squares fit of all cycles found so far (with a constant and a line).
 """
 
 from __future__ import annotations
@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from tsql.kernels.cancel import checkpoint
-from tsql.kernels.periodicity import Group, Sums, allowed_bins, fisher_g_pvalue, refine
+from tsql.kernels.periodicity import Group, Sums, allowed_bins, cycle_p_value, fill_gaps, refine
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords, in_safe_range
 
 __all__ = ["periods"]
@@ -51,13 +51,17 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
             fit of a constant, a line and ``H = min(3, floor(period / 2))`` harmonic pairs of every
             cycle reported so far. The strengths of a row add up to at most 1.
         ``p_value``
-            Fisher's g test of the largest ordinate of the remaining periodogram (the residuals
-            of that fit without the new cycle), over the Fourier frequencies of the range that
+            The test of :func:`~tsql.kernels.periodicity.seasonality` (Fisher's g of the peak's
+            ordinate against a white and against a red, AR(1), background; the larger p-value)
+            on the remaining periodogram (the residuals of that fit without the new cycle, gaps
+            filled along the line), over the Fourier frequencies of the range that
             are not the nearest bins to a harmonic ``j / P`` (``j >= 1``) of a reported cycle
-            ``P``, Nyquist excluded. When the earlier cycles are real, the remaining ordinates
-            are those of the noise and the test is Fisher's exact test on fewer ordinates; when
+            ``P``, Nyquist excluded. The red background's lag-1 coefficient is that of the
+            remaining residuals, so it describes the noise once the earlier cycles are out. When
+            the earlier cycles are real, the remaining ordinates are those of the noise; when
             an earlier cycle was itself noise, its ordinate was the largest and the test is
-            conservative.
+            conservative. Seeded AR(1) (phi = 0.8) and random-walk rows of 200 points get each
+            p below 0.05 in at most about 5 % of runs.
 
     Notes
     -----
@@ -72,6 +76,8 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
     ----------
     R. A. Fisher, "Tests of significance in harmonic analysis", Proc. Royal Society A 125,
     54-59 (1929).
+    M. Schulz and M. Mudelsee, "REDFIT: estimating red-noise spectra directly from unevenly
+    spaced paleoclimatic time series", Computers & Geosciences 28, 421-426 (2002).
     P. Whittle, "The simultaneous estimation of a time series' harmonic components and covariance
     structure", Trabajos de Estadistica 3, 43-57 (1952) (testing further peaks after removing
     the largest).
@@ -127,6 +133,7 @@ def _search(matrix: np.ndarray, bins: np.ndarray, k: int, min_period: float, max
     m, n = matrix.shape
     out = np.full((m, k, 3), np.nan)
     present = ~np.isnan(matrix)
+    gaps = not present.all()
     usable = (present.sum(axis=1) >= _MIN_PRESENT) & ~np.isinf(matrix).any(axis=1)
     w = present.astype(np.float64)
     y = np.where(present & usable[:, None], matrix, 0.0)
@@ -154,14 +161,11 @@ def _search(matrix: np.ndarray, bins: np.ndarray, k: int, min_period: float, max
         spectrum = np.fft.rfft(resid, axis=1)
         power = spectrum.real**2 + spectrum.imag**2
         peak = np.argmax(np.where(candidates, power, -1.0), axis=1)
-        in_test = fisher & ~excluded
-        count = in_test.sum(axis=1)
-        total = np.where(in_test, power, 0.0).sum(axis=1)
-        top = np.where(in_test, power, 0.0).max(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            g = np.where((count > 0) & (total > 0), top / total, np.nan)
-        p_value = fisher_g_pvalue(g, np.maximum(count, 1))
-        p_value = np.where(count > 0, p_value, np.nan)
+        test_power = power
+        if gaps:
+            filled = np.fft.rfft(fill_gaps(resid, present), axis=1)
+            test_power = filled.real**2 + filled.imag**2
+        p_value = cycle_p_value(test_power, n, peak, fisher & ~excluded)
         period = np.full(m, np.nan)
         idx = np.flatnonzero(live)
         period[idx] = _refined_period(resid[idx], present[idx], spectrum[idx], peak[idx], n, f_lo, min_period, p_hi)
