@@ -18,7 +18,7 @@ One compiled pass per row does the work, in O(n log n) time for typical rows:
   sampled median is counted first, then a sampled slope just beyond the
   middle ranks on the other side, then points where linear interpolation of
   the counts puts the middle ranks; once those two points should hold at most
-  about ``8n`` slopes, the slopes between them are listed outright (the last
+  about ``2n`` slopes, the slopes between them are listed outright (the last
   step below, from there), and only when the middle ranks are not among them
   are the two points counted and the bracket narrowed on.  The sampled pairs
   are drawn once per row length.  A count near a bracket end whose order is kept is an insertion
@@ -76,7 +76,7 @@ _K_FINAL = 4_000_000  # most slopes a single row may list in its final step
 _MAX_ROUNDS = 200
 _RUN = 16  # runs sorted by insertion before merging
 _PIECE = 1 << 20  # present values per compiled call; a checkpoint between calls
-_SPECULATE = 8  # a round lists its window outright when it should hold at most this many slopes per value
+_SPECULATE = 2  # a round lists its window outright when it should hold at most this many slopes per value
 
 
 # --------------------------------------------------------------------------- #
@@ -281,7 +281,7 @@ def _all_pairs(x, t, buf):
 
 
 @njit(cache=True, nogil=True)
-def _sen(x, t, disc, ties, order0, k_final, fw, iw, sample_buf, pairs):
+def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs):
     """Exact median pairwise slope of one row by counting and selection.
 
     ``disc`` and ``disc + ties`` are the exact numbers of slopes < 0 and
@@ -389,7 +389,7 @@ def _sen(x, t, disc, ties, order0, k_final, fw, iw, sample_buf, pairs):
         if stalled:
             p1, e1 = lo + (hi - lo) / 3, clo + K / 3
             p2, e2 = hi - (hi - lo) / 3, chi - K / 3
-        elif e2 - e1 <= _SPECULATE * n and lo < p1 < p2 < hi:
+        elif e2 - e1 <= speculate * n and lo < p1 < p2 < hi:
             # list the slopes between p1 and p2 straight away, from the nearer
             # end's order (a copy): exact when the middle ranks lie between
             lower = e1 - clo <= chi - e1
@@ -462,7 +462,7 @@ def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
 
 
 @njit(cache=True, nogil=True)
-def _rows(values, offsets, rows, pairwise_max, k_final, counts, S, t2, t3, slope):
+def _rows(values, offsets, rows, pairwise_max, k_final, speculate, counts, S, t2, t3, slope):
     """Mann–Kendall S, tie sums and Sen's slope for ``rows`` of the flat
     ``values`` (row ``r`` is ``values[offsets[r] : offsets[r + 1]]``; NaN is
     missing).  ``counts`` gets each row's number of present values, or -1
@@ -518,7 +518,7 @@ def _rows(values, offsets, rows, pairwise_max, k_final, counts, S, t2, t3, slope
         order0[:n] = iv
         if n != pairs_of:
             pairs_of, npairs_sampled = n, _sample_pairs(n, pairs)
-        slope[r] = _sen(x, t, disc, tie2, order0[:n], k_final, fw, iw, sample, pairs[:npairs_sampled])
+        slope[r] = _sen(x, t, disc, tie2, order0[:n], k_final, speculate, fw, iw, sample, pairs[:npairs_sampled])
     return 0
 
 
@@ -603,7 +603,19 @@ def trend_test(batch: Ragged) -> dict[str, np.ndarray]:
     begin = 0
     while begin < len(rows):  # pieces of about _PIECE values, a checkpoint between them
         stop = max(begin + 1, int(np.searchsorted(done, done[begin] - lengths[rows[begin]] + _PIECE, "right")))
-        _rows(values, offsets, rows[begin:stop], int(PAIRWISE_MAX), int(_K_FINAL), counts, S, t2, t3, slope)
+        _rows(
+            values,
+            offsets,
+            rows[begin:stop],
+            int(PAIRWISE_MAX),
+            int(_K_FINAL),
+            int(_SPECULATE),
+            counts,
+            S,
+            t2,
+            t3,
+            slope,
+        )
         checkpoint()
         begin = stop
     rows = np.flatnonzero(counts >= 3)
