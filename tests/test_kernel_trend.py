@@ -314,6 +314,23 @@ def test_routes_agree(monkeypatch):
         np.testing.assert_array_equal(pairwise[key], counting[key])
 
 
+def test_listing_outright_changes_no_answer(monkeypatch):
+    # a bracket round may list the slopes of its window outright (_SPECULATE)
+    # instead of counting at both ends; never, always and the default must
+    # give the same answers, bit for bit, and theilslopes' slope
+    rng = np.random.default_rng(21)
+    series = [np.cumsum(rng.normal(size=n)) + 0.01 * np.arange(n) for n in (60, 300, 1000, 2500)]
+    series += [np.round(rng.normal(size=n) * 3) + 0.002 * np.arange(n) for n in (200, 1500)]
+    series += [np.where(rng.random(800) < 0.1, np.nan, rng.normal(size=800) + 0.005 * np.arange(800))]
+    default = run(series)
+    for speculate in (0, 10**6):
+        monkeypatch.setattr(trend, "_SPECULATE", speculate)
+        other = run(series)
+        for key in KEYS:
+            np.testing.assert_array_equal(other[key], default[key])
+    check_against_scipy(series)
+
+
 def test_inversion_count_against_kendalltau():
     # a permutation longer than 2**15 exercises the wide position sums
     rng = np.random.default_rng(13)

@@ -17,8 +17,11 @@ One compiled pass per row does the work, in O(n log n) time for typical rows:
   counting of Matoušek [5]_ and Dillencourt, Mount and Netanyahu [6]_: the
   sampled median is counted first, then a sampled slope just beyond the
   middle ranks on the other side, then points where linear interpolation of
-  the counts puts the middle ranks, until about ``8n`` slopes remain in the
-  bracket.  A count near a bracket end whose order is kept is an insertion
+  the counts puts the middle ranks; once those two points should hold at most
+  about ``2n`` slopes, the slopes between them are listed outright (the last
+  step below, from there), and only when the middle ranks are not among them
+  are the two points counted and the bracket narrowed on.  The sampled pairs
+  are drawn once per row length.  A count near a bracket end whose order is kept is an insertion
   sort from that order, in O(n + the slopes between); a count farther away a
   merge sort.  Last, an insertion sort carries the order at the lower end of
   the bracket to the order at the upper end: its exchanges are exactly the
@@ -73,6 +76,7 @@ _K_FINAL = 4_000_000  # most slopes a single row may list in its final step
 _MAX_ROUNDS = 200
 _RUN = 16  # runs sorted by insertion before merging
 _PIECE = 1 << 20  # present values per compiled call; a checkpoint between calls
+_SPECULATE = 2  # a round lists its window outright when it should hold at most this many slopes per value
 
 
 # --------------------------------------------------------------------------- #
@@ -150,6 +154,24 @@ def _splitmix(state):
     z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
     z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
     return state, z ^ (z >> np.uint64(31))
+
+
+@njit(cache=True, nogil=True)
+def _sample_pairs(n, pairs):
+    """The sampled pairs ``i < j`` of a row of ``n`` present values, from a
+    splitmix64 stream seeded by ``n``: the same pairs for every row of a
+    length.  Fills ``pairs`` (rows ``(i, j)``) and returns how many."""
+    s = min(n * (n - 1) // 2, max(1024, n))
+    state = np.uint64(n)
+    for q in range(s):
+        state, r1 = _splitmix(state)
+        state, r2 = _splitmix(state)
+        i = np.int64(r1 % np.uint64(n))
+        j = np.int64(r2 % np.uint64(n - 1))
+        if j >= i:
+            j += 1
+        pairs[q, 0], pairs[q, 1] = min(i, j), max(i, j)
+    return s
 
 
 @njit(cache=True, nogil=True)
@@ -259,12 +281,13 @@ def _all_pairs(x, t, buf):
 
 
 @njit(cache=True, nogil=True)
-def _sen(x, t, disc, ties, order0, k_final, fw, iw, sample_buf):
+def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs):
     """Exact median pairwise slope of one row by counting and selection.
 
     ``disc`` and ``disc + ties`` are the exact numbers of slopes < 0 and
     <= 0, ``order0`` the values' stable order (the order of ``x - 0 * t``);
-    ``w`` holds work space (see ``_rows``).  Returns the slope, or NaN when
+    ``pairs`` the sampled pairs (``_sample_pairs``), ``w`` holds work space
+    (see ``_rows``).  Returns the slope, or NaN when
     the exact selection failed (which the rounding margin rules out).
 
     The bracket ``(lo, hi]`` holds the two middle ranks: the count of slopes
@@ -312,17 +335,10 @@ def _sen(x, t, disc, ties, order0, k_final, fw, iw, sample_buf):
     br, bc = np.empty(2), np.empty(2, dtype=np.int64)  # the bracket's ends and their counts
     br[0], br[1], bc[0], bc[1] = lo, hi, clo, chi
     # a fixed sample of pair slopes estimates the count at any slope
-    sample = sample_buf[: min(N, max(1024, n))]  # depends on n only
+    sample = sample_buf[: len(pairs)]
     s = len(sample)
-    state = np.uint64(n)
     for q in range(s):
-        state, r1 = _splitmix(state)
-        state, r2 = _splitmix(state)
-        i = np.int64(r1 % np.uint64(n))
-        j = np.int64(r2 % np.uint64(n - 1))
-        if j >= i:
-            j += 1
-        i, j = min(i, j), max(i, j)
+        i, j = pairs[q, 0], pairs[q, 1]
         sample[q] = (x[j] - x[i]) / (t[j] - t[i])
     # first the sampled median, then a sampled slope beyond the middle ranks
     # on the other side, by the sample's error at that distance, doubled
@@ -373,6 +389,15 @@ def _sen(x, t, disc, ties, order0, k_final, fw, iw, sample_buf):
         if stalled:
             p1, e1 = lo + (hi - lo) / 3, clo + K / 3
             p2, e2 = hi - (hi - lo) / 3, chi - K / 3
+        elif e2 - e1 <= speculate * n and lo < p1 < p2 < hi:
+            # list the slopes between p1 and p2 straight away, from the nearer
+            # end's order (a copy): exact when the middle ranks lie between
+            lower = e1 - clo <= chi - e1
+            trial = iw[1, :n]
+            trial[:] = order_lo if lower else order_hi
+            got = _final(x, t, u, tau, umax, tmax, p1, p2, clo if lower else chi, k1, k2, trial, fw[2, :n])
+            if not np.isnan(got):
+                return got
         if br[0] < p1 < br[1]:
             _probe(p1, e1, br, bc, k1, k2, x, t, fw, iw)
         if br[0] < p2 < br[1]:
@@ -437,7 +462,7 @@ def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
 
 
 @njit(cache=True, nogil=True)
-def _rows(values, offsets, rows, pairwise_max, k_final, counts, S, t2, t3, slope):
+def _rows(values, offsets, rows, pairwise_max, k_final, speculate, counts, S, t2, t3, slope):
     """Mann–Kendall S, tie sums and Sen's slope for ``rows`` of the flat
     ``values`` (row ``r`` is ``values[offsets[r] : offsets[r + 1]]``; NaN is
     missing).  ``counts`` gets each row's number of present values, or -1
@@ -449,6 +474,8 @@ def _rows(values, offsets, rows, pairwise_max, k_final, counts, S, t2, t3, slope
     fw = np.empty((4, longest))  # u, tau, key, merge work
     iw = np.empty((4, longest), dtype=np.int64)  # order, merge work, order at lo, order at hi
     sample = np.empty(max(1024, longest))
+    pairs = np.empty((max(1024, longest), 2), dtype=np.int64)
+    pairs_of, npairs_sampled = -1, 0  # the length the pairs were drawn for
     order0 = np.empty(longest, dtype=np.int64)
     pair_buf = np.empty(pairwise_max * (pairwise_max - 1) // 2 if pairwise_max > 1 else 0)
     for r in rows:
@@ -489,7 +516,9 @@ def _rows(values, offsets, rows, pairwise_max, k_final, counts, S, t2, t3, slope
             slope[r] = _all_pairs(x, t, pair_buf)
             continue
         order0[:n] = iv
-        slope[r] = _sen(x, t, disc, tie2, order0[:n], k_final, fw, iw, sample)
+        if n != pairs_of:
+            pairs_of, npairs_sampled = n, _sample_pairs(n, pairs)
+        slope[r] = _sen(x, t, disc, tie2, order0[:n], k_final, speculate, fw, iw, sample, pairs[:npairs_sampled])
     return 0
 
 
@@ -574,7 +603,19 @@ def trend_test(batch: Ragged) -> dict[str, np.ndarray]:
     begin = 0
     while begin < len(rows):  # pieces of about _PIECE values, a checkpoint between them
         stop = max(begin + 1, int(np.searchsorted(done, done[begin] - lengths[rows[begin]] + _PIECE, "right")))
-        _rows(values, offsets, rows[begin:stop], int(PAIRWISE_MAX), int(_K_FINAL), counts, S, t2, t3, slope)
+        _rows(
+            values,
+            offsets,
+            rows[begin:stop],
+            int(PAIRWISE_MAX),
+            int(_K_FINAL),
+            int(_SPECULATE),
+            counts,
+            S,
+            t2,
+            t3,
+            slope,
+        )
         checkpoint()
         begin = stop
     rows = np.flatnonzero(counts >= 3)
