@@ -869,7 +869,13 @@ def dtw_nearest(
     when not normalised, 26 % and 74 % when normalised (without a band the
     envelope is the whole range; bounds over the first and last few steps of
     the path, as in LB_Enhanced, would still leave about 60 %). Give ``band``
-    with ``normalize`` where the shapes may only shift a little.
+    with ``normalize`` where the shapes may only shift a little. Without a
+    band, a bound by each element's nearest element of the other series
+    (LB_New, Shen et al. 2018, by one merge of the sorted series) with
+    LB_Enhanced's last layers, also as the early-abandoning tail, cut the
+    cells of the programme by a quarter (40.7M to 30.1M rows of a tile on those
+    1,000 curves; 188.7M to 139.2M normalised) but cost as much time as it
+    saved (measured side by side), so it is not used.
 
     See Also
     --------
