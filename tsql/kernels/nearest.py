@@ -335,8 +335,9 @@ def _live(values, rest, shrink, cut_sq):
 def _warp_tile(x, ys, w, cut_sq, tails, above, here, out):
     """:func:`_warp` of ``x`` against the ``_LANES`` columns of ``ys`` (all of one length), stepped together.
 
-    The innermost loops run across the lanes and compile to vector
-    instructions. A row is worked over the union of the lanes' live cells, so a
+    The innermost loops run across the lanes: independent chains of
+    arithmetic the processor overlaps (they compile to scalar instructions,
+    not vector ones: numba cannot prove the arrays apart). A row is worked over the union of the lanes' live cells, so a
     lane's live cells are exact as in :func:`_warp` (a dead cell computed for
     the sake of another lane may come out too large, and stays dead). ``out``
     gets each lane's squared cost, or ``inf`` when it is above the cutoff.
