@@ -227,7 +227,7 @@ def test_every_section_shows_its_sql(pages):
     ):
         assert snippet in text
     assert "harmonic_smooth_agg" in text and "segments_agg" in text
-    assert "quantile_cont(value, 0.1)" in pages["contacts"].read_text(encoding="utf-8")
+    assert "quantile_cont(value - level, 0.1)" in pages["contacts"].read_text(encoding="utf-8")
 
 
 # --- the page in headless Chromium ---------------------------------------------------------------
@@ -275,8 +275,11 @@ def browser(tmp_path_factory):
 
 
 def open_page(browser, path: Path):
+    """Open a page and wait until its script has drawn what is in view (the overview's plot resolves later)."""
+    from selenium.webdriver.support.ui import WebDriverWait
+
     browser.get(path.resolve().as_uri())
-    assert browser.execute_script("return document.body.dataset.ready") == "1"
+    WebDriverWait(browser, 30).until(lambda b: b.execute_script("return document.body.dataset.ready") == "1")
     return browser
 
 
