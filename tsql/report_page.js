@@ -61,10 +61,15 @@ if (pts.length) {
     customdata: rows.map(r => [r[C.period], fmt(r[C.qs])]),
     hovertemplate: '<b>%{text}</b><br>period %{customdata[0]}<br>strength %{y:.2f}, q %{customdata[1]}<extra></extra>',
     marker: {size: 5, color: colour, opacity: 0.6}});
+  // periods of dates read as spans: a day, a week, a month ... (a log axis' own ticks would be 6 7 8 9 100 2 3)
+  const periodTicks = ([lo, hi]) => { if (!D.temporal) return {};
+    const t = [[1, '1 day'], [7, '1 week'], [30.44, '1 month'], [60.88, '2 months'], [91.31, '3 months'], [182.6, '6 months'], [365.25, '1 year'], [730.5, '2 years'], [1461, '4 years'], [3652.5, '10 years']]
+      .filter(([d]) => d >= lo / 1.5 && d <= hi * 1.5);
+    return t.length >= 2 ? {tickvals: t.map(x => x[0]), ticktext: t.map(x => x[1])} : {}; };
   overview = plot($('scatter'), [dots(pts.filter(r => !seasonal(r)), 'not seasonal', GREY), dots(pts.filter(seasonal), `seasonal (q ≤ ${D.level})`, RED)],
-    {height: 320, showlegend: true, legend: {orientation: 'h', x: 1, xanchor: 'right', y: 1.08},
-     xaxis: {type: xr[1] / xr[0] > 4 ? 'log' : 'linear', title: {text: D.temporal ? 'period (days)' : 'period'}, gridcolor: '#eef1f5'},
-     yaxis: {title: {text: 'strength'}, range: [0, 1.02], gridcolor: '#eef1f5'}, margin: {l: 56, r: 12, t: 24, b: 44}});
+    {height: 320, showlegend: true, legend: {orientation: 'h', x: 0, y: 1.12},
+     xaxis: Object.assign({type: xr[1] / xr[0] > 4 ? 'log' : 'linear', title: {text: 'period' + (xr[1] / xr[0] > 4 ? ' (log scale)' : '')}, gridcolor: '#eef1f5'}, periodTicks(xr)),
+     yaxis: {title: {text: 'strength'}, range: [0, 1.02], gridcolor: '#eef1f5'}, margin: {l: 56, r: 12, t: 36, b: 44}});
 }
 
 // table: sort, filter, pages
