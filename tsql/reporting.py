@@ -526,6 +526,9 @@ def report(
     cycles and of the trends become Benjamini-Hochberg q-values across the screen [1]_. A series
     is flagged when either q-value is at most ``level`` or it has a change point.
 
+    The charts are drawn by plotly.js, inlined into the page from the optional ``plotly`` package
+    (``pip install 'seriesql[report]'``); without it the call raises :class:`ReportError` at once.
+
     References
     ----------
     .. [1] Y. Benjamini and Y. Hochberg, "Controlling the false discovery rate: a practical and
