@@ -7,8 +7,8 @@ series of ``--points`` each (a quarter each: yearly cycle, trend, a level shift,
 the median seconds to write the page (screen and page, tsql registered and its kernels compiled
 beforehand), the file size (plotly.js, about 4.8 MB, included), the bytes per series, and the
 seconds headless Chromium takes from navigation to the page's script having drawn what is in view
-(the overview and the table; lower charts are drawn when scrolled to): the first open in a fresh
-profile and the median of the next ones (when chromium, chromedriver and selenium are installed).
+(the overview and the table; lower charts are drawn when scrolled to): medians of the first open in
+a fresh profile and of the second open (when chromium, chromedriver and selenium are installed).
 A single run on a shared machine: quote medians, compare within the run.
 """
 
@@ -64,8 +64,8 @@ def synthetic(n_series: int, points: int) -> pa.Table:
 
 def open_seconds(path: Path, repeat: int) -> tuple[float, float] | None:
     """Seconds from navigation to ``document.body.dataset.ready`` (what is in view drawn) in headless Chromium
-    with the network off: the first open in a fresh profile (plotly.js compiled), and the median of ``repeat``
-    opens after it."""
+    with the network off: the median of ``repeat`` first opens, each in a fresh profile (plotly.js compiled),
+    and the median of the second opens that follow them (compiled code cached)."""
     chromium, driver_path = shutil.which("chromium"), shutil.which("chromedriver")
     try:
         from selenium import webdriver
@@ -74,27 +74,28 @@ def open_seconds(path: Path, repeat: int) -> tuple[float, float] | None:
         return None
     if chromium is None or driver_path is None:
         return None
-    options = webdriver.ChromeOptions()
-    options.binary_location = chromium
     flags = ("--headless", "--no-sandbox", "--disable-gpu", "--no-first-run", "--window-size=1280,1600")
-    for flag in (*flags, "--host-resolver-rules=MAP * ~NOTFOUND", "--proxy-server=127.0.0.1:9"):
-        options.add_argument(flag)
-    with tempfile.TemporaryDirectory() as profile:
-        options.add_argument(f"--user-data-dir={profile}")
-        driver = webdriver.Chrome(options=options, service=webdriver.ChromeService(executable_path=driver_path))
-        try:
-            times = []
-            for _ in range(repeat + 1):
-                driver.get("about:blank")
-                started = time.perf_counter()
-                driver.get(path.resolve().as_uri())
-                WebDriverWait(driver, 120, poll_frequency=0.02).until(
-                    lambda d: d.execute_script("return document.body.dataset.ready") == "1"
-                )
-                times.append(time.perf_counter() - started)
-        finally:
-            driver.quit()
-    return times[0], statistics.median(times[1:])
+    first, then = [], []
+    for _ in range(repeat):
+        options = webdriver.ChromeOptions()
+        options.binary_location = chromium
+        for flag in (*flags, "--host-resolver-rules=MAP * ~NOTFOUND", "--proxy-server=127.0.0.1:9"):
+            options.add_argument(flag)
+        with tempfile.TemporaryDirectory() as profile:
+            options.add_argument(f"--user-data-dir={profile}")
+            driver = webdriver.Chrome(options=options, service=webdriver.ChromeService(executable_path=driver_path))
+            try:
+                for times in (first, then):
+                    driver.get("about:blank")
+                    started = time.perf_counter()
+                    driver.get(path.resolve().as_uri())
+                    WebDriverWait(driver, 120, poll_frequency=0.02).until(
+                        lambda d: d.execute_script("return document.body.dataset.ready") == "1"
+                    )
+                    times.append(time.perf_counter() - started)
+            finally:
+                driver.quit()
+    return statistics.median(first), statistics.median(then)
 
 
 def baseline(folder: Path, repeat: int) -> None:
