@@ -4,10 +4,12 @@ from __future__ import annotations
 
 import contextlib
 import datetime as dt
+import importlib.util
 import io
 import json
 import re
 import shutil
+import sys
 from pathlib import Path
 
 import duckdb
@@ -16,9 +18,12 @@ import pytest
 
 import tsql
 from tsql.cli import main
-from tsql.reporting import ReportError, screen_queries
+from tsql.reporting import MISSING_PLOTLY, ReportError, screen_queries
 
 LEVEL = 0.05
+needs_plotly = pytest.mark.skipif(
+    importlib.util.find_spec("plotly") is None, reason="plotly is not installed (the report extra)"
+)
 
 
 @pytest.fixture(scope="module")
@@ -36,6 +41,7 @@ def con(warehouse):
 @pytest.fixture(scope="module")
 def pages(con, tmp_path_factory) -> dict[str, Path]:
     """The sample warehouse's reports: monthly sales, hourly contacts, and log prices with model 'trend'."""
+    pytest.importorskip("plotly", reason="plotly is not installed (the report extra)")
     folder = tmp_path_factory.mktemp("pages")
     return {
         "sales": tsql.report(
@@ -127,6 +133,52 @@ def test_load_profile_peaks_at_the_planted_hour(con, pages):
         assert all(low <= high and n > 0 for _, _, low, high, n in profile)
 
 
+@needs_plotly
+def test_load_band_is_residual_adjusted(tmp_path):
+    """The band is the hour's mean plus the 10th-90th percentiles of the residuals about the slow level, the
+    level being classical decomposition's centred 2x24 moving average: checked against statsmodels'
+    seasonal_decompose (its trend) and numpy's percentiles (linear, as quantile_cont). On seeded hourly series
+    with a steep trend, the raw values' percentiles at an hour would span the trend; the band spans the noise
+    (N(0, 3): a 10th-90th width of 2 * 1.2816 * 3, scipy's normal quantile)."""
+    seasonal_decompose = pytest.importorskip("statsmodels.tsa.seasonal").seasonal_decompose
+    norm = pytest.importorskip("scipy.stats").norm
+    rng = np.random.default_rng(7)
+    hours = np.arange(60 * 24)
+    start = np.datetime64("2024-03-01T00:00")
+    curves = {
+        "up": 100 + 2.0 * hours / 24 + 20 * np.cos(2 * np.pi * (hours - 14) / 24) + rng.normal(0, 3, hours.size),
+        "down": 400 - 3.0 * hours / 24 + 35 * np.cos(2 * np.pi * (hours - 9) / 24) + rng.normal(0, 3, hours.size),
+    }
+    con = tsql.connect()
+    con.execute("SET enable_progress_bar = false")
+    for name, x in curves.items():
+        con.execute(
+            "CREATE OR REPLACE TEMP TABLE part AS SELECT ? AS queue, unnest(?) AS hour, unnest(?) AS contacts",
+            [name, list((start + hours.astype("timedelta64[h]")).astype(dt.datetime)), x.tolist()],
+        )
+        con.execute("CREATE TABLE IF NOT EXISTS load AS FROM part WITH NO DATA")
+        con.execute("INSERT INTO load FROM part")
+    path = tsql.report(con, "load", series="queue", time="hour", value="contacts", path=tmp_path / "load.html")
+    load = embedded(path)["load"]
+    assert load["phase"] == "hour" and sorted(load["profiles"]) == ["down", "up"]
+    noise = 2 * norm.ppf(0.9) * 3
+    for name, x in curves.items():
+        level = seasonal_decompose(x, period=24).trend
+        whole = ~np.isnan(level)
+        profile = np.array(load["profiles"][name], dtype=float)
+        np.testing.assert_array_equal(profile[:, 0], np.arange(24))
+        for h in range(24):
+            at = hours % 24 == h
+            residual = (x - level)[at & whole]
+            expected = x[at].mean()
+            low = expected + np.percentile(residual, 10) - residual.mean()
+            high = expected + np.percentile(residual, 90) - residual.mean()
+            np.testing.assert_allclose(profile[h, 1:4], [expected, low, high], rtol=1e-3)
+            assert profile[h, 4] == at.sum()
+            raw = np.percentile(x[at], 90) - np.percentile(x[at], 10)
+            assert 0.5 * noise < high - low < 1.6 * noise and raw > 8 * (high - low), (name, h)
+
+
 def test_look_alike_groups_keep_planted_twins_together(con, pages):
     """Planted look-alike pairs (the same curve at 10-40 times the volume) whose both items were grouped
     share their group; each group's medoid is a member, and the curves are z-scores (numpy's mean and std)."""
@@ -145,12 +197,21 @@ def test_look_alike_groups_keep_planted_twins_together(con, pages):
             assert abs(z.mean()) < 0.01 and abs(z.std() - 1) < 0.01
 
 
+def markup(path: Path) -> str:
+    """The page without the text of its inline scripts (plotly.js holds URLs it never fetches on a page like
+    this one: map tiles, the cloud editor, licences)."""
+    return re.sub(r"(<script[^>]*>).*?(</script>)", r"\1\2", path.read_text(encoding="utf-8"), flags=re.S)
+
+
 def test_the_page_is_offline(pages):
-    """Nothing a browser would fetch: no http(s) reference, no src or href outside the page."""
+    """Nothing in the markup or the style a browser would fetch: no http(s) reference, no src, no link, no
+    url(); every href is a link inside the page. What the scripts do is checked in Chromium below
+    (test_nothing_is_fetched)."""
     for path in pages.values():
-        text = path.read_text(encoding="utf-8")
+        text = markup(path)
+        assert text.count("<script") == 3 and "<script src" not in text
         assert "http://" not in text and "https://" not in text
-        assert not re.search(r"\bsrc\s*=", text)
+        assert not re.search(r"\bsrc\s*=|<link\b|url\(|@import", text, re.I)
         assert all(h.startswith("#") for h in re.findall(r'href="([^"]*)"', text))
         assert "Caution" in text and "not trading, staffing or safety advice" in text
 
@@ -165,7 +226,7 @@ def test_every_section_shows_its_sql(pages):
     ):
         assert snippet in text
     assert "harmonic_smooth_agg" in text and "segments_agg" in text
-    assert "quantile_cont(value, 0.1)" in pages["contacts"].read_text(encoding="utf-8")
+    assert "quantile_cont(value - level, 0.1)" in pages["contacts"].read_text(encoding="utf-8")
 
 
 # --- the page in headless Chromium ---------------------------------------------------------------
@@ -200,26 +261,72 @@ def browser(tmp_path_factory):
     for flag in FLAGS:
         options.add_argument(flag)
     options.add_argument(f"--user-data-dir={tmp_path_factory.mktemp('chromium-profile')}")
-    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    # the console, and every request the page makes (DevTools' Network events)
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL", "performance": "ALL"})
     driver = webdriver.Chrome(options=options, service=webdriver.ChromeService(executable_path=CHROMEDRIVER))
     try:
+        driver.execute_cdp_cmd("Network.enable", {})
+        offline = {"offline": True, "latency": 0, "downloadThroughput": 0, "uploadThroughput": 0}
+        driver.execute_cdp_cmd("Network.emulateNetworkConditions", offline)
         yield driver
     finally:
         driver.quit()
 
 
 def open_page(browser, path: Path):
+    """Open a page and wait until its script has drawn what is in view (the overview's plot resolves later)."""
+    from selenium.webdriver.support.ui import WebDriverWait
+
     browser.get(path.resolve().as_uri())
-    assert browser.execute_script("return document.body.dataset.ready") == "1"
+    WebDriverWait(browser, 30).until(lambda b: b.execute_script("return document.body.dataset.ready") == "1")
     return browser
+
+
+def draw(browser, chart) -> None:
+    """Scroll a chart into view and wait until plotly has drawn it (charts below the fold are drawn lazily)."""
+    from selenium.webdriver.support.ui import WebDriverWait
+
+    browser.execute_script("arguments[0].scrollIntoView({block: 'center'})", chart)
+    WebDriverWait(browser, 20).until(lambda _: chart.get_attribute("data-drawn") == "1")
+
+
+def draw_all(browser) -> int:
+    charts = browser.find_elements("css selector", ".chart")
+    for chart in charts:
+        draw(browser, chart)
+    return len(charts)
+
+
+def requests(browser) -> list[str]:
+    """The URLs of the requests made since the last call (DevTools' Network.requestWillBeSent)."""
+    events = (json.loads(entry["message"])["message"] for entry in browser.get_log("performance"))
+    return [e["params"]["request"]["url"] for e in events if e["method"] == "Network.requestWillBeSent"]
 
 
 @needs_chromium
 def test_page_loads_without_console_errors(browser, pages):
     for path in pages.values():
+        browser.get_log("browser")
         open_page(browser, path)
+        assert draw_all(browser) >= 12
         errors = [entry for entry in browser.get_log("browser") if entry["level"] in ("SEVERE", "WARNING")]
         assert errors == [], path.name
+
+
+@needs_chromium
+def test_nothing_is_fetched(browser, pages, tmp_path):
+    """With the network off, opening each page and drawing every chart requests the page's own file and
+    nothing else. The control: a page that does fetch shows up in the same log."""
+    control = tmp_path / "control.html"
+    control.write_text('<!DOCTYPE html><html><body><img src="https://example.invalid/logo.png"></body></html>')
+    requests(browser)
+    browser.get(control.as_uri())
+    assert "https://example.invalid/logo.png" in requests(browser)
+    for path in pages.values():
+        open_page(browser, path)
+        draw_all(browser)
+        browser.find_element("id", "next").click()
+        assert requests(browser) == [path.resolve().as_uri()], path.name
 
 
 @needs_chromium
@@ -233,9 +340,16 @@ def test_overview_on_screen_equals_the_data(browser, pages):
         "trending": f"{overview['trending']:,}",
         "changes": f"{overview['with_changes']:,}",
     }
-    dots = browser.find_elements("css selector", "#scatter circle")
-    assert len(dots) == overview["series"]
-    assert "SKU-" in dots[0].find_element("tag name", "title").get_attribute("textContent")
+    traces = browser.execute_script(
+        "return document.getElementById('scatter').data.map(t => ({name: t.name, x: t.x, text: t.text}))"
+    )
+    assert sum(len(t["x"]) for t in traces) == overview["series"]
+    seasonal = next(t for t in traces if t["name"].startswith("seasonal"))
+    assert len(seasonal["x"]) == overview["seasonal"]
+    # hovering a point shows its series' name
+    browser.execute_script("Plotly.Fx.hover('scatter', [{curveNumber: 1, pointNumber: 0}])")
+    hover = browser.find_element("css selector", "#scatter .hovertext").get_attribute("textContent")
+    assert seasonal["text"][0] in hover and hover.startswith("SKU-")
 
 
 def column(browser, index: int) -> list[str]:
@@ -266,8 +380,8 @@ def test_the_table_sorts_filters_and_pages(browser, pages):
 
 @needs_chromium
 def test_change_point_marks_at_the_planted_times(browser, pages, con):
-    """Each trend reversal's chart has a mark within 15 days of the planted day (the demo's tolerance),
-    and the marks are the segment starts that segments_agg gives in SQL."""
+    """Each trend reversal's chart has a mark (a plotly layout shape) within 15 days of the planted day (the
+    demo's tolerance), and the marks are the segment starts that segments_agg gives in SQL."""
     open_page(browser, pages["prices"])
     planted = con.sql(
         "SELECT replace(b.subject, 'instrument ', ''), c.value::DATE FROM truth b JOIN truth c USING (subject) "
@@ -275,16 +389,20 @@ def test_change_point_marks_at_the_planted_times(browser, pages, con):
     ).fetchall()
     assert len(planted) == 6
     for name, day in planted:
-        panel = browser.find_element("css selector", f'.panel[data-series="{name}"]')
-        marks = [
-            dt.date.fromisoformat(m.get_attribute("data-time")) for m in panel.find_elements("css selector", "line.cp")
-        ]
+        chart = browser.find_element("css selector", f'.panel[data-series="{name}"] .chart')
+        draw(browser, chart)
+        shapes = browser.execute_script("return arguments[0].layout.shapes", chart)
+        marks = [dt.date.fromisoformat(s["x0"]) for s in shapes if s["name"] == "change point"]
+        assert all(s["x0"] == s["x1"] and s["yref"] == "paper" for s in shapes)
         assert marks and min(abs((m - day).days) for m in marks) <= 15, (name, day, marks)
         (segments,) = con.sql(
             "SELECT segments_agg(ln(price), day, model := 'trend') FROM daily_prices WHERE instrument = ?",
             params=[name],
         ).fetchall()[0]
         assert marks == [s["first"] for s in segments[1:]]
+        # the chart's own curves: the values, the smooth curve and the segment levels
+        names = browser.execute_script("return arguments[0].data.map(t => t.name)", chart)
+        assert names == ["values", "smooth curve", "segment level"]
 
 
 @needs_chromium
@@ -299,13 +417,16 @@ def test_screenshot_is_not_blank(browser, pages):
 
 
 @needs_chromium
+@needs_plotly
 def test_names_are_text_not_markup(browser, bad, tmp_path):
     """A series named like markup is shown as its text, in the table and on its chart, and breaks nothing."""
     nasty = "</script><b onmouseover=alert(1)>&amp;'\""
     with tsql.connect(str(bad), read_only=True) as c:
         query = f"SELECT {tsql_literal(nasty)} AS s, t, v FROM one UNION ALL SELECT 'b', t, -v * v FROM one"
         path = tsql.report(c, query, series="s", time="t", value="v", path=tmp_path / "r.html")
+    browser.get_log("browser")
     open_page(browser, path)
+    draw_all(browser)
     assert browser.get_log("browser") == []
     names = [td.text for td in browser.find_elements("css selector", "#rows td:first-child")]
     assert sorted(names) == sorted([nasty, "b"])
@@ -337,6 +458,7 @@ def bad(tmp_path):
     return path
 
 
+@needs_plotly
 @pytest.mark.parametrize(
     "table, message",
     [
@@ -359,10 +481,11 @@ def test_bad_input_is_one_clear_line_and_no_file(bad, tmp_path, table, message):
     assert list(out.parent.iterdir()) == []
 
 
+@needs_plotly
 def test_a_failure_while_writing_leaves_no_file(con, tmp_path, monkeypatch):
     import tsql.report_page
 
-    def broken(data):
+    def broken(data, script=None):
         raise RuntimeError("disk full")
 
     monkeypatch.setattr(tsql.report_page, "render", broken)
@@ -371,6 +494,23 @@ def test_a_failure_while_writing_leaves_no_file(con, tmp_path, monkeypatch):
     assert list(tmp_path.iterdir()) == []
 
 
+@needs_plotly
+def test_a_missing_plotly_is_named_with_its_fix(con, warehouse, tmp_path, monkeypatch):
+    """Without plotly (its import made to fail), the call and the command say what needs it and how to get it,
+    at once and leaving no file."""
+    monkeypatch.setitem(sys.modules, "plotly", None)
+    monkeypatch.setitem(sys.modules, "plotly.offline", None)
+    with pytest.raises(ReportError) as raised:
+        tsql.report(con, "hourly_contacts", series="queue", time="hour", value="contacts", path=tmp_path / "r.html")
+    assert str(raised.value) == f"tsql.report: {MISSING_PLOTLY}"
+    assert "plotly" in MISSING_PLOTLY and "pip install 'seriesql[report]'" in MISSING_PLOTLY
+    argv = ["report", str(warehouse), "--table", "hourly_contacts", "--series", "queue", "--time", "hour"]
+    code, printed, err = run([*argv, "--value", "contacts", "--out", str(tmp_path / "r.html")])
+    assert (code, printed, err) == (2, "", f"seriesql report: {MISSING_PLOTLY}\n")
+    assert list(tmp_path.iterdir()) == []
+
+
+@needs_plotly
 def test_python_errors_name_the_fix(con, tmp_path):
     with pytest.raises(ReportError, match="^tsql.report: value: column 'queue' is VARCHAR, not a number"):
         tsql.report(con, "hourly_contacts", series="hour", time="hour", value="queue", path=tmp_path / "r.html")
@@ -379,6 +519,7 @@ def test_python_errors_name_the_fix(con, tmp_path):
     assert list(tmp_path.iterdir()) == []
 
 
+@needs_plotly
 def test_some_null_values_are_missing_values(bad, tmp_path):
     with tsql.connect(str(bad), read_only=True) as c:
         query = (
@@ -391,6 +532,7 @@ def test_some_null_values_are_missing_values(bad, tmp_path):
     assert embedded(path)["overview"]["series"] == 2
 
 
+@needs_plotly
 def test_the_command_writes_the_page(warehouse, tmp_path):
     out = tmp_path / "contacts.html"
     argv = ["report", str(warehouse), "--table", "hourly_contacts", "--series", "queue", "--time", "hour"]
@@ -400,6 +542,7 @@ def test_the_command_writes_the_page(warehouse, tmp_path):
     assert code == 2 and "exists; pass --replace" in err
 
 
+@needs_plotly
 def test_the_command_screens_a_query(warehouse, tmp_path):
     out = tmp_path / "prices.html"
     query = "SELECT instrument, day, ln(price) AS log_price FROM daily_prices WHERE instrument < 'D'"
@@ -417,6 +560,7 @@ def test_same_input_same_page(con, pages, tmp_path):
     assert again.read_bytes() == pages["sales"].read_bytes()
 
 
+@needs_plotly
 def test_the_docstring_example_runs():
     import doctest
 

@@ -184,7 +184,7 @@ def main(argv: list[str] | None = None) -> int:
         description=(
             "Screen every series of a table (cycles, trends, change points, look-alike groups, expected load) "
             "and write one HTML file that opens offline: overview, a sortable table, charts of the flagged "
-            "series, and the SQL of each section."
+            "series, and the SQL of each section. Needs plotly: pip install 'seriesql[report]'."
         ),
         epilog=(
             "example: seriesql report shop.duckdb --table monthly_sales --series item --time month "

@@ -493,7 +493,8 @@ def _conclude(path: Path, width: int) -> None:
             ],
         ),
         (
-            "The screen of every item as one page to open in a browser (cycles, trends, changes, look-alikes):",
+            "The screen of every item as one page to open in a browser (cycles, trends, changes, look-alikes; "
+            "needs pip install 'seriesql[report]'):",
             [
                 f"seriesql report {where} \\",
                 "    --table monthly_sales --series item --time month --value units \\",

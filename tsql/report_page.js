@@ -3,71 +3,43 @@ const D = JSON.parse(document.getElementById('report-data').textContent);
 const $ = (id) => document.getElementById(id);
 const esc = (s) => String(s).replace(/[&<>"']/g, c => ({'&':'&amp;','<':'&lt;','>':'&gt;','"':'&quot;',"'":'&#39;'}[c]));
 const fmt = (x, d) => x === null || x === undefined ? '' : (Math.abs(x) >= 1e4 || (x !== 0 && Math.abs(x) < 1e-3) ? x.toExponential(1) : (+x.toFixed(d === undefined ? 3 : d)).toString());
+// a time as plotly reads it on a date axis (UTC wall time), or the number itself
 function when(t){
-  if (!D.temporal) return fmt(t, 4);
+  if (!D.temporal || t === null) return D.temporal ? null : fmt(t, 4);
   const s = new Date(t).toISOString();
   return s.endsWith('T00:00:00.000Z') ? s.slice(0, 10) : s.slice(0, 16).replace('T', ' ');
 }
-function ticks(lo, hi, n){
-  if (!(hi > lo)) return [lo];
-  const step = Math.pow(10, Math.floor(Math.log10((hi - lo) / n)));
-  const m = [1, 2, 5, 10].find(k => (hi - lo) / (step * k) <= n) * step;
-  const out = []; for (let v = Math.ceil(lo / m) * m; v <= hi + 1e-9 * m; v += m) out.push(v); return out;
-}
-// round calendar ticks (UTC): years, months, days or hours, at most about six
-const DAY = 864e5;
-function timeTicks(lo, hi){
-  if (!D.temporal) return ticks(lo, hi, 5);
-  const span = hi - lo, out = [], a = new Date(lo);
-  if (span > 60 * DAY) {
-    const months = [1, 2, 3, 6, 12, 24, 60].find(m => span / (m * 30.4 * DAY) <= 6) || 120;
-    let y = a.getUTCFullYear(), m = Math.ceil(a.getUTCMonth() / months) * months;
-    for (let t = Date.UTC(y, m, 1); t <= hi; m += months, t = Date.UTC(y, m, 1)) if (t >= lo) out.push(t);
-    return out;
-  }
-  const step = [3600e3, 6 * 3600e3, 12 * 3600e3, DAY, 2 * DAY, 7 * DAY, 14 * DAY].find(k => span / k <= 6) || 28 * DAY;
-  for (let t = Math.ceil(lo / step) * step; t <= hi; t += step) out.push(t);
-  return out;
-}
-function timeLabel(t, span){
-  const s = new Date(t).toISOString();
-  return span > 60 * DAY ? s.slice(0, 7) : span > 2 * DAY ? s.slice(0, 10) : s.slice(0, 16).replace('T', ' ');
-}
-function logTicks(lo, hi){
-  const out = []; for (let e = Math.floor(Math.log10(lo)); e <= Math.ceil(Math.log10(hi)); e++)
-    for (const m of [1, 2, 5]) { const v = m * Math.pow(10, e); if (v >= lo && v <= hi) out.push(v); }
-  return out;
-}
+const at = (t) => D.temporal ? when(t) : t;
 function extent(vals){ let lo = Infinity, hi = -Infinity; for (const v of vals) if (v !== null && isFinite(v)) { if (v < lo) lo = v; if (v > hi) hi = v; } return lo <= hi ? [lo, hi === lo ? lo + 1 : hi] : [0, 1]; }
-function path(xs, ys, sx, sy){ let s = '', pen = false;
-  for (let i = 0; i < xs.length; i++) { if (ys[i] === null || xs[i] === null) { pen = false; continue; } s += (pen ? 'L' : 'M') + sx(xs[i]).toFixed(1) + ' ' + sy(ys[i]).toFixed(1); pen = true; }
-  return s; }
-// one chart: {w, h, x: [lo, hi], y: [lo, hi], lines: [{xs, ys, cls}], band, vlines, segs, xlabel, logx, timeaxis}
-function chart(o){
-  const w = o.w || 520, h = o.h || 200, L = 52, R = 10, T = 10, B = 26;
-  const fx = o.logx ? Math.log10 : (v => v);
-  const x0 = fx(o.x[0]), x1 = fx(o.x[1]) === x0 ? x0 + 1 : fx(o.x[1]);
-  const sx = v => L + (fx(v) - x0) / (x1 - x0) * (w - L - R), sy = v => h - B - (v - o.y[0]) / (o.y[1] - o.y[0]) * (h - T - B);
-  let s = `<svg width="${w}" height="${h}" viewBox="0 0 ${w} ${h}" role="img">`;
-  s += `<line class="axis" x1="${L}" y1="${h - B}" x2="${w - R}" y2="${h - B}"/><line class="axis" x1="${L}" y1="${T}" x2="${L}" y2="${h - B}"/>`;
-  for (const v of ticks(o.y[0], o.y[1], 4)) s += `<text x="${L - 4}" y="${sy(v) + 3}" text-anchor="end">${fmt(v, 2)}</text>`;
-  const xt = o.logx ? logTicks(o.x[0], o.x[1]) : o.timeaxis ? timeTicks(o.x[0], o.x[1]) : ticks(o.x[0], o.x[1], 5);
-  for (const v of xt) s += `<text x="${sx(v)}" y="${h - B + 14}" text-anchor="middle">${o.timeaxis ? timeLabel(v, o.x[1] - o.x[0]) : (o.xlabels ? o.xlabels(v) : fmt(v, 2))}</text>`;
-  if (o.band) { const [xs, lo, hi] = o.band; let p = ''; for (let i = 0; i < xs.length; i++) p += (i ? 'L' : 'M') + sx(xs[i]).toFixed(1) + ' ' + sy(hi[i]).toFixed(1);
-    for (let i = xs.length - 1; i >= 0; i--) p += 'L' + sx(xs[i]).toFixed(1) + ' ' + sy(lo[i]).toFixed(1); s += `<path class="band" d="${p}Z"/>`; }
-  for (const l of o.lines || []) s += `<path class="${l.cls}" d="${path(l.xs, l.ys, sx, sy)}"${l.name ? ` data-series="${esc(l.name)}"` : ''}><title>${esc(l.title || '')}</title></path>`;
-  for (const g of o.segs || []) s += `<line class="seg" x1="${sx(g[0]).toFixed(1)}" y1="${sy(g[1]).toFixed(1)}" x2="${sx(g[2]).toFixed(1)}" y2="${sy(g[3]).toFixed(1)}"/>`;
-  for (const t of o.vlines || []) s += `<line class="cp" data-time="${esc(when(t))}" x1="${sx(t).toFixed(1)}" y1="${T}" x2="${sx(t).toFixed(1)}" y2="${h - B}"><title>change at ${esc(when(t))}</title></line>`;
-  if (o.dots) s += o.dots(sx, sy);
-  if (o.xlabel) s += `<text x="${w - R}" y="${h - 1}" text-anchor="end">${esc(o.xlabel)}</text>`;
-  return s + '</svg>';
-}
 function spark(vals){
-  const [lo, hi] = extent(vals), w = 110, h = 22;
-  const xs = vals.map((_, i) => i);
-  const d = path(xs, vals, i => 1 + i / Math.max(vals.length - 1, 1) * (w - 2), v => h - 2 - (v - lo) / (hi - lo) * (h - 4));
+  const [lo, hi] = extent(vals), w = 110, h = 22, n = Math.max(vals.length - 1, 1);
+  let d = '', pen = false;
+  vals.forEach((v, i) => { if (v === null) { pen = false; return; }
+    d += (pen ? 'L' : 'M') + (1 + i / n * (w - 2)).toFixed(1) + ' ' + (h - 2 - (v - lo) / (hi - lo) * (h - 4)).toFixed(1); pen = true; });
   return `<svg width="${w}" height="${h}"><path class="spark" d="${d}"/></svg>`;
 }
+
+// plotly: nothing leaves the page (no cloud link, no math typesetting, no map data)
+const CONFIG = {displaylogo: false, showLink: false, showSendToCloud: false, plotlyServerURL: '', topojsonURL: '',
+  typesetMath: false, responsive: true, modeBarButtonsToRemove: ['select2d', 'lasso2d']};
+const BLUE = '#4a6fa5', ORANGE = '#d9822b', GREEN = '#2e8b57', RED = '#c0392b', GREY = '#8a94a3', INK = '#1d2430';
+function layout(o){
+  return Object.assign({height: 220, margin: {l: 52, r: 12, t: 8, b: 34}, showlegend: false, hovermode: 'closest',
+    font: {family: 'system-ui, sans-serif', size: 11, color: '#566070'}, paper_bgcolor: '#fff', plot_bgcolor: '#fff',
+    xaxis: {showgrid: true, gridcolor: '#eef1f5', zeroline: false}, yaxis: {gridcolor: '#eef1f5', zeroline: false}}, o);
+}
+function plot(div, traces, lay){
+  return Plotly.newPlot(div, traces, layout(lay), CONFIG).then(() => { div.dataset.drawn = '1'; });
+}
+const timeAxis = () => ({type: D.temporal ? 'date' : 'linear', gridcolor: '#eef1f5', zeroline: false});
+// charts below the fold are drawn when they come near the view (a page may hold dozens)
+const pending = new Map();
+const watcher = 'IntersectionObserver' in window ? new IntersectionObserver(entries => {
+  for (const e of entries) if (e.isIntersecting && pending.has(e.target)) {
+    const draw = pending.get(e.target); pending.delete(e.target); watcher.unobserve(e.target); draw();
+  }
+}, {rootMargin: '400px'}) : null;
+function later(div, draw){ if (watcher) { pending.set(div, draw); watcher.observe(div); } else draw(); }
 
 // overview
 const O = D.overview;
@@ -77,11 +49,27 @@ $('n-trending').textContent = O.trending.toLocaleString('en');
 $('n-changes').textContent = O.with_changes.toLocaleString('en');
 const C = {name: 0, rows: 1, period: 2, pnum: 3, strength: 4, qs: 5, tau: 6, qt: 7, changes: 8, acf1: 9, entropy: 10, spark: 11, cps: 12};
 const seasonal = r => r[C.qs] !== null && r[C.qs] <= D.level;
-const pts = D.table.filter(r => r[C.pnum] !== null && r[C.pnum] > 0 && r[C.strength] !== null);
+// at most SCATTER points (every k-th series by name beyond that): more is a cloud that takes seconds to draw
+const SCATTER = 5000, all = D.table.filter(r => r[C.pnum] !== null && r[C.pnum] > 0 && r[C.strength] !== null);
+const every = Math.ceil(all.length / SCATTER), pts = every > 1 ? all.filter((_, i) => i % every === 0) : all;
+if (every > 1) $('scatter-note').textContent = ` Drawn: every ${every}th series by name, ${pts.length.toLocaleString('en')} of ${all.length.toLocaleString('en')}; the table below holds them all.`;
+let overview = Promise.resolve();
 if (pts.length) {
   const xr = extent(pts.map(r => r[C.pnum]));
-  $('scatter').innerHTML = chart({w: 1100, h: 300, x: xr, y: [0, 1], logx: xr[1] / xr[0] > 4, xlabel: D.temporal ? 'period (days)' : 'period',
-    dots: (sx, sy) => pts.map(r => `<circle class="dot${seasonal(r) ? ' hit' : ''}" cx="${sx(r[C.pnum]).toFixed(1)}" cy="${sy(r[C.strength]).toFixed(1)}" r="3"><title>${esc(r[C.name])}: ${esc(r[C.period])}, strength ${fmt(r[C.strength], 2)}, q ${fmt(r[C.qs])}</title></circle>`).join('')});
+  const dots = (rows, name, colour) => ({type: 'scatter', mode: 'markers', name,
+    x: rows.map(r => r[C.pnum]), y: rows.map(r => r[C.strength]), text: rows.map(r => esc(r[C.name])),
+    customdata: rows.map(r => [r[C.period], fmt(r[C.qs])]),
+    hovertemplate: '<b>%{text}</b><br>period %{customdata[0]}<br>strength %{y:.2f}, q %{customdata[1]}<extra></extra>',
+    marker: {size: 5, color: colour, opacity: 0.6}});
+  // periods of dates read as spans: a day, a week, a month ... (a log axis' own ticks would be 6 7 8 9 100 2 3)
+  const periodTicks = ([lo, hi]) => { if (!D.temporal) return {};
+    const t = [[1, '1 day'], [7, '1 week'], [30.44, '1 month'], [60.88, '2 months'], [91.31, '3 months'], [182.6, '6 months'], [365.25, '1 year'], [730.5, '2 years'], [1461, '4 years'], [3652.5, '10 years']]
+      .filter(([d]) => d >= lo / 1.5 && d <= hi * 1.5);
+    return t.length >= 2 ? {tickvals: t.map(x => x[0]), ticktext: t.map(x => x[1])} : {}; };
+  overview = plot($('scatter'), [dots(pts.filter(r => !seasonal(r)), 'not seasonal', GREY), dots(pts.filter(seasonal), `seasonal (q ≤ ${D.level})`, RED)],
+    {height: 320, showlegend: true, legend: {orientation: 'h', x: 0, y: 1.12},
+     xaxis: Object.assign({type: xr[1] / xr[0] > 4 ? 'log' : 'linear', title: {text: 'period' + (xr[1] / xr[0] > 4 ? ' (log scale)' : '')}, gridcolor: '#eef1f5'}, periodTicks(xr)),
+     yaxis: {title: {text: 'strength'}, range: [0, 1.02], gridcolor: '#eef1f5'}, margin: {l: 56, r: 12, t: 36, b: 44}});
 }
 
 // table: sort, filter, pages
@@ -119,44 +107,62 @@ $('prev').addEventListener('click', () => { page = Math.max(0, page - 1); drawTa
 $('next').addEventListener('click', () => { page += 1; drawTable(); });
 drawTable();
 
-// flagged series
+// flagged series: values, smooth curve, segment levels, change points (layout shapes), cycle profile
 $('details').innerHTML = D.details.map((d, i) => {
-  const xs = d.points.map(p => p[0]), ys = d.points.map(p => p[1]);
-  const gaps = xs.slice(1).map((x, k) => x - xs[k]).sort((a, b) => a - b), step = gaps.length ? gaps[gaps.length >> 1] : 1;
-  const segs = d.segments.map(g => { const half = D.model === 'trend' ? (g[3] || 0) * (g[1] - g[0]) / step / 2 : 0;
-    return [g[0], g[2] - half, g[1], g[2] + half]; });
-  const yr = extent(ys.concat(d.smooth.map(p => p[1]), segs.flatMap(g => [g[1], g[3]])));
-  const cps = d.segments.slice(1).map(g => g[0]);
-  const row = D.table.find(r => r[C.name] === d.series);
-  let s = `<div class="panel" id="detail-${i}" data-series="${esc(d.series)}"><h3>${esc(d.series)}</h3><div class="meta">`
+  const row = D.table.find(r => r[C.name] === d.series), cps = d.segments.slice(1).map(g => g[0]);
+  return `<div class="panel" id="detail-${i}" data-series="${esc(d.series)}"><h3>${esc(d.series)}</h3><div class="meta">`
     + `cycle ${esc(row[C.period] || '-')} (strength ${fmt(row[C.strength], 2)}, q ${fmt(row[C.qs])}); trend tau ${fmt(row[C.tau], 2)} (q ${fmt(row[C.qt])}); `
-    + `${cps.length} change point${cps.length === 1 ? '' : 's'}${cps.length ? ': ' + cps.map(when).join(', ') : ''}</div>`;
-  s += chart({w: 760, h: 220, x: extent(xs), y: yr, timeaxis: D.temporal, vlines: cps, segs: segs,
-    lines: [{xs, ys, cls: 'line', title: 'values'}, {xs: d.smooth.map(p => p[0]), ys: d.smooth.map(p => p[1]), cls: 'smooth', title: 'smooth curve'}]});
-  if (d.profile.length) s += `<div class="meta">cycle profile: one cycle of ${fmt(d.steps, 3)} steps, from the first observation's phase</div>`
-    + chart({w: 360, h: 150, x: [0, d.profile.length - 1], y: extent(d.profile), lines: [{xs: d.profile.map((_, k) => k), ys: d.profile, cls: 'smooth', title: 'profile'}], xlabel: 'step in the cycle'});
-  return s + '</div>';
+    + `${cps.length} change point${cps.length === 1 ? '' : 's'}${cps.length ? ': ' + cps.map(when).join(', ') : ''}</div>`
+    + `<div class="chart" id="detail-chart-${i}"></div>`
+    + (d.profile.length ? `<div class="meta">cycle profile: one cycle of ${fmt(d.steps, 3)} steps, from the first observation's phase</div><div class="chart small" id="detail-profile-${i}"></div>` : '')
+    + '</div>';
 }).join('') || '<p class="meta">No series was flagged.</p>';
+D.details.forEach((d, i) => {
+  later($(`detail-chart-${i}`), () => {
+    const xs = d.points.map(p => p[0]);
+    const gaps = xs.slice(1).map((x, k) => x - xs[k]).sort((a, b) => a - b), step = gaps.length ? gaps[gaps.length >> 1] : 1;
+    const sx = [], sy = [];
+    for (const g of d.segments) { const half = D.model === 'trend' ? (g[3] || 0) * (g[1] - g[0]) / step / 2 : 0;
+      sx.push(at(g[0]), at(g[1]), null); sy.push(g[2] - half, g[2] + half, null); }
+    const shapes = d.segments.slice(1).map(g => ({type: 'line', name: 'change point', xref: 'x', yref: 'paper', x0: at(g[0]), x1: at(g[0]),
+      y0: 0, y1: 1, line: {color: RED, width: 1.4, dash: 'dash'}}));
+    plot($(`detail-chart-${i}`), [
+      {type: 'scatter', mode: 'lines', name: 'values', x: d.points.map(p => at(p[0])), y: d.points.map(p => p[1]), line: {color: BLUE, width: 1}},
+      {type: 'scatter', mode: 'lines', name: 'smooth curve', x: d.smooth.map(p => at(p[0])), y: d.smooth.map(p => p[1]), line: {color: ORANGE, width: 2.2}, opacity: 0.85},
+      {type: 'scatter', mode: 'lines', name: 'segment level', x: sx, y: sy, line: {color: GREEN, width: 2}, hoverinfo: 'skip'},
+    ], {shapes, xaxis: timeAxis()});
+  });
+  if (d.profile.length) later($(`detail-profile-${i}`), () => plot($(`detail-profile-${i}`),
+    [{type: 'scatter', mode: 'lines+markers', name: 'profile', x: d.profile.map((_, k) => k), y: d.profile, line: {color: ORANGE, width: 2.2}, marker: {size: 4}}],
+    {height: 160, xaxis: {title: {text: 'step in the cycle'}, gridcolor: '#eef1f5'}, margin: {l: 52, r: 12, t: 8, b: 40}}));
+});
 
-// look-alike groups
-$('groups').innerHTML = D.groups.map(g => {
-  const all = g.members.flatMap(m => m.z), n = Math.max(...g.members.map(m => m.z.length));
-  const lines = g.members.filter(m => m.series !== g.medoid).map(m => ({xs: m.z.map((_, k) => k), ys: m.z, cls: 'member', name: m.series, title: m.series}));
+// look-alike groups: members (grey) over the medoid (black), z-scored
+$('groups').innerHTML = D.groups.map((g, i) => `<div class="panel"><h3>group ${g.cluster}: ${g.members.length} series, medoid ${esc(g.medoid)}</h3>`
+  + `<div class="chart small" id="group-${i}"></div><div class="meta">${g.members.map(m => esc(m.series)).join(', ')}</div></div>`).join('')
+  || '<p class="meta">No look-alike groups: too few flagged series, or series too long for all-pairs DTW.</p>';
+D.groups.forEach((g, i) => later($(`group-${i}`), () => {
+  const line = (m, colour, width) => ({type: 'scatter', mode: 'lines', name: esc(m.series), x: m.z.map((_, k) => k), y: m.z,
+    line: {color: colour, width}, opacity: m.series === g.medoid ? 1 : 0.7});
   const med = g.members.find(m => m.series === g.medoid);
-  if (med) lines.push({xs: med.z.map((_, k) => k), ys: med.z, cls: 'medoid', name: med.series, title: 'medoid ' + med.series});
-  return `<div class="panel"><h3>group ${g.cluster}: ${g.members.length} series, medoid ${esc(g.medoid)}</h3>`
-    + chart({w: 360, h: 170, x: [0, n - 1], y: extent(all), lines, xlabel: 'grid step (z-scores)'})
-    + `<div class="meta">${g.members.map(m => esc(m.series)).join(', ')}</div></div>`;
-}).join('') || '<p class="meta">No look-alike groups: too few flagged series, or series too long for all-pairs DTW.</p>';
+  plot($(`group-${i}`), g.members.filter(m => m.series !== g.medoid).map(m => line(m, GREY, 1)).concat(med ? [line(med, INK, 2.2)] : []),
+    {height: 180, xaxis: {title: {text: 'grid step (z-scores)'}, gridcolor: '#eef1f5'}, margin: {l: 40, r: 12, t: 8, b: 40}});
+}));
 
-// expected load
+// expected load with its band
 if (D.load) {
-  const names = D.load.phase === 'hour' ? (k => k + 'h') : (k => ['', 'Mon', 'Tue', 'Wed', 'Thu', 'Fri', 'Sat', 'Sun'][k] || '');
-  $('load').innerHTML = Object.entries(D.load.profiles).map(([name, p]) => {
-    const xs = p.map(r => r[0]), e = p.map(r => r[1]), lo = p.map(r => r[2]), hi = p.map(r => r[3]);
-    return `<div class="panel"><h3>${esc(name)}</h3>` + chart({w: 360, h: 170, x: extent(xs), y: extent(lo.concat(hi, e)), band: [xs, lo, hi],
-      lines: [{xs, ys: e, cls: 'smooth', title: 'expected'}], xlabels: names, xlabel: D.load.phase === 'hour' ? 'hour of day' : 'day of week'}) + '</div>';
-  }).join('');
+  const hour = D.load.phase === 'hour', names = hour ? (k => k + 'h') : (k => ['', 'Mon', 'Tue', 'Wed', 'Thu', 'Fri', 'Sat', 'Sun'][k] || '');
+  const profiles = Object.entries(D.load.profiles);
+  $('load').innerHTML = profiles.map(([name], i) => `<div class="panel"><h3>${esc(name)}</h3><div class="chart small" id="load-${i}"></div></div>`).join('');
+  profiles.forEach(([name, p], i) => later($(`load-${i}`), () => {
+    const xs = p.map(r => names(r[0]));
+    plot($(`load-${i}`), [
+      {type: 'scatter', mode: 'lines', name: '10th percentile', x: xs, y: p.map(r => r[2]), line: {width: 0, color: BLUE}, hoverinfo: 'skip'},
+      {type: 'scatter', mode: 'lines', name: '90th percentile', x: xs, y: p.map(r => r[3]), line: {width: 0, color: BLUE}, fill: 'tonexty', fillcolor: 'rgba(74,111,165,0.2)', hoverinfo: 'skip'},
+      {type: 'scatter', mode: 'lines+markers', name: 'expected', x: xs, y: p.map(r => r[1]), line: {color: ORANGE, width: 2.2}, marker: {size: 4},
+       customdata: p.map(r => [r[2], r[3], r[4]]), hovertemplate: '%{x}: %{y:.3g} (band %{customdata[0]:.3g} to %{customdata[1]:.3g}, %{customdata[2]} rows)<extra></extra>'},
+    ], {height: 180, xaxis: {type: 'category', title: {text: hour ? 'hour of day' : 'day of week'}, gridcolor: '#eef1f5'}, margin: {l: 48, r: 12, t: 8, b: 40}});
+  }));
 }
-document.body.dataset.ready = '1';
+overview.then(() => { document.body.dataset.ready = '1'; });
 })();

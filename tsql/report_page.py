@@ -1,8 +1,10 @@
 """The page of ``seriesql report``: plain data in, one self-contained HTML file out.
 
-The data goes into the page as JSON; a small script (``report_page.js``, inlined with
-``report_page.css``) draws the charts as SVG and runs the table (sort, filter, pages), so
-the file needs no network and no library, and grows by a few hundred bytes per series.
+The data goes into the page as JSON. The charts are drawn with plotly.js, inlined once per page
+(about 4.8 MB) from the optional ``plotly`` package (``pip install 'seriesql[report]'``); a small
+script (``report_page.js``, inlined with ``report_page.css``) builds each figure from the data,
+draws the charts below the fold only when they come near the view, and runs the table (sort,
+filter, pages, small SVG sparklines), which grows by a few hundred bytes per series.
 """
 
 from __future__ import annotations
@@ -12,13 +14,20 @@ import json
 from importlib.resources import files
 from typing import Any
 
-__all__ = ["CAUTION", "render"]
+__all__ = ["CAUTION", "plotly_script", "render"]
 
 CAUTION = (
     "These results are statistical indications computed from the data (p-values, q-values, cycles, change "
     "points, distances). They are not trading, staffing or safety advice: look at the series, and know the "
     "business behind them, before acting on a result."
 )
+
+
+def plotly_script() -> str:
+    """plotly.js, to inline once per page; raises ImportError when plotly is not installed."""
+    from plotly.offline import get_plotlyjs
+
+    return get_plotlyjs()
 
 
 def _asset(name: str) -> str:
@@ -36,8 +45,12 @@ def _json(data: Any) -> str:
     return text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")
 
 
-def render(data: dict) -> str:
-    """The HTML page of one screen (see :func:`tsql.reporting.gather` for ``data``)."""
+def render(data: dict, script: str | None = None) -> str:
+    """The HTML page of one screen (see :func:`tsql.reporting.gather` for ``data``); ``script`` is
+    :func:`plotly_script`'s text, read when not given."""
+    script = plotly_script() if script is None else script
+    if "</script" in script.lower():  # it would end the page's script element early
+        raise ValueError("the plotly script holds '</script'")
     e = html.escape
     facts, cols = data["facts"], data["columns"]
     sql = data["sql"]
@@ -50,8 +63,11 @@ def render(data: dict) -> str:
         by = "hour of day" if data["load"]["phase"] == "hour" else "day of week"
         load = (
             f"<h2>Expected load by {by}</h2><p class='meta'>The mean at each {by} (line) and the 10th to 90th "
-            f"percentile of the observed values there (band), for the first {len(data['load']['profiles'])} series "
-            "by name. Only rows present are counted: a missing row is not read as zero.</p>"
+            f"percentile of the residual-adjusted values there (band), for the first {len(data['load']['profiles'])} "
+            f"series by name. A value's residual is its distance from the slow level (the centred moving average "
+            f"over one {'day' if by == 'hour of day' else 'week'}, as in a classical decomposition); the band is the "
+            f"{by}'s mean plus the spread of its residuals about their mean, so a trend or a slow drift does not "
+            "widen it. Only rows present are counted: a missing row is not read as zero.</p>"
             f"<div class='grid' id='load'></div>{_sql_block('SQL of this section', sql.get('load'))}"
         )
     groups = ""
@@ -82,7 +98,8 @@ change-point model '{e(data["model"])}'.{missing_note}</p>
 <div class="card"><b id="n-changes"></b><span>with regime changes</span></div>
 </div>
 <div class="panel"><div class="meta">The strongest cycle of each series: its period against the share of variance
-it explains (red: seasonal at q &le; {level:g}). Hover a point for the series.</div><div id="scatter"></div></div>
+it explains (red: seasonal at q &le; {level:g}). Hover a point for the series.<span id="scatter-note"></span></div>
+<div id="scatter"></div></div>
 {_sql_block("SQL of the screen (one GROUP BY; Benjamini-Hochberg q-values)", sql["screen"])}
 {_sql_block("SQL of the overview (over the screen's result)", sql["overview"].replace("$level", repr(level)))}
 <h2>Every series</h2>
@@ -105,6 +122,7 @@ The rest are in the table.</p>
 {groups}
 {load}
 <script type="application/json" id="report-data">{_json({k: v for k, v in data.items() if k != "sql"})}</script>
+<script>{script}</script>
 <script>{_asset("report_page.js")}</script>
 </main></body></html>
 """

@@ -20,7 +20,17 @@ import duckdb
 
 from tsql.pipeline import output_path, partial_path, quote_name
 
-__all__ = ["DETAILS", "GROUP_ITEMS", "LOAD_SERIES", "ReportError", "gather", "main", "report", "screen_queries"]
+__all__ = [
+    "DETAILS",
+    "GROUP_ITEMS",
+    "LOAD_SERIES",
+    "MISSING_PLOTLY",
+    "ReportError",
+    "gather",
+    "main",
+    "report",
+    "screen_queries",
+]
 
 DETAILS = 24
 """Flagged series drawn in full (the rest are reachable from the table)."""
@@ -37,6 +47,9 @@ ROW_MARKS = 20
 DETAIL_POINTS = 2000
 """A detail chart draws at most about this many points (every k-th of a longer series)."""
 MODELS = ("mean", "meanvar", "trend")
+MISSING_PLOTLY = (
+    "the page's charts need plotly, which is not installed; install it with: pip install 'seriesql[report]'"
+)
 
 
 class ReportError(Exception):
@@ -164,15 +177,36 @@ ORDER BY c.cluster, c.id"""
     if load:
         phase, names_list = load
         names = ", ".join(_literal(s) for s in names_list)
-        of = "hour(time)" if phase == "hour" else "isodow(time)"
-        queries["load"] = f"""{base}
-SELECT series, {of} AS phase,
+        of, unit, half = ("hour(time)", "HOUR", 12) if phase == "hour" else ("isodow(time)", "DAY", 3)
+        window = (
+            "OVER (PARTITION BY series ORDER BY time RANGE BETWEEN INTERVAL {} PRECEDING AND INTERVAL {} FOLLOWING)"
+        )
+        if phase == "hour":  # a 2x24 moving average: the mean of the two 24-hour windows around the hour
+            level = (
+                f"(avg(value) {window.format('12 HOUR', '11 HOUR')}\n"
+                f"            + avg(value) {window.format('11 HOUR', '12 HOUR')}) / 2"
+            )
+        else:  # a 7-day moving average
+            level = f"avg(value) {window.format('3 DAY', '3 DAY')}"
+        queries["load"] = f"""{base},
+-- the slow level: the centred moving average over one cycle (a classical decomposition's trend),
+-- where the whole window lies inside the series' record
+leveled AS (
+    SELECT series, {of} AS phase, value,
+           {level} AS level,
+           time - INTERVAL {half} {unit} >= min(time) OVER (PARTITION BY series)
+               AND time + INTERVAL {half} {unit} <= max(time) OVER (PARTITION BY series) AS whole
+    FROM source
+    WHERE series IN ({names}) AND value IS NOT NULL
+)
+-- the band: the phase's mean plus the 10th and 90th percentiles of the residuals (value - level)
+-- about their mean at that phase, so that a trend or a drift of the level does not widen it
+SELECT series, phase,
        avg(value) AS expected,
-       quantile_cont(value, 0.1) AS low,
-       quantile_cont(value, 0.9) AS high,
+       avg(value) + quantile_cont(value - level, 0.1) FILTER (whole) - avg(value - level) FILTER (whole) AS low,
+       avg(value) + quantile_cont(value - level, 0.9) FILTER (whole) - avg(value - level) FILTER (whole) AS high,
        count(value) AS observations
-FROM source
-WHERE series IN ({names}) AND value IS NOT NULL
+FROM leveled
 GROUP BY series, phase
 ORDER BY series, phase"""
     return queries
@@ -492,6 +526,9 @@ def report(
     cycles and of the trends become Benjamini-Hochberg q-values across the screen [1]_. A series
     is flagged when either q-value is at most ``level`` or it has a change point.
 
+    The charts are drawn by plotly.js, inlined into the page from the optional ``plotly`` package
+    (``pip install 'seriesql[report]'``); without it the call raises :class:`ReportError` at once.
+
     References
     ----------
     .. [1] Y. Benjamini and Y. Hochberg, "Controlling the false discovery rate: a practical and
@@ -533,8 +570,12 @@ def _write(
     details: int,
 ) -> Path:
     """:func:`report` to a checked ``target``, without its name on the errors (the command puts its own)."""
-    from tsql.report_page import render
+    from tsql.report_page import plotly_script, render
 
+    try:
+        script = plotly_script()
+    except ImportError:
+        raise ReportError(MISSING_PLOTLY) from None
     is_query = any(c.isspace() for c in table_or_query.strip())
     data = gather(
         con,
@@ -547,7 +588,7 @@ def _write(
         model=model,
         details=details,
     )
-    page = render(data)
+    page = render(data, script)
     partial = partial_path(target)
     try:
         partial.write_text(page, encoding="utf-8")
