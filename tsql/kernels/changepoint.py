@@ -6,7 +6,9 @@ is least. The search is exact and kept apart from the cost models: PELT
 Maidstone et al. 2017) and geometrically for 'meanvar' and 'trend' (boxes of
 the parameters where a start can still be best; Pishchagina, Rigaill & Runge
 2024): for 'mean' one change in a long series costs little more than its length (for
-'meanvar' and 'trend' the starts kept still grow about as its square root); :func:`segments` and
+'meanvar' and 'trend' the starts kept still grow about as its square root, but most of them
+are set aside by PELT's own inequality against the leading start and costed again only when
+a change could let them win; see :func:`_pelt`); :func:`segments` and
 :func:`change_points` give the optimum at one penalty (optionally with at most ``max_changes``
 changes), :func:`change_points_path` every optimum as the penalty varies.
 Cycles are removed first (``seasonal``). How the costs, noise scale and
@@ -492,6 +494,11 @@ _EXCLUSIONS = 3
 #: this many times the starts kept before all are looked at again
 _NEAR_GROWTH = 16
 
+#: geometric functional pruning ('meanvar', 'trend'): the newest starts (slots) looked for every step,
+#: and the steps between looks for the older ones due to be narrowed
+_YOUNG = 64
+_SWEEP_EVERY = 8
+
 #: geometric functional pruning ('meanvar', 'trend') widens its boxes by this share, for
 #: rounding in their own arithmetic
 _BOX_SLACK = 1e-9
@@ -870,7 +877,7 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
 
 @njit(cache=True, error_model="numpy")
 def _narrow_box(
-    code, rows, starts, f_start, box, visit, n, c, f_c, stats_c, x0_c, t, length_term, use_length_term, rounding
+    code, rows, starts, f_start, box, visit, oldest, n, c, f_c, stats_c, x0_c, t, length_term, use_length_term, rounding
 ) -> tuple[int, int]:
     """Geometric functional pruning (Pishchagina, Rigaill & Runge 2024) for 'meanvar' and 'trend', by start ``c``.
 
@@ -885,6 +892,7 @@ def _narrow_box(
     starts kept. A start whose box is empty can never be best again and is retired.
 
     ``x0_c`` is ``c``'s first position ('trend': the origin of the sums of ``(s, c]``).
+    Starts in slots before ``oldest`` wait for a later call, however due.
     Margins as in :func:`_narrow_mean`, with ``rounding`` (:func:`_rounding_scale`) for
     the costs. With 'mbic' an older start only loses more by its length term, so the
     first cut holds as it is; in the second a newer start gains at most
@@ -912,7 +920,7 @@ def _narrow_box(
     best_shut = 0.0
     retired = 0
     tf = float(t)
-    for j in range(n):
+    for j in range(oldest, n):
         fs = f_start[j]
         if fs == np.inf or tf < visit[j]:
             continue
@@ -1067,6 +1075,7 @@ def _pelt(
     n_pruned = 0
     next_prune = 0
     next_compaction = 0
+    next_sweep = 0
     # lazy evaluation (see Notes): the starts looked at since the last full pass (``near``, in
     # order), the leader's slot among them, the pass's step, least value and least excess of the rest
     ident = np.arange(m + 1)
@@ -1093,6 +1102,11 @@ def _pelt(
             elif functional:
                 # the region of defeat the newest start remembers: that of the start that beats
                 # it most, found by a pass, else that of the start of its own last segment
+                # the youngest starts are due every step, the others seldom: those are looked
+                # for only every _SWEEP_EVERY steps (a start narrowed late is only pruned later)
+                oldest = 0 if t >= next_sweep else max(0, n_cand - _YOUNG)
+                if oldest == 0:
+                    next_sweep = t + _SWEEP_EVERY
                 retired, beater = _narrow_box(
                     code,
                     rows,
@@ -1100,6 +1114,7 @@ def _pelt(
                     f_start,
                     bounds,
                     until,
+                    oldest,
                     n_cand,
                     s,
                     F[s],
