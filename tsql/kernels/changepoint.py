@@ -1807,7 +1807,9 @@ def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: 
 
 
 def _fisher_screen(batch: Ragged) -> np.ndarray:
-    """Fisher's g p-value of each row as :func:`~tsql.kernels.periodicity.seasonality` computes it, up to rounding.
+    """Fisher's g p-value of each row against a white background, at most the p-value
+    :func:`~tsql.kernels.periodicity.seasonality` reports (which also tests against a red one), up to
+    rounding; 0 for a row with gaps (seasonality fills them for its test, so those rows always go on).
 
     Only a screen: rows well above the level are left out before the full analysis (which also
     refines the period), and the decision is the full analysis' own. Rows of one length go in
@@ -1829,6 +1831,7 @@ def _fisher_screen(batch: Ragged) -> np.ndarray:
             ordinates = power[:, 2 : (n - 1) // 2 + 1]  # periods n / k for 2 <= k < n / 2
             total = ordinates.sum(axis=1)
             g[lo : lo + step] = np.where(total > 0, ordinates.max(axis=1) / np.where(total > 0, total, 1.0), 0.0)
+            g[lo : lo + step][~present.all(axis=1)] = 1.0  # p = 0: the full analysis decides
         p[rows] = fisher_g_pvalue(g, np.full(len(rows), float((n - 1) // 2 - 1)))
     return p
 
