@@ -1071,7 +1071,7 @@ def _pelt(
         last[t] = 0
     rows = (cand[0], cand[1], cand[2], cand[3], cand[4], cand[5])
     rounding = _rounding_scale(code, stats, m)
-    n_cand = 0
+    n_cand = np.int64(0)  # not a literal 0: the callees that take it compile once
     n_pruned = 0
     next_prune = 0
     next_compaction = 0
@@ -1326,7 +1326,7 @@ def _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_c
     back = np.empty((k_max + 1, m + 1), dtype=np.int64)
     _neighbourhood(code, stats, m, length_term, use_length_term, min_size, k_max, D, back)
     best = np.inf
-    chosen = 0
+    chosen = np.int64(0)
     for j in range(k_max + 1):
         v = D[j, m] + beta * j
         if v < best:
