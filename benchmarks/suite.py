@@ -446,8 +446,9 @@ def run(sizes: bench.Sizes, out: Path | None, only: set[str] | None = None) -> d
     return result
 
 
-#: Sections of RESULTS.md that other scripts write (benchmarks.first_run, benchmarks.threads): kept as they are.
-KEPT = ("## First run\n", "## Threads\n")
+#: Sections of RESULTS.md written by other scripts (benchmarks.first_run, benchmarks.threads) or by hand
+#: (benchmarks.screen_sql, benchmarks.screen_kernels): kept as they are.
+KEPT = ("## First run\n", "## Threads\n", "## Screening, measured by hand")
 
 
 def kept_sections(path: Path) -> str:
