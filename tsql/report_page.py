@@ -109,8 +109,9 @@ it explains (red: seasonal at q &le; {level:g}). Hover a point for the series.<s
 <table id="screen-table"><thead><tr id="heads"></tr></thead><tbody id="rows"></tbody></table>
 <p class="meta">Click a heading to sort. q: Benjamini-Hochberg q-value of the cycle
 (Fisher's g against white and red noise) or the trend (Mann-Kendall); tau: Kendall's tau of the trend;
-changes: PELT change points (hover for their times); acf(1): lag-1 autocorrelation; entropy: spectral entropy (near 0: one clean cycle, near 1: noise). The chart is the series
-on its grid in at most 32 bucket means.</p>
+changes: PELT change points (hover for their times); acf(1): lag-1 autocorrelation; entropy: spectral
+entropy (near 0: one clean cycle, near 1: noise). The chart is the series on its grid in at most 32 bucket
+means.</p>
 <h2>Flagged series</h2>
 <p class="meta">{data["flagged"]:,} series are flagged (a q-value &le; {level:g} or a change point);
 {len(data["details"])} are drawn, taking in turn the strongest cycle, the strongest trend and the most change points
