@@ -373,7 +373,7 @@ def markdown(result: dict) -> str:
     if result["scaling"]:
         lines += ["", "## Scaling", "", scaling_tables(result["scaling"], sizes), ""]
     large = HERE / "memory_large.md"  # written by python -m benchmarks.memory_large (a run of its own)
-    if large.exists():
+    if sizes is bench.FULL and large.exists():
         lines += ["", "## Memory at the larger sizes", "", large.read_text(encoding="utf-8").strip(), ""]
     return "\n".join(lines)
 
