@@ -10,6 +10,9 @@ interrupting a long DTW self-join, one long DTW pair and one long vector of pair
 
 from __future__ import annotations
 
+import ast
+import importlib
+import pkgutil
 import subprocess
 import sys
 import textwrap
@@ -481,3 +484,32 @@ def test_ctrl_c_in_the_shell_stops_a_single_long_call():
     out = done.stdout.split()
     assert "query cancelled" in done.stderr, (done.stdout, done.stderr[-2000:])
     assert out[0] == "ok" and out[-1] == "alive", (done.stdout, done.stderr[-2000:])
+
+
+def test_every_compiled_kernel_called_from_python_releases_the_gil():
+    """DuckDB's threads run UDF calls at once only if the compiled part drops the GIL: every numba
+    kernel that plain Python code of its module calls is compiled with nogil=True."""
+    from numba.core.registry import CPUDispatcher
+
+    import tsql.kernels
+
+    checked, holding = 0, []
+    for info in pkgutil.iter_modules(tsql.kernels.__path__):
+        module = importlib.import_module(f"tsql.kernels.{info.name}")
+        jitted = {
+            name
+            for name, value in vars(module).items()
+            if isinstance(value, CPUDispatcher) and value.py_func.__module__ == module.__name__
+        }
+        tree = ast.parse(open(module.__file__, encoding="utf-8").read())
+        called = {
+            call.func.id
+            for function in ast.walk(tree)
+            if isinstance(function, ast.FunctionDef) and function.name not in jitted
+            for call in ast.walk(function)
+            if isinstance(call, ast.Call) and isinstance(call.func, ast.Name) and call.func.id in jitted
+        }
+        checked += len(called)
+        holding += [f"{info.name}.{n}" for n in sorted(called) if not getattr(module, n).targetoptions.get("nogil")]
+    assert checked > 20  # the scan found the kernels' entry points
+    assert holding == []
