@@ -461,9 +461,6 @@ SEASONAL_CYCLES = 4
 #: most harmonics of a period a removed cycle has (all of them, up to Nyquist, for periods up to 13)
 MAX_HARMONICS = 6
 
-#: elements per piece when fitting cycles (bounds the design matrices' memory)
-CYCLE_ELEMENTS = 1 << 13
-
 #: most present values of a row the segment-neighbourhood programme (``O(k m^2)``) runs on: a
 #: longer row gets no answer from ``change_points_path``, nor from ``max_changes`` when the
 #: penalised optimum has too many changes (10,000 values and 10 changes: about 5e8 segment costs)
@@ -537,10 +534,6 @@ def _narrow_mean(stats, m, rows, starts, f_start, bounds, n, c, f_c, length_term
     a2 = stats[1, c]
     c1 = rows[0]
     c2 = rows[1]
-    lo = bounds[0]
-    hi = bounds[1]
-    out_lo = bounds[2]
-    out_hi = bounds[3]
     cf = float(c)
     # rounding in F and in the costs, now or at any later t, is a few ulps of |F| and of the
     # sums of squares, at most the series' whole sum
@@ -549,10 +542,13 @@ def _narrow_mean(stats, m, rows, starts, f_start, bounds, n, c, f_c, length_term
     excl_hi = -np.inf
     excl_gap = -np.inf
     retired = 0
+    # Written for speed, same arithmetic: selects instead of branches (which way a candidate goes
+    # is data, and mispredictions cost more than computing both ways), ``x if x > y else y`` for
+    # max (the builtin is a call), no views of ``bounds`` (each holds a reference, counted
+    # atomically). A retired start's slot computes nonsense that is never kept.
     for j in range(n):
         fs = f_start[j]
-        if fs == np.inf:
-            continue
+        alive = fs != np.inf
         length = cf - starts[j]
         inv = 1.0 / length
         s1 = a1 - c1[j]
@@ -560,40 +556,45 @@ def _narrow_mean(stats, m, rows, starts, f_start, bounds, n, c, f_c, length_term
         gap = f_c - fs - ((a2 - c2[j]) - s1 * mean)
         margin = base + _PRUNE_MARGIN * abs(fs)
         room = gap + margin
-        half = math.sqrt(max(room, 0.0) * inv)
-        low = max(lo[j], mean - half)
-        high = min(hi[j], mean + half)
-        if out_lo[j] < low and out_hi[j] > high:
-            low = np.inf
-        elif out_lo[j] < low:
-            low = max(low, out_hi[j])
-        elif out_hi[j] > high:
-            high = min(high, out_lo[j])
-        lo[j] = low
-        hi[j] = high
-        if not (room >= 0.0 and low <= high):
-            f_start[j] = np.inf
-            retired += 1
+        half = math.sqrt((0.0 if 0.0 > room else room) * inv)
+        low = mean - half
+        low = low if low > bounds[0, j] else bounds[0, j]
+        high = mean + half
+        high = high if high < bounds[1, j] else bounds[1, j]
+        # the exclusion cuts the hull where it reaches past an end, and empties it when it covers it
+        out_lo = bounds[2, j]
+        out_hi = bounds[3, j]
+        below = out_lo < low
+        above = out_hi > high
+        low_cut = out_hi if out_hi > low else low
+        high_cut = out_lo if out_lo < high else high
+        low = np.inf if below & above else (low_cut if below else low)
+        high = high_cut if above & (not below) else high
+        bounds[0, j] = low
+        bounds[1, j] = high
+        retire = alive & (not ((room >= 0.0) & (low <= high)))
+        f_start[j] = np.inf if retire else fs
+        retired += retire
         # the open interval where s beats c by more than the margin
         shut = gap - margin
         if use_length_term:
             shut -= length_term[int(length) + min_size] - length_term[min_size]
-        if shut > 0.0:
-            half = math.sqrt(shut * inv)
-            e_lo = mean - half
-            e_hi = mean + half
-            if e_lo < excl_hi and e_hi > excl_lo:
-                excl_lo = min(excl_lo, e_lo)
-                excl_hi = max(excl_hi, e_hi)
-                excl_gap = max(excl_gap, shut)
-            elif shut > excl_gap:
-                excl_lo = e_lo
-                excl_hi = e_hi
-                excl_gap = shut
-    lo[n] = -np.inf
-    hi[n] = np.inf
-    out_lo[n] = excl_lo
-    out_hi[n] = excl_hi
+        half = math.sqrt((0.0 if 0.0 > shut else shut) * inv)
+        e_lo = mean - half
+        e_hi = mean + half
+        shut_out = alive & (shut > 0.0)
+        merge = shut_out & (e_lo < excl_hi) & (e_hi > excl_lo)
+        take = shut_out & (not merge) & (shut > excl_gap)
+        merged_lo = e_lo if e_lo < excl_lo else excl_lo
+        merged_hi = e_hi if e_hi > excl_hi else excl_hi
+        merged_gap = shut if shut > excl_gap else excl_gap
+        excl_lo = merged_lo if merge else (e_lo if take else excl_lo)
+        excl_hi = merged_hi if merge else (e_hi if take else excl_hi)
+        excl_gap = merged_gap if merge else (shut if take else excl_gap)
+    bounds[0, n] = -np.inf
+    bounds[1, n] = np.inf
+    bounds[2, n] = excl_lo
+    bounds[3, n] = excl_hi
     return retired
 
 
@@ -1732,37 +1733,125 @@ def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarr
 # --------------------------------------------------------------------------- cycles
 
 
+#: the harmonics' base rotation is taken from cos and sin afresh every this many positions (between
+#: them, by turning the previous one: some 10^-15 of drift, and the fit costs a few multiplications
+#: per value instead of 2 MAX_HARMONICS cosines)
+_RESYNC = 32
+
+
+@njit(cache=True, error_model="numpy")
 def _harmonics(period: float) -> int:
-    return int(min(max(math.floor(period / 2.0), 1), MAX_HARMONICS))
+    return int(min(max(math.floor(period / 2.0), 1.0), float(MAX_HARMONICS)))
 
 
-def _cycle(values: np.ndarray, periods: np.ndarray) -> np.ndarray:
-    """Least-squares sum of the harmonics of ``period`` for each row of a length bucket (NaN = missing).
+@njit(cache=True, error_model="numpy")
+def _subtract_cycle(residual, period, out, design) -> None:
+    """``out -=`` the least-squares sum of the harmonics of ``period`` fitted to ``residual`` (NaN = missing).
 
-    ``values`` is (rows, n); returns the fitted cycle at every position, missing ones included.
-    There is no constant: the cycle is fitted to what a first segmentation leaves, whose levels
-    are the segments' to say. Every sum runs along a row's own last axis, so a row's cycle does
-    not depend on the other rows.
+    The columns are ``cos(2 pi j t / P)`` then ``sin(...)``, ``j = 1..H``, over the row's
+    positions ``t``; a column that is (numerically) zero on the grid (a sine at Nyquist) is
+    left out. There is no constant: the cycle is fitted to what a first segmentation leaves,
+    whose levels are the segments' to say. Normal equations by Cholesky; a column that
+    depends on the others (too few present values) is left out too: every least-squares
+    solution fits the present values alike, and only they are written (``out`` is NaN where
+    ``residual`` is). ``design`` is scratch of at least ``n * 2 MAX_HARMONICS`` values.
     """
-    rows, n = values.shape
-    t = np.arange(n, dtype=np.float64)
-    j = np.arange(1, MAX_HARMONICS + 1, dtype=np.float64)
-    count = np.array([_harmonics(p) for p in periods])
-    angle = (2.0 * np.pi / periods)[:, None, None] * j[None, :, None] * t[None, None, :]  # (rows, H, n)
-    design = np.concatenate([np.cos(angle), np.sin(angle)], axis=1)  # (rows, 2H, n)
-    used = np.tile(j[None, :] <= count[:, None], 2)
-    # a sine at Nyquist vanishes on the grid: leave out columns that are (numerically) all zero
-    used &= np.sqrt((design * design).sum(axis=2)) > 1e-6 * math.sqrt(n)
-    design *= used[:, :, None]
-    present = ~np.isnan(values)
-    weighted = design * present[:, None, :]
-    gram = np.empty((rows, design.shape[1], design.shape[1]))
-    for i in range(design.shape[1]):
-        gram[:, i, :] = (weighted[:, i, None, :] * design).sum(axis=2)
-    gram += np.eye(design.shape[1])[None] * ~used[:, :, None]
-    rhs = (weighted * np.where(present, values, 0.0)[:, None, :]).sum(axis=2)
-    coef = np.linalg.solve(gram, rhs[:, :, None])[:, :, 0]
-    return (design.transpose(0, 2, 1) * coef[:, None, :]).sum(axis=2)
+    n = len(residual)
+    h = _harmonics(period)
+    k = 2 * h
+    w = 2.0 * np.pi / period
+    turn_c = math.cos(w)
+    turn_s = math.sin(w)
+    norms = np.zeros(k)
+    c = 1.0
+    sn = 0.0
+    for t in range(n):
+        if t % _RESYNC == 0:
+            c = math.cos(w * t)
+            sn = math.sin(w * t)
+        else:
+            c, sn = c * turn_c - sn * turn_s, sn * turn_c + c * turn_s
+        row = design[t * k : t * k + k]
+        cj = c
+        sj = sn
+        for j in range(h):
+            row[j] = cj
+            row[h + j] = sj
+            norms[j] += cj * cj
+            norms[h + j] += sj * sj
+            cj, sj = cj * c - sj * sn, sj * c + cj * sn
+    gram = np.zeros((k, k))
+    rhs = np.zeros(k)
+    for t in range(n):
+        r = residual[t]
+        if np.isnan(r):
+            continue
+        row = design[t * k : t * k + k]
+        for a in range(k):
+            da = row[a]
+            rhs[a] += da * r
+            for b in range(a + 1):
+                gram[a, b] += da * row[b]
+    # Cholesky of the used columns, in place in the lower triangle
+    used = np.empty(k, dtype=np.bool_)
+    floor = 1e-6 * math.sqrt(n)
+    for a in range(k):
+        used[a] = math.sqrt(norms[a]) > floor
+    for a in range(k):
+        if not used[a]:
+            continue
+        d = gram[a, a]
+        for b in range(a):
+            if used[b]:
+                d -= gram[a, b] * gram[a, b]
+        if not d > 1e-12 * gram[a, a]:
+            used[a] = False
+            continue
+        d = math.sqrt(d)
+        gram[a, a] = d
+        for i in range(a + 1, k):
+            v = gram[i, a]
+            for b in range(a):
+                if used[b]:
+                    v -= gram[i, b] * gram[a, b]
+            gram[i, a] = v / d
+    coef = np.zeros(k)
+    for a in range(k):
+        if used[a]:
+            v = rhs[a]
+            for b in range(a):
+                if used[b]:
+                    v -= gram[a, b] * coef[b]
+            coef[a] = v / gram[a, a]
+    for a in range(k - 1, -1, -1):
+        if used[a]:
+            v = coef[a]
+            for i in range(a + 1, k):
+                if used[i]:
+                    v -= gram[i, a] * coef[i]
+            coef[a] = v / gram[a, a]
+    for t in range(n):
+        if np.isnan(residual[t]):
+            continue
+        row = design[t * k : t * k + k]
+        fitted = 0.0
+        for a in range(k):
+            fitted += coef[a] * row[a]
+        out[t] -= fitted
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _subtract_cycles(residual, offsets, rows, periods, out, out_offsets) -> None:
+    """:func:`_subtract_cycle` for row ``rows[i]`` of ``residual`` into row ``i`` of ``out``."""
+    longest = 0
+    for i in range(len(rows)):
+        longest = max(longest, out_offsets[i + 1] - out_offsets[i])
+    design = np.empty(longest * 2 * MAX_HARMONICS)
+    for i in range(len(rows)):
+        r = rows[i]
+        _subtract_cycle(
+            residual[offsets[r] : offsets[r + 1]], periods[r], out[out_offsets[i] : out_offsets[i + 1]], design
+        )
 
 
 def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> tuple[np.ndarray, Ragged]:
@@ -1770,16 +1859,8 @@ def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> 
     cyclic = np.flatnonzero(np.isfinite(periods))
     values = batch.take(cyclic)
     out = np.array(values.values, dtype=np.float64, copy=True)
-    work = Ragged(residual, batch.offsets, batch.valid).take(cyclic)
-    for n, rows, matrix in work.by_length():
-        if n == 0:
-            continue
-        # rows of one length, in pieces of about CYCLE_ELEMENTS elements (a row is never split)
-        step = max(1, CYCLE_ELEMENTS // n)
-        for lo in range(0, len(rows), step):
-            part = rows[lo : lo + step]
-            fitted = _cycle(matrix[lo : lo + step], periods[cyclic[part]])
-            out[work.offsets[part][:, None] + np.arange(n)] -= fitted
+    offsets = np.ascontiguousarray(values.offsets, dtype=np.int64)
+    _subtract_cycles(residual, np.ascontiguousarray(batch.offsets, dtype=np.int64), cyclic, periods, out, offsets)
     return cyclic, Ragged(out, values.offsets, values.valid)
 
 
