@@ -2,6 +2,7 @@
 
     python -m benchmarks.pelt_kernel [--n 3000] [--series 4000] [--points 500] [--long 1000000,3000000] [--repeat 5]
                                      [--calm 100000] [--calm-long 1000000] [--old-repeat 3]
+                                     [--parts 1,2,3,4,5] [--profile-rows 2000] [--profile-points 1000]
 
 1. One series of ``--n`` points, model 'mean', BIC penalty: tsql's change_points against
    ``ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma^2)`` (ruptures'
@@ -17,6 +18,11 @@
    'meanvar' and 'trend', BIC penalty: the search with geometric functional pruning (the kernel
    as shipped) against plain PELT on the same sums, in turns (same answer checked), medians; then
    ``--calm-long`` points with the pruning alone.
+5. The default path (model 'mean', 'bic', ``seasonal='auto'``) step by step on
+   :func:`benchmarks.data.seasonal` (``--profile-rows`` x ``--profile-points``, every row with a
+   cycle): the first segmentation, the periods (Fisher's screen, then seasonality), the cycles'
+   fit, the second segmentation, and the whole call, each in CPU seconds of this process (medians
+   of the steps run in turns; the machine's other load counts less than in wall-clock time).
 
 All figures are medians of wall-clock times measured in this one run.
 """
@@ -168,6 +174,42 @@ def calm(n: int, n_long: int, repeat: int, old_repeat: int) -> None:
             )
 
 
+def profile(rows: int, points: int, repeat: int) -> None:
+    from benchmarks.data import seasonal
+
+    batch = Ragged.from_list(list(seasonal(rows, points)))
+    spec = changepoint.MODELS["mean"]
+
+    def first():
+        return changepoint._run(batch, spec, changepoint._BIC, 0.0, 2, None, True)
+
+    _, _, _, row_ok, residual = first()
+    periods = changepoint._periods(batch, residual, row_ok, "auto")
+    _, adjusted = changepoint._remove_cycles(batch, residual, periods)
+    steps = {
+        "first segmentation (with residuals)": first,
+        "periods (Fisher's screen, seasonality)": lambda: changepoint._periods(batch, residual, row_ok, "auto"),
+        "cycles' fit": lambda: changepoint._remove_cycles(batch, residual, periods),
+        "second segmentation (rows with a cycle)": lambda: changepoint._run(
+            adjusted, spec, changepoint._BIC, 0.0, 2, None
+        ),
+        "the whole change_points call": lambda: changepoint.change_points(batch),
+        "change_points(seasonal='none')": lambda: changepoint.change_points(batch, seasonal="none"),
+    }
+    cpu = {name: [] for name in steps}
+    for _ in range(repeat):
+        for name, fn in steps.items():
+            start = time.process_time()
+            fn()
+            cpu[name].append(time.process_time() - start)
+    whole = statistics.median(cpu["the whole change_points call"])
+    cyclic = int(np.isfinite(periods).sum())
+    print(f"5. change_points' default path on {rows:,} x {points:,} seasonal rows ({cyclic:,} with a cycle)")
+    for name, seconds in cpu.items():
+        s = statistics.median(seconds)
+        print(f"   {name:<44} {s:7.3f} s CPU  {s / whole:6.1%}  ({s / rows * 1e6:6.1f} us/row)")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--n", type=int, default=3000)
@@ -178,8 +220,10 @@ def main() -> None:
     parser.add_argument("--calm", type=int, default=100000, help="length for part 4 (0: skip)")
     parser.add_argument("--calm-long", type=int, default=1000000, help="longer length for part 4, pruning only")
     parser.add_argument("--old-repeat", type=int, default=3, help="runs of plain PELT in part 4")
-    parser.add_argument("--parts", default="1,2,3,4")
+    parser.add_argument("--parts", default="1,2,3,4,5")
     parser.add_argument("--ruptures-repeat", type=int, default=3)
+    parser.add_argument("--profile-rows", type=int, default=2000, help="rows for part 5")
+    parser.add_argument("--profile-points", type=int, default=1000, help="points per row for part 5")
     args = parser.parse_args()
     start = time.perf_counter()
     changepoint.change_points(Ragged.from_list([np.arange(10.0) % 3]))
@@ -193,6 +237,8 @@ def main() -> None:
         one_change([int(v) for v in args.long.split(",") if v], args.repeat)
     if "4" in parts and args.calm:
         calm(args.calm, args.calm_long, args.repeat, args.old_repeat)
+    if "5" in parts:
+        profile(args.profile_rows, args.profile_points, args.repeat)
 
 
 if __name__ == "__main__":
