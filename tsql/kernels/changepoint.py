@@ -38,6 +38,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 from scipy.stats import chi2
+from scipy.stats import f as fdist
 
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
 
@@ -1477,6 +1478,7 @@ def _segment_row(
     counts,
     row_ok,
     residual,
+    least_factor,
 ) -> None:
     """Segment row ``r``: its segments go to ``out_*[offsets[r]:]``, their number to ``counts[r]``.
 
@@ -1514,6 +1516,8 @@ def _segment_row(
             log_m = math.log(m)
             # a named penalty grows with the serial dependence of the noise (see segments, Notes)
             factor = 1.0 if penalty_kind == _FIXED else _noise_factor(code, y, p, m, work)
+            if penalty_kind != _FIXED:
+                factor = max(factor, least_factor[r])  # a removed cycle's degrees of freedom (see _cycle_factor)
             if penalty_kind == _BIC:
                 beta = params_per_change * log_m * factor
             elif penalty_kind == _MBIC:
@@ -1610,6 +1614,7 @@ def _segment_rows(
     counts,
     row_ok,
     residual,
+    least_factor,
 ) -> None:
     """Segment every row (see :func:`_segment_row`)."""
     for r in range(len(offsets) - 1):
@@ -1632,6 +1637,7 @@ def _segment_rows(
             counts,
             row_ok,
             residual,
+            least_factor,
         )
 
 
@@ -1673,8 +1679,12 @@ def _run(
     min_size: int,
     max_changes: int | None,
     with_residual: bool = False,
+    least_factor: np.ndarray | None = None,
 ) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Segment the batch as it is (no cycle removed).
+
+    ``least_factor`` (one per row, default 1) is the least factor a named penalty is
+    multiplied by (see :func:`_cycle_factor`).
 
     Returns the segment columns as the kernel left them (row r's ``counts[r]``
     segments from ``slots[r]`` on, with unused space between rows), ``counts``,
@@ -1714,6 +1724,7 @@ def _run(
         counts,
         row_ok,
         residual,
+        np.ones(n_rows) if least_factor is None else np.ascontiguousarray(least_factor, dtype=np.float64),
     )
     return fields, counts, offsets[:-1], row_ok, residual
 
@@ -1781,6 +1792,119 @@ def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> 
             fitted = _cycle(matrix[lo : lo + step], periods[cyclic[part]])
             out[work.offsets[part][:, None] + np.arange(n)] -= fitted
     return cyclic, Ragged(out, values.offsets, values.valid)
+
+
+def _cycle_parameters(periods: np.ndarray, n: int) -> np.ndarray:
+    """How many coefficients :func:`_cycle` fits for each period on rows of ``n`` positions.
+
+    Two per harmonic, less a sine at Nyquist, which vanishes on the grid (the rule of :func:`_cycle`).
+    """
+    count = np.array([_harmonics(p) for p in periods], dtype=np.int64)
+    top = np.sin((2.0 * np.pi * count / periods)[:, None] * np.arange(n, dtype=np.float64)[None, :])
+    return 2 * count - (np.sqrt((top * top).sum(axis=1)) <= 1e-6 * math.sqrt(n))
+
+
+def _cycle_factor(adjusted: Ragged, periods: np.ndarray, code: int) -> np.ndarray:
+    """The least factor on a named penalty for rows whose cycle was removed: ``(m - k) / (m - k - q)``.
+
+    The costs of 'mean' and 'trend' are in units of the variance about the whole series' mean
+    (``k = 1``) or line (``k = 2``); with ``q`` cycle coefficients fitted to the same ``m`` values
+    that variance is low by ``(m - k - q) / (m - k)`` in expectation (the residual variance of
+    least squares), and every cost high by its inverse. 'meanvar' compares variances with each
+    other, so the bias cancels (1).
+    """
+    out = np.ones(adjusted.n_rows)
+    if code == MEANVAR:
+        return out
+    k = 2 if code == TREND else 1
+    for n, rows, matrix in adjusted.by_length():
+        if n == 0:
+            continue
+        m = (~np.isnan(matrix)).sum(axis=1)
+        left = m - k - _cycle_parameters(periods[rows], n)
+        out[rows] = np.where(left > 0, (m - k) / np.maximum(left, 1), 1.0)
+    return out
+
+
+def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ragged, np.ndarray]:
+    """The rows whose spread follows their removed cycle, standardised by it; which rows those are.
+
+    Noise that grows with the level (counts, amounts) rises and falls with a strong cycle:
+    after the cycle is removed, the months of its peak still vary most, and a run of them
+    looks like a short shift to a cost that takes one variance for all. The spread is
+    modelled as multiplicative heteroscedasticity (Harvey 1976): ``log r_t^2`` regressed on
+    the fundamental of the period, ``r`` the deviation from the whole series' mean (for
+    'trend', its line). Where the harmonic explains ``log r^2`` at the 1 % level (F-test),
+    each deviation is divided by its fitted scale ``g_t = exp(fit_t / 2)`` (the constant
+    left out): ``centre + r_t / g_t``. Other rows are returned as they are.
+    """
+    values = np.array(adjusted.values, dtype=np.float64, copy=True)
+    changed = np.zeros(adjusted.n_rows, dtype=np.bool_)
+    offsets = adjusted.offsets
+    for n, rows, matrix in adjusted.by_length():
+        if n < 4:
+            continue
+        t = np.arange(n, dtype=np.float64)
+        present = ~np.isnan(matrix)
+        m = present.sum(axis=1)
+        y = np.where(present, matrix, 0.0)
+        centre = (y.sum(axis=1) / np.maximum(m, 1))[:, None] + np.zeros(n)
+        if code == TREND:
+            tp = np.where(present, t, 0.0)
+            mt = tp.sum(axis=1) / np.maximum(m, 1)
+            dt = np.where(present, t - mt[:, None], 0.0)
+            sxx = (dt * dt).sum(axis=1)
+            slope = np.where(sxx > 0, (dt * (y - centre)).sum(axis=1) / np.where(sxx > 0, sxx, 1.0), 0.0)
+            centre = centre + slope[:, None] * (t - mt[:, None])
+        r = np.where(present, matrix - centre, 0.0)
+        tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * np.abs(y).max(axis=1)) ** 2
+        log_r2 = np.where(present, np.log(np.maximum(r * r, tiny[:, None] + np.finfo(np.float64).tiny)), 0.0)
+        angle = (2.0 * np.pi / periods[rows])[:, None] * t[None, :]
+        design = np.stack([np.ones_like(angle), np.cos(angle), np.sin(angle)], axis=1)  # (rows, 3, n)
+        used = np.sqrt((design * design).sum(axis=2)) > 1e-6 * math.sqrt(n)  # a sine at Nyquist vanishes
+        design *= used[:, :, None]
+        weighted = design * present[:, None, :]
+        gram = np.empty((len(rows), 3, 3))
+        for i in range(3):
+            gram[:, i, :] = (weighted[:, i, None, :] * design).sum(axis=2)
+        gram += np.eye(3)[None] * ~used[:, :, None]
+        coef = np.linalg.solve(gram, (weighted * log_r2[:, None, :]).sum(axis=2)[:, :, None])[:, :, 0]
+        fit = (design.transpose(0, 2, 1) * coef[:, None, :]).sum(axis=2)
+        mean_log = log_r2.sum(axis=1) / np.maximum(m, 1)
+        explained = (np.where(present, fit - mean_log[:, None], 0.0) ** 2).sum(axis=1)
+        left = (np.where(present, log_r2 - fit, 0.0) ** 2).sum(axis=1)
+        df1 = used.sum(axis=1) - 1
+        df2 = m - used.sum(axis=1)
+        ok = (df1 > 0) & (df2 > 0) & (left > 0)
+        statistic = np.where(ok, explained * np.maximum(df2, 1) / np.where(ok, left * np.maximum(df1, 1), 1.0), 0.0)
+        steady = ok & (fdist.sf(statistic, np.maximum(df1, 1), np.maximum(df2, 1)) < SEASONAL_LEVEL)
+        if not steady.any():
+            continue
+        scale = np.exp(0.5 * (fit - coef[:, :1]))
+        standardised = np.where(present, centre + r / scale, np.nan)
+        where = offsets[rows[steady]][:, None] + np.arange(n)
+        values[where] = standardised[steady]
+        changed[rows[steady]] = True
+    return Ragged(values, offsets, adjusted.valid), changed
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _segment_levels(values, offsets, rows, slots, counts, first, out_mean, out_slope) -> None:
+    """Level and slope of each segment of ``rows``, from ``values``: segments ``slots[r]`` to
+    ``slots[r] + counts[r]``, each starting at the 1-based position ``first``."""
+    for r in rows:
+        y, p, m, _ = _present(values, offsets[r], offsets[r + 1] - offsets[r])
+        a = 0
+        for k in range(counts[r]):
+            w = slots[r] + k
+            b = a
+            if k + 1 < counts[r]:
+                while b < m and p[b] < first[w + 1] - 1:
+                    b += 1
+            else:
+                b = m
+            out_mean[w], out_slope[w] = _segment_stats(y, p, a, b)
+            a = b
 
 
 def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: str | float) -> np.ndarray:
@@ -1890,8 +2014,22 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
     if len(cyclic) == 0:
         offsets, source = _gather(np.maximum(counts - skip, 0), slots + skip)
         return {name: column[source] for name, column in fields.items()}, offsets, row_ok
-    # the rows with a cycle are segmented again without it; the others keep the first answer
-    again, counts2, slots2, ok2, _ = _run(adjusted, spec, kind, value, min_size, max_changes)
+    # the rows with a cycle are segmented again without it (and without the spread that follows it);
+    # the others keep the first answer
+    searched, steady = _steady_spread(adjusted, periods[cyclic], spec.code)
+    least = _cycle_factor(adjusted, periods[cyclic], spec.code)
+    again, counts2, slots2, ok2, _ = _run(searched, spec, kind, value, min_size, max_changes, False, least)
+    if steady.any():  # levels and slopes in the series' units, not the standardised ones
+        _segment_levels(
+            np.ascontiguousarray(adjusted.values, dtype=np.float64),
+            np.ascontiguousarray(adjusted.offsets, dtype=np.int64),
+            np.flatnonzero(steady),
+            slots2,
+            counts2,
+            again["first"],
+            again["mean"],
+            again["slope"],
+        )
     row_ok = row_ok.copy()
     row_ok[cyclic] &= ok2  # with max_changes, a long row may have no answer without its cycle
     first_counts = np.maximum(counts - skip, 0)
@@ -2229,6 +2367,7 @@ def change_points_path(
         periods = _periods(batch, residual, row_ok, seasonal)
         if np.isfinite(periods).any():
             cyclic, adjusted = _remove_cycles(batch, residual, periods)
+            adjusted = _steady_spread(adjusted, periods[cyclic], spec.code)[0]
             values = np.array(batch.values, dtype=np.float64, copy=True)
             lengths = batch.lengths[cyclic]
             values[np.repeat(batch.offsets[cyclic] - adjusted.offsets[:-1], lengths) + np.arange(lengths.sum())] = (
