@@ -38,7 +38,6 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 from scipy.stats import chi2
-from scipy.stats import f as fdist
 
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
 
@@ -1830,62 +1829,81 @@ def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ra
     """The rows whose spread follows their removed cycle, standardised by it; which rows those are.
 
     Noise that grows with the level (counts, amounts) rises and falls with a strong cycle:
-    after the cycle is removed, the months of its peak still vary most, and a run of them
-    looks like a short shift to a cost that takes one variance for all. The spread is
-    modelled as multiplicative heteroscedasticity (Harvey 1976): ``log r_t^2`` regressed on
-    the fundamental of the period, ``r`` the deviation from the whole series' mean (for
-    'trend', its line). Where the harmonic explains ``log r^2`` at the 1 % level (F-test),
-    each deviation is divided by its fitted scale ``g_t = exp(fit_t / 2)`` (the constant
-    left out): ``centre + r_t / g_t``. Other rows are returned as they are.
+    once the cycle is removed, the months of its peak still vary most, and a run of them
+    looks like a short shift to a cost that takes one variance for all. ``r`` is the
+    deviation from the whole series' mean (for 'trend', its line), the fit the costs are
+    standardised by. The test: Koenker's studentised Breusch-Pagan statistic, ``m R^2`` of
+    ``r^2`` regressed on the fundamental of the period, against chi-squared at the 1 % level
+    of the cycles themselves. Where it holds, the spread is modelled as multiplicative
+    heteroscedasticity, ``log s_t^2`` on the same harmonic, estimated by Harvey's regression
+    of ``log r^2`` with one scoring step, and every deviation is divided by its scale
+    relative to the row's (geometric) mean scale: ``centre + r_t / g_t``. Other rows are
+    returned as they are. The caller reports levels from the values, not from this.
+
+    References: R. Koenker, "A note on studentizing a test for heteroscedasticity", Journal of
+    Econometrics 17(1), 107-112 (1981); A. C. Harvey, "Estimating regression models with
+    multiplicative heteroscedasticity", Econometrica 44(3), 461-465 (1976).
     """
     values = np.array(adjusted.values, dtype=np.float64, copy=True)
     changed = np.zeros(adjusted.n_rows, dtype=np.bool_)
-    offsets = adjusted.offsets
     for n, rows, matrix in adjusted.by_length():
-        if n < 4:
+        if n == 0:
             continue
-        t = np.arange(n, dtype=np.float64)
-        present = ~np.isnan(matrix)
-        m = present.sum(axis=1)
-        y = np.where(present, matrix, 0.0)
-        centre = (y.sum(axis=1) / np.maximum(m, 1))[:, None] + np.zeros(n)
-        if code == TREND:
-            tp = np.where(present, t, 0.0)
-            mt = tp.sum(axis=1) / np.maximum(m, 1)
-            dt = np.where(present, t - mt[:, None], 0.0)
-            sxx = (dt * dt).sum(axis=1)
-            slope = np.where(sxx > 0, (dt * (y - centre)).sum(axis=1) / np.where(sxx > 0, sxx, 1.0), 0.0)
-            centre = centre + slope[:, None] * (t - mt[:, None])
-        r = np.where(present, matrix - centre, 0.0)
-        tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * np.abs(y).max(axis=1)) ** 2
-        log_r2 = np.where(present, np.log(np.maximum(r * r, tiny[:, None] + np.finfo(np.float64).tiny)), 0.0)
-        angle = (2.0 * np.pi / periods[rows])[:, None] * t[None, :]
-        design = np.stack([np.ones_like(angle), np.cos(angle), np.sin(angle)], axis=1)  # (rows, 3, n)
-        used = np.sqrt((design * design).sum(axis=2)) > 1e-6 * math.sqrt(n)  # a sine at Nyquist vanishes
-        design *= used[:, :, None]
-        weighted = design * present[:, None, :]
-        gram = np.empty((len(rows), 3, 3))
-        for i in range(3):
-            gram[:, i, :] = (weighted[:, i, None, :] * design).sum(axis=2)
-        gram += np.eye(3)[None] * ~used[:, :, None]
-        coef = np.linalg.solve(gram, (weighted * log_r2[:, None, :]).sum(axis=2)[:, :, None])[:, :, 0]
-        fit = (design.transpose(0, 2, 1) * coef[:, None, :]).sum(axis=2)
-        mean_log = log_r2.sum(axis=1) / np.maximum(m, 1)
-        explained = (np.where(present, fit - mean_log[:, None], 0.0) ** 2).sum(axis=1)
-        left = (np.where(present, log_r2 - fit, 0.0) ** 2).sum(axis=1)
-        df1 = used.sum(axis=1) - 1
-        df2 = m - used.sum(axis=1)
-        ok = (df1 > 0) & (df2 > 0) & (left > 0)
-        statistic = np.where(ok, explained * np.maximum(df2, 1) / np.where(ok, left * np.maximum(df1, 1), 1.0), 0.0)
-        steady = ok & (fdist.sf(statistic, np.maximum(df1, 1), np.maximum(df2, 1)) < SEASONAL_LEVEL)
-        if not steady.any():
-            continue
-        scale = np.exp(0.5 * (fit - coef[:, :1]))
-        standardised = np.where(present, centre + r / scale, np.nan)
-        where = offsets[rows[steady]][:, None] + np.arange(n)
-        values[where] = standardised[steady]
-        changed[rows[steady]] = True
-    return Ragged(values, offsets, adjusted.valid), changed
+        standardised, steady = _spread_standardised(matrix, periods[rows], code)
+        if steady.any():
+            values[adjusted.offsets[rows[steady]][:, None] + np.arange(n)] = standardised[steady]
+            changed[rows[steady]] = True
+    return Ragged(values, adjusted.offsets, adjusted.valid), changed
+
+
+def _spread_standardised(matrix: np.ndarray, periods: np.ndarray, code: int) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_steady_spread` for the rows of one length bucket (NaN = missing): the rows standardised, which
+    rows hold. Every sum runs along a row's own last axis."""
+    rows, n = matrix.shape
+    t = np.arange(n, dtype=np.float64)
+    present = ~np.isnan(matrix)
+    m = present.sum(axis=1)
+    y = np.where(present, matrix, 0.0)
+    centre = (y.sum(axis=1) / np.maximum(m, 1))[:, None] + np.zeros(n)
+    if code == TREND:
+        mt = np.where(present, t, 0.0).sum(axis=1) / np.maximum(m, 1)
+        dt = np.where(present, t - mt[:, None], 0.0)
+        sxx = (dt * dt).sum(axis=1)
+        slope = (dt * (y - centre)).sum(axis=1) / np.where(sxx > 0, sxx, np.inf)
+        centre = centre + slope[:, None] * (t - mt[:, None])
+    r = np.where(present, matrix - centre, 0.0)
+    r2 = r * r
+    angle = (2.0 * np.pi / periods)[:, None] * t[None, :]
+    design = np.stack([np.ones_like(angle), np.cos(angle), np.sin(angle)], axis=1)  # (rows, 3, n)
+    used = np.sqrt((design * design).sum(axis=2)) > 1e-6 * math.sqrt(n)  # a sine at Nyquist vanishes
+    design *= used[:, :, None] * present[:, None, :]
+    gram = np.empty((rows, 3, 3))
+    for i in range(3):
+        gram[:, i, :] = (design[:, i, None, :] * design).sum(axis=2)
+    gram += np.eye(3)[None] * ~used[:, :, None]
+
+    def fit(target: np.ndarray) -> np.ndarray:  # least squares on the harmonic, at the present values
+        coef = np.linalg.solve(gram, (design * target[:, None, :]).sum(axis=2)[:, :, None])
+        return (design * coef).sum(axis=1)
+
+    # the test: Koenker's m R^2 of r^2 on the harmonic
+    mean_r2 = (r2.sum(axis=1) / np.maximum(m, 1))[:, None]
+    explained = ((fit(r2) - np.where(present, mean_r2, 0.0)) ** 2).sum(axis=1)
+    total = (np.where(present, r2 - mean_r2, 0.0) ** 2).sum(axis=1)
+    df = used.sum(axis=1) - 1
+    ok = (df > 0) & (m > df + 1) & (total > 0)
+    statistic = m * explained / np.where(ok, total, np.inf)
+    steady = ok & (chi2.sf(statistic, np.maximum(df, 1)) < SEASONAL_LEVEL)
+    if not steady.any():
+        return matrix, steady
+    # the scale: Harvey's log-squares fit, its constant set so that mean(r^2 / s^2) = 1, one scoring step
+    tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * np.abs(y).max(axis=1))[:, None] ** 2
+    log_s2 = fit(np.where(present, np.log(np.maximum(r2, tiny + np.finfo(np.float64).tiny)), 0.0))
+    ratio = np.where(present, r2 * np.exp(-log_s2), 0.0)
+    log_s2 += np.log(np.maximum(ratio.sum(axis=1) / np.maximum(m, 1), np.finfo(np.float64).tiny))[:, None]
+    log_s2 += fit(np.where(present, r2 * np.exp(-log_s2) - 1.0, 0.0))
+    log_s2 -= (log_s2.sum(axis=1) / np.maximum(m, 1))[:, None]  # the geometric mean scale is 1
+    return np.where(present, centre + r * np.exp(-0.5 * log_s2), np.nan), steady
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
