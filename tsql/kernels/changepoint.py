@@ -1836,9 +1836,11 @@ def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ra
     ``r^2`` regressed on the fundamental of the period, against chi-squared at the 1 % level
     of the cycles themselves. Where it holds, the spread is modelled as multiplicative
     heteroscedasticity, ``log s_t^2`` on the same harmonic, estimated by Harvey's regression
-    of ``log r^2`` with one scoring step, and every deviation is divided by its scale
-    relative to the row's (geometric) mean scale: ``centre + r_t / g_t``. Other rows are
-    returned as they are. The caller reports levels from the values, not from this.
+    of ``log r^2`` with one scoring step, and a deviation whose fitted scale ``s_t`` is above
+    the row's root-mean-square scale ``s`` is shrunk to it: ``centre + r_t min(1, s / s_t)``.
+    None is enlarged: where the noise is least, that would magnify whatever the cycle's fit
+    missed (its shape, a second cycle) into shifts. Other rows are returned as they are. The
+    caller reports levels from the values, not from this.
 
     References: R. Koenker, "A note on studentizing a test for heteroscedasticity", Journal of
     Econometrics 17(1), 107-112 (1981); A. C. Harvey, "Estimating regression models with
@@ -1896,14 +1898,15 @@ def _spread_standardised(matrix: np.ndarray, periods: np.ndarray, code: int) -> 
     steady = ok & (chi2.sf(statistic, np.maximum(df, 1)) < SEASONAL_LEVEL)
     if not steady.any():
         return matrix, steady
-    # the scale: Harvey's log-squares fit, its constant set so that mean(r^2 / s^2) = 1, one scoring step
+    # the scale: Harvey's log-squares fit, its constant set so that mean(r^2 / s_t^2) = 1, one scoring step
     tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * np.abs(y).max(axis=1))[:, None] ** 2
     log_s2 = fit(np.where(present, np.log(np.maximum(r2, tiny + np.finfo(np.float64).tiny)), 0.0))
     ratio = np.where(present, r2 * np.exp(-log_s2), 0.0)
     log_s2 += np.log(np.maximum(ratio.sum(axis=1) / np.maximum(m, 1), np.finfo(np.float64).tiny))[:, None]
     log_s2 += fit(np.where(present, r2 * np.exp(-log_s2) - 1.0, 0.0))
-    log_s2 -= (log_s2.sum(axis=1) / np.maximum(m, 1))[:, None]  # the geometric mean scale is 1
-    return np.where(present, centre + r * np.exp(-0.5 * log_s2), np.nan), steady
+    s2 = np.where(present, np.exp(log_s2), 0.0)
+    shrink = np.minimum(np.sqrt((s2.sum(axis=1) / np.maximum(m, 1))[:, None] / np.where(present, s2, 1.0)), 1.0)
+    return np.where(present, centre + r * shrink, np.nan), steady
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
