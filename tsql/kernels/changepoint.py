@@ -2203,6 +2203,23 @@ def segments(
     white-noise null fails) is removed: its first ``min(floor(P / 2), 6)``
     harmonics, fitted by least squares to that residue, are subtracted and
     the search runs again on the rest. Other rows keep the first answer.
+    Two things make that second search honest on a cycle of counts or amounts
+    (noise that grows with the level). Its ``q`` fitted coefficients take
+    degrees of freedom from the ``m`` values: the variance the 'mean' and
+    'trend' costs are scaled by is low by ``(m - k - q) / (m - k)`` in
+    expectation (``k`` = 1 or 2 parameters of the whole series' mean or line;
+    the residual variance of least squares [9]_), so a named penalty's factor
+    is at least ``(m - k) / (m - k - q)`` (1.2 for 6 years of months);
+    'meanvar' compares variances with each other and keeps 1. And where the
+    remainder's spread follows the cycle (Koenker's studentised Breusch-Pagan
+    test [10]_ of ``r^2`` on the period's fundamental, at 1 %), the noisiest
+    phases are shrunk to the row's root-mean-square scale, their scale fitted
+    as multiplicative heteroscedasticity [11]_, before the search; levels and
+    slopes are still those of the values. On the invented sample warehouse's
+    963 yearly-seasonal monthly items (no planted change) the share with a
+    change fell from 7.5 % to 4.3 %, about that of its flat items (3.8 %);
+    the runs of peak months the equal-variance cost took for short shifts
+    were most of the difference. The TCPD scores above did not move.
 
     References
     ----------
@@ -2227,6 +2244,12 @@ def segments(
        process", Bernoulli 23(2), 1408-1447 (2017).
     .. [8] R. A. Fisher, "Tests of significance in harmonic analysis",
        Proc. Royal Society A 125, 54-59 (1929).
+    .. [9] G. A. F. Seber and A. J. Lee, "Linear Regression Analysis", 2nd
+       ed., Wiley (2003), ch. 3 (the unbiased estimate of the variance).
+    .. [10] R. Koenker, "A note on studentizing a test for
+       heteroscedasticity", Journal of Econometrics 17(1), 107-112 (1981).
+    .. [11] A. C. Harvey, "Estimating regression models with multiplicative
+       heteroscedasticity", Econometrica 44(3), 461-465 (1976).
 
     See Also
     --------
