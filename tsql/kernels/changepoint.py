@@ -1851,10 +1851,13 @@ def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ra
     for n, rows, matrix in adjusted.by_length():
         if n == 0:
             continue
-        standardised, steady = _spread_standardised(matrix, periods[rows], code)
-        if steady.any():
-            values[adjusted.offsets[rows[steady]][:, None] + np.arange(n)] = standardised[steady]
-            changed[rows[steady]] = True
+        step = max(1, CYCLE_ELEMENTS // n)  # pieces of about CYCLE_ELEMENTS values (a row is never split)
+        for lo in range(0, len(rows), step):
+            part = rows[lo : lo + step]
+            standardised, steady = _spread_standardised(matrix[lo : lo + step], periods[part], code)
+            if steady.any():
+                values[adjusted.offsets[part[steady]][:, None] + np.arange(n)] = standardised[steady]
+                changed[part[steady]] = True
     return Ragged(values, adjusted.offsets, adjusted.valid), changed
 
 
@@ -1898,7 +1901,9 @@ def _spread_standardised(matrix: np.ndarray, periods: np.ndarray, code: int) -> 
     steady = ok & (chi2.sf(statistic, np.maximum(df, 1)) < SEASONAL_LEVEL)
     if not steady.any():
         return matrix, steady
-    # the scale: Harvey's log-squares fit, its constant set so that mean(r^2 / s_t^2) = 1, one scoring step
+    # the scale, of the rows that hold only: Harvey's log-squares fit, its constant set so that
+    # mean(r^2 / s_t^2) = 1, then one scoring step
+    design, gram, present, m, y, r, r2, centre = (a[steady] for a in (design, gram, present, m, y, r, r2, centre))
     tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * np.abs(y).max(axis=1))[:, None] ** 2
     log_s2 = fit(np.where(present, np.log(np.maximum(r2, tiny + np.finfo(np.float64).tiny)), 0.0))
     ratio = np.where(present, r2 * np.exp(-log_s2), 0.0)
@@ -1906,7 +1911,9 @@ def _spread_standardised(matrix: np.ndarray, periods: np.ndarray, code: int) -> 
     log_s2 += fit(np.where(present, r2 * np.exp(-log_s2) - 1.0, 0.0))
     s2 = np.where(present, np.exp(log_s2), 0.0)
     shrink = np.minimum(np.sqrt((s2.sum(axis=1) / np.maximum(m, 1))[:, None] / np.where(present, s2, 1.0)), 1.0)
-    return np.where(present, centre + r * shrink, np.nan), steady
+    out = matrix.copy()
+    out[steady] = np.where(present, centre + r * shrink, np.nan)
+    return out, steady
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
