@@ -1478,6 +1478,7 @@ def _segment_row(
     counts,
     row_ok,
     residual,
+    least_factor,
 ) -> None:
     """Segment row ``r``: its segments go to ``out_*[offsets[r]:]``, their number to ``counts[r]``.
 
@@ -1515,6 +1516,8 @@ def _segment_row(
             log_m = math.log(m)
             # a named penalty grows with the serial dependence of the noise (see segments, Notes)
             factor = 1.0 if penalty_kind == _FIXED else _noise_factor(code, y, p, m, work)
+            if penalty_kind != _FIXED:
+                factor = max(factor, least_factor[r])  # a removed cycle's degrees of freedom (see _cycle_factor)
             if penalty_kind == _BIC:
                 beta = params_per_change * log_m * factor
             elif penalty_kind == _MBIC:
@@ -1611,6 +1614,7 @@ def _segment_rows(
     counts,
     row_ok,
     residual,
+    least_factor,
 ) -> None:
     """Segment every row (see :func:`_segment_row`)."""
     for r in range(len(offsets) - 1):
@@ -1633,6 +1637,7 @@ def _segment_rows(
             counts,
             row_ok,
             residual,
+            least_factor,
         )
 
 
@@ -1674,8 +1679,12 @@ def _run(
     min_size: int,
     max_changes: int | None,
     with_residual: bool = False,
+    least_factor: np.ndarray | None = None,
 ) -> tuple[dict[str, np.ndarray], np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Segment the batch as it is (no cycle removed).
+
+    ``least_factor`` (one per row, default 1) is the least factor a named penalty is
+    multiplied by (see :func:`_cycle_factor`).
 
     Returns the segment columns as the kernel left them (row r's ``counts[r]``
     segments from ``slots[r]`` on, with unused space between rows), ``counts``,
@@ -1715,6 +1724,7 @@ def _run(
         counts,
         row_ok,
         residual,
+        np.ones(n_rows) if least_factor is None else np.ascontiguousarray(least_factor, dtype=np.float64),
     )
     return fields, counts, offsets[:-1], row_ok, residual
 
@@ -1864,6 +1874,148 @@ def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> 
     return cyclic, Ragged(out, values.offsets, values.valid)
 
 
+def _cycle_parameters(periods: np.ndarray, n: int) -> np.ndarray:
+    """How many coefficients :func:`_cycle` fits for each period on rows of ``n`` positions.
+
+    Two per harmonic, less a sine at Nyquist, which vanishes on the grid (the rule of :func:`_cycle`).
+    """
+    count = np.array([_harmonics(p) for p in periods], dtype=np.int64)
+    top = np.sin((2.0 * np.pi * count / periods)[:, None] * np.arange(n, dtype=np.float64)[None, :])
+    return 2 * count - (np.sqrt((top * top).sum(axis=1)) <= 1e-6 * math.sqrt(n))
+
+
+def _cycle_factor(adjusted: Ragged, periods: np.ndarray, code: int) -> np.ndarray:
+    """The least factor on a named penalty for rows whose cycle was removed: ``(m - k) / (m - k - q)``.
+
+    The costs of 'mean' and 'trend' are in units of the variance about the whole series' mean
+    (``k = 1``) or line (``k = 2``); with ``q`` cycle coefficients fitted to the same ``m`` values
+    that variance is low by ``(m - k - q) / (m - k)`` in expectation (the residual variance of
+    least squares), and every cost high by its inverse. 'meanvar' compares variances with each
+    other, so the bias cancels (1).
+    """
+    out = np.ones(adjusted.n_rows)
+    if code == MEANVAR:
+        return out
+    k = 2 if code == TREND else 1
+    for n, rows, matrix in adjusted.by_length():
+        if n == 0:
+            continue
+        m = (~np.isnan(matrix)).sum(axis=1)
+        left = m - k - _cycle_parameters(periods[rows], n)
+        out[rows] = np.where(left > 0, (m - k) / np.maximum(left, 1), 1.0)
+    return out
+
+
+def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ragged, np.ndarray]:
+    """The rows whose spread follows their removed cycle, standardised by it; which rows those are.
+
+    Noise that grows with the level (counts, amounts) rises and falls with a strong cycle:
+    once the cycle is removed, the months of its peak still vary most, and a run of them
+    looks like a short shift to a cost that takes one variance for all. ``r`` is the
+    deviation from the whole series' mean (for 'trend', its line), the fit the costs are
+    standardised by. The test: Koenker's studentised Breusch-Pagan statistic, ``m R^2`` of
+    ``r^2`` regressed on the fundamental of the period, against chi-squared at the 1 % level
+    of the cycles themselves. Where it holds, the spread is modelled as multiplicative
+    heteroscedasticity, ``log s_t^2`` on the same harmonic, estimated by Harvey's regression
+    of ``log r^2`` with one scoring step, and a deviation whose fitted scale ``s_t`` is above
+    the row's root-mean-square scale ``s`` is shrunk to it: ``centre + r_t min(1, s / s_t)``.
+    None is enlarged: where the noise is least, that would magnify whatever the cycle's fit
+    missed (its shape, a second cycle) into shifts. Other rows are returned as they are. The
+    caller reports levels from the values, not from this.
+
+    References: R. Koenker, "A note on studentizing a test for heteroscedasticity", Journal of
+    Econometrics 17(1), 107-112 (1981); A. C. Harvey, "Estimating regression models with
+    multiplicative heteroscedasticity", Econometrica 44(3), 461-465 (1976).
+    """
+    values = np.array(adjusted.values, dtype=np.float64, copy=True)
+    changed = np.zeros(adjusted.n_rows, dtype=np.bool_)
+    for n, rows, matrix in adjusted.by_length():
+        if n == 0:
+            continue
+        step = max(1, CYCLE_ELEMENTS // n)  # pieces of about CYCLE_ELEMENTS values (a row is never split)
+        for lo in range(0, len(rows), step):
+            part = rows[lo : lo + step]
+            standardised, steady = _spread_standardised(matrix[lo : lo + step], periods[part], code)
+            if steady.any():
+                values[adjusted.offsets[part[steady]][:, None] + np.arange(n)] = standardised[steady]
+                changed[part[steady]] = True
+    return Ragged(values, adjusted.offsets, adjusted.valid), changed
+
+
+def _spread_standardised(matrix: np.ndarray, periods: np.ndarray, code: int) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_steady_spread` for the rows of one length bucket (NaN = missing): the rows standardised, which
+    rows hold. Every sum runs along a row's own last axis."""
+    rows, n = matrix.shape
+    t = np.arange(n, dtype=np.float64)
+    present = ~np.isnan(matrix)
+    m = present.sum(axis=1)
+    y = np.where(present, matrix, 0.0)
+    centre = (y.sum(axis=1) / np.maximum(m, 1))[:, None] + np.zeros(n)
+    if code == TREND:
+        mt = np.where(present, t, 0.0).sum(axis=1) / np.maximum(m, 1)
+        dt = np.where(present, t - mt[:, None], 0.0)
+        sxx = (dt * dt).sum(axis=1)
+        slope = (dt * (y - centre)).sum(axis=1) / np.where(sxx > 0, sxx, np.inf)
+        centre = centre + slope[:, None] * (t - mt[:, None])
+    r = np.where(present, matrix - centre, 0.0)
+    r2 = r * r
+    angle = (2.0 * np.pi / periods)[:, None] * t[None, :]
+    design = np.stack([np.ones_like(angle), np.cos(angle), np.sin(angle)], axis=1)  # (rows, 3, n)
+    used = np.sqrt((design * design).sum(axis=2)) > 1e-6 * math.sqrt(n)  # a sine at Nyquist vanishes
+    design *= used[:, :, None] * present[:, None, :]
+    gram = np.empty((rows, 3, 3))
+    for i in range(3):
+        gram[:, i, :] = (design[:, i, None, :] * design).sum(axis=2)
+    gram += np.eye(3)[None] * ~used[:, :, None]
+
+    def fit(target: np.ndarray) -> np.ndarray:  # least squares on the harmonic, at the present values
+        coef = np.linalg.solve(gram, (design * target[:, None, :]).sum(axis=2)[:, :, None])
+        return (design * coef).sum(axis=1)
+
+    # the test: Koenker's m R^2 of r^2 on the harmonic
+    mean_r2 = (r2.sum(axis=1) / np.maximum(m, 1))[:, None]
+    explained = ((fit(r2) - np.where(present, mean_r2, 0.0)) ** 2).sum(axis=1)
+    total = (np.where(present, r2 - mean_r2, 0.0) ** 2).sum(axis=1)
+    df = used.sum(axis=1) - 1
+    ok = (df > 0) & (m > df + 1) & (total > 0)
+    statistic = m * explained / np.where(ok, total, np.inf)
+    steady = ok & (chi2.sf(statistic, np.maximum(df, 1)) < SEASONAL_LEVEL)
+    if not steady.any():
+        return matrix, steady
+    # the scale, of the rows that hold only: Harvey's log-squares fit, its constant set so that
+    # mean(r^2 / s_t^2) = 1, then one scoring step
+    design, gram, present, m, y, r, r2, centre = (a[steady] for a in (design, gram, present, m, y, r, r2, centre))
+    tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * np.abs(y).max(axis=1))[:, None] ** 2
+    log_s2 = fit(np.where(present, np.log(np.maximum(r2, tiny + np.finfo(np.float64).tiny)), 0.0))
+    ratio = np.where(present, r2 * np.exp(-log_s2), 0.0)
+    log_s2 += np.log(np.maximum(ratio.sum(axis=1) / np.maximum(m, 1), np.finfo(np.float64).tiny))[:, None]
+    log_s2 += fit(np.where(present, r2 * np.exp(-log_s2) - 1.0, 0.0))
+    s2 = np.where(present, np.exp(log_s2), 0.0)
+    shrink = np.minimum(np.sqrt((s2.sum(axis=1) / np.maximum(m, 1))[:, None] / np.where(present, s2, 1.0)), 1.0)
+    out = matrix.copy()
+    out[steady] = np.where(present, centre + r * shrink, np.nan)
+    return out, steady
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _segment_levels(values, offsets, rows, slots, counts, first, out_mean, out_slope) -> None:
+    """Level and slope of each segment of ``rows``, from ``values``: segments ``slots[r]`` to
+    ``slots[r] + counts[r]``, each starting at the 1-based position ``first``."""
+    for r in rows:
+        y, p, m, _ = _present(values, offsets[r], offsets[r + 1] - offsets[r])
+        a = 0
+        for k in range(counts[r]):
+            w = slots[r] + k
+            b = a
+            if k + 1 < counts[r]:
+                while b < m and p[b] < first[w + 1] - 1:
+                    b += 1
+            else:
+                b = m
+            out_mean[w], out_slope[w] = _segment_stats(y, p, a, b)
+            a = b
+
+
 def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: str | float) -> np.ndarray:
     """The period to remove from each row (NaN: none)."""
     n_rows = batch.n_rows
@@ -1971,8 +2123,22 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
     if len(cyclic) == 0:
         offsets, source = _gather(np.maximum(counts - skip, 0), slots + skip)
         return {name: column[source] for name, column in fields.items()}, offsets, row_ok
-    # the rows with a cycle are segmented again without it; the others keep the first answer
-    again, counts2, slots2, ok2, _ = _run(adjusted, spec, kind, value, min_size, max_changes)
+    # the rows with a cycle are segmented again without it (and without the spread that follows it);
+    # the others keep the first answer
+    searched, steady = _steady_spread(adjusted, periods[cyclic], spec.code)
+    least = _cycle_factor(adjusted, periods[cyclic], spec.code)
+    again, counts2, slots2, ok2, _ = _run(searched, spec, kind, value, min_size, max_changes, False, least)
+    if steady.any():  # levels and slopes in the series' units, not the standardised ones
+        _segment_levels(
+            np.ascontiguousarray(adjusted.values, dtype=np.float64),
+            np.ascontiguousarray(adjusted.offsets, dtype=np.int64),
+            np.flatnonzero(steady),
+            slots2,
+            counts2,
+            again["first"],
+            again["mean"],
+            again["slope"],
+        )
     row_ok = row_ok.copy()
     row_ok[cyclic] &= ok2  # with max_changes, a long row may have no answer without its cycle
     first_counts = np.maximum(counts - skip, 0)
@@ -2125,6 +2291,23 @@ def segments(
     white-noise null fails) is removed: its first ``min(floor(P / 2), 6)``
     harmonics, fitted by least squares to that residue, are subtracted and
     the search runs again on the rest. Other rows keep the first answer.
+    Two things make that second search honest on a cycle of counts or amounts
+    (noise that grows with the level). Its ``q`` fitted coefficients take
+    degrees of freedom from the ``m`` values: the variance the 'mean' and
+    'trend' costs are scaled by is low by ``(m - k - q) / (m - k)`` in
+    expectation (``k`` = 1 or 2 parameters of the whole series' mean or line;
+    the residual variance of least squares [9]_), so a named penalty's factor
+    is at least ``(m - k) / (m - k - q)`` (1.2 for 6 years of months);
+    'meanvar' compares variances with each other and keeps 1. And where the
+    remainder's spread follows the cycle (Koenker's studentised Breusch-Pagan
+    test [10]_ of ``r^2`` on the period's fundamental, at 1 %), the noisiest
+    phases are shrunk to the row's root-mean-square scale, their scale fitted
+    as multiplicative heteroscedasticity [11]_, before the search; levels and
+    slopes are still those of the values. On the invented sample warehouse's
+    963 yearly-seasonal monthly items (no planted change) the share with a
+    change fell from 7.5 % to 4.3 %, about that of its flat items (3.8 %);
+    the runs of peak months the equal-variance cost took for short shifts
+    were most of the difference. The TCPD scores above did not move.
 
     References
     ----------
@@ -2149,6 +2332,12 @@ def segments(
        process", Bernoulli 23(2), 1408-1447 (2017).
     .. [8] R. A. Fisher, "Tests of significance in harmonic analysis",
        Proc. Royal Society A 125, 54-59 (1929).
+    .. [9] G. A. F. Seber and A. J. Lee, "Linear Regression Analysis", 2nd
+       ed., Wiley (2003), ch. 3 (the unbiased estimate of the variance).
+    .. [10] R. Koenker, "A note on studentizing a test for
+       heteroscedasticity", Journal of Econometrics 17(1), 107-112 (1981).
+    .. [11] A. C. Harvey, "Estimating regression models with multiplicative
+       heteroscedasticity", Econometrica 44(3), 461-465 (1976).
 
     See Also
     --------
@@ -2310,6 +2499,7 @@ def change_points_path(
         periods = _periods(batch, residual, row_ok, seasonal)
         if np.isfinite(periods).any():
             cyclic, adjusted = _remove_cycles(batch, residual, periods)
+            adjusted = _steady_spread(adjusted, periods[cyclic], spec.code)[0]
             values = np.array(batch.values, dtype=np.float64, copy=True)
             lengths = batch.lengths[cyclic]
             values[np.repeat(batch.offsets[cyclic] - adjusted.offsets[:-1], lengths) + np.arange(lengths.sum())] = (
