@@ -1875,9 +1875,9 @@ def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> 
 
 
 def _cycle_parameters(periods: np.ndarray, n: int) -> np.ndarray:
-    """How many coefficients :func:`_cycle` fits for each period on rows of ``n`` positions.
+    """How many coefficients :func:`_subtract_cycle` fits for each period on rows of ``n`` positions.
 
-    Two per harmonic, less a sine at Nyquist, which vanishes on the grid (the rule of :func:`_cycle`).
+    Two per harmonic, less a sine at Nyquist, which vanishes on the grid (the rule of :func:`_subtract_cycle`).
     """
     count = np.array([_harmonics(p) for p in periods], dtype=np.int64)
     top = np.sin((2.0 * np.pi * count / periods)[:, None] * np.arange(n, dtype=np.float64)[None, :])
