@@ -512,13 +512,14 @@ _REVISIT = 1.0 / 8.0
 _EXCLUSIONS = 3
 
 #: lazy evaluation: the starts looked at every step may grow by this many plus the square root of
-#: this many times the starts kept before all are looked at again
-_NEAR_GROWTH = 16
+#: this many times the starts kept before all are looked at again (k new starts between full passes
+#: over n cost about k / 2 + n / k per step, least at k = sqrt(2 n))
+_NEAR_GROWTH = 2
 
 #: geometric functional pruning ('meanvar', 'trend'): the newest starts (slots) looked for every step,
 #: and the steps between looks for the older ones due to be narrowed
 _YOUNG = 64
-_SWEEP_EVERY = 8
+_SWEEP_EVERY = 32
 
 #: geometric functional pruning ('meanvar', 'trend') widens its boxes by this share, for
 #: rounding in their own arithmetic
