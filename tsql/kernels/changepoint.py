@@ -1130,7 +1130,9 @@ def _pelt(
         F[t] = np.inf
         last[t] = 0
     rows = (cand[0], cand[1], cand[2], cand[3], cand[4], cand[5])
-    rounding = _rounding_scale(code, stats, m)
+    # a pruning rule compares up to three computed costs (the pair's now, both starts' at a later
+    # step; the lazy pass doubles it for four), each within the scale of its exact value
+    rounding = 3.0 * _rounding_scale(code, stats, m)
     n_cand = np.int64(0)  # not a literal 0: the callees that take it compile once
     n_pruned = 0
     next_prune = 0
