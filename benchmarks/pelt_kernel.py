@@ -1,7 +1,7 @@
 """The PELT kernel against ruptures' exact PELT and against the SQL list-building floor.
 
     python -m benchmarks.pelt_kernel [--n 3000] [--series 4000] [--points 500] [--long 1000000,3000000] [--repeat 5]
-                                     [--calm 100000] [--calm-long 1000000] [--old-repeat 3]
+                                     [--calm 100000] [--calm-long 300000,1000000] [--old-repeat 3]
                                      [--parts 1,2,3,4,5] [--profile-rows 2000] [--profile-points 1000]
 
 1. One series of ``--n`` points, model 'mean', BIC penalty: tsql's change_points against
@@ -17,7 +17,7 @@
 4. One series of ``--calm`` points with a single level shift (1 sigma) in the middle, models
    'meanvar' and 'trend', BIC penalty: the search with geometric functional pruning (the kernel
    as shipped) against plain PELT on the same sums, in turns (same answer checked), medians; then
-   ``--calm-long`` points with the pruning alone.
+   each ``--calm-long`` length with the pruning alone (seconds per point should grow slowly).
 5. The default path (model 'mean', 'bic', ``seasonal='auto'``) step by step on
    :func:`benchmarks.data.seasonal` (``--profile-rows`` x ``--profile-points``, every row with a
    cycle): the first segmentation, the periods (Fisher's screen, then seasonality), the cycles'
@@ -149,7 +149,7 @@ def pelt_search(x: np.ndarray, model: str, functional: bool) -> np.ndarray:
     return last
 
 
-def calm(n: int, n_long: int, repeat: int, old_repeat: int) -> None:
+def calm(n: int, longer: list[int], repeat: int, old_repeat: int) -> None:
     print("4. one series with one level shift (1 sigma) in the middle, BIC penalty: pruning vs plain PELT")
     for model in ("meanvar", "trend"):
         rng = np.random.default_rng(1)
@@ -165,7 +165,7 @@ def calm(n: int, n_long: int, repeat: int, old_repeat: int) -> None:
         found = [int(v) for v in changepoint.change_points(Ragged.from_list([x]), model).values]
         print(f"   '{model}' {n:,} points: same search result {same}; changes at {found}")
         print(f"      geometric pruning {pruned:8.3f} s   plain PELT {plain:8.3f} s   ratio {plain / pruned:,.0f}x")
-        if n_long:
+        for n_long in longer:
             batch = Ragged.from_list([rng.standard_normal(n_long) + 1.0 * (np.arange(n_long) >= n_long // 2)])
             seconds = median_seconds(lambda b=batch, model=model: changepoint.change_points(b, model), repeat)
             found = [int(v) for v in changepoint.change_points(batch, model).values]
@@ -218,7 +218,7 @@ def main() -> None:
     parser.add_argument("--long", default="1000000,3000000", help="comma-separated lengths for part 3")
     parser.add_argument("--repeat", type=int, default=5)
     parser.add_argument("--calm", type=int, default=100000, help="length for part 4 (0: skip)")
-    parser.add_argument("--calm-long", type=int, default=1000000, help="longer length for part 4, pruning only")
+    parser.add_argument("--calm-long", default="300000,1000000", help="longer lengths for part 4, pruning only")
     parser.add_argument("--old-repeat", type=int, default=3, help="runs of plain PELT in part 4")
     parser.add_argument("--parts", default="1,2,3,4,5")
     parser.add_argument("--ruptures-repeat", type=int, default=3)
@@ -236,7 +236,7 @@ def main() -> None:
     if "3" in parts:
         one_change([int(v) for v in args.long.split(",") if v], args.repeat)
     if "4" in parts and args.calm:
-        calm(args.calm, args.calm_long, args.repeat, args.old_repeat)
+        calm(args.calm, [int(v) for v in args.calm_long.split(",") if v], args.repeat, args.old_repeat)
     if "5" in parts:
         profile(args.profile_rows, args.profile_points, args.repeat)
 

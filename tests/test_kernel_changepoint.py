@@ -729,6 +729,97 @@ def test_lazy_evaluation_equals_plain_pelt_on_seeded_signals(model):
     assert runs == 24
 
 
+@pytest.mark.parametrize("model", ["meanvar", "trend"])
+def test_pruning_equals_plain_pelt_on_long_series_with_short_segments(model):
+    # reference: plain PELT on the same sums (Killick et al. 2012, K = 0), fast here because every
+    # few hundred points a change lets it prune. 200,000 points: positions far from the origin of
+    # the sums (up to 100,000 from it), where the rounding bound of the pruning is widest, with a
+    # calm stretch of 20,000 points at the end, then one change in its last 2,000 points
+    rng = np.random.default_rng({"meanvar": 61, "trend": 62}[model])
+    n = 200_000
+    x = piecewise(rng, n - 20_000, 800, "mean" if model == "trend" else model)
+    tail = rng.standard_normal(20_000)
+    tail[-2_000:] += 1.5
+    x = np.r_[x, tail]
+    for penalty in ("bic", 8.0):
+        F, last, _, _ = search(x, model, penalty, 2)
+        F_old, last_old, _, _ = search(x, model, penalty, 2, functional=False)
+        np.testing.assert_array_equal(last, last_old, err_msg=str(penalty))
+        np.testing.assert_array_equal(F, F_old, err_msg=str(penalty))
+        assert len(chain(last)) > 300
+
+
+@pytest.mark.parametrize("model", ["meanvar", "trend"])
+def test_pruning_is_exact_on_present_values_far_apart(model):
+    # reference: search_reference above (exhaustive optimal partitioning, numpy) and plain PELT.
+    # 2,500 present values among 3,000,000 positions: wide gaps, positions up to 1.5 million from
+    # the origin, a dense block late in the series with changes in it
+    rng = np.random.default_rng({"meanvar": 63, "trend": 64}[model])
+    places = np.r_[np.sort(rng.choice(2_900_000, 1_500, replace=False)), 2_999_000 + np.arange(1_000)]
+    x = np.full(3_000_000, np.nan)
+    x[places] = piecewise(rng, len(places), 12, model)
+    for penalty, min_size in (("bic", 2), (2.0, 3), ("mbic", 2)):
+        F, last, stats, beta = search(x, model, penalty, min_size)
+        F_ref, last_ref = search_reference(stats, model, beta, penalty == "mbic", min_size)
+        np.testing.assert_allclose(F[min_size:], F_ref[min_size:], rtol=1e-12, atol=1e-9)
+        np.testing.assert_array_equal(last[min_size:], last_ref[min_size:])
+        F_old, last_old, _, _ = search(x, model, penalty, min_size, functional=False)
+        np.testing.assert_array_equal(last, last_old)
+        np.testing.assert_array_equal(F, F_old)
+
+
+@pytest.mark.parametrize("model", ["meanvar", "trend"])
+def test_rounding_bound_holds_for_segment_costs_at_a_million_points(model):
+    # reference: Python's decimal module at 60 digits, on the stored sums read exactly: the least
+    # loss those sums define ('meanvar' L log(var + floor), 'trend' the RSS about the segment's
+    # line, positions less the segment's last one). The pruning needs every computed cost within
+    # _rounding_scale of it, for every segment; checked on short segments late in the series
+    # (where positions are largest), long ones and random ones, and a constant stretch (the clip at
+    # zero variance)
+    from decimal import Decimal, getcontext
+
+    getcontext().prec = 60
+    rng = np.random.default_rng({"meanvar": 65, "trend": 66}[model])
+    m = 1_000_000
+    x = rng.standard_normal(m) + 1.0 * (np.arange(m) >= m // 2) + 0.3 * np.sin(np.arange(m) / 5_000.0)
+    x[600_000:600_050] = 2.0
+    spec = changepoint.MODELS[model]
+    stats = np.empty((changepoint.MAX_STATS, m + 1))
+    assert changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, stats, np.empty(2 * m + 2))
+    bound = changepoint._rounding_scale(spec.code, stats, m)
+    pairs = [(m - k, m) for k in (2, 3, 5, 40, 1_000)] + [(600_000, 600_050), (600_010, 600_040), (0, m)]
+    pairs += [(m // 2 - 7, m // 2 + 9), (10, 900_000)]
+    for _ in range(60):
+        s = int(rng.integers(0, m - 2))
+        pairs.append((s, int(min(m, s + 2 + rng.integers(0, 10 ** rng.integers(0, 6))))))
+    worst = 0.0
+    for s, t in pairs:
+        out = np.empty(1)
+        rows = tuple(stats[:, s : s + 1])
+        if model == "meanvar":
+            changepoint._cost_meanvar(stats, rows, np.array([float(s)]), np.zeros(1), np.zeros(1, np.int64), 1, t, out)
+            d1 = Decimal(stats[0, t]) - Decimal(stats[0, s])
+            d2 = Decimal(stats[1, t]) - Decimal(stats[1, s])
+            length = Decimal(t - s)
+            exact = length * (d2 / length - (d1 / length) ** 2 + Decimal(FLOOR)).ln()
+        else:
+            changepoint._cost_trend(stats, rows, np.array([float(s)]), np.zeros(1), np.zeros(1, np.int64), 1, t, out)
+            d = [Decimal(stats[k, t]) - Decimal(stats[k, s]) for k in range(6)]
+            o = Decimal(stats[0, t]) - Decimal(stats[0, t - 1])
+            length = Decimal(t - s)
+            st = d[0] - length * o
+            stt = d[1] + d[5] - 2 * o * d[0] + length * o * o
+            stx = d[4] - o * d[2]
+            tt = length * stt - st * st
+            tx = length * stx - st * d[2]
+            xx = length * d[3] - d[2] * d[2]
+            exact = (xx * tt - tx * tx) / (tt * length) if tt > 0 else Decimal(0)
+        worst = max(worst, abs(float(Decimal(out[0]) - exact)))
+    assert worst <= bound, (worst, bound)
+    # and not absurdly loose: well below the least gain a change needs (the pruning works with it)
+    assert bound < 1e-2
+
+
 def test_trend_costs_on_a_million_points_equal_direct_least_squares():
     # reference: numpy.linalg.lstsq on each segment alone (positions from the segment's first one),
     # its RSS in units of the kernel's whole-series residual variance. A million positions with

@@ -248,18 +248,35 @@ def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work
 
 
 @njit(cache=True, error_model="numpy")
+def _accumulate(s, c, x) -> tuple[float, float]:
+    """One step of compensated summation (Neumaier 1974): ``s + c`` is the running sum, ``c`` its rounding."""
+    t = s + x
+    if abs(s) >= abs(x):
+        c += (s - t) + x
+    else:
+        c += (x - t) + s
+    return t, c
+
+
+@njit(cache=True, error_model="numpy")
 def _standardised_sums(y, m, centre, scale, stats) -> None:
-    """Cumulative sums of z and z^2, z = (y - centre) / scale, into stats[0] and stats[1]."""
+    """Cumulative sums of z and z^2, z = (y - centre) / scale, into stats[0] and stats[1].
+
+    Compensated: each is the exact sum of its terms to within an ulp or two (not
+    ``m`` ulps), which :func:`_rounding_scale` relies on.
+    """
     s1 = 0.0
+    e1 = 0.0
     s2 = 0.0
+    e2 = 0.0
     stats[0, 0] = 0.0
     stats[1, 0] = 0.0
     for i in range(m):
         z = (y[i] - centre) / scale
-        s1 += z
-        s2 += z * z
-        stats[0, i + 1] = s1
-        stats[1, i + 1] = s2
+        s1, e1 = _accumulate(s1, e1, z)
+        s2, e2 = _accumulate(s2, e2, z * z)
+        stats[0, i + 1] = s1 + e1
+        stats[1, i + 1] = s2 + e2
 
 
 @njit(cache=True, error_model="numpy")
@@ -330,8 +347,9 @@ def _prepare_trend(y, p, m, stats, work) -> bool:
     Rows: ``sum u`` (0), ``sum u^2`` as an exact multiple of ``_SQUARES_SPLIT`` (1) and the
     rest (5), ``sum z`` (2), ``sum z^2`` (3), ``sum u z`` (4). A segment's least-squares line
     does not change its residuals when a line is taken from the values, so the costs are
-    those of the raw values; the small ``u`` and ``z`` keep the sums well-conditioned, and the
-    positions' sums are exact (:func:`_trend_local`).
+    those of the raw values; the small ``u`` and ``z`` keep the sums well-conditioned, the
+    positions' sums are exact (:func:`_trend_local`) and the others compensated
+    (:func:`_accumulate`).
     """
     centre, slope, sigma = _line_residual_sd(y, p, m)
     if not sigma > _rounding(y, m):
@@ -344,8 +362,11 @@ def _prepare_trend(y, p, m, stats, work) -> bool:
     st = np.int64(0)
     stt = np.int64(0)
     sx = 0.0
+    ex = 0.0
     sxx = 0.0
+    exx = 0.0
     stx = 0.0
+    etx = 0.0
     for k in range(6):
         stats[k, 0] = 0.0
     for i in range(m):
@@ -353,16 +374,16 @@ def _prepare_trend(y, p, m, stats, work) -> bool:
         z = (y[i] - centre - slope * (p[i] - mp)) / sigma
         st += u
         stt += u * u
-        sx += z
-        sxx += z * z
-        stx += float(u) * z
+        sx, ex = _accumulate(sx, ex, z)
+        sxx, exx = _accumulate(sxx, exx, z * z)
+        stx, etx = _accumulate(stx, etx, float(u) * z)
         rest = stt % _SQUARES_SPLIT
         stats[0, i + 1] = float(st)
         stats[1, i + 1] = float(stt - rest)
         stats[5, i + 1] = float(rest)
-        stats[2, i + 1] = sx
-        stats[3, i + 1] = sxx
-        stats[4, i + 1] = stx
+        stats[2, i + 1] = sx + ex
+        stats[3, i + 1] = sxx + exx
+        stats[4, i + 1] = stx + etx
     return True
 
 
@@ -488,13 +509,14 @@ _REVISIT = 1.0 / 8.0
 _EXCLUSIONS = 3
 
 #: lazy evaluation: the starts looked at every step may grow by this many plus the square root of
-#: this many times the starts kept before all are looked at again
-_NEAR_GROWTH = 16
+#: this many times the starts kept before all are looked at again (k new starts between full passes
+#: over n cost about k / 2 + n / k per step, least at k = sqrt(2 n))
+_NEAR_GROWTH = 2
 
 #: geometric functional pruning ('meanvar', 'trend'): the newest starts (slots) looked for every step,
 #: and the steps between looks for the older ones due to be narrowed
 _YOUNG = 64
-_SWEEP_EVERY = 8
+_SWEEP_EVERY = 32
 
 #: geometric functional pruning ('meanvar', 'trend') widens its boxes by this share, for
 #: rounding in their own arithmetic
@@ -614,17 +636,55 @@ _BOX_ROWS = 12
 
 @njit(cache=True, error_model="numpy")
 def _rounding_scale(code, stats, m) -> float:
-    """A bound on rounding in any computed segment cost: a share of the totals it is computed from.
+    """A bound on the rounding of any segment cost computed from the sums, against the
+    least over the segment's parameters of the loss those sums define.
 
-    Cumulative sums carry errors of a few ulps of their totals; 'meanvar' divides them by a
-    variance of at least VARIANCE_FLOOR, and 'trend' multiplies the values' sums with the
-    positions' (Cauchy-Schwarz: ``|sum p z| <= sqrt(sum p^2 sum z^2)``).
+    The pruning argues on the sums as stored, so a rounding that went into them is part
+    of the data; what is bounded is the rounding of a cost's own arithmetic (differences
+    of two sums, the fit from them) and, where a cost is clipped at zero variance or
+    residual, how far the stored sums may be from sums of one set of values (compensated
+    sums: a couple of ulps of their largest values, :func:`_accumulate`). Every term is a
+    few ulps of a segment's own sums, bounded over all segments by the largest squared
+    value ``Z`` (``|slope| <= 4 sqrt(Z)`` and ``|slope| sum |z| <= 4 Z`` for distinct
+    integer positions), the sum of squares, the largest position from the origin ``U``
+    and the widest gap between positions ``g`` ('trend': positions' sums about a
+    segment's last one are ill-conditioned by at most ``min(L, 12 g^2)``); doubled.
+    'mean' keeps its share of the sum of squares (:func:`_narrow_mean`).
     """
+    eps = np.finfo(np.float64).eps
     if code == MEAN:
         return _SQUARES_MARGIN * stats[1, m]
+    row_x = 0 if code == MEANVAR else 2
+    row_xx = 1 if code == MEANVAR else 3
+    total = stats[row_xx, m]
+    top = 0.0
+    reach_x = 0.0
+    reach_tx = 0.0
+    gap = 1.0
+    for i in range(m):
+        top = max(top, stats[row_xx, i + 1] - stats[row_xx, i])
+        reach_x = max(reach_x, abs(stats[row_x, i + 1]))
+        if code == TREND:
+            reach_tx = max(reach_tx, abs(stats[4, i + 1]))
+            if i > 0:
+                gap = max(gap, (stats[0, i + 1] - stats[0, i]) - (stats[0, i] - stats[0, i - 1]))
+    top += 4.0 * eps * total
+    zmax = math.sqrt(top)
+    abs_x = math.sqrt(m * total)  # sum |z| (Cauchy-Schwarz)
+    drift_x = 2.0 * eps * reach_x + 2.0 * m * eps * eps * abs_x
+    drift_xx = 2.0 * eps * total + 2.0 * m * eps * eps * total
     if code == MEANVAR:
-        return _SQUARES_MARGIN * stats[1, m] / VARIANCE_FLOOR
-    return _SQUARES_MARGIN * (stats[3, m] + math.sqrt(stats[3, m] * (stats[1, m] + stats[5, m])))
+        # L log(var + floor): d cost / d sum z^2 = 1 / v <= 1 / floor, d / d sum z <= 2 |mean| / floor
+        logs = max(-math.log(VARIANCE_FLOOR), math.log(top + VARIANCE_FLOOR))
+        own = eps * (12.0 * total / VARIANCE_FLOOR + 4.0 * m * (1.0 + logs))
+        drift = (2.0 * drift_xx + 4.0 * zmax * drift_x) / VARIANCE_FLOOR
+        return 2.0 * (own + drift)
+    far = max(abs(stats[0, 1]), abs(stats[0, m] - stats[0, m - 1]))
+    drift_tx = 2.0 * eps * reach_tx + 2.0 * m * eps * eps * far * abs_x
+    own = eps * (48.0 * far * top + (16.0 + 6.0 * min(float(m), 12.0 * gap * gap)) * total)
+    # RSS: d / d sum z^2 = 1, d / d sum z <= 2 |mean| + 2 |slope| U, d / d sum u z = 2 |slope|
+    drift = 2.0 * drift_xx + 2.0 * (2.0 + 8.0 * far) * zmax * drift_x + 16.0 * zmax * drift_tx
+    return 2.0 * (own + drift)
 
 
 @njit(cache=True, error_model="numpy")
@@ -1071,7 +1131,9 @@ def _pelt(
         F[t] = np.inf
         last[t] = 0
     rows = (cand[0], cand[1], cand[2], cand[3], cand[4], cand[5])
-    rounding = _rounding_scale(code, stats, m)
+    # a pruning rule compares up to three computed costs (the pair's now, both starts' at a later
+    # step; the lazy pass doubles it for four), each within the scale of its exact value
+    rounding = 3.0 * _rounding_scale(code, stats, m)
     n_cand = np.int64(0)  # not a literal 0: the callees that take it compile once
     n_pruned = 0
     next_prune = 0
