@@ -20,6 +20,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import re
 import resource
 import subprocess
 import sys
@@ -33,6 +34,40 @@ HERE = Path(__file__).resolve().parents[1]
 
 CHILD = r"""
 import importlib, json, pkgutil, sys, time
+from collections import Counter
+from numba.core import codegen, event
+# CPU seconds by phase of compiling, nested compiles apart: numba's typing and lowering (Python),
+# LLVM's optimisation of each new function and of each library's module (its callees linked in),
+# machine code for that module, the rest of numba's passes
+phases, frames = Counter(), []
+def enter(kind):
+    frames.append([kind, time.process_time(), 0.0])
+def leave():
+    kind, start, inner = frames.pop()
+    spent = time.process_time() - start
+    if frames:
+        frames[-1][2] += spent
+    phases[kind] += spent - inner
+class Phases(event.Listener):
+    names = {"nopython_type_inference": "typing", "native_lowering": "lowering"}
+    def on_start(self, ev):
+        enter("other" if ev.kind == "numba:compile" else self.names.get(ev.data["name"].split(" [")[0], "other"))
+    def on_end(self, ev):
+        leave()
+for kind in ("numba:compile", "numba:run_pass"):
+    event.register(kind, Phases())
+def timed(cls, name, kind):
+    method = getattr(cls, name)
+    def run(self, *args, **kwargs):
+        enter(kind)
+        try:
+            return method(self, *args, **kwargs)
+        finally:
+            leave()
+    setattr(cls, name, run)
+timed(codegen.CPUCodeLibrary, "_optimize_functions", "llvm_functions")
+timed(codegen.CPUCodeLibrary, "_optimize_final_module", "llvm_modules")
+timed(codegen.JITCodeLibrary, "_finalize_specific", "machine_code")
 started = time.perf_counter()
 import tsql.registry as registry
 from tsql.binding import connect
@@ -56,7 +91,7 @@ for info in pkgutil.iter_modules(kernels.__path__):
             seconds = [(value.overloads[s].metadata or {}).get("timers", {}).get("compiler_lock", 0.0)
                        for s in value.signatures]
             compiled.append([info.name + "." + name, len(seconds), sum(seconds)])
-print(json.dumps({"setup": setup, "firsts": firsts, "cpu": cpu, "compiled": compiled}))
+print(json.dumps({"setup": setup, "firsts": firsts, "cpu": cpu, "compiled": compiled, "phases": phases}))
 """
 
 
@@ -95,15 +130,20 @@ def demo(source: Path) -> dict:
         seconds = {}
         for run in ("cold", "warm"):
             start, start_cpu = time.perf_counter(), _children_cpu()
-            subprocess.run(
+            done = subprocess.run(
                 [sys.executable, "-m", "tsql", "demo", "--db", database],
                 env=env,
                 cwd=source,
                 check=True,
-                stdout=subprocess.DEVNULL,
+                stdout=subprocess.PIPE,
+                text=True,
             )
             seconds[run] = time.perf_counter() - start
+            # the workers' CPU too (the demo waits for them)
             seconds[run + "_cpu"] = _children_cpu() - start_cpu
+            # what the demo reports as its wait for compiled kernels
+            waited = re.search(r"Compiling kernels .*? done in ([0-9.]+) s", done.stdout)
+            seconds[run + "_wait"] = float(waited.group(1)) if waited else float("nan")
     return seconds
 
 
@@ -125,6 +165,15 @@ def report(label: str, result: dict) -> list[str]:
     lines += [markdown_table(header, rows), ""]
     kernels = sorted(cold["compiled"], key=lambda k: -k[2])
     shown = [[f"`{name}`", str(count), f"{seconds:.1f} s"] for name, count, seconds in kernels[:12]]
+    phases = cold.get("phases", {})
+    if phases:
+        order = ["typing", "lowering", "llvm_functions", "llvm_modules", "machine_code", "other"]
+        lines += [
+            "CPU seconds of compiling by phase (each compile's own, its callees' apart): "
+            + ", ".join(f"{name.replace('_', ' ')} {phases.get(name, 0.0):.1f}" for name in order)
+            + f"; {sum(phases.values()):.1f} in all.",
+            "",
+        ]
     lines += [
         "The costliest compiled functions (numba's compile seconds, callees included):",
         "",
@@ -135,11 +184,14 @@ def report(label: str, result: dict) -> list[str]:
         "",
     ]
     if "demo" in result:
+        nan = float("nan")
         cold_demo, warm_demo = result["demo"]["cold"], result["demo"]["warm"]
         lines += [
             f"`seriesql demo` (warehouse already built): {cold_demo:.1f} s with an empty cache, {warm_demo:.1f} s "
             f"with the cache filled: compiling costs {cold_demo - warm_demo:.1f} s (CPU: "
-            f"{result['demo']['cold_cpu']:.1f} s and {result['demo']['warm_cpu']:.1f} s).",
+            f"{result['demo']['cold_cpu']:.1f} s and {result['demo']['warm_cpu']:.1f} s, worker processes "
+            f'included); the demo\'s own line "Compiling kernels ... done in" said '
+            f"{result['demo'].get('cold_wait', nan):.1f} s and {result['demo'].get('warm_wait', nan):.1f} s.",
             "",
         ]
     return lines

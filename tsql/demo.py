@@ -20,7 +20,7 @@ from pathlib import Path
 
 import duckdb
 
-from tsql import sample_db
+from tsql import sample_db, warming
 from tsql.render import format_arrow
 
 __all__ = ["STEPS", "Step", "main"]
@@ -329,13 +329,31 @@ CAUTION = (
 )
 
 # The compiled kernels the steps call, and only those: change_points (one compiled search serves
-# every model), trend_test, sparkline and dtw_nearest's search.
+# every model), trend_test, sparkline and dtw_nearest's search. On a first run worker processes
+# compile them (tsql.warming) while the warehouse is built; this query then loads what they cached.
 _WARM_UP = """\
 SELECT change_points([0.0, 0, 0, 5, 5, 5], model := 'meanvar'),
        trend_test([0.0, 2, 1, 3, 5, 4]),
        sparkline([0.0, 2, 1]),
        (SELECT count(*) FROM (SELECT unnest(dtw_nearest(id, s, k := 1, band := 2, normalize := true))
                               FROM (VALUES (1, [0.0, 1, 2]), (2, [0.0, 2, 1]), (3, [1.0, 1, 2])) AS c(id, s)))"""
+
+#: the same kernels as jobs for worker processes (CPU seconds of compiling measured on a quiet 2-core machine)
+WARM_UP_JOBS = (
+    warming.Job(
+        "SELECT change_points([0.0, 0, 0, 5, 5, 5], model := 'meanvar')",
+        ("tsql.kernels.changepoint:_segment_rows",),
+        15.0,
+    ),
+    warming.Job(
+        """SELECT count(*) FROM (SELECT unnest(dtw_nearest(id, s, k := 1, band := 2, normalize := true))
+                                 FROM (VALUES (1, [0.0, 1, 2]), (2, [0.0, 2, 1]), (3, [1.0, 1, 2])) AS c(id, s))""",
+        ("tsql.kernels.nearest:_prepare_rows", "tsql.kernels.nearest:_setup", "tsql.kernels.nearest:_items"),
+        11.0,
+    ),
+    warming.Job("SELECT trend_test([0.0, 2, 1, 3, 5, 4])", ("tsql.kernels.trend:_rows",), 10.0),
+    warming.Job("SELECT sparkline([0.0, 2, 1])", ("tsql.kernels.sparkline:_row_levels",), 0.5),
+)
 
 _TABLES = """\
 SELECT 'monthly_sales' AS "table", count(*) AS "rows",
@@ -368,6 +386,14 @@ def main(db: str | os.PathLike | None = None, width: int | None = None) -> int:
     or cannot be written, 1 if one of the demo's queries fails.
     ``width`` is the text width (default: the terminal's).
     """
+    compiling = warming.start(WARM_UP_JOBS)  # meanwhile the warehouse is built (or found)
+    try:
+        return _run(db, width, compiling)
+    finally:
+        compiling.stop()  # when stopped early; they are done otherwise
+
+
+def _run(db: str | os.PathLike | None, width: int | None, compiling: warming.Warming) -> int:
     try:
         path, built = _warehouse(db)
     except DemoError as error:
@@ -382,6 +408,7 @@ def main(db: str | os.PathLike | None = None, width: int | None = None) -> int:
             _introduce(con, path, built, width)
             started = time.perf_counter()
             print("Compiling kernels (slow only the first time) ...", end=" ", flush=True)
+            compiling.wait()
             con.execute(_WARM_UP).fetchall()
             print(f"done in {time.perf_counter() - started:.1f} s.")
             print()

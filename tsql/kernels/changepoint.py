@@ -1209,7 +1209,7 @@ def _pelt(
             _costs(code, stats, rows, starts, f_start, near, n_near, t, length_term, use_length_term, vals)
             here[0] = float(tau)
             tail = (stats[0, tau:], stats[1, tau:], stats[2, tau:], stats[3, tau:], stats[4, tau:], stats[5, tau:])
-            _costs(code, stats, tail, here, nothing, first, 1, t, length_term, False, tail_cost)
+            _costs(code, stats, tail, here, nothing, first, np.int64(1), t, length_term, np.bool_(False), tail_cost)
             at_t = vals[lead]
             gain = at_t - at_tau - tail_cost[0]
             margin = _PRUNE_MARGIN * (2.0 + abs(at_tau) + abs(at_t)) + 2.0 * rounding
@@ -1415,7 +1415,7 @@ def _present(values, lo, n):
     return y, p, m, finite
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
 def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p_from, p_to, places, counts, row_ok):
     """The optimal segmentations of row ``r`` as the penalty runs over [0, inf), at most ``k_max`` changes.
 
@@ -1520,7 +1520,7 @@ def _segment_stats(y, p, lo, hi) -> tuple[float, float]:
     return my, (sxy / sxx if sxx > 0.0 else np.nan)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
 def _segment_row(
     r,
     values,

@@ -141,7 +141,7 @@ def _warp(x, y, w, cutoff, store, row_start, period, out, lanes, first_row, stop
     check = cutoff < inf
     lowest = np.empty(lanes if check else 0)
     if first_row == 0:
-        lo, hi = _row_bounds(0, m, w)
+        lo, hi = _row_bounds(np.int64(0), m, w)
         cb = row_start[0]
         for g in range(lanes):
             d = x[0, g] - y[0, g]

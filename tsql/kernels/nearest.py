@@ -494,7 +494,7 @@ def _setup(x_all, off, band, env_up, env_low, ends):
         ends[i, 0], ends[i, 1], ends[i, 2], ends[i, 3], ends[i, 4] = y[0], y[n - 1], y.max(), y.min(), n
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")  # one call site: no library of its own
 def _query(
     i,
     seeds,
@@ -525,7 +525,7 @@ def _query(
     items = len(off) - 1
     x = x_all[off[i] : off[i + 1]]
     n = len(x)
-    planted = 0
+    planted = np.int64(0)  # not a literal 0: _try compiles once
     for j in seeds[i]:
         if j >= 0:
             cand[planted] = j
@@ -552,7 +552,7 @@ def _query(
         tile,
     )
     cut = kth_sq[i]
-    found = 0
+    found = np.int64(0)
     for j in range(items):  # LB_Kim
         if j == i or not reference[j]:
             continue
@@ -633,7 +633,7 @@ def _try(
     n = len(x)
     spent = 0
     ys, tails, members = tile[0], tile[1], tile[4]
-    lanes = 0
+    lanes = np.int64(0)  # not a literal 0: _run_tile compiles once
     for t in range(found):
         if lb[t] > kth_sq[i]:
             break

@@ -270,7 +270,7 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
 def _all_pairs(x, t, buf):
     """Median of all pairwise slopes (theilslopes' arithmetic)."""
     n = len(x)
-    c = 0
+    c = np.int64(0)  # not a literal 0: _kth compiles once
     for i in range(n - 1):
         for j in range(i + 1, n):
             buf[c] = (x[j] - x[i]) / (t[j] - t[i])
@@ -280,7 +280,7 @@ def _all_pairs(x, t, buf):
     return (lower + upper) / 2 if c % 2 == 0 else lower
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")  # one call site: no library of its own
 def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs):
     """Exact median pairwise slope of one row by counting and selection.
 
