@@ -482,6 +482,9 @@ SEASONAL_CYCLES = 4
 #: most harmonics of a period a removed cycle has (all of them, up to Nyquist, for periods up to 13)
 MAX_HARMONICS = 6
 
+#: elements per piece when standardising a spread that follows the cycle (bounds its temporaries)
+SPREAD_ELEMENTS = 1 << 13
+
 #: most present values of a row the segment-neighbourhood programme (``O(k m^2)``) runs on: a
 #: longer row gets no answer from ``change_points_path``, nor from ``max_changes`` when the
 #: penalised optimum has too many changes (10,000 values and 10 changes: about 5e8 segment costs)
@@ -1994,7 +1997,7 @@ def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ra
     for n, rows, matrix in adjusted.by_length():
         if n == 0:
             continue
-        step = max(1, CYCLE_ELEMENTS // n)  # pieces of about CYCLE_ELEMENTS values (a row is never split)
+        step = max(1, SPREAD_ELEMENTS // n)  # pieces of about SPREAD_ELEMENTS values (a row is never split)
         for lo in range(0, len(rows), step):
             part = rows[lo : lo + step]
             standardised, steady = _spread_standardised(matrix[lo : lo + step], periods[part], code)
