@@ -196,6 +196,8 @@ def list_macro(fn: Function) -> str:
     """``CREATE ... MACRO name(values DOUBLE[], p := default) AS __tsql_name(values, p)``, its arguments checked
     first (:func:`_checked`), and an untyped overload that says what is wrong with the arguments' types."""
     args = ", ".join(list(fn.series) + [_passed(p, agg=False) for p in fn.params])
+    if _with_threads(fn):
+        args += ", current_setting('threads')"
     body = fn.sql_body or f"{fn.udf_name}({args})"
     if fn.name == "on_grid":
         check = "__tsql_check_on_grid(typeof(times), __tsql_span(step), fill, same_time)"
@@ -204,6 +206,12 @@ def list_macro(fn: Function) -> str:
     else:
         check = f"{_check_name(fn.name)}({', '.join(_passed(p, agg=False) for p in fn.params)})" if fn.params else ""
     return _overloaded(fn.name, fn.series, fn.params, _checked(check, body), aggregate=fn.aggregate)
+
+
+def _with_threads(fn: Function) -> bool:
+    """Whether the list UDF also takes DuckDB's ``threads`` setting: a function of two series, whose pairs a
+    self-join hands over from one thread (the UDF cuts a large call into pieces for the other threads)."""
+    return len(fn.series) == 2 and not fn.special and not fn.sql_body
 
 
 def agg_macro(fn: Function) -> str:
@@ -350,7 +358,9 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
         if fn.special:
             continue
         params = [p.sql_type.sql for p in fn.params]
-        create_udf(con, fn.udf_name, list_udf(fn), ["DOUBLE[]"] * len(fn.series) + params, fn.returns)
+        pairs = _with_threads(fn)
+        types = ["DOUBLE[]"] * len(fn.series) + params + (["BIGINT"] if pairs else [])
+        create_udf(con, fn.udf_name, list_udf(fn, threads=pairs), types, fn.returns)
         if fn.aggregate:
             params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
             udf_returns = _or_error(fn.answer.udf_returns(fn.returns))
