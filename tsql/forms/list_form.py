@@ -46,7 +46,8 @@ def _threads(column: Any) -> int:
 
 
 PAIR_PIECE_ROWS = 256
-"""Least rows per piece when a call of a function of two series is cut into pieces for every core."""
+"""Least pairs per piece when a call of a function of two series is cut into one piece per DuckDB thread
+(a call of fewer than twice as many stays whole: the Python around a kernel would outweigh a smaller piece)."""
 
 
 def _answer(fn: Function, series: list[pa.Array], key: tuple, n_rows: int, threads: int = 1) -> pa.Array:

@@ -37,8 +37,10 @@ def run_pieces(work: Callable[[int, int], object], first: int, stop: int, pieces
     """Call ``work(a, b)`` on ``pieces`` consecutive ranges covering ``first..stop``, on all cores.
 
     ``work`` must release the GIL (a ``nogil`` compiled function) and write only what its own range
-    owns, so that no answer depends on which thread ran which piece. Returns when every piece is
-    done; an exception of a piece is raised here.
+    owns, so that no answer depends on which thread ran which piece. The calling thread does the first
+    piece; the others run on the pool as part of the calling tsql call (their
+    :func:`~tsql.kernels.cancel.checkpoint` sees its interrupts). Returns when every piece is done; an
+    exception of a piece is raised here.
     """
     global _pool
     size = stop - first
