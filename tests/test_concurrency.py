@@ -558,6 +558,6 @@ def test_a_call_of_pairs_cut_for_the_threads_answers_as_one_piece(monkeypatch, c
     monkeypatch.setattr(list_form, "cores", lambda: 4)
     whole = udf(a, b, *settings, pa.array([1] * len(a)))
     cut = udf(a, b, *settings, pa.array([4] * len(a)))
-    assert len(a) // list_form.PAIR_PIECE_ROWS >= 4  # four pieces
+    assert len(a) // list_form.PIECE_ROWS >= 4  # four pieces
     assert cut.equals(whole)
     assert whole.null_count < len(a)

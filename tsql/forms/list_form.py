@@ -19,15 +19,15 @@ def list_udf(fn: Function, threads: bool = False) -> Callable[..., pa.Array]:
 
     Plain parameters are usually the same on every row; rows are grouped by their parameter
     values so the kernel always sees one setting per call. ``threads``: a last column gives the
-    host's number of threads, over which a large call of a function of two series is cut
-    (:data:`PAIR_PIECE_ROWS`).
+    host's number of threads, over which a large call is cut
+    (:data:`PIECE_ROWS`, :func:`cut_for_threads`).
     """
     n_series = len(fn.series)
 
     def udf(*columns: Any) -> pa.Array:
         series = [single(c) for c in columns[:n_series]]
         settings = columns[n_series : len(columns) - threads]
-        usable = _threads(columns[-1]) if threads else 1
+        usable = threads_setting(columns[-1]) if threads else 1
 
         def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
             subset = series if rows is None else [s.take(pa.array(rows)) for s in series]
@@ -39,27 +39,36 @@ def list_udf(fn: Function, threads: bool = False) -> Callable[..., pa.Array]:
     return with_arity(udf, fn.udf_name, fn.doc, names)
 
 
-def _threads(column: Any) -> int:
-    """The host's number of threads from its column (the same on every row; 1 when absent or NULL)."""
+def threads_setting(column: Any) -> int:
+    """The host's number of threads from its column (the same on every row; 1 when empty or NULL)."""
     column = single(column)
     return int(column[0].as_py() or 1) if len(column) else 1
 
 
-PAIR_PIECE_ROWS = 256
-"""Least pairs per piece when a call of a function of two series is cut into one piece per DuckDB thread
-(a call of fewer than twice as many stays whole: the Python around a kernel would outweigh a smaller piece)."""
+PIECE_ROWS = 256
+"""Least rows per piece when a call is cut into one piece per DuckDB thread (see :func:`cut_for_threads`; a call of
+fewer than twice as many stays whole: the Python around a kernel would outweigh a smaller piece)."""
+
+CUT_FOR_THREADS = ("change_points", "segments")
+"""Functions of one series whose calls are cut for DuckDB's threads too: their compiled row-by-row kernels let go
+of the GIL, and a query of fewer groups than two calls (4,096) would otherwise run on one thread."""
+
+
+def cut_for_threads(fn: Function) -> bool:
+    """Whether a host hands ``fn``'s UDF its number of threads, over which a large call is cut into pieces: a
+    function of two series (DuckDB hands over a self-join's pairs from one thread whatever its ``threads``
+    setting: the join's source is the small table of series) or one of :data:`CUT_FOR_THREADS`."""
+    return (len(fn.series) == 2 or fn.name in CUT_FOR_THREADS) and not fn.special and not fn.sql_body
 
 
 def _answer(fn: Function, series: list[pa.Array], key: tuple, n_rows: int, threads: int = 1) -> pa.Array:
     kwargs = checked_arguments(fn, key)
     if kwargs is None:  # a NULL argument that has no "not set" meaning
         return pa.nulls(n_rows, type=fn.returns.arrow)
-    pieces = min(threads, cores(), n_rows // PAIR_PIECE_ROWS) if len(series) > 1 else 1
+    pieces = min(threads, cores(), n_rows // PIECE_ROWS)
     if pieces <= 1:
         return _computed(fn, series, kwargs)
-    # DuckDB hands over the pairs of a self-join of a small table from one thread whatever its `threads`
-    # setting (the join's source is that table), so the call's rows are cut into pieces, one per thread;
-    # a row's answer does not depend on the rows beside it.
+    # one piece per thread (cut_for_threads): a row's answer does not depend on the rows beside it
     parts: dict[int, pa.Array] = {}
 
     def work(lo: int, hi: int) -> None:

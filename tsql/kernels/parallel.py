@@ -56,11 +56,18 @@ def run_pieces(work: Callable[[int, int], object], first: int, stop: int, pieces
         pool = _pool
     call = cancel.current_call()  # a piece sees the interrupts of the call it belongs to
     futures = [pool.submit(cancel.part_of, call, work, a, b) for a, b in bounds[1:]]
+    errors = []
     try:
         work(*bounds[0])  # the calling thread does the first piece
-    finally:
-        for future in futures:
+    except Exception as error:
+        errors.append(error)
+    for future in futures:
+        try:
             future.result()
+        except Exception as error:
+            errors.append(error)
+    if errors:  # the first piece's, as if they had run in order
+        raise errors[0]
 
 
 def _after_fork_in_child() -> None:
