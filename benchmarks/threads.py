@@ -31,6 +31,46 @@ from benchmarks.harness import interleaved, markdown_table, seconds_text
 
 FEW_CALLS = ("seasonality_agg(v, t)", "change_points(list(v ORDER BY t))")
 
+NOTES = """Where a second thread helps and where it cannot:
+
+- **Groups.** DuckDB hands a function up to 2,048 groups per call and runs each call on one of its threads; our
+  compiled kernels release the GIL, so two calls run at once. A query needs more than 2,048 groups before a
+  second thread has a call to take (4,096 give each thread one; 8,192 keep both busy). With fewer groups
+  than that, or fewer calls than threads, the calls run one after another (`change_points` at 512 and 2,048
+  groups: about 1.0×). `change_points` and `segments`, whose compiled searches dominate, now cut a call into one
+  piece per thread themselves: the list forms from 512 groups, the `*_agg` forms from 524,288 observations
+  (pieces of 262,144; about 1,050 groups of 500 points).
+- **Pairs (DuckDB's limit, worked around).** A self-join of a small table reaches the pair functions from one
+  DuckDB thread whatever `threads` says: recording the thread of each call at `threads = 2`, all 22 calls of
+  `dtw_distance` over the 44,850 pairs of 300 curves came from one thread (the join's source is the 300-row
+  table). So the pair macros pass `current_setting('threads')` and the UDF cuts a call of at least 512 pairs into
+  one piece per thread (`forms.list_form`, on `kernels.parallel.run_pieces`; rows are independent, answers
+  the same bit for bit). What stays on one thread is DuckDB's copy of the inputs (next point) and the numpy
+  around the kernels; `lb_keogh`'s kernel is a small part of its time, so it gains least.
+- **DuckDB copies each call's input into Arrow holding the GIL** (its Python package's Arrow UDF wrapper
+  acquires the GIL before converting the vector and lets go only to read the answer back). That copy is
+  serial across threads: 16 bytes an observation for the `*_agg` forms (tick and value), 8 for the list
+  forms. For the light kernels it is a large share of the time over the floor: `harmonic_smooth_agg` with
+  its UDF replaced by one returning a stored answer of the same shape kept about half of it (0.39 of 0.75 s at
+  one thread, 8,192 groups, measured under load). This is DuckDB's, not ours.
+- **`seasonality_agg`, `dominant_period_agg`** (fixed in part): their kernels are many small numpy steps over
+  all rows, each holding the GIL between calls; in pieces of 131 groups the steps were tiny, so two threads
+  mostly waited for each other (0.84× at 8,192 groups). The agg path also built one Python interval per group
+  for the period (a fifth of `seasonality_agg`'s profile) and every UDF one Python tuple per row for its
+  constant settings. Now: intervals from buffers, constant settings found by one Arrow comparison, and
+  pieces of 524 groups (one thread, 4,096 groups: CPU time over the floor 0.25 s to 0.15 s for
+  `seasonality_agg`, 0.17 s to 0.12 s for `dominant_period_agg`, medians of 2 × 5 runs).
+  The numpy steps that remain hold the GIL between calls; compiling them is the next step.
+- **`kpss_test`** (fixed): its long-run variance made two 2,048 × 500 temporaries per lag, bound by memory
+  bandwidth, which two threads share; now one compiled `nogil` pass per row, in cache (CPU time over the floor,
+  one thread, 4,096 groups: 0.27 s to 0.05 s).
+- **`periods`** (fixed in part): a piece's fits hold up to 2 + 6k vectors per row; time grows once a piece
+  outgrows the cache (one thread, 1,024 series: 1.9 s in pieces of 65 or 131 rows, 3.0 s of 524), and two
+  threads share it: pieces are now 65 rows.
+- **`segments`, `screen`**: the change-point search is another file's work; `screen` also runs `kpss_test`
+  and `periods`, and gains with them.
+"""
+
 
 def gains(con, cases: list[bench.Case], repeat: int) -> list[list[str]]:
     rows = []
@@ -134,6 +174,7 @@ def main(argv: list[str] | None = None) -> int:
             markdown_table(["groups", "call", "over floor, 1 thread", "over floor, 2 threads", "gain"], few),
             "",
         ]
+    text += [NOTES]
     print("\n".join(text))
     if args.write:
         write_section("\n".join(text), title="Threads")

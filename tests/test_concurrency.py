@@ -513,3 +513,51 @@ def test_every_compiled_kernel_called_from_python_releases_the_gil():
         holding += [f"{info.name}.{n}" for n in sorted(called) if not getattr(module, n).targetoptions.get("nogil")]
     assert checked > 20  # the scan found the kernels' entry points
     assert holding == []
+
+
+def test_a_piece_on_the_pool_sees_the_interrupts_of_its_call():
+    from tsql.kernels.cancel import Cancellation, Interrupted, checkpoint, watching
+    from tsql.kernels.parallel import run_pieces
+
+    cancel = Cancellation()
+    seen = []
+
+    def piece(a: int, b: int) -> None:
+        if a > 0:  # a piece another thread runs (when there are two cores)
+            cancel.bump()
+            seen.append(threading.current_thread().name)
+        checkpoint()
+
+    with pytest.raises(Interrupted, match="interrupted by tsql.interrupt"):
+        watching(lambda: run_pieces(piece, 0, 4, 2), cancel)()
+    assert seen
+
+
+@pytest.mark.parametrize(
+    "call", ["dtw_path(a, b, 2)", "cross_correlation(a, b, 3)", "lead_lag(a, b, 3)", "lb_keogh(a, b, 1)"]
+)
+def test_a_call_of_pairs_cut_for_the_threads_answers_as_one_piece(monkeypatch, call):
+    """The pairs of one call cut into pieces for DuckDB's threads (on however many cores) give the very same
+    answers as the whole call at once, nulls, unequal lengths and NaN included."""
+    from tsql.forms import list_form
+    from tsql.registry import BY_NAME
+
+    rng = np.random.default_rng(5)
+    lengths = rng.integers(0, 30, (2, 1500))
+    lengths[1, np.arange(1500) % 7 > 0] = lengths[0, np.arange(1500) % 7 > 0]  # most pairs of one length
+    a, b = (
+        pa.array([None if k % 97 == 5 else list(np.cumsum(rng.standard_normal(n))) for k, n in enumerate(row)])
+        for row in lengths
+    )
+    a = pa.array([x if x is None or k % 53 else x[:-1] + [float("nan")] for k, x in enumerate(a.to_pylist())])
+    name, arguments = call.split("(")[0], [int(x) for x in call[:-1].split(", ")[2:]]
+    fn = BY_NAME[name]
+    settings = [pa.array([x] * len(a)) for x in arguments]
+    settings += [pa.nulls(len(a), p.sql_type.arrow) for p in fn.params[len(arguments) :]]
+    udf = list_form.list_udf(fn, threads=True)
+    monkeypatch.setattr(list_form, "cores", lambda: 4)
+    whole = udf(a, b, *settings, pa.array([1] * len(a)))
+    cut = udf(a, b, *settings, pa.array([4] * len(a)))
+    assert len(a) // list_form.PIECE_ROWS >= 4  # four pieces
+    assert cut.equals(whole)
+    assert whole.null_count < len(a)

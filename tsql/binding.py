@@ -25,10 +25,11 @@ import pyarrow as pa
 from tsql.forms import agg
 from tsql.forms.arguments import argument_problem, by_settings, with_arity
 from tsql.forms.arrow import ragged, row_pieces, single, to_ragged
-from tsql.forms.list_form import list_udf
+from tsql.forms.list_form import cut_for_threads, list_udf, threads_setting
 from tsql.forms.rows_form import rows_udf
 from tsql.forms.time import Clock
 from tsql.forms.types import BOOLEAN, SPAN_ARGUMENT, VARCHAR, SqlType, Struct
+from tsql.kernels import parallel
 from tsql.kernels.cancel import INTERRUPTED, Cancellation, watching
 from tsql.kernels.ragged import Ragged
 from tsql.registry import BY_NAME, FUNCTIONS, PUBLIC, TABLE_FUNCTIONS, TABLE_MACROS, Function, Param
@@ -196,6 +197,8 @@ def list_macro(fn: Function) -> str:
     """``CREATE ... MACRO name(values DOUBLE[], p := default) AS __tsql_name(values, p)``, its arguments checked
     first (:func:`_checked`), and an untyped overload that says what is wrong with the arguments' types."""
     args = ", ".join(list(fn.series) + [_passed(p, agg=False) for p in fn.params])
+    if cut_for_threads(fn):
+        args += ", current_setting('threads')"
     body = fn.sql_body or f"{fn.udf_name}({args})"
     if fn.name == "on_grid":
         check = "__tsql_check_on_grid(typeof(times), __tsql_span(step), fill, same_time)"
@@ -215,7 +218,8 @@ def agg_macro(fn: Function) -> str:
     passed = [_passed(p, agg=True) for p in agg_udf_params(fn)]
     packed = "__tsql_observations" if len(fn.agg_values) == 1 else "__tsql_pairs"
     observations = f"{packed}({name!r}, {', '.join(fn.agg_values)}, time)"
-    call = f"__tsql_answer({fn.udf_name}_on_grid({', '.join([observations, *grid, *passed])}))"
+    threads = ["current_setting('threads')"] if fn.name in agg.ROW_BY_ROW else []
+    call = f"__tsql_answer({fn.udf_name}_on_grid({', '.join([observations, *grid, *passed, *threads])}))"
     check = f"{_check_name(name)}({', '.join(grid + passed)})"
     body = _checked(check, fn.answer.finish_sql(fn.returns, call))
     return _overloaded(name, (*fn.agg_values, "time"), fn.agg_params, body, list_name=fn.name)
@@ -350,12 +354,16 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
         if fn.special:
             continue
         params = [p.sql_type.sql for p in fn.params]
-        create_udf(con, fn.udf_name, list_udf(fn), ["DOUBLE[]"] * len(fn.series) + params, fn.returns)
+        cut = cut_for_threads(fn)
+        types = ["DOUBLE[]"] * len(fn.series) + params + (["BIGINT"] if cut else [])
+        create_udf(con, fn.udf_name, list_udf(fn, threads=cut), types, fn.returns)
         if fn.aggregate:
             params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
             udf_returns = _or_error(fn.answer.udf_returns(fn.returns))
             packed = _OBSERVATIONS if len(fn.agg_values) == 1 else _PAIRS
-            create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), [packed] + grid_types + params, udf_returns)
+            threads = ["BIGINT"] if fn.name in agg.ROW_BY_ROW else []
+            udf_types = [packed] + grid_types + params + threads
+            create_udf(con, f"{fn.udf_name}_on_grid", _agg_udf(fn), udf_types, udf_returns)
     for fn in TABLE_FUNCTIONS:
         per_item = [f"{p.sql_type.sql}[]" for p in fn.params if p.per_item]
         settings = [p.sql_type.sql for p in fn.params if not p.per_item]
@@ -515,30 +523,44 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
     """The UDF behind ``<name>_agg``: groups in pieces of about ``AggForm.piece_points`` observations.
 
     An error the data reveals (a given step that makes too many grid points, a length of time shorter than
-    allowed on a group's grid) comes back as the message of every row (see :func:`_or_error`).
+    allowed on a group's grid) comes back as the message of every row (see :func:`_or_error`). For
+    :data:`~tsql.forms.agg.ROW_BY_ROW` a last column gives DuckDB's number of threads, over which the pieces
+    of a call run (a query of fewer groups than two calls would otherwise run on one thread).
     """
     form = agg.AggForm(fn)
     unpack = observations if len(fn.agg_values) == 1 else pairs
     answer_type = fn.answer.udf_returns(fn.returns).arrow
+    cut = fn.name in agg.ROW_BY_ROW
 
     def udf(packed: Any, *settings: Any) -> pa.Array:
         obs = single(packed)
+        threads = threads_setting(settings[-1]) if cut else 1
+        settings = settings[: len(settings) - cut]
 
         def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
             part = obs if rows is None else obs.take(pa.array(rows))
             type_name, span, fill, same_time, *arguments = key
-            pieces = []
-            for lo, hi in row_pieces([part], form.piece_points):
-                ticks, values = unpack(part.slice(lo, hi - lo))
-                grid = (span, fill, same_time)
-                pieces.append(form(clock(form.name, type_name), grid, tuple(arguments), ticks, values))
-            return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)
+            bounds = row_pieces([part], form.piece_points)
+            pieces: dict[int, pa.Array] = {}
+
+            def work(first: int, stop: int) -> None:
+                for i in range(first, stop):
+                    lo, hi = bounds[i]
+                    ticks, values = unpack(part.slice(lo, hi - lo))
+                    grid = (span, fill, same_time)
+                    pieces[i] = form(clock(form.name, type_name), grid, tuple(arguments), ticks, values)
+
+            cores = min(threads, parallel.cores(), len(bounds))
+            if cores > 1:
+                parallel.run_pieces(work, 0, len(bounds), cores)
+            else:
+                work(0, len(bounds))
+            return pieces[0] if len(pieces) == 1 else pa.concat_arrays([pieces[i] for i in range(len(bounds))])
 
         return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)
 
-    return with_arity(
-        udf, f"{fn.udf_name}_on_grid", fn.doc, ["observations", *_GRID_ARGS] + [p.name for p in agg_udf_params(fn)]
-    )
+    names = ["observations", *_GRID_ARGS] + [p.name for p in agg_udf_params(fn)] + (["threads"] if cut else [])
+    return with_arity(udf, f"{fn.udf_name}_on_grid", fn.doc, names)
 
 
 def _on_grid_udf(values: Any, ticks: Any, *settings: Any) -> pa.Array:

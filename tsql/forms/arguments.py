@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 import pyarrow as pa
 
-from tsql.forms.arrow import scalar_parameter
+from tsql.forms.arrow import scalar_parameter, single
 from tsql.kernels.cancel import checkpoint
 from tsql.registry import Function, Param
 
@@ -28,8 +28,17 @@ def by_settings(n_rows: int, setting_columns: Any, run: Callable[[np.ndarray | N
 
     Plain parameters are usually the same on every row (``rows`` is then None: all of them).
     """
-    settings = [scalar_parameter(c) for c in setting_columns]
+    columns = [single(c) for c in setting_columns]
+    if n_rows and all(_constant(c) for c in columns):  # the usual case, without a Python object per row
+        return run(None, tuple(scalar_parameter(c.slice(0, 1))[0] for c in columns))
+    settings = [scalar_parameter(c) for c in columns]
     return by_keys(list(zip(*settings)) if settings else [()] * n_rows, run)
+
+
+def _constant(column: pa.Array) -> bool:
+    """Whether every row holds the same value (or every row is NULL): each row equals the next."""
+    n = len(column)
+    return n <= 1 or column.slice(1).equals(column.slice(0, n - 1))
 
 
 def by_keys(keys: list[tuple], run: Callable[[np.ndarray | None, tuple], pa.Array]) -> pa.Array:

@@ -15,7 +15,7 @@ import threading
 from collections.abc import Callable
 from typing import Any
 
-__all__ = ["INTERRUPTED", "Interrupted", "Cancellation", "checkpoint", "watching"]
+__all__ = ["INTERRUPTED", "Interrupted", "Cancellation", "checkpoint", "current_call", "part_of", "watching"]
 
 #: The message of a tsql call stopped by ``tsql.interrupt``.
 INTERRUPTED = "interrupted by tsql.interrupt()"
@@ -53,6 +53,22 @@ def checkpoint() -> None:
     call = getattr(_CALL, "state", None)
     if call is not None and call[0].generation != call[1]:
         raise Interrupted(INTERRUPTED)
+
+
+def current_call() -> tuple | None:
+    """The tsql call this thread runs (None outside one), for :func:`part_of` in a thread doing a piece of it."""
+    return getattr(_CALL, "state", None)
+
+
+def part_of(call: tuple | None, work: Callable, *args: Any) -> Any:
+    """``work(*args)`` in this thread as part of ``call`` (:func:`current_call` of the thread it came from), so
+    that its :func:`checkpoint` sees that call's interrupts."""
+    outer = getattr(_CALL, "state", None)
+    _CALL.state = call
+    try:
+        return work(*args)
+    finally:
+        _CALL.state = outer
 
 
 def watching(udf: Callable, cancel: Cancellation) -> Callable:

@@ -196,26 +196,10 @@ def kpss_test(batch: Ragged, regression: str = "c") -> dict[str, np.ndarray]:
             resid = x - (x.sum(axis=1) / n)[:, None]
         else:
             resid = _line_residuals(x)
-        covlags = int(n ** (2.0 / 9.0))
-        s0 = (resid * resid).sum(axis=1) / n
-        s1 = np.zeros(len(rows))
-        for i in range(1, covlags + 1):
-            product = (resid[:, i:] * resid[:, : n - i]).sum(axis=1) / (n / 2.0)
-            s0 = s0 + product
-            s1 = s1 + i * product
-        with np.errstate(invalid="ignore", divide="ignore"):
-            ratio = s1 / s0
-            gamma = 1.1447 * np.power(ratio * ratio, 1.0 / 3.0)
-            lags = np.floor(gamma * n ** (1.0 / 3.0))
-        lags = np.where(np.isfinite(lags), np.minimum(lags, n - 1), 0).astype(np.int64)
-        eta = (np.cumsum(resid, axis=1) ** 2).sum(axis=1) / (n * n)
-        s_hat = (resid * resid).sum(axis=1)
-        for i in range(1, int(lags.max()) + 1):
-            product = (resid[:, i:] * resid[:, : n - i]).sum(axis=1)
-            s_hat = s_hat + np.where(i <= lags, 2.0 * product * (1.0 - i / (lags + 1.0)), 0.0)
-        s_hat = s_hat / n
-        with np.errstate(invalid="ignore", divide="ignore"):
-            statistic[rows] = np.where(s_hat > 0, eta / s_hat, np.nan)
+        out = np.empty(len(rows))
+        _kpss_rows(np.ascontiguousarray(resid), out)
+        statistic[rows] = out
+        checkpoint()
     p_value = np.full(batch.n_rows, np.nan)
     ok = np.isfinite(statistic)
     p_value[ok] = np.interp(statistic[ok], _KPSS_CRITICAL[regression], _KPSS_LEVELS)
@@ -281,6 +265,47 @@ def _line_residuals(x: np.ndarray) -> np.ndarray:
     u = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
     slope = (x * u).sum(axis=1) / (u * u).sum()
     return x - (x.sum(axis=1) / n)[:, None] - slope[:, None] * u
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _kpss_rows(resid, out):
+    """``out[r]``: the KPSS statistic of the residuals ``resid[r]`` (NaN without a long-run variance), row by
+    row in cache: the autocovariances for the lag choice, the Bartlett-weighted long-run variance and the
+    partial sums."""
+    n = resid.shape[1]
+    covlags = int(n ** (2.0 / 9.0))
+    for r in range(resid.shape[0]):
+        x = resid[r]
+        squares = 0.0
+        for t in range(n):
+            squares += x[t] * x[t]
+        s0, s1 = squares / n, 0.0
+        for i in range(1, covlags + 1):
+            product = _lagged_product(x, i) / (n / 2.0)
+            s0 += product
+            s1 += i * product
+        ratio = s1 / s0
+        chosen = 1.1447 * (ratio * ratio) ** (1.0 / 3.0) * n ** (1.0 / 3.0)
+        lags = min(math.floor(chosen), n - 1) if math.isfinite(chosen) else 0
+        partial, eta = 0.0, 0.0
+        for t in range(n):
+            partial += x[t]
+            eta += partial * partial
+        eta /= n * n
+        s_hat = squares
+        for i in range(1, lags + 1):
+            s_hat += 2.0 * _lagged_product(x, i) * (1.0 - i / (lags + 1.0))
+        s_hat /= n
+        out[r] = eta / s_hat if s_hat > 0 else np.nan
+
+
+@njit(cache=True, nogil=True)
+def _lagged_product(x, lag):
+    """``sum_t x[t] x[t - lag]``."""
+    total = 0.0
+    for t in range(lag, len(x)):
+        total += x[t] * x[t - lag]
+    return total
 
 
 # --------------------------------------------------------------------------------------------
