@@ -1814,7 +1814,7 @@ def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarr
 _RESYNC = 32
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", nogil=True)
 def _harmonics(period: float) -> int:
     return int(min(max(math.floor(period / 2.0), 1.0), float(MAX_HARMONICS)))
 
