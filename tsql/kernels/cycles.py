@@ -115,9 +115,7 @@ def periods(batch: Ragged, k: int = 3, min_period: float = 2.0, max_period: floa
         if len(bins) == 0 or not keep.any():
             continue
         rows, matrix = rows[keep], in_safe_range(matrix[keep])
-        # the fits hold about 2 + 6 k vectors per row: the time grows once a piece outgrows the cache (1,024 rows
-        # of 500: 1.9 s in pieces of 65 or 131 rows, 3.0 s of 524), and two threads share it, so 65 rows
-        step = max(1, CACHE_ELEMENTS // (2 * n))
+        step = max(1, CACHE_ELEMENTS // n)  # the fits hold about 2 + 6 k vectors per row
         for lo in range(0, len(rows), step):
             found[rows[lo : lo + step]] = _search(matrix[lo : lo + step], bins, k, min_period, max_period)
             checkpoint()
