@@ -37,7 +37,7 @@ NOTES = """Where a second thread helps and where it cannot:
   compiled kernels release the GIL, so two calls run at once. A query needs more than 2,048 groups before a
   second thread has a call to take (4,096 give each thread one; 8,192 keep both busy). With fewer groups
   than that, or fewer calls than threads, the calls run one after another (`change_points` at 512 and 2,048
-  groups: about 1.0×). `change_points` and `segments`, whose compiled searches dominate, now cut a call into one
+  groups gained about 1.0× before it cut its calls; see the table above for now). `change_points` and `segments`, whose compiled searches dominate, now cut a call into one
   piece per thread themselves: the list forms from 512 groups, the `*_agg` forms from 524,288 observations
   (pieces of 262,144; about 1,050 groups of 500 points).
 - **Pairs (DuckDB's limit, worked around).** A self-join of a small table reaches the pair functions from one
@@ -64,11 +64,13 @@ NOTES = """Where a second thread helps and where it cannot:
 - **`kpss_test`** (fixed): its long-run variance made two 2,048 × 500 temporaries per lag, bound by memory
   bandwidth, which two threads share; now one compiled `nogil` pass per row, in cache (CPU time over the floor,
   one thread, 4,096 groups: 0.27 s to 0.05 s).
-- **`periods`** (fixed in part): a piece's fits hold up to 2 + 6k vectors per row; time grows once a piece
-  outgrows the cache (one thread, 1,024 series: 1.9 s in pieces of 65 or 131 rows, 3.0 s of 524), and two
-  threads share it: pieces are now 65 rows.
-- **`segments`, `screen`**: the change-point search is another file's work; `screen` also runs `kpss_test`
-  and `periods`, and gains with them.
+- **`periods`** (not met): a piece's fits hold up to 2 + 6k vectors per row, and its refinement
+  (`cycles._extend`) re-orthogonalises them in numpy steps that hold the GIL between calls. Pieces of 65
+  rows instead of 131 were tried and measured worse at two threads (gain 1.01-1.31× against 1.31-1.59×
+  with 131, `--functions periods`, quiet, in turns), so pieces stay at 131; compiling the refinement is
+  the next step.
+- **`segments`, `screen`**: the change-point search dominates; `screen` also runs `kpss_test` and
+  `periods`, and gains with them.
 """
 
 
