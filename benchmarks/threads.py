@@ -37,7 +37,8 @@ NOTES = """Where a second thread helps and where it cannot:
   compiled kernels release the GIL, so two calls run at once. A query needs more than 2,048 groups before a
   second thread has a call to take (4,096 give each thread one; 8,192 keep both busy). With fewer groups
   than that, or fewer calls than threads, the calls run one after another (`change_points` at 512 and 2,048
-  groups gained about 1.0× before it cut its calls; see the table above for now). `change_points` and `segments`, whose compiled searches dominate, now cut a call into one
+  groups gained about 1.0× before it cut its calls; see the table above for now). `change_points` and
+  `segments`, whose compiled searches dominate, now cut a call into one
   piece per thread themselves: the list forms from 512 groups, the `*_agg` forms from 524,288 observations
   (pieces of 262,144; about 1,050 groups of 500 points).
 - **Pairs (DuckDB's limit, worked around).** A self-join of a small table reaches the pair functions from one
