@@ -1,18 +1,30 @@
 """tsql.warming: worker processes fill numba's cache before a first query needs it."""
 
+import os
+import subprocess
+import sys
 import time
+from pathlib import Path
 
 from tsql import warming
 from tsql.demo import WARM_UP_JOBS
 
+ROOT = Path(__file__).resolve().parents[1]
 SPARKLINE = warming.Job("SELECT sparkline([0.0, 2, 1])", ("tsql.kernels.sparkline:_row_levels",), 0.5)
 
 
-def test_a_worker_fills_the_cache_this_process_reads():
-    compiling = warming.start([SPARKLINE], processes=1)  # no worker when another test filled it already
-    compiling.wait()
-    assert warming.cold([SPARKLINE]) == []
-    assert all(cpu is not None and cpu > 0 for cpu in compiling.cpu)
+def test_a_worker_fills_the_cache_this_process_reads(tmp_path):
+    # a process of its own on an empty cache, so that the worker must compile (its workers inherit the folder)
+    script = (
+        "from tsql import warming; from tests.test_warming import SPARKLINE\n"
+        "assert warming.cold([SPARKLINE]) == [SPARKLINE]\n"
+        "compiling = warming.start([SPARKLINE], processes=1); compiling.wait()\n"
+        "assert len(compiling.cpu) == 1 and compiling.cpu[0] is not None and compiling.cpu[0] > 0, compiling.cpu\n"
+        "assert warming.cold([SPARKLINE]) == []\n"
+    )
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path)}
+    done = subprocess.run([sys.executable, "-c", script], env=env, cwd=ROOT, capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
 
 
 def test_an_entry_point_that_is_not_compiled_code_counts_as_cold():

@@ -39,6 +39,7 @@ import numpy as np
 from numba import njit
 from scipy.stats import chi2
 
+from tsql.kernels.normal_equations import cholesky
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
 
 __all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
@@ -1819,6 +1820,15 @@ def _harmonics(period: float) -> int:
     return int(min(max(math.floor(period / 2.0), 1.0), float(MAX_HARMONICS)))
 
 
+@njit(cache=True, error_model="numpy", nogil=True)
+def _harmonic_counts(periods):
+    """:func:`_harmonics` of each period."""
+    out = np.empty(len(periods), dtype=np.int64)
+    for i in range(len(periods)):
+        out[i] = _harmonics(periods[i])
+    return out
+
+
 @njit(cache=True, error_model="numpy")
 def _subtract_cycle(residual, period, out, design) -> None:
     """``out -=`` the least-squares sum of the harmonics of ``period`` fitted to ``residual`` (NaN = missing).
@@ -1867,44 +1877,26 @@ def _subtract_cycle(residual, period, out, design) -> None:
             rhs[a] += da * r
             for b in range(a + 1):
                 gram[a, b] += da * row[b]
-    # Cholesky of the used columns, in place in the lower triangle
-    used = np.empty(k, dtype=np.bool_)
     floor = 1e-6 * math.sqrt(n)
     for a in range(k):
-        used[a] = math.sqrt(norms[a]) > floor
-    for a in range(k):
-        if not used[a]:
-            continue
-        d = gram[a, a]
-        for b in range(a):
-            if used[b]:
-                d -= gram[a, b] * gram[a, b]
-        if not d > 1e-12 * gram[a, a]:
-            used[a] = False
-            continue
-        d = math.sqrt(d)
-        gram[a, a] = d
-        for i in range(a + 1, k):
-            v = gram[i, a]
-            for b in range(a):
-                if used[b]:
-                    v -= gram[i, b] * gram[a, b]
-            gram[i, a] = v / d
+        if not math.sqrt(norms[a]) > floor:  # left out: a zero column has no length to factor
+            for b in range(k):
+                gram[a, b] = 0.0
+                gram[b, a] = 0.0
+    low, _ = cholesky(gram, 1e-12)
     coef = np.zeros(k)
     for a in range(k):
-        if used[a]:
+        if low[a, a] > 0.0:
             v = rhs[a]
             for b in range(a):
-                if used[b]:
-                    v -= gram[a, b] * coef[b]
-            coef[a] = v / gram[a, a]
+                v -= low[a, b] * coef[b]
+            coef[a] = v / low[a, a]
     for a in range(k - 1, -1, -1):
-        if used[a]:
+        if low[a, a] > 0.0:
             v = coef[a]
             for i in range(a + 1, k):
-                if used[i]:
-                    v -= gram[i, a] * coef[i]
-            coef[a] = v / gram[a, a]
+                v -= low[i, a] * coef[i]
+            coef[a] = v / low[a, a]
     for t in range(n):
         if np.isnan(residual[t]):
             continue
@@ -1944,7 +1936,7 @@ def _cycle_parameters(periods: np.ndarray, n: int) -> np.ndarray:
 
     Two per harmonic, less a sine at Nyquist, which vanishes on the grid (the rule of :func:`_subtract_cycle`).
     """
-    count = np.array([_harmonics(p) for p in periods], dtype=np.int64)
+    count = _harmonic_counts(periods)
     top = np.sin((2.0 * np.pi * count / periods)[:, None] * np.arange(n, dtype=np.float64)[None, :])
     return 2 * count - (np.sqrt((top * top).sum(axis=1)) <= 1e-6 * math.sqrt(n))
 

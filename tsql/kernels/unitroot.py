@@ -21,6 +21,7 @@ from scipy.special import ndtr
 
 from tsql.kernels.cancel import checkpoint
 from tsql.kernels.gaps import fill_inside
+from tsql.kernels.normal_equations import cholesky
 from tsql.kernels.ragged import Ragged, full, in_safe_range
 
 __all__ = ["adf_test", "kpss_test", "mackinnon_p_value"]
@@ -406,37 +407,12 @@ def _dot(a, a0, b, b0, m):
 
 
 @njit(cache=True, error_model="numpy")
-def _cholesky(g):
-    """Lower Cholesky factor of cross products whose last column is ``y`` (its row then holds
-    ``Q'y``) and the squared pivots (a QR's squared diagonal; the last one the residual sum of
-    squares). A column with no length left (in the span of the earlier ones) gets a zero column."""
-    size = g.shape[0]
-    low = np.zeros((size, size))
-    pivots = np.zeros(size)
-    for j in range(size):
-        s = g[j, j]
-        for c in range(j):
-            s -= low[j, c] * low[j, c]
-        pivots[j] = s
-        if not s > 0.0:
-            continue
-        root = math.sqrt(s)
-        low[j, j] = root
-        for i in range(j + 1, size):
-            t = g[i, j]
-            for c in range(j):
-                t -= low[i, c] * low[j, c]
-            low[i, j] = t / root
-    return low, pivots
-
-
-@njit(cache=True, error_model="numpy")
 def _aic_lag(g, nobs, p, terms):
     """The lag 0..p of smallest AIC, all fitted on the same ``nobs`` observations: nested least
     squares from one factorisation (column ``k`` removes ``(Q'y)_k^2`` from the residual sum)."""
     if p == 0:
         return 0
-    low, pivots = _cholesky(g)
+    low, pivots = cholesky(g)
     k = terms + 1 + p
     rss = max(pivots[k], 0.0)
     best, best_aic = p, np.inf
@@ -479,7 +455,7 @@ def _adf_statistic(x, g, p, lag, terms):
         for a in range(k + 1):
             for b in range(k + 1):
                 h[a, b] += w[a] * w[b]
-    low, pivots = _cholesky(h)
+    low, pivots = cholesky(h)
     for j in range(k):
         if not pivots[j] > 1e-20 * h[j, j]:
             return np.nan  # a column in the span of the others: the fit is not determined

@@ -1,0 +1,41 @@
+"""Least squares from the normal equations: the Cholesky factor of a cross-product matrix, shared by
+the kernels that regress row by row in compiled code (the unit-root tests, the cycles that
+change_points removes)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+__all__ = ["cholesky"]
+
+
+@njit(cache=True, error_model="numpy")
+def cholesky(g, tolerance=0.0):
+    """Lower Cholesky factor of the cross products ``g`` (only its lower triangle is read) and the
+    squared pivots (a QR's squared diagonal).
+
+    A column whose squared pivot is not above ``tolerance`` times its own length ``g[j, j]`` (in the
+    span of the earlier ones, or of no length) gets a zero column: the factor then fits the other
+    columns alone, and that column's coefficient is 0.
+    """
+    size = g.shape[0]
+    low = np.zeros((size, size))
+    pivots = np.zeros(size)
+    for j in range(size):
+        s = g[j, j]
+        for c in range(j):
+            s -= low[j, c] * low[j, c]
+        pivots[j] = s
+        if not s > tolerance * g[j, j]:
+            continue
+        root = math.sqrt(s)
+        low[j, j] = root
+        for i in range(j + 1, size):
+            t = g[i, j]
+            for c in range(j):
+                t -= low[i, c] * low[j, c]
+            low[i, j] = t / root
+    return low, pivots
