@@ -290,6 +290,13 @@ def _prepare_mean(y, p, m, stats, work) -> bool:
 
 
 @njit(cache=True, error_model="numpy")
+def _cost_mean_one(a1, a2, t, base, s, c1, c2) -> float:
+    """``base + C(s, t)`` for 'mean' from the sums at ``t`` (``a1``, ``a2``) and at ``s`` (``c1``, ``c2``)."""
+    d = a1 - c1
+    return base + ((a2 - c2) - d * d / (t - s))
+
+
+@njit(cache=True, error_model="numpy")
 def _cost_mean(stats, rows, starts, base, idx, m, t, out) -> None:
     """RSS about the segment mean, in units of sigma^2 (``out[k]`` for candidate ``idx[k]``, ``k < m``)."""
     a1 = stats[0, t]
@@ -299,8 +306,7 @@ def _cost_mean(stats, rows, starts, base, idx, m, t, out) -> None:
     tf = float(t)
     for k in range(m):
         j = idx[k]
-        d = a1 - c1[j]
-        out[k] = base[j] + ((a2 - c2[j]) - d * d / (tf - starts[j]))
+        out[k] = _cost_mean_one(a1, a2, tf, base[j], starts[j], c1[j], c2[j])
 
 
 # --------------------------------------------------------------------------- 'meanvar'
@@ -531,8 +537,8 @@ _BOX_SLACK = 1e-9
 
 
 @njit(cache=True, error_model="numpy")
-def _narrow_mean(stats, m, rows, starts, f_start, bounds, n, c, f_c, length_term, use_length_term, min_size) -> int:
-    """Functional pruning for 'mean' (FPOP) as start ``c`` becomes usable; returns how many starts it retires.
+def _fpop(stats, m, beta, length_term, use_length_term, min_size, F, last, starts, cand, f_start, bounds) -> None:
+    """The search of :func:`_pelt` for 'mean', pruned functionally (FPOP): fills ``F`` and ``last`` from ``min_size``.
 
     With ``g_s(mu, t) = F(s) + sum_{s<i<=t} (z_i - mu)^2``, start ``s`` totals
     ``min_mu g_s(mu, t)`` at ``t``, reached at ``mu_s(t)``, the mean of
@@ -544,7 +550,8 @@ def _narrow_mean(stats, m, rows, starts, f_start, bounds, n, c, f_c, length_term
     only with ``mu_s(t)`` within ``sqrt(gap / L)`` of ``a``, and ``c`` only
     with ``mu_c(t)`` not strictly within it. Each start keeps the hull
     ``[lo, hi]`` (``bounds[0:2]``) of where its mean may still be, cut by every
-    newer start, and one interval where it may not (``bounds[2:4]``: the union
+    newer start ``c`` as it is admitted (at ``t = c + min_size``, where PELT's
+    grace ends), and one interval where it may not (``bounds[2:4]``: the union
     of overlapping exclusions by older starts, else the one with the largest
     ``gap``, mostly that of its own segment's start), cut from the hull; a
     start whose hull is empty is retired. A hull holds more than the set it
@@ -555,73 +562,121 @@ def _narrow_mean(stats, m, rows, starts, f_start, bounds, n, c, f_c, length_term
     grows with the segment, which only makes an older start worse, so the first
     cut holds as it is; the second allows for the most a newer start can gain
     by it, ``log((L + min_size) / min_size)`` (at ``t = c + min_size``).
+
+    The slots hold only the starts still kept, in order: one pass per step
+    narrows them by the newest start, moves the kept ones down over the retired,
+    and costs them at ``t`` (the least total, the earliest start among equal ones).
     """
-    a1 = stats[0, c]
-    a2 = stats[1, c]
-    c1 = rows[0]
-    c2 = rows[1]
-    cf = float(c)
-    # rounding in F and in the costs, now or at any later t, is a few ulps of |F| and of the
-    # sums of squares, at most the series' whole sum
-    base = _PRUNE_MARGIN * (1.0 + abs(f_c)) + _SQUARES_MARGIN * stats[1, m]
-    excl_lo = np.inf
-    excl_hi = -np.inf
-    excl_gap = -np.inf
-    retired = 0
-    # Written for speed, same arithmetic: selects instead of branches (which way a candidate goes
-    # is data, and mispredictions cost more than computing both ways), ``x if x > y else y`` for
-    # max (the builtin is a call), no views of ``bounds`` (each holds a reference, counted
-    # atomically). A retired start's slot computes nonsense that is never kept.
-    for j in range(n):
-        fs = f_start[j]
-        alive = fs != np.inf
-        length = cf - starts[j]
-        inv = 1.0 / length
-        s1 = a1 - c1[j]
-        mean = s1 * inv
-        gap = f_c - fs - ((a2 - c2[j]) - s1 * mean)
-        margin = base + _PRUNE_MARGIN * abs(fs)
-        room = gap + margin
-        half = math.sqrt((0.0 if 0.0 > room else room) * inv)
-        low = mean - half
-        low = low if low > bounds[0, j] else bounds[0, j]
-        high = mean + half
-        high = high if high < bounds[1, j] else bounds[1, j]
-        # the exclusion cuts the hull where it reaches past an end, and empties it when it covers it
-        out_lo = bounds[2, j]
-        out_hi = bounds[3, j]
-        below = out_lo < low
-        above = out_hi > high
-        low_cut = out_hi if out_hi > low else low
-        high_cut = out_lo if out_lo < high else high
-        low = np.inf if below & above else (low_cut if below else low)
-        high = high_cut if above & (not below) else high
-        bounds[0, j] = low
-        bounds[1, j] = high
-        retire = alive & (not ((room >= 0.0) & (low <= high)))
-        f_start[j] = np.inf if retire else fs
-        retired += retire
-        # the open interval where s beats c by more than the margin
-        shut = gap - margin
-        if use_length_term:
-            shut -= length_term[int(length) + min_size] - length_term[min_size]
-        half = math.sqrt((0.0 if 0.0 > shut else shut) * inv)
-        e_lo = mean - half
-        e_hi = mean + half
-        shut_out = alive & (shut > 0.0)
-        merge = shut_out & (e_lo < excl_hi) & (e_hi > excl_lo)
-        take = shut_out & (not merge) & (shut > excl_gap)
-        merged_lo = e_lo if e_lo < excl_lo else excl_lo
-        merged_hi = e_hi if e_hi > excl_hi else excl_hi
-        merged_gap = shut if shut > excl_gap else excl_gap
-        excl_lo = merged_lo if merge else (e_lo if take else excl_lo)
-        excl_hi = merged_hi if merge else (e_hi if take else excl_hi)
-        excl_gap = merged_gap if merge else (shut if take else excl_gap)
-    bounds[0, n] = -np.inf
-    bounds[1, n] = np.inf
-    bounds[2, n] = excl_lo
-    bounds[3, n] = excl_hi
-    return retired
+    c1 = cand[0]
+    c2 = cand[1]
+    lows = bounds[0]
+    highs = bounds[1]
+    out_lows = bounds[2]
+    out_highs = bounds[3]
+    squares = _SQUARES_MARGIN * stats[1, m]
+    n = 0
+    for t in range(min_size, m + 1):
+        a1 = stats[0, t]
+        a2 = stats[1, t]
+        tf = float(t)
+        best = np.inf
+        k = 0
+        # admit the newest start; F is infinite (never a segment end) for 0 < c < min_size
+        c = t - min_size
+        admit = c == 0 or c >= min_size
+        f_c = F[c]
+        ca1 = stats[0, c]
+        ca2 = stats[1, c]
+        cf = float(c)
+        # rounding in F and in the costs, now or at any later t, is a few ulps of |F| and of the
+        # sums of squares, at most the series' whole sum
+        base = _PRUNE_MARGIN * (1.0 + abs(f_c)) + squares
+        excl_lo = np.inf
+        excl_hi = -np.inf
+        excl_gap = -np.inf
+        kept = 0
+        # Written for speed, same arithmetic: selects instead of branches (which way a start goes
+        # is data, and mispredictions cost more than computing both ways), ``x if x > y else y``
+        # for max (the builtin is a call); a retired start is written too, then written over.
+        for j in range(n):
+            fs = f_start[j]
+            sj = starts[j]
+            s1_j = c1[j]
+            s2_j = c2[j]
+            keep = True
+            if admit:
+                length = cf - sj
+                inv = 1.0 / length
+                s1 = ca1 - s1_j
+                mean = s1 * inv
+                gap = f_c - fs - ((ca2 - s2_j) - s1 * mean)
+                margin = base + _PRUNE_MARGIN * abs(fs)
+                room = gap + margin
+                half = math.sqrt((0.0 if 0.0 > room else room) * inv)
+                low = mean - half
+                low = low if low > lows[j] else lows[j]
+                high = mean + half
+                high = high if high < highs[j] else highs[j]
+                # the exclusion cuts the hull where it reaches past an end, and empties it when it covers it
+                out_lo = out_lows[j]
+                out_hi = out_highs[j]
+                below = out_lo < low
+                above = out_hi > high
+                low_cut = out_hi if out_hi > low else low
+                high_cut = out_lo if out_lo < high else high
+                low = np.inf if below & above else (low_cut if below else low)
+                high = high_cut if above & (not below) else high
+                keep = (room >= 0.0) & (low <= high)
+                lows[kept] = low
+                highs[kept] = high
+                out_lows[kept] = out_lo
+                out_highs[kept] = out_hi
+                # the open interval where s beats c by more than the margin
+                shut = gap - margin
+                if use_length_term:
+                    shut -= length_term[int(length) + min_size] - length_term[min_size]
+                half = math.sqrt((0.0 if 0.0 > shut else shut) * inv)
+                e_lo = mean - half
+                e_hi = mean + half
+                shut_out = shut > 0.0
+                merge = shut_out & (e_lo < excl_hi) & (e_hi > excl_lo)
+                take = shut_out & (not merge) & (shut > excl_gap)
+                merged_lo = e_lo if e_lo < excl_lo else excl_lo
+                merged_hi = e_hi if e_hi > excl_hi else excl_hi
+                merged_gap = shut if shut > excl_gap else excl_gap
+                excl_lo = merged_lo if merge else (e_lo if take else excl_lo)
+                excl_hi = merged_hi if merge else (e_hi if take else excl_hi)
+                excl_gap = merged_gap if merge else (shut if take else excl_gap)
+                starts[kept] = sj
+                f_start[kept] = fs
+                c1[kept] = s1_j
+                c2[kept] = s2_j
+            value = _cost_mean_one(a1, a2, tf, fs, sj, s1_j, s2_j)
+            if use_length_term:
+                value += length_term[t - int(sj)]
+            lower = keep & (value < best)
+            best = value if lower else best
+            k = kept if lower else k
+            kept += keep
+        n = kept
+        if admit:
+            starts[n] = cf
+            f_start[n] = f_c
+            c1[n] = ca1
+            c2[n] = ca2
+            lows[n] = -np.inf
+            highs[n] = np.inf
+            out_lows[n] = excl_lo
+            out_highs[n] = excl_hi
+            value = _cost_mean_one(a1, a2, tf, f_c, cf, ca1, ca2)
+            if use_length_term:
+                value += length_term[t - c]
+            if value < best:
+                best = value
+                k = n
+            n += 1
+        F[t] = best + beta
+        last[t] = int(starts[k])
 
 
 # Geometric functional pruning for the two-parameter models. Both costs are a minimum over a
@@ -653,7 +708,7 @@ def _rounding_scale(code, stats, m) -> float:
     integer positions), the sum of squares, the largest position from the origin ``U``
     and the widest gap between positions ``g`` ('trend': positions' sums about a
     segment's last one are ill-conditioned by at most ``min(L, 12 g^2)``); doubled.
-    'mean' keeps its share of the sum of squares (:func:`_narrow_mean`).
+    'mean' keeps its share of the sum of squares (:func:`_fpop`).
     """
     eps = np.finfo(np.float64).eps
     if code == MEAN:
@@ -958,7 +1013,7 @@ def _narrow_box(
 
     ``x0_c`` is ``c``'s first position ('trend': the origin of the sums of ``(s, c]``).
     Starts in slots before ``oldest`` wait for a later call, however due.
-    Margins as in :func:`_narrow_mean`, with ``rounding`` (:func:`_rounding_scale`) for
+    Margins as in :func:`_fpop`, with ``rounding`` (:func:`_rounding_scale`) for
     the costs. With 'mbic' an older start only loses more by its length term, so the
     first cut holds as it is; in the second a newer start gains at most
     ``log((t - e) / (t - s))`` from step ``t`` on.
@@ -1100,8 +1155,8 @@ def _pelt(
     change at ``t``.
 
     With ``functional`` (the default) the pruning is functional instead, for
-    'mean' by :func:`_narrow_mean` (``bounds[0:4]`` its four intervals' ends
-    per start), for 'meanvar' and 'trend' by :func:`_narrow_box` (``bounds``
+    'mean' by :func:`_fpop`, a search of its own (``bounds[0:4]`` its four
+    intervals' ends per start, the slots kept dense), for 'meanvar' and 'trend' by :func:`_narrow_box` (``bounds``
     a box, an older start's region and the start's first position per start;
     ``until`` when to narrow it next): a start is compared with newer ones
     ``c`` as they are admitted (at ``t = c + min_size``, where PELT's grace
@@ -1134,6 +1189,9 @@ def _pelt(
     for t in range(1, min_size):
         F[t] = np.inf
         last[t] = 0
+    if functional and code == MEAN:
+        _fpop(stats, m, beta, length_term, use_length_term, min_size, F, last, starts, cand, f_start, bounds)
+        return
     rows = (cand[0], cand[1], cand[2], cand[3], cand[4], cand[5])
     # a pruning rule compares up to three computed costs (the pair's now, both starts' at a later
     # step; the lazy pass doubles it for four), each within the scale of its exact value
@@ -1162,11 +1220,7 @@ def _pelt(
         # admit the newest start; F is infinite (never a segment end) for 0 < s < min_size
         s = t - min_size
         if s == 0 or s >= min_size:
-            if functional and code == MEAN:
-                n_pruned += _narrow_mean(
-                    stats, m, rows, starts, f_start, bounds, n_cand, s, F[s], length_term, use_length_term, min_size
-                )
-            elif functional:
+            if functional:
                 # the region of defeat the newest start remembers: that of the start that beats
                 # it most, found by a pass, else that of the start of its own last segment
                 # the youngest starts are due every step, the others seldom: those are looked
