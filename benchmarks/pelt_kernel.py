@@ -2,7 +2,8 @@
 
     python -m benchmarks.pelt_kernel [--n 3000] [--series 4000] [--points 500] [--long 1000000,3000000] [--repeat 5]
                                      [--calm 100000] [--calm-long 300000,1000000] [--old-repeat 3]
-                                     [--parts 1,2,3,4,5] [--profile-rows 2000] [--profile-points 1000]
+                                     [--parts 1,2,3,4,5,6] [--profile-rows 2000] [--profile-points 1000]
+                                     [--search-rows 300]
 
 1. One series of ``--n`` points, model 'mean', BIC penalty: tsql's change_points against
    ``ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma^2)`` (ruptures'
@@ -23,6 +24,11 @@
    cycle): the first segmentation, the periods (Fisher's screen, then seasonality), the cycles'
    fit, the second segmentation, and the whole call, each in CPU seconds of this process (medians
    of the steps run in turns; the machine's other load counts less than in wall-clock time).
+6. The 'mean' search alone on ``--search-rows`` rows of 1,000 points of white noise (no change, the
+   default penalty: BIC times the row's long-run factor, min_size 2): FPOP as shipped against plain
+   PELT on the same sums, in turns (same answer checked), microseconds per row and nanoseconds per
+   step; the starts FPOP costs per step (counted on a few rows by the search's Python form); and
+   the whole segmentation per row (``seasonal='none'``) for scale.
 
 All figures are medians of wall-clock times measured in this one run.
 """
@@ -210,6 +216,59 @@ def profile(rows: int, points: int, repeat: int) -> None:
         print(f"   {name:<44} {s:7.3f} s CPU  {s / whole:6.1%}  ({s / rows * 1e6:6.1f} us/row)")
 
 
+def mean_search(rows: int, repeat: int) -> None:
+    from unittest import mock
+
+    m = 1000
+    noise = np.random.default_rng(6).standard_normal((rows, m))
+    spec = changepoint.MODELS["mean"]
+
+    def search_args(x: np.ndarray) -> tuple:
+        stats = np.empty((changepoint.MAX_STATS, m + 1))
+        work = np.empty(2 * m + 2)
+        p = np.arange(m, dtype=np.int64)
+        changepoint._prepare(spec.code, x, p, m, stats, work)
+        beta = spec.params_per_change * math.log(m) * changepoint._noise_factor(spec.code, x, p, m, work)
+        sums = (stats, m, beta, np.zeros(m + 1), False, 2)
+        # F, last, starts, candidates' sums, F of the starts, until, values, bounds
+        buffers = (np.empty(m + 1), np.empty(m + 1, dtype=np.int64), np.empty(m + 1))
+        buffers += (np.empty((changepoint.MAX_STATS, m + 1)), np.empty(m + 1), np.empty(m + 1), np.empty(m + 1))
+        return (spec.code, spec.n_stats, *sums, *buffers, np.empty((changepoint._BOX_ROWS, m + 1)))
+
+    searches = [search_args(x) for x in noise]
+
+    def run(functional: bool) -> list[np.ndarray]:
+        for a in searches:
+            changepoint._pelt(*a, functional)
+        return [a[9].copy() for a in searches]
+
+    same = all(np.array_equal(a, b) for a, b in zip(run(True), run(False)))
+    times = interleaved({"fpop": lambda: run(True), "pelt": lambda: run(False)}, repeat)
+    fpop, pelt = (statistics.median(times[k]) / rows for k in ("fpop", "pelt"))
+    costed = 0
+    count_rows = 3
+    cost = changepoint._cost_mean_one
+
+    def counting(*args):
+        nonlocal costed
+        costed += 1
+        return cost(*args)
+
+    for a in searches[:count_rows]:
+        code, n_stats, stats, m_, beta, length_term, use, min_size, F, last = a[:10]
+        with mock.patch.object(changepoint, "_cost_mean_one", counting):
+            F[0] = -beta
+            changepoint._fpop.py_func(stats, m_, beta, length_term, use, min_size, F, last, *a[10:12], a[12], a[15])
+    batch = Ragged.from_list(list(noise))
+    whole = median_seconds(lambda: changepoint.change_points(batch, seasonal="none"), repeat) / rows
+    print(f"6. the 'mean' search on {rows} rows of {m:,} points of white noise, default penalty, min_size 2")
+    print(f"   same starts as plain PELT: {same}")
+    print(f"   FPOP       {fpop * 1e6:7.1f} us/row  {fpop / m * 1e9:5.0f} ns/step")
+    print(f"   plain PELT {pelt * 1e6:7.1f} us/row  {pelt / m * 1e9:5.0f} ns/step   ({pelt / fpop:.1f}x FPOP)")
+    print(f"   FPOP costs {costed / (count_rows * (m - 1)):.2f} starts per step (the kept ones and the newest)")
+    print(f"   change_points(seasonal='none') {whole * 1e6:7.1f} us/row")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--n", type=int, default=3000)
@@ -220,10 +279,11 @@ def main() -> None:
     parser.add_argument("--calm", type=int, default=100000, help="length for part 4 (0: skip)")
     parser.add_argument("--calm-long", default="300000,1000000", help="longer lengths for part 4, pruning only")
     parser.add_argument("--old-repeat", type=int, default=3, help="runs of plain PELT in part 4")
-    parser.add_argument("--parts", default="1,2,3,4,5")
+    parser.add_argument("--parts", default="1,2,3,4,5,6")
     parser.add_argument("--ruptures-repeat", type=int, default=3)
     parser.add_argument("--profile-rows", type=int, default=2000, help="rows for part 5")
     parser.add_argument("--profile-points", type=int, default=1000, help="points per row for part 5")
+    parser.add_argument("--search-rows", type=int, default=300, help="rows for part 6")
     args = parser.parse_args()
     start = time.perf_counter()
     changepoint.change_points(Ragged.from_list([np.arange(10.0) % 3]))
@@ -239,6 +299,8 @@ def main() -> None:
         calm(args.calm, [int(v) for v in args.calm_long.split(",") if v], args.repeat, args.old_repeat)
     if "5" in parts:
         profile(args.profile_rows, args.profile_points, args.repeat)
+    if "6" in parts:
+        mean_search(args.search_rows, args.repeat)
 
 
 if __name__ == "__main__":
