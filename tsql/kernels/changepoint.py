@@ -566,6 +566,8 @@ def _fpop(stats, m, beta, length_term, use_length_term, min_size, F, last, start
     The slots hold only the starts still kept, in order: one pass per step
     narrows them by the newest start, moves the kept ones down over the retired,
     and costs them at ``t`` (the least total, the earliest start among equal ones).
+    About seven starts are costed per step on white noise: too few for vectors (a
+    vectorised narrowing pass followed by an in-order merge measured 1.4x slower).
     """
     c1 = cand[0]
     c2 = cand[1]
