@@ -1158,7 +1158,8 @@ def _pelt(
 
     With ``functional`` (the default) the pruning is functional instead, for
     'mean' by :func:`_fpop`, a search of its own (``bounds[0:4]`` its four
-    intervals' ends per start, the slots kept dense), for 'meanvar' and 'trend' by :func:`_narrow_box` (``bounds``
+    intervals' ends per start, the slots kept dense), for 'meanvar' and
+    'trend' by :func:`_narrow_box` (``bounds``
     a box, an older start's region and the start's first position per start;
     ``until`` when to narrow it next): a start is compared with newer ones
     ``c`` as they are admitted (at ``t = c + min_size``, where PELT's grace
