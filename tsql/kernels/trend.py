@@ -280,6 +280,31 @@ def _all_pairs(x, t, buf):
     return (lower + upper) / 2 if c % 2 == 0 else lower
 
 
+@njit(cache=True, nogil=True)
+def _start(x, span, disc, ties, order0, k1, k2, br, bc, order_lo, order_hi):
+    """The first bracket: 0 and its order (from ``order0``) on the side the
+    middle ranks are not, else the far ends; every slope lies in
+    [-span, span], and far outside the order is time order."""
+    n = len(x)
+    br[0], br[1], bc[0], bc[1] = -(2 * span + 1), 2 * span + 1, 0, n * (n - 1) // 2
+    for p in range(n):
+        order_lo[p] = p
+        order_hi[p] = n - 1 - p
+    if disc + ties < k1:  # the order at 0 with ties reversed: slopes <= 0 inverted
+        br[0], bc[0] = 0.0, disc + ties
+        a = 0
+        while a < n:
+            b = a
+            while b + 1 < n and x[order0[b + 1]] == x[order0[a]]:
+                b += 1
+            for p in range(b - a + 1):
+                order_lo[a + p] = order0[b - p]
+            a = b + 1
+    elif disc >= k2:
+        br[1], bc[1] = 0.0, disc
+        order_hi[:] = order0
+
+
 @njit(cache=True, nogil=True, inline="always")  # one call site: no library of its own
 def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs):
     """Exact median pairwise slope of one row by counting and selection.
@@ -312,37 +337,57 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
         tau[p] = t[p] - t0
         umax = max(umax, abs(u[p]))
         tmax = max(tmax, abs(tau[p]))
-    # every slope lies in [-span, span]; far outside, the order is time order
-    span = xmax - xmin
-    lo, hi = -(2 * span + 1), 2 * span + 1
-    clo, chi = 0, N
-    for p in range(n):
-        order_lo[p] = p
-        order_hi[p] = n - 1 - p
-    if disc + ties < k1:  # the order at 0 with ties reversed: slopes <= 0 inverted
-        lo, clo = 0.0, disc + ties
-        a = 0
-        while a < n:
-            b = a
-            while b + 1 < n and x[order0[b + 1]] == x[order0[a]]:
-                b += 1
-            for p in range(b - a + 1):
-                order_lo[a + p] = order0[b - p]
-            a = b + 1
-    elif disc >= k2:
-        hi, chi = 0.0, disc
-        order_hi[:] = order0
     br, bc = np.empty(2), np.empty(2, dtype=np.int64)  # the bracket's ends and their counts
-    br[0], br[1], bc[0], bc[1] = lo, hi, clo, chi
+    _start(x, xmax - xmin, disc, ties, order0, k1, k2, br, bc, order_lo, order_hi)
     # a fixed sample of pair slopes estimates the count at any slope
     sample = sample_buf[: len(pairs)]
     s = len(sample)
     for q in range(s):
         i, j = pairs[q, 0], pairs[q, 1]
         sample[q] = (x[j] - x[i]) / (t[j] - t[i])
-    # first the sampled median, then a sampled slope beyond the middle ranks
-    # on the other side, by the sample's error at that distance, doubled
-    # each time it falls short
+    # the exact counts at 0 anchor the sample: the sampled slopes between 0
+    # and a point estimate the count there; then secant steps through the
+    # last two exact counts, until a narrow window about the middle ranks
+    # can be listed outright
+    below0, upto0 = 0, 0
+    for q in range(s):
+        below0 += sample[q] < 0.0
+        upto0 += sample[q] <= 0.0
+    target = 0.5 * (k1 + k2)
+    if disc >= k2:  # the count at 0 is the order0's, ties not inverted
+        theta_a, count_a = 0.0, float(disc)
+        rank = below0 + (target - disc) * s / N
+    else:
+        theta_a, count_a = 0.0, float(disc + ties)
+        rank = upto0 + (target - disc - ties) * s / N
+    theta = _select(sample, min(s - 1, max(0, int(rank))))
+    if not (br[0] < theta < br[1]):
+        theta = br[0] + (br[1] - br[0]) * ((target - bc[0]) / (bc[1] - bc[0]))
+    theta_b, count_b = theta, float(_probe(theta, target, br, bc, k1, k2, x, t, fw, iw))
+    eprev = np.inf
+    for _ in range(_MAX_ROUNDS):
+        e = abs(count_b - target)
+        if not (e < eprev / 1.5) or count_b == count_a:  # not converging: the rounds below
+            break
+        eprev = e
+        g = (theta_b - theta_a) / (count_b - count_a)
+        if e <= n / 4 and g > 0:  # list the window where the secant puts the middle ranks
+            h = 0.5 * e + 16 + 0.5 * (k2 - k1)
+            p1, p2 = max(br[0], theta_b + (target - h - count_b) * g), min(br[1], theta_b + (target + h - count_b) * g)
+            if p1 < p2:
+                got = _final(x, t, u, tau, umax, tmax, p1, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
+                if not np.isnan(got):
+                    return got
+            break
+        theta = theta_b + (target - count_b) * g
+        if not (br[0] < theta < br[1]):
+            break
+        theta_a, count_a = theta_b, count_b
+        theta_b, count_b = theta, float(_probe(theta, target, br, bc, k1, k2, x, t, fw, iw))
+    # not settled so: from the first bracket again, the sampled median, then
+    # a sampled slope beyond the middle ranks on the other side, by the
+    # sample's error at that distance, doubled each time it falls short
+    _start(x, xmax - xmin, disc, ties, order0, k1, k2, br, bc, order_lo, order_hi)
     rank = min(s - 1, int(s * (k1 - 0.5) / N))
     theta = _select(sample, rank)
     c = _probe(theta, float(k1), br, bc, k1, k2, x, t, fw, iw)
