@@ -74,7 +74,7 @@ _EPS = 2.0**-53  # unit roundoff of float64
 _TINY = 1e-300
 _K_FINAL = 4_000_000  # most slopes a single row may list in its final step
 _MAX_ROUNDS = 200
-_RUN = 16  # runs sorted by insertion before merging
+_RUN = 4  # runs sorted by insertion before merging
 _PIECE = 1 << 20  # present values per compiled call; a checkpoint between calls
 _SPECULATE = 2  # a round lists its window outright when it should hold at most this many slopes per value
 
@@ -105,8 +105,26 @@ def _sort_count(key, idx, work_key, work_idx):
     while width < n:
         for s in range(0, n, 2 * width):
             mid, end = min(s + width, n), min(s + 2 * width, n)
+            if end - mid == width:  # runs of one length: from both ends at once, two chains apart
+                a, b, o, a2, b2, o2 = s, mid, s, mid - 1, end - 1, end - 1
+                for _ in range(width):  # neither end runs out: each side takes half
+                    right = np.int64(src_k[b] < src_k[a])  # no branches on the data
+                    src = a + right * (b - a)
+                    dst_k[o], dst_i[o] = src_k[src], src_i[src]
+                    inv += right * (mid - a)
+                    a += 1 - right
+                    b += right
+                    o += 1
+                    left = np.int64(src_k[a2] > src_k[b2])
+                    src = b2 + left * (a2 - b2)
+                    dst_k[o2], dst_i[o2] = src_k[src], src_i[src]
+                    inv += (1 - left) * (mid - 1 - a2)  # the right one passes the left ones after a2
+                    a2 -= left
+                    b2 -= 1 - left
+                    o2 -= 1
+                continue
             a, b, o = s, mid, s
-            while a < mid and b < end:  # without branches on the data: arithmetic on the comparison
+            while a < mid and b < end:
                 right = np.int64(src_k[b] < src_k[a])
                 src = a + right * (b - a)
                 dst_k[o], dst_i[o] = src_k[src], src_i[src]
@@ -364,12 +382,13 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
     if not (br[0] < theta < br[1]):
         theta = br[0] + (br[1] - br[0]) * ((target - bc[0]) / (bc[1] - bc[0]))
     theta_b, count_b = theta, float(_probe(theta, target, br, bc, k1, k2, x, t, fw, iw))
-    eprev = np.inf
+    best, stuck = np.inf, 0
     for _ in range(_MAX_ROUNDS):
         e = abs(count_b - target)
-        if not (e < eprev / 1.5) or count_b == count_a:  # not converging: the rounds below
+        stuck = 0 if e < best / 1.5 else stuck + 1
+        if stuck == 2 or count_b == count_a:  # not converging: the rounds below
             break
-        eprev = e
+        best = min(best, e)
         g = (theta_b - theta_a) / (count_b - count_a)
         if e <= n / 4 and g > 0:  # list the window where the secant puts the middle ranks
             h = 0.5 * e + 16 + 0.5 * (k2 - k1)
