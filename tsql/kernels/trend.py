@@ -246,10 +246,28 @@ def _delta(umax, tmax, theta_abs):
 
 
 @njit(cache=True, nogil=True)
+def _recount(theta, u, tau, idx, key, count):
+    """Sort the order ``idx`` (inversion count ``count``) by ``u - theta * tau``
+    by insertion, in O(n + exchanges); returns the new inversion count."""
+    n = len(idx)
+    for p in range(n):
+        key[p] = u[idx[p]] - theta * tau[idx[p]]
+    for p in range(1, n):
+        k, e, q = key[p], idx[p], p
+        while q > 0 and key[q - 1] > k:
+            f = idx[q - 1]
+            key[q], idx[q] = key[q - 1], f
+            q -= 1
+            count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
+        key[q], idx[q] = k, e
+    return count
+
+
+@njit(cache=True, nogil=True)
 def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
     """Sort the order ``idx`` (inversion count ``count``) by ``u - theta * tau``
-    by insertion, in O(n + exchanges); returns the new inversion count and,
-    when ``r_lo < r_hi``, per exchanged pair (each pair whose order changes,
+    by insertion, in O(n + exchanges), as ``_recount``; returns the new
+    inversion count and, per exchanged pair (each pair whose order changes,
     once): how many were inverted before, how many have a slope <= ``r_lo``
     and the slopes in ``(r_lo, r_hi]`` (as theilslopes computes them)."""
     n = len(idx)
@@ -257,8 +275,7 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
         key[p] = u[idx[p]] - theta * tau[idx[p]]
     only_before = 0
     below = 0
-    listing = r_lo < r_hi
-    found = np.empty(256 if listing else 0)
+    found = np.empty(256)
     nfound = 0
     for p in range(1, n):
         k, e, q = key[p], idx[p], p
@@ -267,19 +284,18 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
             key[q], idx[q] = key[q - 1], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
-            if listing:
-                i, j = min(e, f), max(e, f)
-                only_before += f > e
-                sl = (x[j] - x[i]) / (t[j] - t[i])
-                if sl <= r_lo:
-                    below += 1
-                elif sl <= r_hi:
-                    if nfound == len(found):
-                        grown = np.empty(2 * len(found))
-                        grown[:nfound] = found
-                        found = grown
-                    found[nfound] = sl
-                    nfound += 1
+            i, j = min(e, f), max(e, f)
+            only_before += f > e
+            sl = (x[j] - x[i]) / (t[j] - t[i])
+            if sl <= r_lo:
+                below += 1
+            elif sl <= r_hi:
+                if nfound == len(found):
+                    grown = np.empty(2 * len(found))
+                    grown[:nfound] = found
+                    found = grown
+                found[nfound] = sl
+                nfound += 1
         key[q], idx[q] = k, e
     return count, only_before, below, found, nfound
 
@@ -484,7 +500,7 @@ def _probe(theta, expect, br, bc, k1, k2, x, t, fw, iw):
     if min(from_lo, from_hi) <= 24 * n + 256:
         lower = from_lo <= from_hi
         idx[:] = order_lo if lower else order_hi
-        c, _, _, _, _ = _resort(theta, u, tau, idx, key, bc[0] if lower else bc[1], x, t, np.inf, -np.inf)
+        c = _recount(theta, u, tau, idx, key, bc[0] if lower else bc[1])
     else:
         for p in range(n):
             key[p] = u[p] - theta * tau[p]
@@ -515,7 +531,7 @@ def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
     d0 = _delta(umax, tmax, max(abs(lo), abs(hi)))
     a, b = lo - 3 * d0, hi + 3 * d0
     d = _delta(umax, tmax, max(abs(a), abs(b)))
-    count_a, _, _, _, _ = _resort(a, u, tau, order_lo, key, clo, x, t, np.inf, -np.inf)
+    count_a = _recount(a, u, tau, order_lo, key, clo)
     _, only_a, below, found, nr = _resort(b, u, tau, order_lo, key, count_a, x, t, a + d, b - d)
     base = count_a - only_a + below
     l1, l2 = k1 - base, k2 - base  # 1-based ranks inside R
