@@ -74,6 +74,7 @@ _EPS = 2.0**-53  # unit roundoff of float64
 _TINY = 1e-300
 _K_FINAL = 4_000_000  # most slopes a single row may list in its final step
 _MAX_ROUNDS = 200
+_FIRST_SAMPLE = 256  # sampled slopes that aim the first count
 _RUN = 4  # runs sorted by insertion before merging
 _PIECE = 1 << 20  # present values per compiled call; a checkpoint between calls
 _SPECULATE = 2  # a round lists its window outright when it should hold at most this many slopes per value
@@ -376,7 +377,8 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
     # a fixed sample of pair slopes estimates the count at any slope
     sample = sample_buf[: len(pairs)]
     s = len(sample)
-    for q in range(s):
+    s1 = min(s, _FIRST_SAMPLE)  # the secant steps need only a first part of it
+    for q in range(s1):
         i, j = pairs[q, 0], pairs[q, 1]
         sample[q] = (x[j] - x[i]) / (t[j] - t[i])
     # the exact counts at 0 anchor the sample: the sampled slopes between 0
@@ -384,17 +386,17 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
     # last two exact counts, until a narrow window about the middle ranks
     # can be listed outright
     below0, upto0 = 0, 0
-    for q in range(s):
+    for q in range(s1):
         below0 += sample[q] < 0.0
         upto0 += sample[q] <= 0.0
     target = 0.5 * (k1 + k2)
     if disc >= k2:  # the count at 0 is the order0's, ties not inverted
         theta_a, count_a = 0.0, float(disc)
-        rank = below0 + (target - disc) * s / N
+        rank = below0 + (target - disc) * s1 / N
     else:
         theta_a, count_a = 0.0, float(disc + ties)
-        rank = upto0 + (target - disc - ties) * s / N
-    theta = _select(sample, min(s - 1, max(0, int(rank))))
+        rank = upto0 + (target - disc - ties) * s1 / N
+    theta = _select(sample[:s1], min(s1 - 1, max(0, int(rank))))
     if not (br[0] < theta < br[1]):
         theta = br[0] + (br[1] - br[0]) * ((target - bc[0]) / (bc[1] - bc[0]))
     theta_b, count_b = theta, float(_probe(theta, target, br, bc, k1, k2, x, t, fw, iw))
@@ -409,10 +411,13 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
         if e <= n / 4 and g > 0:  # list the window where the secant puts the middle ranks
             h = 0.5 * e + 16 + 0.5 * (k2 - k1)
             p1, p2 = max(br[0], theta_b + (target - h - count_b) * g), min(br[1], theta_b + (target + h - count_b) * g)
-            if p1 < p2:
+            got = np.nan
+            if count_b < target and theta_b < p2:  # from the last count's order straight on
+                got = _listed(x, t, u, tau, umax, tmax, theta_b, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
+            elif p1 < p2:
                 got = _final(x, t, u, tau, umax, tmax, p1, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
-                if not np.isnan(got):
-                    return got
+            if not np.isnan(got):
+                return got
             break
         theta = theta_b + (target - count_b) * g
         if not (br[0] < theta < br[1]):
@@ -423,6 +428,9 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
     # a sampled slope beyond the middle ranks on the other side, by the
     # sample's error at that distance, doubled each time it falls short
     _start(x, xmax - xmin, disc, ties, order0, k1, k2, br, bc, order_lo, order_hi)
+    for q in range(s1, s):
+        i, j = pairs[q, 0], pairs[q, 1]
+        sample[q] = (x[j] - x[i]) / (t[j] - t[i])
     rank = min(s - 1, int(s * (k1 - 0.5) / N))
     theta = _select(sample, rank)
     c = _probe(theta, float(k1), br, bc, k1, k2, x, t, fw, iw)
@@ -530,9 +538,17 @@ def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
     """
     d0 = _delta(umax, tmax, max(abs(lo), abs(hi)))
     a, b = lo - 3 * d0, hi + 3 * d0
-    d = _delta(umax, tmax, max(abs(a), abs(b)))
     count_a = _recount(a, u, tau, order_lo, key, clo)
-    _, only_a, below, found, nr = _resort(b, u, tau, order_lo, key, count_a, x, t, a + d, b - d)
+    return _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_lo, key)
+
+
+@njit(cache=True, nogil=True)
+def _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_a, key):
+    """The middle slopes from those exchanged on the way from ``a`` to ``b``
+    (``order_a`` sorted at ``a``, its inversion count ``count_a``), or NaN
+    when they are not among them (see ``_final``)."""
+    d = _delta(umax, tmax, max(abs(a), abs(b)))
+    _, only_a, below, found, nr = _resort(b, u, tau, order_a, key, count_a, x, t, a + d, b - d)
     base = count_a - only_a + below
     l1, l2 = k1 - base, k2 - base  # 1-based ranks inside R
     if l1 < 1 or l2 > nr:
