@@ -6,33 +6,38 @@ Time is the 0-based position of an element in its list, so a missing element
 One compiled pass per row does the work, in O(n log n) time for typical rows:
 
 * S from one stable merge sort of the values that counts the pairs out of
-  order (Knight [4]_); the tie groups for the variance are runs of the sorted
-  values.
+  order (Knight [4]_), each merge run from both ends at once; the tie groups
+  for the variance are runs of the sorted values.
 * Sen's slope by slope selection by counting: the number of pairwise slopes
   not above ``theta`` is the number of inversions of ``x_t - theta * t`` read
   in time order.  The counts at ``theta = 0`` are exact from the Mann–Kendall
   sort and settle a median of exactly 0 outright.  A fixed sample of pair
   slopes (a seeded splitmix64 stream: the same pairs for every row of a
-  length) estimates the count at any slope, the idea of sampling and then
-  counting of Matoušek [5]_ and Dillencourt, Mount and Netanyahu [6]_: the
-  sampled median is counted first, then a sampled slope just beyond the
-  middle ranks on the other side, then points where linear interpolation of
-  the counts puts the middle ranks; once those two points should hold at most
-  about ``2n`` slopes, the slopes between them are listed outright (the last
-  step below, from there), and only when the middle ranks are not among them
-  are the two points counted and the bracket narrowed on.  The sampled pairs
-  are drawn once per row length.  A count near a bracket end whose order is kept is an insertion
-  sort from that order, in O(n + the slopes between); a count farther away a
-  merge sort.  Last, an insertion sort carries the order at the lower end of
-  the bracket to the order at the upper end: its exchanges are exactly the
-  pairs whose slope lies between, and the middle ones are selected from
-  those.  A rounding margin makes the counts exact in floating point (see
-  ``_final``), so the answer equals the median of the slopes as
-  ``scipy.stats.theilslopes`` computes them.  Only when more than
-  ``_K_FINAL`` slopes lie within rounding distance of the median (a long
-  series on a straight line, say) is the answer one of those slopes instead,
-  exact when they are tied exactly.  The sample only decides where to count:
-  the answer never depends on it otherwise.
+  length, drawn once per row length) estimates the count at any slope, the
+  idea of sampling and then counting of Matoušek [5]_ and Dillencourt, Mount
+  and Netanyahu [6]_.  Anchored at the exact counts at 0 (the sampled slopes
+  between 0 and a point estimate the count there, so the error shrinks with
+  that distance), it aims the first count at the middle ranks; then secant
+  steps through the last two exact counts (the count grows smoothly with
+  ``theta`` over many slopes: each step cuts the error to a few per cent)
+  until the middle ranks should lie within a few dozen slopes, and the
+  slopes of that window are listed outright (the last step below, from
+  there).  A count near an order already sorted is an insertion sort from
+  it, in O(n + the slopes between); a count farther away a merge sort.
+  Should the steps not settle (many tied slopes, a cluster within rounding
+  distance), a bracket is narrowed from the start instead: the sampled
+  median, a sampled slope just beyond the middle ranks on the other side,
+  then points where linear interpolation of the counts puts the middle
+  ranks, until the two ends hold about ``2n`` slopes.  Last, an insertion
+  sort carries the order at the lower end of a window to the order at its
+  upper end: its exchanges are exactly the pairs whose slope lies between,
+  and the middle ones are selected from those.  A rounding margin makes the
+  counts exact in floating point (see ``_final``), so the answer equals the
+  median of the slopes as ``scipy.stats.theilslopes`` computes them.  Only
+  when more than ``_K_FINAL`` slopes lie within rounding distance of the
+  median (a long series on a straight line, say) is the answer one of those
+  slopes instead, exact when they are tied exactly.  The sample only decides
+  where to count: the answer never depends on it otherwise.
 
 Rows with at most ``PAIRWISE_MAX`` present values list all their slopes.
 
@@ -78,6 +83,7 @@ _FIRST_SAMPLE = 256  # sampled slopes that aim the first count
 _RUN = 4  # runs sorted by insertion before merging
 _PIECE = 1 << 20  # present values per compiled call; a checkpoint between calls
 _SPECULATE = 2  # a round lists its window outright when it should hold at most this many slopes per value
+_SECANT = 30  # most secant steps before the bracketing rounds
 
 
 # --------------------------------------------------------------------------- #
@@ -88,7 +94,9 @@ _SPECULATE = 2  # a round lists its window outright when it should hold at most 
 @njit(cache=True, nogil=True)
 def _sort_count(key, idx, work_key, work_idx):
     """Stable merge sort of ``key`` carrying ``idx``, in place; returns the
-    number of pairs ``p < q`` with ``key[p] > key[q]`` (Knight 1966)."""
+    number of pairs ``p < q`` with ``key[p] > key[q]`` (Knight 1966).  A
+    merge of two runs of one length fills the front and the back at once:
+    two chains of work that do not wait on each other."""
     n = len(key)
     inv = 0
     for s in range(0, n, _RUN):
@@ -341,7 +349,7 @@ def _start(x, span, disc, ties, order0, k1, k2, br, bc, order_lo, order_hi):
 
 
 @njit(cache=True, nogil=True, inline="always")  # one call site: no library of its own
-def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs):
+def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_buf, pairs):
     """Exact median pairwise slope of one row by counting and selection.
 
     ``disc`` and ``disc + ties`` are the exact numbers of slopes < 0 and
@@ -350,11 +358,14 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
     (see ``_rows``).  Returns the slope, or NaN when
     the exact selection failed (which the rounding margin rules out).
 
-    The bracket ``(lo, hi]`` holds the two middle ranks: the count of slopes
-    at ``lo`` is below ``k1``, the one at ``hi`` at least ``k2``, each within
-    the rounding margin of exact.  The sorted orders at both ends are kept: a
-    count at a point near one of them is an insertion sort from it, in time
-    O(n + the slopes between), a count farther away a merge sort.
+    First secant steps on exact counts aimed by the sample (at most
+    ``secant``; see the module docstring); failing those, bracketing rounds
+    from the start.  The bracket ``(lo, hi]`` holds the two middle ranks: the
+    count of slopes at ``lo`` is below ``k1``, the one at ``hi`` at least
+    ``k2``, each within the rounding margin of exact.  The sorted orders at
+    both ends are kept: a count at a point near one of them is an insertion
+    sort from it, in time O(n + the slopes between), a count farther away a
+    merge sort.
     """
     n = len(x)
     N = n * (n - 1) // 2
@@ -401,7 +412,7 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
         theta = br[0] + (br[1] - br[0]) * ((target - bc[0]) / (bc[1] - bc[0]))
     theta_b, count_b = theta, float(_probe(theta, target, br, bc, k1, k2, x, t, fw, iw))
     best, stuck = np.inf, 0
-    for _ in range(_MAX_ROUNDS):
+    for _ in range(secant):
         e = abs(count_b - target)
         stuck = 0 if e < best / 1.5 else stuck + 1
         if stuck == 2 or count_b == count_a:  # not converging: the rounds below
@@ -558,7 +569,7 @@ def _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_a, key):
 
 
 @njit(cache=True, nogil=True)
-def _rows(values, offsets, rows, pairwise_max, k_final, speculate, counts, S, t2, t3, slope):
+def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, counts, S, t2, t3, slope):
     """Mann–Kendall S, tie sums and Sen's slope for ``rows`` of the flat
     ``values`` (row ``r`` is ``values[offsets[r] : offsets[r + 1]]``; NaN is
     missing).  ``counts`` gets each row's number of present values, or -1
@@ -614,7 +625,9 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, counts, S, t2
         order0[:n] = iv
         if n != pairs_of:
             pairs_of, npairs_sampled = n, _sample_pairs(n, pairs)
-        slope[r] = _sen(x, t, disc, tie2, order0[:n], k_final, speculate, fw, iw, sample, pairs[:npairs_sampled])
+        slope[r] = _sen(
+            x, t, disc, tie2, order0[:n], k_final, speculate, secant, fw, iw, sample, pairs[:npairs_sampled]
+        )
     return 0
 
 
@@ -706,6 +719,7 @@ def trend_test(batch: Ragged) -> dict[str, np.ndarray]:
             int(PAIRWISE_MAX),
             int(_K_FINAL),
             int(_SPECULATE),
+            int(_SECANT),
             counts,
             S,
             t2,
