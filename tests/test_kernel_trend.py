@@ -331,6 +331,45 @@ def test_listing_outright_changes_no_answer(monkeypatch):
     check_against_scipy(series)
 
 
+def test_secant_steps_and_rounds_agree(monkeypatch):
+    # Sen's slope is found by secant steps on exact counts, else by bracketing
+    # rounds from the start; the rounds alone (no secant step) must give the
+    # same answers, bit for bit, and theilslopes' slope
+    rng = np.random.default_rng(22)
+    k = np.arange(1000)
+    series = [np.cumsum(rng.normal(size=n)) for n in (60, 500, 1000)]  # far from 0: merge sorts
+    series += [rng.normal(size=n) + 0.001 * np.arange(n) for n in (200, 1000)]  # near 0: insertion
+    series += [100 + 2 * np.sin(2 * np.pi * k / 12) + rng.normal(size=1000)]
+    series += [np.round(np.cumsum(rng.normal(size=n))) for n in (300, 1000)]  # tied slopes
+    series += [rng.poisson(3.0, size=700).astype(float) + 0.01 * np.arange(700)]
+    series += [np.where(rng.random(900) < 0.3, np.nan, np.cumsum(rng.normal(size=900)))]
+    series += [0.5 * k + 1e-9 * rng.normal(size=1000)]  # slopes within rounding of each other
+    default = run(series)
+    monkeypatch.setattr(trend, "_SECANT", 0)
+    rounds = run(series)
+    for key in KEYS:
+        np.testing.assert_array_equal(rounds[key], default[key])
+    check_against_scipy(series)
+
+
+@pytest.mark.parametrize("n", [2, 3, 4, 5, 7, 8, 9, 15, 16, 17, 31, 32, 33, 100, 1000, 1024, 1025])
+def test_inversion_count_with_ties_against_kendalltau(n):
+    # merges of runs of one length run from both ends, others from the front:
+    # lengths about powers of two take both; ties must not count
+    rng = np.random.default_rng(n)
+    rows = [rng.integers(0, 3, n).astype(float), np.round(rng.normal(size=n) * 4), rng.normal(size=n)]
+    npairs = n * (n - 1) // 2
+    for x in rows:
+        _, counts = np.unique(x, return_counts=True)
+        tied = int((counts * (counts - 1) // 2).sum())
+        if tied == npairs:
+            continue
+        # reference: scipy.stats.kendalltau; tau-b = S / sqrt(n0 (n0 - n2)), time untied
+        tau = stats.kendalltau(np.arange(n), x).statistic
+        s = tau * math.sqrt(npairs * (npairs - tied))
+        assert trend._inversions(x[None, :])[0] == round((npairs - tied - s) / 2)
+
+
 def test_inversion_count_against_kendalltau():
     # a permutation longer than 2**15 exercises the wide position sums
     rng = np.random.default_rng(13)

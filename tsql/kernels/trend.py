@@ -6,33 +6,38 @@ Time is the 0-based position of an element in its list, so a missing element
 One compiled pass per row does the work, in O(n log n) time for typical rows:
 
 * S from one stable merge sort of the values that counts the pairs out of
-  order (Knight [4]_); the tie groups for the variance are runs of the sorted
-  values.
+  order (Knight [4]_), each merge run from both ends at once; the tie groups
+  for the variance are runs of the sorted values.
 * Sen's slope by slope selection by counting: the number of pairwise slopes
   not above ``theta`` is the number of inversions of ``x_t - theta * t`` read
   in time order.  The counts at ``theta = 0`` are exact from the Mann–Kendall
   sort and settle a median of exactly 0 outright.  A fixed sample of pair
   slopes (a seeded splitmix64 stream: the same pairs for every row of a
-  length) estimates the count at any slope, the idea of sampling and then
-  counting of Matoušek [5]_ and Dillencourt, Mount and Netanyahu [6]_: the
-  sampled median is counted first, then a sampled slope just beyond the
-  middle ranks on the other side, then points where linear interpolation of
-  the counts puts the middle ranks; once those two points should hold at most
-  about ``2n`` slopes, the slopes between them are listed outright (the last
-  step below, from there), and only when the middle ranks are not among them
-  are the two points counted and the bracket narrowed on.  The sampled pairs
-  are drawn once per row length.  A count near a bracket end whose order is kept is an insertion
-  sort from that order, in O(n + the slopes between); a count farther away a
-  merge sort.  Last, an insertion sort carries the order at the lower end of
-  the bracket to the order at the upper end: its exchanges are exactly the
-  pairs whose slope lies between, and the middle ones are selected from
-  those.  A rounding margin makes the counts exact in floating point (see
-  ``_final``), so the answer equals the median of the slopes as
-  ``scipy.stats.theilslopes`` computes them.  Only when more than
-  ``_K_FINAL`` slopes lie within rounding distance of the median (a long
-  series on a straight line, say) is the answer one of those slopes instead,
-  exact when they are tied exactly.  The sample only decides where to count:
-  the answer never depends on it otherwise.
+  length, drawn once per row length) estimates the count at any slope, the
+  idea of sampling and then counting of Matoušek [5]_ and Dillencourt, Mount
+  and Netanyahu [6]_.  Anchored at the exact counts at 0 (the sampled slopes
+  between 0 and a point estimate the count there, so the error shrinks with
+  that distance), it aims the first count at the middle ranks; then secant
+  steps through the last two exact counts (the count grows smoothly with
+  ``theta`` over many slopes: each step cuts the error to a few per cent)
+  until the middle ranks should lie within a few dozen slopes, and the
+  slopes of that window are listed outright (the last step below, from
+  there).  A count near an order already sorted is an insertion sort from
+  it, in O(n + the slopes between); a count farther away a merge sort.
+  Should the steps not settle (many tied slopes, a cluster within rounding
+  distance), a bracket is narrowed from the start instead: the sampled
+  median, a sampled slope just beyond the middle ranks on the other side,
+  then points where linear interpolation of the counts puts the middle
+  ranks, until the two ends hold about ``2n`` slopes.  Last, an insertion
+  sort carries the order at the lower end of a window to the order at its
+  upper end: its exchanges are exactly the pairs whose slope lies between,
+  and the middle ones are selected from those.  A rounding margin makes the
+  counts exact in floating point (see ``_final``), so the answer equals the
+  median of the slopes as ``scipy.stats.theilslopes`` computes them.  Only
+  when more than ``_K_FINAL`` slopes lie within rounding distance of the
+  median (a long series on a straight line, say) is the answer one of those
+  slopes instead, exact when they are tied exactly.  The sample only decides
+  where to count: the answer never depends on it otherwise.
 
 Rows with at most ``PAIRWISE_MAX`` present values list all their slopes.
 
@@ -74,9 +79,11 @@ _EPS = 2.0**-53  # unit roundoff of float64
 _TINY = 1e-300
 _K_FINAL = 4_000_000  # most slopes a single row may list in its final step
 _MAX_ROUNDS = 200
-_RUN = 16  # runs sorted by insertion before merging
+_FIRST_SAMPLE = 256  # sampled slopes that aim the first count
+_RUN = 4  # runs sorted by insertion before merging
 _PIECE = 1 << 20  # present values per compiled call; a checkpoint between calls
 _SPECULATE = 2  # a round lists its window outright when it should hold at most this many slopes per value
+_SECANT = 30  # most secant steps before the bracketing rounds
 
 
 # --------------------------------------------------------------------------- #
@@ -87,7 +94,9 @@ _SPECULATE = 2  # a round lists its window outright when it should hold at most 
 @njit(cache=True, nogil=True)
 def _sort_count(key, idx, work_key, work_idx):
     """Stable merge sort of ``key`` carrying ``idx``, in place; returns the
-    number of pairs ``p < q`` with ``key[p] > key[q]`` (Knight 1966)."""
+    number of pairs ``p < q`` with ``key[p] > key[q]`` (Knight 1966).  A
+    merge of two runs of one length fills the front and the back at once:
+    two chains of work that do not wait on each other."""
     n = len(key)
     inv = 0
     for s in range(0, n, _RUN):
@@ -105,8 +114,26 @@ def _sort_count(key, idx, work_key, work_idx):
     while width < n:
         for s in range(0, n, 2 * width):
             mid, end = min(s + width, n), min(s + 2 * width, n)
+            if end - mid == width:  # runs of one length: from both ends at once, two chains apart
+                a, b, o, a2, b2, o2 = s, mid, s, mid - 1, end - 1, end - 1
+                for _ in range(width):  # neither end runs out: each side takes half
+                    right = np.int64(src_k[b] < src_k[a])  # no branches on the data
+                    src = a + right * (b - a)
+                    dst_k[o], dst_i[o] = src_k[src], src_i[src]
+                    inv += right * (mid - a)
+                    a += 1 - right
+                    b += right
+                    o += 1
+                    left = np.int64(src_k[a2] > src_k[b2])
+                    src = b2 + left * (a2 - b2)
+                    dst_k[o2], dst_i[o2] = src_k[src], src_i[src]
+                    inv += (1 - left) * (mid - 1 - a2)  # the right one passes the left ones after a2
+                    a2 -= left
+                    b2 -= 1 - left
+                    o2 -= 1
+                continue
             a, b, o = s, mid, s
-            while a < mid and b < end:  # without branches on the data: arithmetic on the comparison
+            while a < mid and b < end:
                 right = np.int64(src_k[b] < src_k[a])
                 src = a + right * (b - a)
                 dst_k[o], dst_i[o] = src_k[src], src_i[src]
@@ -228,10 +255,28 @@ def _delta(umax, tmax, theta_abs):
 
 
 @njit(cache=True, nogil=True)
+def _recount(theta, u, tau, idx, key, count):
+    """Sort the order ``idx`` (inversion count ``count``) by ``u - theta * tau``
+    by insertion, in O(n + exchanges); returns the new inversion count."""
+    n = len(idx)
+    for p in range(n):
+        key[p] = u[idx[p]] - theta * tau[idx[p]]
+    for p in range(1, n):
+        k, e, q = key[p], idx[p], p
+        while q > 0 and key[q - 1] > k:
+            f = idx[q - 1]
+            key[q], idx[q] = key[q - 1], f
+            q -= 1
+            count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
+        key[q], idx[q] = k, e
+    return count
+
+
+@njit(cache=True, nogil=True)
 def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
     """Sort the order ``idx`` (inversion count ``count``) by ``u - theta * tau``
-    by insertion, in O(n + exchanges); returns the new inversion count and,
-    when ``r_lo < r_hi``, per exchanged pair (each pair whose order changes,
+    by insertion, in O(n + exchanges), as ``_recount``; returns the new
+    inversion count and, per exchanged pair (each pair whose order changes,
     once): how many were inverted before, how many have a slope <= ``r_lo``
     and the slopes in ``(r_lo, r_hi]`` (as theilslopes computes them)."""
     n = len(idx)
@@ -239,8 +284,7 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
         key[p] = u[idx[p]] - theta * tau[idx[p]]
     only_before = 0
     below = 0
-    listing = r_lo < r_hi
-    found = np.empty(256 if listing else 0)
+    found = np.empty(256)
     nfound = 0
     for p in range(1, n):
         k, e, q = key[p], idx[p], p
@@ -249,19 +293,18 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
             key[q], idx[q] = key[q - 1], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
-            if listing:
-                i, j = min(e, f), max(e, f)
-                only_before += f > e
-                sl = (x[j] - x[i]) / (t[j] - t[i])
-                if sl <= r_lo:
-                    below += 1
-                elif sl <= r_hi:
-                    if nfound == len(found):
-                        grown = np.empty(2 * len(found))
-                        grown[:nfound] = found
-                        found = grown
-                    found[nfound] = sl
-                    nfound += 1
+            i, j = min(e, f), max(e, f)
+            only_before += f > e
+            sl = (x[j] - x[i]) / (t[j] - t[i])
+            if sl <= r_lo:
+                below += 1
+            elif sl <= r_hi:
+                if nfound == len(found):
+                    grown = np.empty(2 * len(found))
+                    grown[:nfound] = found
+                    found = grown
+                found[nfound] = sl
+                nfound += 1
         key[q], idx[q] = k, e
     return count, only_before, below, found, nfound
 
@@ -280,8 +323,33 @@ def _all_pairs(x, t, buf):
     return (lower + upper) / 2 if c % 2 == 0 else lower
 
 
+@njit(cache=True, nogil=True)
+def _start(x, span, disc, ties, order0, k1, k2, br, bc, order_lo, order_hi):
+    """The first bracket: 0 and its order (from ``order0``) on the side the
+    middle ranks are not, else the far ends; every slope lies in
+    [-span, span], and far outside the order is time order."""
+    n = len(x)
+    br[0], br[1], bc[0], bc[1] = -(2 * span + 1), 2 * span + 1, 0, n * (n - 1) // 2
+    for p in range(n):
+        order_lo[p] = p
+        order_hi[p] = n - 1 - p
+    if disc + ties < k1:  # the order at 0 with ties reversed: slopes <= 0 inverted
+        br[0], bc[0] = 0.0, disc + ties
+        a = 0
+        while a < n:
+            b = a
+            while b + 1 < n and x[order0[b + 1]] == x[order0[a]]:
+                b += 1
+            for p in range(b - a + 1):
+                order_lo[a + p] = order0[b - p]
+            a = b + 1
+    elif disc >= k2:
+        br[1], bc[1] = 0.0, disc
+        order_hi[:] = order0
+
+
 @njit(cache=True, nogil=True, inline="always")  # one call site: no library of its own
-def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs):
+def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_buf, pairs):
     """Exact median pairwise slope of one row by counting and selection.
 
     ``disc`` and ``disc + ties`` are the exact numbers of slopes < 0 and
@@ -290,11 +358,14 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
     (see ``_rows``).  Returns the slope, or NaN when
     the exact selection failed (which the rounding margin rules out).
 
-    The bracket ``(lo, hi]`` holds the two middle ranks: the count of slopes
-    at ``lo`` is below ``k1``, the one at ``hi`` at least ``k2``, each within
-    the rounding margin of exact.  The sorted orders at both ends are kept: a
-    count at a point near one of them is an insertion sort from it, in time
-    O(n + the slopes between), a count farther away a merge sort.
+    First secant steps on exact counts aimed by the sample (at most
+    ``secant``; see the module docstring); failing those, bracketing rounds
+    from the start.  The bracket ``(lo, hi]`` holds the two middle ranks: the
+    count of slopes at ``lo`` is below ``k1``, the one at ``hi`` at least
+    ``k2``, each within the rounding margin of exact.  The sorted orders at
+    both ends are kept: a count at a point near one of them is an insertion
+    sort from it, in time O(n + the slopes between), a count farther away a
+    merge sort.
     """
     n = len(x)
     N = n * (n - 1) // 2
@@ -312,37 +383,65 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, fw, iw, sample_buf, pairs
         tau[p] = t[p] - t0
         umax = max(umax, abs(u[p]))
         tmax = max(tmax, abs(tau[p]))
-    # every slope lies in [-span, span]; far outside, the order is time order
-    span = xmax - xmin
-    lo, hi = -(2 * span + 1), 2 * span + 1
-    clo, chi = 0, N
-    for p in range(n):
-        order_lo[p] = p
-        order_hi[p] = n - 1 - p
-    if disc + ties < k1:  # the order at 0 with ties reversed: slopes <= 0 inverted
-        lo, clo = 0.0, disc + ties
-        a = 0
-        while a < n:
-            b = a
-            while b + 1 < n and x[order0[b + 1]] == x[order0[a]]:
-                b += 1
-            for p in range(b - a + 1):
-                order_lo[a + p] = order0[b - p]
-            a = b + 1
-    elif disc >= k2:
-        hi, chi = 0.0, disc
-        order_hi[:] = order0
     br, bc = np.empty(2), np.empty(2, dtype=np.int64)  # the bracket's ends and their counts
-    br[0], br[1], bc[0], bc[1] = lo, hi, clo, chi
+    _start(x, xmax - xmin, disc, ties, order0, k1, k2, br, bc, order_lo, order_hi)
     # a fixed sample of pair slopes estimates the count at any slope
     sample = sample_buf[: len(pairs)]
     s = len(sample)
-    for q in range(s):
+    s1 = min(s, _FIRST_SAMPLE)  # the secant steps need only a first part of it
+    for q in range(s1):
         i, j = pairs[q, 0], pairs[q, 1]
         sample[q] = (x[j] - x[i]) / (t[j] - t[i])
-    # first the sampled median, then a sampled slope beyond the middle ranks
-    # on the other side, by the sample's error at that distance, doubled
-    # each time it falls short
+    # the exact counts at 0 anchor the sample: the sampled slopes between 0
+    # and a point estimate the count there; then secant steps through the
+    # last two exact counts, until a narrow window about the middle ranks
+    # can be listed outright
+    below0, upto0 = 0, 0
+    for q in range(s1):
+        below0 += sample[q] < 0.0
+        upto0 += sample[q] <= 0.0
+    target = 0.5 * (k1 + k2)
+    if disc >= k2:  # the count at 0 is the order0's, ties not inverted
+        theta_a, count_a = 0.0, float(disc)
+        rank = below0 + (target - disc) * s1 / N
+    else:
+        theta_a, count_a = 0.0, float(disc + ties)
+        rank = upto0 + (target - disc - ties) * s1 / N
+    theta = _select(sample[:s1], min(s1 - 1, max(0, int(rank))))
+    if not (br[0] < theta < br[1]):
+        theta = br[0] + (br[1] - br[0]) * ((target - bc[0]) / (bc[1] - bc[0]))
+    theta_b, count_b = theta, float(_probe(theta, target, br, bc, k1, k2, x, t, fw, iw))
+    best, stuck = np.inf, 0
+    for _ in range(secant):
+        e = abs(count_b - target)
+        stuck = 0 if e < best / 1.5 else stuck + 1
+        if stuck == 2 or count_b == count_a:  # not converging: the rounds below
+            break
+        best = min(best, e)
+        g = (theta_b - theta_a) / (count_b - count_a)
+        if e <= n / 4 and g > 0:  # list the window where the secant puts the middle ranks
+            h = 0.5 * e + 16 + 0.5 * (k2 - k1)
+            p1, p2 = max(br[0], theta_b + (target - h - count_b) * g), min(br[1], theta_b + (target + h - count_b) * g)
+            got = np.nan
+            if count_b < target and theta_b < p2:  # from the last count's order straight on
+                got = _listed(x, t, u, tau, umax, tmax, theta_b, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
+            elif p1 < p2:
+                got = _final(x, t, u, tau, umax, tmax, p1, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
+            if not np.isnan(got):
+                return got
+            break
+        theta = theta_b + (target - count_b) * g
+        if not (br[0] < theta < br[1]):
+            break
+        theta_a, count_a = theta_b, count_b
+        theta_b, count_b = theta, float(_probe(theta, target, br, bc, k1, k2, x, t, fw, iw))
+    # not settled so: from the first bracket again, the sampled median, then
+    # a sampled slope beyond the middle ranks on the other side, by the
+    # sample's error at that distance, doubled each time it falls short
+    _start(x, xmax - xmin, disc, ties, order0, k1, k2, br, bc, order_lo, order_hi)
+    for q in range(s1, s):
+        i, j = pairs[q, 0], pairs[q, 1]
+        sample[q] = (x[j] - x[i]) / (t[j] - t[i])
     rank = min(s - 1, int(s * (k1 - 0.5) / N))
     theta = _select(sample, rank)
     c = _probe(theta, float(k1), br, bc, k1, k2, x, t, fw, iw)
@@ -420,7 +519,7 @@ def _probe(theta, expect, br, bc, k1, k2, x, t, fw, iw):
     if min(from_lo, from_hi) <= 24 * n + 256:
         lower = from_lo <= from_hi
         idx[:] = order_lo if lower else order_hi
-        c, _, _, _, _ = _resort(theta, u, tau, idx, key, bc[0] if lower else bc[1], x, t, np.inf, -np.inf)
+        c = _recount(theta, u, tau, idx, key, bc[0] if lower else bc[1])
     else:
         for p in range(n):
             key[p] = u[p] - theta * tau[p]
@@ -450,9 +549,17 @@ def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
     """
     d0 = _delta(umax, tmax, max(abs(lo), abs(hi)))
     a, b = lo - 3 * d0, hi + 3 * d0
+    count_a = _recount(a, u, tau, order_lo, key, clo)
+    return _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_lo, key)
+
+
+@njit(cache=True, nogil=True)
+def _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_a, key):
+    """The middle slopes from those exchanged on the way from ``a`` to ``b``
+    (``order_a`` sorted at ``a``, its inversion count ``count_a``), or NaN
+    when they are not among them (see ``_final``)."""
     d = _delta(umax, tmax, max(abs(a), abs(b)))
-    count_a, _, _, _, _ = _resort(a, u, tau, order_lo, key, clo, x, t, np.inf, -np.inf)
-    _, only_a, below, found, nr = _resort(b, u, tau, order_lo, key, count_a, x, t, a + d, b - d)
+    _, only_a, below, found, nr = _resort(b, u, tau, order_a, key, count_a, x, t, a + d, b - d)
     base = count_a - only_a + below
     l1, l2 = k1 - base, k2 - base  # 1-based ranks inside R
     if l1 < 1 or l2 > nr:
@@ -462,7 +569,7 @@ def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
 
 
 @njit(cache=True, nogil=True)
-def _rows(values, offsets, rows, pairwise_max, k_final, speculate, counts, S, t2, t3, slope):
+def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, counts, S, t2, t3, slope):
     """Mann–Kendall S, tie sums and Sen's slope for ``rows`` of the flat
     ``values`` (row ``r`` is ``values[offsets[r] : offsets[r + 1]]``; NaN is
     missing).  ``counts`` gets each row's number of present values, or -1
@@ -518,7 +625,9 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, counts, S, t2
         order0[:n] = iv
         if n != pairs_of:
             pairs_of, npairs_sampled = n, _sample_pairs(n, pairs)
-        slope[r] = _sen(x, t, disc, tie2, order0[:n], k_final, speculate, fw, iw, sample, pairs[:npairs_sampled])
+        slope[r] = _sen(
+            x, t, disc, tie2, order0[:n], k_final, speculate, secant, fw, iw, sample, pairs[:npairs_sampled]
+        )
     return 0
 
 
@@ -610,6 +719,7 @@ def trend_test(batch: Ragged) -> dict[str, np.ndarray]:
             int(PAIRWISE_MAX),
             int(_K_FINAL),
             int(_SPECULATE),
+            int(_SECANT),
             counts,
             S,
             t2,
