@@ -692,34 +692,55 @@ def _rounding_scale(code, stats, m) -> float:
 
 
 @njit(cache=True, error_model="numpy")
-def _log_variance_range(g) -> tuple[float, float]:
-    """Outer bounds on the two roots of ``u + exp(-u) = 1 + g``, ``g >= 0``.
+def _log_variance_range(g, below, above) -> tuple[float, float]:
+    """Outer bounds on the two roots of ``u + exp(-u) = 1 + g``, ``g >= 0``, where they may
+    be tighter than ``[below, above]`` (else infinite: nothing to cut on that side).
 
     ``f(u) = u + exp(-u) - 1 - g`` is convex with least value ``-g`` at 0, so Newton's
-    steps from a point outside a root (``f >= 0``) stay outside it. Starts: on the left
-    ``max(-sqrt(2 g), -log(1 + g) - 1)`` (there ``exp(-u) >= 1 - u + u^2/2``, and
-    ``exp(-u) >= e (1 + g)``); on the right ``r (1 + r)`` with ``r = sqrt(2 g)`` for
-    ``g <= 1/4`` (``exp(-u) >= 1 - u + u^2/2 - u^3/6``), else ``1 + g``. Every iterate is
-    a bound; the last is widened for rounding.
+    steps from a point outside a root (``f >= 0``) stay outside it, each nearer than the
+    last. Starts: on the left ``max(-sqrt(2 g), -log(1 + g) - 1)`` (there
+    ``exp(-u) >= 1 - u + u^2/2``, and ``exp(-u) >= e (1 + g)``), or ``below`` if nearer;
+    on the right ``r (1 + r)`` with ``r = sqrt(2 g)`` for ``g <= 1/4``
+    (``exp(-u) >= 1 - u + u^2/2 - u^3/6``), else ``1 + g``, or ``above`` if nearer. A
+    side whose start is inside the roots (``f <= 0``: ``below >= 0`` or ``above <= 0``
+    at once) stops there. Every iterate is a bound; the last is widened for rounding.
     """
     if not g > 0.0:
         return -1e-12, 1e-12
     r = math.sqrt(2.0 * g)
-    hi = r * (1.0 + r) if g <= 0.25 else 1.0 + g
-    lo = max(-r, -math.log1p(g) - 1.0)
-    for _ in range(3):
-        hi -= max((hi + math.expm1(-hi) - g) / -math.expm1(-hi), 0.0)
-        lo -= min((lo + math.expm1(-lo) - g) / -math.expm1(-lo), 0.0)
-    return lo - (_BOX_SLACK * (1.0 - lo) + 1e-12), hi + (_BOX_SLACK * (1.0 + hi) + 1e-12)
+    lo = -np.inf
+    if below < 0.0:
+        u = max(max(-r, -math.log1p(g) - 1.0), below)
+        for _ in range(3):
+            e = math.expm1(-u)
+            f = u + e - g
+            if not f > 0.0:
+                break
+            u += f / e
+        if u > below:
+            lo = u - (_BOX_SLACK * (1.0 - u) + 1e-12)
+    hi = np.inf
+    if above > 0.0:
+        u = min(r * (1.0 + r) if g <= 0.25 else 1.0 + g, above)
+        for _ in range(3):
+            e = math.expm1(-u)
+            f = u + e - g
+            if not f > 0.0:
+                break
+            u += f / e
+        if u < above:
+            hi = u + (_BOX_SLACK * (1.0 + u) + 1e-12)
+    return lo, hi
 
 
 @njit(cache=True, error_model="numpy")
-def _meanvar_fit(length, s1, s2) -> tuple[float, float, float]:
-    """Mean, variance + floor and cost ``L log(var + floor)`` of a segment, as :func:`_cost_meanvar` computes them."""
+def _meanvar_fit(length, s1, s2) -> tuple[float, float, float, float]:
+    """Mean, variance + floor, its log and cost ``L log(var + floor)`` of a segment (as :func:`_cost_meanvar`)."""
     inv = 1.0 / length
     mean = s1 * inv
     v = max(s2 * inv - mean * mean, 0.0) + VARIANCE_FLOOR
-    return mean, v, length * math.log(v)
+    log_v = math.log(v)
+    return mean, v, log_v, length * log_v
 
 
 @njit(cache=True, error_model="numpy")
@@ -853,31 +874,32 @@ def _trend_ellipse(length, p_mean, z_mean, slope, spread, x0) -> tuple[float, fl
 
 
 @njit(cache=True, error_model="numpy")
-def _clip_meanvar(box, j, mean, v, g) -> bool:
+def _clip_meanvar(box, j, mean, v, log_v, g) -> bool:
     """Box ``j`` (mean, log variance) shrunk to the bounding box of its meet with ``R``; False if empty.
 
     ``R``: ``u + (1 + d^2 / V) e^-u <= 1 + g`` with ``d = mu - mean``, ``u = w - log V``.
     Over the box's means (``|d| >= d_min``) ``w`` lies within ``log V + log k`` plus the
-    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_range`); over
-    its log variances ``d^2 <= V (e^u (1 + g - u) - 1)``, unimodal in ``u``, peak at ``g``.
+    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_range`, only
+    where they cut the box); then over the log variances left ``d^2 <= V (e^u (1 + g - u) - 1)``,
+    unimodal in ``u``, peak at ``g``.
     """
     lo0 = box[0, j]
     hi0 = box[1, j]
     d_min = lo0 - mean if lo0 > mean else (mean - hi0 if hi0 < mean else 0.0)
-    shift = math.log1p(d_min * d_min / v)
+    shift = math.log1p(d_min * d_min / v) if d_min > 0.0 else 0.0
     if not g - shift >= 0.0:
         return False
-    u_lo, u_hi = _log_variance_range(g - shift)
-    log_v = math.log(v)
+    centre = log_v + shift
+    u_lo, u_hi = _log_variance_range(g - shift, box[2, j] - centre, box[3, j] - centre)
     pad = _BOX_SLACK * abs(log_v)
+    if not _clip_interval(box, j, 2, centre + u_lo - pad, centre + u_hi + pad):
+        return False
     u = min(max(g, box[2, j] - log_v), box[3, j] - log_v)
     room = math.expm1(u) + math.exp(u) * (g - u)
     if not room >= 0.0:
         return False
     half = (1.0 + _BOX_SLACK) * math.sqrt(v * room) + _BOX_SLACK * abs(mean)
-    return _clip_interval(box, j, 0, mean - half, mean + half) and _clip_interval(
-        box, j, 2, log_v + shift + u_lo - pad, log_v + shift + u_hi + pad
-    )
+    return _clip_interval(box, j, 0, mean - half, mean + half)
 
 
 @njit(cache=True, error_model="numpy")
@@ -932,11 +954,11 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
         box[8, k] = a01
         box[9, k] = a11
     else:
-        mean, v, cost = _meanvar_fit(length, stats[0, s] - stats[0, e], stats[1, s] - stats[1, e])
+        mean, v, log_v, cost = _meanvar_fit(length, stats[0, s] - stats[0, e], stats[1, s] - stats[1, e])
         box[5, k] = mean
         box[6, k] = v
         box[7, k] = length
-        box[8, k] = math.log(v)
+        box[8, k] = log_v
     box[10, k] = F[s] - F[e] - cost - (_PRUNE_MARGIN * (2.0 + abs(F[s]) + abs(F[e])) + rounding)
 
 
@@ -998,7 +1020,7 @@ def _narrow_box(
             p_mean, z_mean, slope, spread, cost = _trend_fit(length, st, stt, dx, a3 - c3[j], stx)
             p_mean += x0_c
         else:
-            z_mean, v, cost = _meanvar_fit(length, a0 - c0[j], a1 - c1[j])
+            z_mean, v, log_v, cost = _meanvar_fit(length, a0 - c0[j], a1 - c1[j])
         gap = f_c - fs - cost
         room = gap + margin
         if not room >= 0.0:
@@ -1010,7 +1032,7 @@ def _narrow_box(
             half = (1.0 + _BOX_SLACK) * math.sqrt(room) + _BOX_SLACK * abs(z_mean)
             live = _clip_interval(box, j, 0, z_mean - half, z_mean + half)
         else:
-            live = _clip_meanvar(box, j, z_mean, v, room / length)
+            live = _clip_meanvar(box, j, z_mean, v, log_v, room / length)
         s = int(starts[j])
         for pick in range(_EXCLUSIONS):
             if not live:
@@ -1047,8 +1069,8 @@ def _narrow_box(
                 e0, e1, e00, e01, e11 = _trend_ellipse(e_len, p_mean, z_mean, slope, spread, 0.0)
                 live = not _cut_ellipse(box, j, e0, e1, e00, e01, e11, r - cost)
             else:
-                mean, v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
-                live = not _cut_meanvar(box, j, mean, v, math.log(v), e_len, r - cost)
+                mean, v, log_v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
+                live = not _cut_meanvar(box, j, mean, v, log_v, e_len, r - cost)
         if not live:
             f_start[j] = np.inf
             retired += 1
