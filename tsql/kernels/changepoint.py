@@ -753,9 +753,10 @@ def _trend_fit(length, dt, dtt, dx, dxx, dtx) -> tuple[float, float, float, floa
     tt = length * dtt - dt * dt
     tx = length * dtx - dt * dx
     xx = length * dxx - dx * dx
+    inv = 1.0 / length
     if tt > 0.0:
-        return dt / length, dx / length, tx / tt, tt / length, max((xx * tt - tx * tx) / (tt * length), 0.0)
-    return dt / length, dx / length, 0.0, 0.0, 0.0
+        return dt * inv, dx * inv, tx / tt, tt * inv, max((xx * tt - tx * tx) / (tt * length), 0.0)
+    return dt * inv, dx * inv, 0.0, 0.0, 0.0
 
 
 @njit(cache=True, error_model="numpy")
@@ -797,26 +798,34 @@ def _clip_ellipse(box, j, c0, c1, a00, a01, a11, r) -> bool:
     lo1 = box[2, j]
     hi1 = box[3, j]
     widen = 1.0 + _BOX_SLACK
-    reach = widen * math.sqrt(r * a00 / det)
+    # three divisions, the rest products (rounding: a few ulps, well inside the slack)
+    q = r / det
+    i00 = 1.0 / a00
+    i11 = 1.0 / a11
+    reach = widen * math.sqrt(q * a00)
     d_lo = max(lo1 - c1, -reach)
     d_hi = min(hi1 - c1, reach)
     if d_lo > d_hi:
         return False
-    turn = a01 * math.sqrt(r / (a11 * det))
+    tilt = a01 * i00
+    squeeze = det * i00
+    turn = a01 * math.sqrt(q * i11)
     d = min(max(turn, d_lo), d_hi)
-    new_lo0 = c0 - a01 / a00 * d - widen * math.sqrt(max(r - det / a00 * d * d, 0.0) / a00)
+    new_lo0 = c0 - tilt * d - widen * math.sqrt(max(r - squeeze * d * d, 0.0) * i00)
     d = min(max(-turn, d_lo), d_hi)
-    new_hi0 = c0 - a01 / a00 * d + widen * math.sqrt(max(r - det / a00 * d * d, 0.0) / a00)
-    reach = widen * math.sqrt(r * a11 / det)
+    new_hi0 = c0 - tilt * d + widen * math.sqrt(max(r - squeeze * d * d, 0.0) * i00)
+    reach = widen * math.sqrt(q * a11)
     d_lo = max(lo0 - c0, -reach)
     d_hi = min(hi0 - c0, reach)
     if d_lo > d_hi:
         return False
-    turn = a01 * math.sqrt(r / (a00 * det))
+    tilt = a01 * i11
+    squeeze = det * i11
+    turn = a01 * math.sqrt(q * i00)
     d = min(max(turn, d_lo), d_hi)
-    new_lo1 = c1 - a01 / a11 * d - widen * math.sqrt(max(r - det / a11 * d * d, 0.0) / a11)
+    new_lo1 = c1 - tilt * d - widen * math.sqrt(max(r - squeeze * d * d, 0.0) * i11)
     d = min(max(-turn, d_lo), d_hi)
-    new_hi1 = c1 - a01 / a11 * d + widen * math.sqrt(max(r - det / a11 * d * d, 0.0) / a11)
+    new_hi1 = c1 - tilt * d + widen * math.sqrt(max(r - squeeze * d * d, 0.0) * i11)
     pad0 = _BOX_SLACK * (abs(new_lo0) + abs(new_hi0))
     pad1 = _BOX_SLACK * (abs(new_lo1) + abs(new_hi1))
     return _clip_interval(box, j, 0, new_lo0 - pad0, new_hi0 + pad0) and _clip_interval(
@@ -835,27 +844,33 @@ def _cut_ellipse(box, j, c0, c1, a00, a01, a11, r) -> bool:
     if not (r > 0.0 and det > 0.0):
         return False
     shrink = 1.0 - _BOX_SLACK
+    i00 = 1.0 / a00
     d_a = box[2, j] - c1
     d_b = box[3, j] - c1
-    h_a = r - det / a00 * d_a * d_a
-    h_b = r - det / a00 * d_b * d_b
+    squeeze = det * i00
+    h_a = r - squeeze * d_a * d_a
+    h_b = r - squeeze * d_b * d_b
     if h_a > 0.0 and h_b > 0.0:
-        h_a = shrink * math.sqrt(h_a / a00)
-        h_b = shrink * math.sqrt(h_b / a00)
-        m_a = c0 - a01 / a00 * d_a
-        m_b = c0 - a01 / a00 * d_b
+        h_a = shrink * math.sqrt(h_a * i00)
+        h_b = shrink * math.sqrt(h_b * i00)
+        tilt = a01 * i00
+        m_a = c0 - tilt * d_a
+        m_b = c0 - tilt * d_b
         pad = _BOX_SLACK * (abs(m_a) + abs(m_b))
         if _cut_interval(box, j, 0, max(m_a - h_a, m_b - h_b) + pad, min(m_a + h_a, m_b + h_b) - pad):
             return True
+    i11 = 1.0 / a11
     d_a = box[0, j] - c0
     d_b = box[1, j] - c0
-    h_a = r - det / a11 * d_a * d_a
-    h_b = r - det / a11 * d_b * d_b
+    squeeze = det * i11
+    h_a = r - squeeze * d_a * d_a
+    h_b = r - squeeze * d_b * d_b
     if h_a > 0.0 and h_b > 0.0:
-        h_a = shrink * math.sqrt(h_a / a11)
-        h_b = shrink * math.sqrt(h_b / a11)
-        m_a = c1 - a01 / a11 * d_a
-        m_b = c1 - a01 / a11 * d_b
+        h_a = shrink * math.sqrt(h_a * i11)
+        h_b = shrink * math.sqrt(h_b * i11)
+        tilt = a01 * i11
+        m_a = c1 - tilt * d_a
+        m_b = c1 - tilt * d_b
         pad = _BOX_SLACK * (abs(m_a) + abs(m_b))
         return _cut_interval(box, j, 2, max(m_a - h_a, m_b - h_b) + pad, min(m_a + h_a, m_b + h_b) - pad)
     return False
