@@ -522,6 +522,9 @@ _NEAR_GROWTH = 2
 _YOUNG = 64
 _SWEEP_EVERY = 32
 
+#: 'meanvar' pruning: a log variance this far above a fit's leaves its means uncut (``exp`` overflows near 709)
+_EXP_RANGE = 700.0
+
 #: geometric functional pruning ('meanvar', 'trend') widens its boxes by this share, for
 #: rounding in their own arithmetic
 _BOX_SLACK = 1e-9
@@ -910,7 +913,8 @@ def _clip_meanvar(box, j, mean, v, log_v, g) -> bool:
     if not _clip_interval(box, j, 2, centre + u_lo - pad, centre + u_hi + pad):
         return False
     u = min(max(g, box[2, j] - log_v), box[3, j] - log_v)
-    room = math.expm1(u) + math.exp(u) * (g - u)
+    # beyond exp's range (a penalty far above the data's costs) the means are left as they are
+    room = math.expm1(u) + math.exp(u) * (g - u) if u < _EXP_RANGE else np.inf
     if not room >= 0.0:
         return False
     half = (1.0 + _BOX_SLACK) * math.sqrt(v * room) + _BOX_SLACK * abs(mean)
@@ -930,6 +934,8 @@ def _cut_meanvar(box, j, mean, v, log_v, length, room) -> bool:
     g = room / length
     u_a = box[2, j] - log_v
     u_b = box[3, j] - log_v
+    if not max(u_a, u_b) < _EXP_RANGE:
+        return False
     h = min(math.exp(u_a) * (1.0 + g - u_a), math.exp(u_b) * (1.0 + g - u_b)) - 1.0
     # below that the cut is too thin to be worth its rounding
     if not h > 1e-6:
