@@ -4,6 +4,7 @@
                                      [--calm 100000] [--calm-long 300000,1000000] [--old-repeat 3]
                                      [--parts 1,2,3,4,5,6] [--profile-rows 2000] [--profile-points 1000]
                                      [--search-rows 300]
+                                     [--against FILE --against-lengths 100000,300000,1000000]
 
 1. One series of ``--n`` points, model 'mean', BIC penalty: tsql's change_points against
    ``ruptures.Pelt(model="l2", min_size=2, jump=1).fit(x).predict(pen=beta * sigma^2)`` (ruptures'
@@ -29,6 +30,10 @@
    PELT on the same sums, in turns (same answer checked), microseconds per row and nanoseconds per
    step; the starts FPOP costs per step (counted on a few rows by the search's Python form); and
    the whole segmentation per row (``seasonal='none'``) for scale.
+7. With ``--against FILE`` (a copy of ``tsql/kernels/changepoint.py`` from another revision, e.g.
+   ``git show main:tsql/kernels/changepoint.py > FILE``): 'meanvar' and 'trend' on part 4's series at
+   each ``--against-lengths`` length, that copy's change_points against this one's in turns (same
+   answer checked), CPU seconds of this process, medians.
 
 All figures are medians of wall-clock times measured in this one run.
 """
@@ -36,8 +41,10 @@ All figures are medians of wall-clock times measured in this one run.
 from __future__ import annotations
 
 import argparse
+import importlib.util
 import math
 import statistics
+import sys
 import time
 
 import numpy as np
@@ -180,6 +187,33 @@ def calm(n: int, longer: list[int], repeat: int, old_repeat: int) -> None:
             )
 
 
+def against(path: str, lengths: list[int], repeat: int) -> None:
+    spec = importlib.util.spec_from_file_location("changepoint_against", path)
+    other = importlib.util.module_from_spec(spec)
+    sys.modules[spec.name] = other  # its dataclasses look their module up
+    spec.loader.exec_module(other)
+    print(f"7. 'meanvar' and 'trend', one level shift (1 sigma) in the middle, BIC: {path} against this tree")
+    for n in lengths:
+        rng = np.random.default_rng(1)
+        batch = Ragged.from_list([rng.standard_normal(n) + 1.0 * (np.arange(n) >= n // 2)])
+        for model in ("meanvar", "trend"):
+            for module in (other, changepoint):  # compile or load before timing
+                module.change_points(Ragged.from_list([np.arange(50.0) % 7]), model)
+            cpu = {"other": [], "this": []}
+            answers = {}
+            for _ in range(repeat):
+                for name, module in (("other", other), ("this", changepoint)):
+                    start = time.process_time()
+                    answers[name] = module.change_points(batch, model).values
+                    cpu[name].append(time.process_time() - start)
+            same = np.array_equal(answers["other"], answers["this"])
+            before, after = statistics.median(cpu["other"]), statistics.median(cpu["this"])
+            print(
+                f"   '{model}' {n:>10,} points   other {before:7.3f} s   this {after:7.3f} s   "
+                f"ratio {before / after:5.2f}   same answer {same}"
+            )
+
+
 def profile(rows: int, points: int, repeat: int) -> None:
     from benchmarks.data import seasonal
 
@@ -280,6 +314,8 @@ def main() -> None:
     parser.add_argument("--calm-long", default="300000,1000000", help="longer lengths for part 4, pruning only")
     parser.add_argument("--old-repeat", type=int, default=3, help="runs of plain PELT in part 4")
     parser.add_argument("--parts", default="1,2,3,4,5,6")
+    parser.add_argument("--against", default="", help="part 7: a copy of changepoint.py to time against")
+    parser.add_argument("--against-lengths", default="100000,300000,1000000", help="lengths for part 7")
     parser.add_argument("--ruptures-repeat", type=int, default=3)
     parser.add_argument("--profile-rows", type=int, default=2000, help="rows for part 5")
     parser.add_argument("--profile-points", type=int, default=1000, help="points per row for part 5")
@@ -301,6 +337,8 @@ def main() -> None:
         profile(args.profile_rows, args.profile_points, args.repeat)
     if "6" in parts:
         mean_search(args.search_rows, args.repeat)
+    if args.against:
+        against(args.against, [int(v) for v in args.against_lengths.split(",") if v], args.repeat)
 
 
 if __name__ == "__main__":

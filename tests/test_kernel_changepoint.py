@@ -672,6 +672,21 @@ def test_geometric_pruning_equals_optimal_partitioning(model):
     assert checked > 500 and identical >= 33
 
 
+@pytest.mark.parametrize("model", ["meanvar", "trend"])
+def test_geometric_pruning_under_a_penalty_far_above_the_costs(model):
+    # reference: exhaustive optimal partitioning above. A penalty of 1e3 to 1e6 on short series
+    # makes the region of a start's parameters so wide that exp(log variance) overflowed in the
+    # 'meanvar' boxes (inf * 0), which once emptied the box of the optimal start
+    rng = np.random.default_rng(47)
+    signals = [rng.standard_normal(int(rng.integers(10, 60))) for _ in range(12)]
+    batch = Ragged.from_list(signals)
+    for penalty in (1e3, 1e6):
+        for min_size in (2, 3):
+            got = change_points(batch, model, penalty, min_size, seasonal="none")
+            for i, x in enumerate(signals):
+                assert cps(got, i) == exhaustive(x, model, penalty, min_size), (penalty, min_size, i)
+
+
 def test_boxes_keep_the_optimum_on_an_exact_line_with_penalty_zero():
     # reference: search_reference above. On an exact line (zero residuals, costs that are rounding
     # noise) with penalty 0, a margin smaller than the rounding of the 'trend' costs would drop
@@ -866,7 +881,7 @@ def test_log_variance_range_brackets_the_roots():
     from scipy.optimize import brentq
 
     for g in (1e-12, 1e-9, 1e-6, 1e-3, 0.05, 0.25, 0.26, 1.0, 3.0, 40.0, 700.0, 1e5):
-        lo, hi = changepoint._log_variance_range(g)
+        lo, hi = changepoint._log_variance_range(g, -np.inf, np.inf)
 
         def f(u, g=g):
             return u + math.expm1(-u) - g
@@ -876,6 +891,12 @@ def test_log_variance_range_brackets_the_roots():
         assert lo <= left < 0 < right <= hi, g
         # and close: a few Newton steps from good starts
         assert hi - right <= 1e-3 * right and left - lo <= 1e-3 * -left, g
+        # a box's ends outside the roots: bounds between them and the roots, at least as close
+        lo_box, hi_box = changepoint._log_variance_range(g, 2.0 * left, 2.0 * right)
+        assert 2.0 * left < lo_box <= left and right <= hi_box < 2.0 * right, g
+        assert lo_box >= lo and hi_box <= hi, g
+        # ends inside them: nothing to cut on either side
+        assert changepoint._log_variance_range(g, 0.5 * left, 0.5 * right) == (-np.inf, np.inf), g
 
 
 def test_box_clipping_and_cutting_against_sampled_points():

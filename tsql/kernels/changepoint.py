@@ -511,8 +511,12 @@ _SQUARES_MARGIN = 1e-12
 PRUNE_EVERY = 4
 
 #: geometric functional pruning ('meanvar', 'trend'): a start of age ``a`` is narrowed again
-#: after ``a * _REVISIT`` steps (young starts every step: they go soonest; old ones change little)
+#: after ``_WAIT + a * _REVISIT`` steps: old ones change little, and young ones seldom go (a short
+#: segment leaves its slope, or its variance, nearly free: on a calm million points, 'trend' retired
+#: a start in fewer than 1 of 100 narrowings below age 128, which were half of all narrowings),
+#: while a narrowing costs about as much as keeping a start a few hundred steps longer
 _REVISIT = 1.0 / 8.0
+_WAIT = 64.0
 
 #: ... and each time tested against this many older starts' regions of victory: the one it
 #: remembers and others drawn by a fixed rule from those kept
@@ -527,6 +531,9 @@ _NEAR_GROWTH = 2
 #: and the steps between looks for the older ones due to be narrowed
 _YOUNG = 64
 _SWEEP_EVERY = 32
+
+#: 'meanvar' pruning: a log variance this far above a fit's leaves its means uncut (``exp`` overflows near 709)
+_EXP_RANGE = 700.0
 
 #: geometric functional pruning ('meanvar', 'trend') widens its boxes by this share, for
 #: rounding in their own arithmetic
@@ -749,34 +756,55 @@ def _rounding_scale(code, stats, m) -> float:
 
 
 @njit(cache=True, error_model="numpy")
-def _log_variance_range(g) -> tuple[float, float]:
-    """Outer bounds on the two roots of ``u + exp(-u) = 1 + g``, ``g >= 0``.
+def _log_variance_range(g, below, above) -> tuple[float, float]:
+    """Outer bounds on the two roots of ``u + exp(-u) = 1 + g``, ``g >= 0``, where they may
+    be tighter than ``[below, above]`` (else infinite: nothing to cut on that side).
 
     ``f(u) = u + exp(-u) - 1 - g`` is convex with least value ``-g`` at 0, so Newton's
-    steps from a point outside a root (``f >= 0``) stay outside it. Starts: on the left
-    ``max(-sqrt(2 g), -log(1 + g) - 1)`` (there ``exp(-u) >= 1 - u + u^2/2``, and
-    ``exp(-u) >= e (1 + g)``); on the right ``r (1 + r)`` with ``r = sqrt(2 g)`` for
-    ``g <= 1/4`` (``exp(-u) >= 1 - u + u^2/2 - u^3/6``), else ``1 + g``. Every iterate is
-    a bound; the last is widened for rounding.
+    steps from a point outside a root (``f >= 0``) stay outside it, each nearer than the
+    last. Starts: on the left ``max(-sqrt(2 g), -log(1 + g) - 1)`` (there
+    ``exp(-u) >= 1 - u + u^2/2``, and ``exp(-u) >= e (1 + g)``), or ``below`` if nearer;
+    on the right ``r (1 + r)`` with ``r = sqrt(2 g)`` for ``g <= 1/4``
+    (``exp(-u) >= 1 - u + u^2/2 - u^3/6``), else ``1 + g``, or ``above`` if nearer. A
+    side whose start is inside the roots (``f <= 0``: ``below >= 0`` or ``above <= 0``
+    at once) stops there. Every iterate is a bound; the last is widened for rounding.
     """
     if not g > 0.0:
         return -1e-12, 1e-12
     r = math.sqrt(2.0 * g)
-    hi = r * (1.0 + r) if g <= 0.25 else 1.0 + g
-    lo = max(-r, -math.log1p(g) - 1.0)
-    for _ in range(3):
-        hi -= max((hi + math.expm1(-hi) - g) / -math.expm1(-hi), 0.0)
-        lo -= min((lo + math.expm1(-lo) - g) / -math.expm1(-lo), 0.0)
-    return lo - (_BOX_SLACK * (1.0 - lo) + 1e-12), hi + (_BOX_SLACK * (1.0 + hi) + 1e-12)
+    lo = -np.inf
+    if below < 0.0:
+        u = max(max(-r, -math.log1p(g) - 1.0), below)
+        for _ in range(3):
+            e = math.expm1(-u)
+            f = u + e - g
+            if not f > 0.0:
+                break
+            u += f / e
+        if u > below:
+            lo = u - (_BOX_SLACK * (1.0 - u) + 1e-12)
+    hi = np.inf
+    if above > 0.0:
+        u = min(r * (1.0 + r) if g <= 0.25 else 1.0 + g, above)
+        for _ in range(3):
+            e = math.expm1(-u)
+            f = u + e - g
+            if not f > 0.0:
+                break
+            u += f / e
+        if u < above:
+            hi = u + (_BOX_SLACK * (1.0 + u) + 1e-12)
+    return lo, hi
 
 
 @njit(cache=True, error_model="numpy")
-def _meanvar_fit(length, s1, s2) -> tuple[float, float, float]:
-    """Mean, variance + floor and cost ``L log(var + floor)`` of a segment, as :func:`_cost_meanvar` computes them."""
+def _meanvar_fit(length, s1, s2) -> tuple[float, float, float, float]:
+    """Mean, variance + floor, its log and cost ``L log(var + floor)`` of a segment (as :func:`_cost_meanvar`)."""
     inv = 1.0 / length
     mean = s1 * inv
     v = max(s2 * inv - mean * mean, 0.0) + VARIANCE_FLOOR
-    return mean, v, length * math.log(v)
+    log_v = math.log(v)
+    return mean, v, log_v, length * log_v
 
 
 @njit(cache=True, error_model="numpy")
@@ -789,9 +817,10 @@ def _trend_fit(length, dt, dtt, dx, dxx, dtx) -> tuple[float, float, float, floa
     tt = length * dtt - dt * dt
     tx = length * dtx - dt * dx
     xx = length * dxx - dx * dx
+    inv = 1.0 / length
     if tt > 0.0:
-        return dt / length, dx / length, tx / tt, tt / length, max((xx * tt - tx * tx) / (tt * length), 0.0)
-    return dt / length, dx / length, 0.0, 0.0, 0.0
+        return dt * inv, dx * inv, tx / tt, tt * inv, max((xx * tt - tx * tx) / (tt * length), 0.0)
+    return dt * inv, dx * inv, 0.0, 0.0, 0.0
 
 
 @njit(cache=True, error_model="numpy")
@@ -833,26 +862,34 @@ def _clip_ellipse(box, j, c0, c1, a00, a01, a11, r) -> bool:
     lo1 = box[2, j]
     hi1 = box[3, j]
     widen = 1.0 + _BOX_SLACK
-    reach = widen * math.sqrt(r * a00 / det)
+    # three divisions, the rest products (rounding: a few ulps, well inside the slack)
+    q = r / det
+    i00 = 1.0 / a00
+    i11 = 1.0 / a11
+    reach = widen * math.sqrt(q * a00)
     d_lo = max(lo1 - c1, -reach)
     d_hi = min(hi1 - c1, reach)
     if d_lo > d_hi:
         return False
-    turn = a01 * math.sqrt(r / (a11 * det))
+    tilt = a01 * i00
+    squeeze = det * i00
+    turn = a01 * math.sqrt(q * i11)
     d = min(max(turn, d_lo), d_hi)
-    new_lo0 = c0 - a01 / a00 * d - widen * math.sqrt(max(r - det / a00 * d * d, 0.0) / a00)
+    new_lo0 = c0 - tilt * d - widen * math.sqrt(max(r - squeeze * d * d, 0.0) * i00)
     d = min(max(-turn, d_lo), d_hi)
-    new_hi0 = c0 - a01 / a00 * d + widen * math.sqrt(max(r - det / a00 * d * d, 0.0) / a00)
-    reach = widen * math.sqrt(r * a11 / det)
+    new_hi0 = c0 - tilt * d + widen * math.sqrt(max(r - squeeze * d * d, 0.0) * i00)
+    reach = widen * math.sqrt(q * a11)
     d_lo = max(lo0 - c0, -reach)
     d_hi = min(hi0 - c0, reach)
     if d_lo > d_hi:
         return False
-    turn = a01 * math.sqrt(r / (a00 * det))
+    tilt = a01 * i11
+    squeeze = det * i11
+    turn = a01 * math.sqrt(q * i00)
     d = min(max(turn, d_lo), d_hi)
-    new_lo1 = c1 - a01 / a11 * d - widen * math.sqrt(max(r - det / a11 * d * d, 0.0) / a11)
+    new_lo1 = c1 - tilt * d - widen * math.sqrt(max(r - squeeze * d * d, 0.0) * i11)
     d = min(max(-turn, d_lo), d_hi)
-    new_hi1 = c1 - a01 / a11 * d + widen * math.sqrt(max(r - det / a11 * d * d, 0.0) / a11)
+    new_hi1 = c1 - tilt * d + widen * math.sqrt(max(r - squeeze * d * d, 0.0) * i11)
     pad0 = _BOX_SLACK * (abs(new_lo0) + abs(new_hi0))
     pad1 = _BOX_SLACK * (abs(new_lo1) + abs(new_hi1))
     return _clip_interval(box, j, 0, new_lo0 - pad0, new_hi0 + pad0) and _clip_interval(
@@ -871,27 +908,33 @@ def _cut_ellipse(box, j, c0, c1, a00, a01, a11, r) -> bool:
     if not (r > 0.0 and det > 0.0):
         return False
     shrink = 1.0 - _BOX_SLACK
+    i00 = 1.0 / a00
     d_a = box[2, j] - c1
     d_b = box[3, j] - c1
-    h_a = r - det / a00 * d_a * d_a
-    h_b = r - det / a00 * d_b * d_b
+    squeeze = det * i00
+    h_a = r - squeeze * d_a * d_a
+    h_b = r - squeeze * d_b * d_b
     if h_a > 0.0 and h_b > 0.0:
-        h_a = shrink * math.sqrt(h_a / a00)
-        h_b = shrink * math.sqrt(h_b / a00)
-        m_a = c0 - a01 / a00 * d_a
-        m_b = c0 - a01 / a00 * d_b
+        h_a = shrink * math.sqrt(h_a * i00)
+        h_b = shrink * math.sqrt(h_b * i00)
+        tilt = a01 * i00
+        m_a = c0 - tilt * d_a
+        m_b = c0 - tilt * d_b
         pad = _BOX_SLACK * (abs(m_a) + abs(m_b))
         if _cut_interval(box, j, 0, max(m_a - h_a, m_b - h_b) + pad, min(m_a + h_a, m_b + h_b) - pad):
             return True
+    i11 = 1.0 / a11
     d_a = box[0, j] - c0
     d_b = box[1, j] - c0
-    h_a = r - det / a11 * d_a * d_a
-    h_b = r - det / a11 * d_b * d_b
+    squeeze = det * i11
+    h_a = r - squeeze * d_a * d_a
+    h_b = r - squeeze * d_b * d_b
     if h_a > 0.0 and h_b > 0.0:
-        h_a = shrink * math.sqrt(h_a / a11)
-        h_b = shrink * math.sqrt(h_b / a11)
-        m_a = c1 - a01 / a11 * d_a
-        m_b = c1 - a01 / a11 * d_b
+        h_a = shrink * math.sqrt(h_a * i11)
+        h_b = shrink * math.sqrt(h_b * i11)
+        tilt = a01 * i11
+        m_a = c1 - tilt * d_a
+        m_b = c1 - tilt * d_b
         pad = _BOX_SLACK * (abs(m_a) + abs(m_b))
         return _cut_interval(box, j, 2, max(m_a - h_a, m_b - h_b) + pad, min(m_a + h_a, m_b + h_b) - pad)
     return False
@@ -910,31 +953,33 @@ def _trend_ellipse(length, p_mean, z_mean, slope, spread, x0) -> tuple[float, fl
 
 
 @njit(cache=True, error_model="numpy")
-def _clip_meanvar(box, j, mean, v, g) -> bool:
+def _clip_meanvar(box, j, mean, v, log_v, g) -> bool:
     """Box ``j`` (mean, log variance) shrunk to the bounding box of its meet with ``R``; False if empty.
 
     ``R``: ``u + (1 + d^2 / V) e^-u <= 1 + g`` with ``d = mu - mean``, ``u = w - log V``.
     Over the box's means (``|d| >= d_min``) ``w`` lies within ``log V + log k`` plus the
-    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_range`); over
-    its log variances ``d^2 <= V (e^u (1 + g - u) - 1)``, unimodal in ``u``, peak at ``g``.
+    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_range`, only
+    where they cut the box); then over the log variances left ``d^2 <= V (e^u (1 + g - u) - 1)``,
+    unimodal in ``u``, peak at ``g``.
     """
     lo0 = box[0, j]
     hi0 = box[1, j]
     d_min = lo0 - mean if lo0 > mean else (mean - hi0 if hi0 < mean else 0.0)
-    shift = math.log1p(d_min * d_min / v)
+    shift = math.log1p(d_min * d_min / v) if d_min > 0.0 else 0.0
     if not g - shift >= 0.0:
         return False
-    u_lo, u_hi = _log_variance_range(g - shift)
-    log_v = math.log(v)
+    centre = log_v + shift
+    u_lo, u_hi = _log_variance_range(g - shift, box[2, j] - centre, box[3, j] - centre)
     pad = _BOX_SLACK * abs(log_v)
+    if not _clip_interval(box, j, 2, centre + u_lo - pad, centre + u_hi + pad):
+        return False
     u = min(max(g, box[2, j] - log_v), box[3, j] - log_v)
-    room = math.expm1(u) + math.exp(u) * (g - u)
+    # beyond exp's range (a penalty far above the data's costs) the means are left as they are
+    room = math.expm1(u) + math.exp(u) * (g - u) if u < _EXP_RANGE else np.inf
     if not room >= 0.0:
         return False
     half = (1.0 + _BOX_SLACK) * math.sqrt(v * room) + _BOX_SLACK * abs(mean)
-    return _clip_interval(box, j, 0, mean - half, mean + half) and _clip_interval(
-        box, j, 2, log_v + shift + u_lo - pad, log_v + shift + u_hi + pad
-    )
+    return _clip_interval(box, j, 0, mean - half, mean + half)
 
 
 @njit(cache=True, error_model="numpy")
@@ -950,6 +995,8 @@ def _cut_meanvar(box, j, mean, v, log_v, length, room) -> bool:
     g = room / length
     u_a = box[2, j] - log_v
     u_b = box[3, j] - log_v
+    if not max(u_a, u_b) < _EXP_RANGE:
+        return False
     h = min(math.exp(u_a) * (1.0 + g - u_a), math.exp(u_b) * (1.0 + g - u_b)) - 1.0
     # below that the cut is too thin to be worth its rounding
     if not h > 1e-6:
@@ -989,11 +1036,11 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
         box[8, k] = a01
         box[9, k] = a11
     else:
-        mean, v, cost = _meanvar_fit(length, stats[0, s] - stats[0, e], stats[1, s] - stats[1, e])
+        mean, v, log_v, cost = _meanvar_fit(length, stats[0, s] - stats[0, e], stats[1, s] - stats[1, e])
         box[5, k] = mean
         box[6, k] = v
         box[7, k] = length
-        box[8, k] = math.log(v)
+        box[8, k] = log_v
     box[10, k] = F[s] - F[e] - cost - (_PRUNE_MARGIN * (2.0 + abs(F[s]) + abs(F[e])) + rounding)
 
 
@@ -1047,7 +1094,7 @@ def _narrow_box(
         if fs == np.inf or tf < visit[j]:
             continue
         length = cf - starts[j]
-        visit[j] = tf + 1.0 + _REVISIT * length
+        visit[j] = tf + 1.0 + _WAIT + _REVISIT * length
         margin = base + _PRUNE_MARGIN * abs(fs)
         if trend:
             dx = a2 - c2[j]
@@ -1055,7 +1102,7 @@ def _narrow_box(
             p_mean, z_mean, slope, spread, cost = _trend_fit(length, st, stt, dx, a3 - c3[j], stx)
             p_mean += x0_c
         else:
-            z_mean, v, cost = _meanvar_fit(length, a0 - c0[j], a1 - c1[j])
+            z_mean, v, log_v, cost = _meanvar_fit(length, a0 - c0[j], a1 - c1[j])
         gap = f_c - fs - cost
         room = gap + margin
         if not room >= 0.0:
@@ -1067,7 +1114,7 @@ def _narrow_box(
             half = (1.0 + _BOX_SLACK) * math.sqrt(room) + _BOX_SLACK * abs(z_mean)
             live = _clip_interval(box, j, 0, z_mean - half, z_mean + half)
         else:
-            live = _clip_meanvar(box, j, z_mean, v, room / length)
+            live = _clip_meanvar(box, j, z_mean, v, log_v, room / length)
         s = int(starts[j])
         for pick in range(_EXCLUSIONS):
             if not live:
@@ -1104,8 +1151,8 @@ def _narrow_box(
                 e0, e1, e00, e01, e11 = _trend_ellipse(e_len, p_mean, z_mean, slope, spread, 0.0)
                 live = not _cut_ellipse(box, j, e0, e1, e00, e01, e11, r - cost)
             else:
-                mean, v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
-                live = not _cut_meanvar(box, j, mean, v, math.log(v), e_len, r - cost)
+                mean, v, log_v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
+                live = not _cut_meanvar(box, j, mean, v, log_v, e_len, r - cost)
         if not live:
             f_start[j] = np.inf
             retired += 1
@@ -1226,7 +1273,7 @@ def _pelt(
             if functional:
                 # the region of defeat the newest start remembers: that of the start that beats
                 # it most, found by a pass, else that of the start of its own last segment
-                # the youngest starts are due every step, the others seldom: those are looked
+                # the youngest starts are due most often, the others seldom: those are looked
                 # for only every _SWEEP_EVERY steps (a start narrowed late is only pruned later)
                 oldest = 0 if t >= next_sweep else max(0, n_cand - _YOUNG)
                 if oldest == 0:
