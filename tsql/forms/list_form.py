@@ -49,9 +49,10 @@ PIECE_ROWS = 256
 """Least rows per piece when a call is cut into one piece per DuckDB thread (see :func:`cut_for_threads`; a call of
 fewer than twice as many stays whole: the Python around a kernel would outweigh a smaller piece)."""
 
-CUT_FOR_THREADS = ("change_points", "segments")
+CUT_FOR_THREADS = ("change_points", "segments", "screen")
 """Functions of one series whose calls are cut for DuckDB's threads too: their compiled row-by-row kernels let go
-of the GIL, and a query of fewer groups than two calls (4,096) would otherwise run on one thread."""
+of the GIL, and a query of fewer groups than two calls (4,096) would otherwise run on one thread (``screen``: its
+search for change points is most of its time)."""
 
 
 def cut_for_threads(fn: Function) -> bool:
