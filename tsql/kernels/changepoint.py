@@ -1817,15 +1817,6 @@ def _harmonics(period: float) -> int:
     return int(min(max(math.floor(period / 2.0), 1.0), float(MAX_HARMONICS)))
 
 
-@njit(cache=True, error_model="numpy", nogil=True)
-def _harmonic_counts(periods):
-    """:func:`_harmonics` of each period."""
-    out = np.empty(len(periods), dtype=np.int64)
-    for i in range(len(periods)):
-        out[i] = _harmonics(periods[i])
-    return out
-
-
 @njit(cache=True, error_model="numpy")
 def _subtract_cycle(residual, period, out, design) -> None:
     """``out -=`` the least-squares sum of the harmonics of ``period`` fitted to ``residual`` (NaN = missing).
@@ -1928,16 +1919,6 @@ def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> 
     return cyclic, Ragged(out, values.offsets, values.valid)
 
 
-def _cycle_parameters(periods: np.ndarray, n: int) -> np.ndarray:
-    """How many coefficients :func:`_subtract_cycle` fits for each period on rows of ``n`` positions.
-
-    Two per harmonic, less a sine at Nyquist, which vanishes on the grid (the rule of :func:`_subtract_cycle`).
-    """
-    count = _harmonic_counts(periods)
-    top = np.sin((2.0 * np.pi * count / periods)[:, None] * np.arange(n, dtype=np.float64)[None, :])
-    return 2 * count - (np.sqrt((top * top).sum(axis=1)) <= 1e-6 * math.sqrt(n))
-
-
 def _cycle_factor(adjusted: Ragged, periods: np.ndarray, code: int) -> np.ndarray:
     """The least factor on a named penalty for rows whose cycle was removed: ``(m - k) / (m - k - q)``.
 
@@ -1945,19 +1926,45 @@ def _cycle_factor(adjusted: Ragged, periods: np.ndarray, code: int) -> np.ndarra
     (``k = 1``) or line (``k = 2``); with ``q`` cycle coefficients fitted to the same ``m`` values
     that variance is low by ``(m - k - q) / (m - k)`` in expectation (the residual variance of
     least squares), and every cost high by its inverse. 'meanvar' compares variances with each
-    other, so the bias cancels (1).
+    other, so the bias cancels (1). Row by row in compiled code (:func:`_cycle_factors`).
     """
     out = np.ones(adjusted.n_rows)
-    if code == MEANVAR:
-        return out
-    k = 2 if code == TREND else 1
-    for n, rows, matrix in adjusted.by_length():
+    if code != MEANVAR:
+        _cycle_factors(
+            np.ascontiguousarray(adjusted.values, dtype=np.float64),
+            np.ascontiguousarray(adjusted.offsets, dtype=np.int64),
+            np.ascontiguousarray(periods, dtype=np.float64),
+            2 if code == TREND else 1,
+            out,
+        )
+    return out
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _cycle_factors(values, offsets, periods, k, out) -> None:
+    """:func:`_cycle_factor` of each row ``r`` of ``values``, whose cycle of period ``periods[r]`` was removed.
+
+    ``q``, the coefficients :func:`_subtract_cycle` fits on a row of ``n`` positions: two per harmonic, less a
+    sine at Nyquist, which vanishes on the grid (its rule).
+    """
+    for r in range(len(offsets) - 1):
+        lo, hi = offsets[r], offsets[r + 1]
+        n = hi - lo
         if n == 0:
             continue
-        m = (~np.isnan(matrix)).sum(axis=1)
-        left = m - k - _cycle_parameters(periods[rows], n)
-        out[rows] = np.where(left > 0, (m - k) / np.maximum(left, 1), 1.0)
-    return out
+        m = 0
+        for t in range(lo, hi):
+            if not np.isnan(values[t]):
+                m += 1
+        h = _harmonics(periods[r])
+        w = 2.0 * np.pi * h / periods[r]
+        top = 0.0
+        for t in range(n):
+            s = math.sin(w * t)
+            top += s * s
+        left = m - k - (2 * h - (math.sqrt(top) <= 1e-6 * math.sqrt(n)))
+        if left > 0:
+            out[r] = (m - k) / left
 
 
 def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ragged, np.ndarray]:
