@@ -174,7 +174,7 @@ def test_a_group_alone_answers_as_in_the_full_run(rows, reference):
 def test_calls_cut_for_the_threads_answer_as_whole_calls(rows, monkeypatch):
     """The functions whose large calls are cut into pieces over DuckDB's threads (``agg.ROW_BY_ROW``,
     ``list_form.CUT_FOR_THREADS``) give the very same answers cut in many pieces over four threads as in
-    whole calls on one thread, in both forms."""
+    whole calls on one thread, in both forms (the list form's thread pieces cut again by their elements)."""
     from tsql.forms import agg, list_form
     from tsql.kernels import parallel
 
@@ -194,6 +194,7 @@ def test_calls_cut_for_the_threads_answer_as_whole_calls(rows, monkeypatch):
     for threads in (1, 4):
         if threads > 1:  # about 100 groups per piece of an aggregate's call; four cores, however many there are
             monkeypatch.setattr(agg, "ROW_PIECE_POINTS", 4096)
+            monkeypatch.setattr(list_form, "PIECE_POINTS", 4096)
             monkeypatch.setattr(parallel, "cores", lambda: 4)
             monkeypatch.setattr(list_form, "cores", lambda: 4)
             monkeypatch.setattr(parallel, "run_pieces", counted(parallel.run_pieces))
