@@ -2194,10 +2194,11 @@ def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: 
     from tsql.kernels.periodicity import seasonality
 
     out = np.full(n_rows, np.nan)
-    rows = np.flatnonzero(row_ok & (_fisher_screen(Ragged(residual, batch.offsets, batch.valid)) < 2 * SEASONAL_LEVEL))
+    residuals = Ragged(residual, batch.offsets, batch.valid)
+    rows = np.flatnonzero(row_ok & (_fisher_screen(residuals) < 2 * SEASONAL_LEVEL))
     if len(rows) == 0:
         return out
-    found = seasonality(Ragged(residual, batch.offsets, batch.valid).take(rows))
+    found = seasonality(residuals if len(rows) == n_rows else residuals.take(rows))
     # a cycle repeats: at least SEASONAL_CYCLES of it in the record, else it is a slow wander
     significant = (found["p_value"] < SEASONAL_LEVEL) & (found["period"] * SEASONAL_CYCLES <= lengths[rows])
     out[rows] = np.where(significant, found["period"], np.nan)
@@ -2279,15 +2280,18 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
     kind, value = _penalty(penalty)
     cycles = seasonal != "none" and batch.n_rows > 0
     fields, counts, slots, row_ok, residual = _run(batch, spec, kind, value, min_size, max_changes, cycles)
+    skip = int(skip_first)
+    first_counts = np.maximum(counts - skip, 0)
+    off1, source = _gather(first_counts, slots + skip)
+    fields = {name: column[source] for name, column in fields.items()}  # packed: the run's slots are let go
     cyclic = np.empty(0, dtype=np.int64)
     if cycles:
         periods = _periods(batch, residual, row_ok, seasonal)
         if np.isfinite(periods).any():
             cyclic, adjusted = _remove_cycles(batch, residual, periods)
-    skip = int(skip_first)
+    del residual
     if len(cyclic) == 0:
-        offsets, source = _gather(np.maximum(counts - skip, 0), slots + skip)
-        return {name: column[source] for name, column in fields.items()}, offsets, row_ok
+        return fields, off1, row_ok
     # the rows with a cycle are segmented again without it (and without the spread that follows it);
     # the others keep the first answer
     searched, steady = _steady_spread(adjusted, periods[cyclic], spec.code)
@@ -2306,16 +2310,16 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
         )
     row_ok = row_ok.copy()
     row_ok[cyclic] &= ok2  # with max_changes, a long row may have no answer without its cycle
-    first_counts = np.maximum(counts - skip, 0)
-    first_counts[cyclic] = 0
+    kept = first_counts.copy()
+    kept[cyclic] = 0
     second_counts = np.maximum(counts2 - skip, 0)
-    total = first_counts.copy()
+    total = kept.copy()
     total[cyclic] = second_counts
     offsets = np.zeros(len(total) + 1, dtype=np.int64)
     np.cumsum(total, out=offsets[1:])
-    off1, src1 = _gather(first_counts, slots + skip)
+    off_kept, src1 = _gather(kept, off1[:-1])
     off2, src2 = _gather(second_counts, slots2 + skip)
-    dest1 = np.arange(off1[-1]) + np.repeat(offsets[:-1] - off1[:-1], first_counts)
+    dest1 = np.arange(off_kept[-1]) + np.repeat(offsets[:-1] - off_kept[:-1], kept)
     dest2 = np.arange(off2[-1]) + np.repeat(offsets[cyclic] - off2[:-1], second_counts)
     out = {}
     for name, column in fields.items():
