@@ -2191,14 +2191,14 @@ def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: 
         period = float(seasonal)
         return np.where(row_ok & (lengths >= 2.0 * period), period, np.nan)
     # imported here: periodicity is only needed for 'auto'
-    from tsql.kernels.periodicity import seasonality
+    from tsql.kernels.periodicity import cycle_test
 
     out = np.full(n_rows, np.nan)
     residuals = Ragged(residual, batch.offsets, batch.valid)
     rows = np.flatnonzero(row_ok & (_fisher_screen(residuals) < 2 * SEASONAL_LEVEL))
     if len(rows) == 0:
         return out
-    found = seasonality(residuals if len(rows) == n_rows else residuals.take(rows))
+    found = cycle_test(residuals if len(rows) == n_rows else residuals.take(rows))
     # a cycle repeats: at least SEASONAL_CYCLES of it in the record, else it is a slow wander
     significant = (found["p_value"] < SEASONAL_LEVEL) & (found["period"] * SEASONAL_CYCLES <= lengths[rows])
     out[rows] = np.where(significant, found["period"], np.nan)

@@ -40,7 +40,7 @@ import numpy as np
 
 from tsql.kernels.ragged import Ragged, full, in_safe_range
 
-__all__ = ["dominant_period", "seasonality", "fisher_g_pvalue", "cycle_p_value", "fill_gaps"]
+__all__ = ["dominant_period", "seasonality", "cycle_test", "fisher_g_pvalue", "cycle_p_value", "fill_gaps"]
 
 _MIN_PRESENT = 4  # fewer present values than this: no answer
 _CONSTANT_RTOL = 1e-12  # residual rms below this share of the values' scale: constant
@@ -299,8 +299,35 @@ class Group:
         self.blocks = self.height + (self.tail is not None)
 
 
-def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: bool) -> dict[str, np.ndarray]:
-    keys = ("period", "strength", "p_value") if stats else ("period",)
+def cycle_test(batch: Ragged) -> dict[str, np.ndarray]:
+    """:func:`seasonality`'s period and p-value with its defaults, bit for bit, without the strength.
+
+    What :func:`~tsql.kernels.changepoint.change_points` needs to decide on a cycle to remove: the
+    strength's fit (harmonics and a line, per row) is left out.
+
+    Parameters
+    ----------
+    batch : Ragged
+        The series, one per row; NaN elements are missing.
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+        ``period`` and ``p_value``, as :func:`seasonality` gives them.
+
+    Examples
+    --------
+    >>> b = Ragged.from_list([np.sin(2 * np.pi * np.arange(48) / 6)])
+    >>> bool(cycle_test(b)["period"][0] == seasonality(b)["period"][0])
+    True
+    """
+    return _analyse(batch, 2.0, None, stats=True, strength=False)
+
+
+def _analyse(
+    batch: Ragged, min_period: float, max_period: float | None, stats: bool, strength: bool = True
+) -> dict[str, np.ndarray]:
+    keys = (("period", "strength", "p_value") if strength else ("period", "p_value")) if stats else ("period",)
     result = {key: full(batch.n_rows) for key in keys}
     row_valid = batch.row_valid
     may_have_gaps = batch.has_missing
@@ -352,9 +379,10 @@ def _analyse(batch: Ragged, min_period: float, max_period: float | None, stats: 
     period = np.clip(1.0 / freq, min_period, p_hi)
     rows = np.concatenate([group.rows for group in groups])
     result["period"][rows] = period
-    if stats:
+    if stats and strength:
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             result["strength"][rows] = _harmonic_strength(sums, groups, period, np.concatenate(tss))
+    if stats:
         result["p_value"][rows] = np.concatenate(p_values)
     return result
 
