@@ -225,11 +225,13 @@ def profile(rows: int, points: int, repeat: int) -> None:
 
     _, _, _, row_ok, residual = first()
     periods = changepoint._periods(batch, residual, row_ok, "auto")
-    _, adjusted = changepoint._remove_cycles(batch, residual, periods)
+    cyclic, adjusted = changepoint._remove_cycles(batch, residual, periods)
     steps = {
         "first segmentation (with residuals)": first,
         "periods (Fisher's screen, seasonality)": lambda: changepoint._periods(batch, residual, row_ok, "auto"),
         "cycles' fit": lambda: changepoint._remove_cycles(batch, residual, periods),
+        "the spread that follows a cycle": lambda: changepoint._steady_spread(adjusted, periods[cyclic], spec.code),
+        "the penalty's factor for the cycle": lambda: changepoint._cycle_factor(adjusted, periods[cyclic], spec.code),
         "second segmentation (rows with a cycle)": lambda: changepoint._run(
             adjusted, spec, changepoint._BIC, 0.0, 2, None
         ),

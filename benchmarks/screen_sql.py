@@ -6,13 +6,16 @@ The table is :func:`benchmarks.data.seasonal` (DATE times one day apart). Three 
 the floor (the GROUP BY that only builds each ordered list), ``screen_agg(v, t)``, and the same
 diagnostics from each function's own ``*_agg`` form in one query. Ratios are taken within each
 round and their medians printed. ``--each`` also times every part alone, once, to show where the
-time goes. Each query ends in ``count(result)``: results are computed in full, not converted.
+time goes, and the cores each query used (CPU time over wall time of a second run of it; 2.0 is both cores of
+a two-core machine). Each query ends in ``count(result)``: results are computed in full, not converted.
 """
 
 from __future__ import annotations
 
 import argparse
 import statistics
+import time
+from collections.abc import Callable
 
 import tsql
 from benchmarks import data
@@ -36,6 +39,14 @@ ONE_BY_ONE = " + ".join(PARTS.values())
 
 def query(expr: str, table: str = "series") -> str:
     return f"SELECT count(r) FROM (SELECT g, {expr} AS r FROM {table} GROUP BY g)"
+
+
+def cpu_and_wall(run: Callable[[], object]) -> tuple[float, float]:
+    """CPU seconds (all of this process's threads) and wall seconds of the second of two runs."""
+    run()
+    cpu, wall = time.process_time(), time.perf_counter()
+    run()
+    return time.process_time() - cpu, time.perf_counter() - wall
 
 
 def main() -> None:
@@ -66,9 +77,10 @@ def main() -> None:
     print(f"  screen_agg / one by one  {ratio('screen_agg', 'one by one'):6.2f}x")
     if args.each:
         floor = statistics.median(times["floor"])
-        for name, call in PARTS.items():
-            seconds = interleaved({name: lambda call=call: con.execute(query(call)).fetchall()}, 1)[name][0]
-            print(f"  {name:<16} alone {seconds:8.2f} s  {seconds / floor:6.2f}x floor")
+        print("  each query alone, its second run: wall, over the floor's median, cores used (CPU / wall)")
+        for name, call in {"floor": FLOOR, "screen_agg": SCREEN, **PARTS}.items():
+            cpu, wall = cpu_and_wall(lambda call=call: con.execute(query(call)).fetchall())
+            print(f"  {name:<16} {wall:8.2f} s  {wall / floor:6.2f}x floor  {cpu / wall:5.2f} cores")
 
 
 if __name__ == "__main__":

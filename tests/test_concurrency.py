@@ -171,8 +171,43 @@ def test_a_group_alone_answers_as_in_the_full_run(rows, reference):
     con.close()
 
 
-# --------------------------------------------------------------------------- #
-# several Python threads, one connection, a cursor each
+def test_calls_cut_for_the_threads_answer_as_whole_calls(rows, monkeypatch):
+    """The functions whose large calls are cut into pieces over DuckDB's threads (``agg.ROW_BY_ROW``,
+    ``list_form.CUT_FOR_THREADS``) give the very same answers cut in many pieces over four threads as in
+    whole calls on one thread, in both forms (the list form's thread pieces cut again by their elements)."""
+    from tsql.forms import agg, list_form
+    from tsql.kernels import parallel
+
+    assert set(agg.ROW_BY_ROW) <= set(list_form.CUT_FOR_THREADS)
+    forms = [f"{name}_agg(v, t)" for name in agg.ROW_BY_ROW]
+    forms += [f"{name}(list(v ORDER BY t))" for name in list_form.CUT_FOR_THREADS]
+    query = f"SELECT g, {', '.join(forms)} FROM data GROUP BY g ORDER BY g"
+    got, cut = [], []
+
+    def counted(run_pieces):
+        def run(work, first, stop, pieces):
+            cut.append(pieces)
+            run_pieces(work, first, stop, pieces)
+
+        return run
+
+    for threads in (1, 4):
+        if threads > 1:  # about 100 groups per piece of an aggregate's call; four cores, however many there are
+            monkeypatch.setattr(agg, "ROW_PIECE_POINTS", 4096)
+            monkeypatch.setattr(list_form, "PIECE_POINTS", 4096)
+            monkeypatch.setattr(parallel, "cores", lambda: 4)
+            monkeypatch.setattr(list_form, "cores", lambda: 4)
+            monkeypatch.setattr(parallel, "run_pieces", counted(parallel.run_pieces))
+            monkeypatch.setattr(list_form, "run_pieces", counted(list_form.run_pieces))
+        con = tsql.connect(config={"threads": threads})
+        con.register("data", rows)
+        got.append(con.execute(query).fetchall())
+        con.close()
+    assert sum(p > 1 for p in cut) >= 2 * len(forms)  # the calls were cut (two vectors of groups or more)
+    assert len(got[0]) == GROUPS and got[0] == got[1]
+    assert sum(r[1] is not None for r in got[0]) > GROUPS // 2
+
+
 # --------------------------------------------------------------------------- #
 
 

@@ -32,7 +32,9 @@ ROW_PIECE_POINTS = 4 * CACHE_ELEMENTS
 change points screens the call's rows for a cycle first): a quarter of the calls, about a tenth less time
 through GROUP BY (``benchmarks.change_points_sql``)."""
 
-ROW_BY_ROW = ("change_points", "segments")
+ROW_BY_ROW = ("change_points", "segments", "screen")
+"""Functions whose calls are also cut for DuckDB's threads (the UDF takes ``current_setting('threads')``; see
+``forms.list_form.CUT_FOR_THREADS``); ``screen`` runs the search for change points among its diagnostics."""
 
 STEPPED_PIECE_POINTS = 4 * CACHE_ELEMENTS
 """The same for :data:`STEPPED`, whose kernels are many small numpy steps over all the rows at once (the periodogram's

@@ -9,8 +9,9 @@ import numpy as np
 import pyarrow as pa
 
 from tsql.forms.arguments import by_settings, checked_arguments, with_arity
-from tsql.forms.arrow import single, to_arrow, to_ragged
+from tsql.forms.arrow import row_pieces, single, to_arrow, to_ragged
 from tsql.kernels.parallel import cores, run_pieces
+from tsql.kernels.ragged import CACHE_ELEMENTS
 from tsql.registry import Function
 
 
@@ -20,7 +21,8 @@ def list_udf(fn: Function, threads: bool = False) -> Callable[..., pa.Array]:
     Plain parameters are usually the same on every row; rows are grouped by their parameter
     values so the kernel always sees one setting per call. ``threads``: a last column gives the
     host's number of threads, over which a large call is cut
-    (:data:`PIECE_ROWS`, :func:`cut_for_threads`).
+    (:data:`PIECE_ROWS`, :func:`cut_for_threads`); the kernel of one of :data:`CUT_FOR_THREADS` gets its rows
+    in pieces of at most about :data:`PIECE_POINTS` elements, whether or not the call is cut.
     """
     n_series = len(fn.series)
 
@@ -49,9 +51,16 @@ PIECE_ROWS = 256
 """Least rows per piece when a call is cut into one piece per DuckDB thread (see :func:`cut_for_threads`; a call of
 fewer than twice as many stays whole: the Python around a kernel would outweigh a smaller piece)."""
 
-CUT_FOR_THREADS = ("change_points", "segments")
+CUT_FOR_THREADS = ("change_points", "segments", "screen")
 """Functions of one series whose calls are cut for DuckDB's threads too: their compiled row-by-row kernels let go
-of the GIL, and a query of fewer groups than two calls (4,096) would otherwise run on one thread."""
+of the GIL, and a query of fewer groups than two calls (4,096) would otherwise run on one thread (``screen``: its
+search for change points is most of its time)."""
+
+
+PIECE_POINTS = 4 * CACHE_ELEMENTS
+"""Most list elements the kernel of one of :data:`CUT_FOR_THREADS` gets at once (a row is never split), as its
+``*_agg`` form's (``forms.agg.ROW_PIECE_POINTS``): the kernel's temporaries (``screen``'s reach a dozen times its
+input) stay the same however many and long the call's series are."""
 
 
 def cut_for_threads(fn: Function) -> bool:
@@ -65,17 +74,21 @@ def _answer(fn: Function, series: list[pa.Array], key: tuple, n_rows: int, threa
     kwargs = checked_arguments(fn, key)
     if kwargs is None:  # a NULL argument that has no "not set" meaning
         return pa.nulls(n_rows, type=fn.returns.arrow)
-    pieces = min(threads, cores(), n_rows // PIECE_ROWS)
-    if pieces <= 1:
-        return _computed(fn, series, kwargs)
-    # one piece per thread (cut_for_threads): a row's answer does not depend on the rows beside it
+    bounded = fn.name in CUT_FOR_THREADS  # the pair functions' kernels budget their own work
     parts: dict[int, pa.Array] = {}
 
     def work(lo: int, hi: int) -> None:
-        parts[lo] = _computed(fn, [s.slice(lo, hi - lo) for s in series], kwargs)
+        part = [s.slice(lo, hi - lo) for s in series]
+        for a, b in row_pieces(part, PIECE_POINTS) if bounded else [(0, hi - lo)]:
+            parts[lo + a] = _computed(fn, [s.slice(a, b - a) for s in part], kwargs)
 
-    run_pieces(work, 0, n_rows, pieces)
-    return pa.concat_arrays([parts[lo] for lo in sorted(parts)])
+    # one piece per thread (cut_for_threads): a row's answer does not depend on the rows beside it
+    pieces = min(threads, cores(), n_rows // PIECE_ROWS)
+    if pieces > 1:
+        run_pieces(work, 0, n_rows, pieces)
+    else:
+        work(0, n_rows)
+    return parts[0] if len(parts) == 1 else pa.concat_arrays([parts[lo] for lo in sorted(parts)])
 
 
 def _computed(fn: Function, series: list[pa.Array], kwargs: dict) -> pa.Array:

@@ -489,9 +489,6 @@ SEASONAL_CYCLES = 4
 #: most harmonics of a period a removed cycle has (all of them, up to Nyquist, for periods up to 13)
 MAX_HARMONICS = 6
 
-#: elements per piece when standardising a spread that follows the cycle (bounds its temporaries)
-SPREAD_ELEMENTS = 1 << 13
-
 #: most present values of a row the segment-neighbourhood programme (``O(k m^2)``) runs on: a
 #: longer row gets no answer from ``change_points_path``, nor from ``max_changes`` when the
 #: penalised optimum has too many changes (10,000 values and 10 changes: about 5e8 segment costs)
@@ -1924,15 +1921,6 @@ def _harmonics(period: float) -> int:
     return int(min(max(math.floor(period / 2.0), 1.0), float(MAX_HARMONICS)))
 
 
-@njit(cache=True, error_model="numpy", nogil=True)
-def _harmonic_counts(periods):
-    """:func:`_harmonics` of each period."""
-    out = np.empty(len(periods), dtype=np.int64)
-    for i in range(len(periods)):
-        out[i] = _harmonics(periods[i])
-    return out
-
-
 @njit(cache=True, error_model="numpy")
 def _subtract_cycle(residual, period, out, design) -> None:
     """``out -=`` the least-squares sum of the harmonics of ``period`` fitted to ``residual`` (NaN = missing).
@@ -2035,16 +2023,6 @@ def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> 
     return cyclic, Ragged(out, values.offsets, values.valid)
 
 
-def _cycle_parameters(periods: np.ndarray, n: int) -> np.ndarray:
-    """How many coefficients :func:`_subtract_cycle` fits for each period on rows of ``n`` positions.
-
-    Two per harmonic, less a sine at Nyquist, which vanishes on the grid (the rule of :func:`_subtract_cycle`).
-    """
-    count = _harmonic_counts(periods)
-    top = np.sin((2.0 * np.pi * count / periods)[:, None] * np.arange(n, dtype=np.float64)[None, :])
-    return 2 * count - (np.sqrt((top * top).sum(axis=1)) <= 1e-6 * math.sqrt(n))
-
-
 def _cycle_factor(adjusted: Ragged, periods: np.ndarray, code: int) -> np.ndarray:
     """The least factor on a named penalty for rows whose cycle was removed: ``(m - k) / (m - k - q)``.
 
@@ -2052,19 +2030,45 @@ def _cycle_factor(adjusted: Ragged, periods: np.ndarray, code: int) -> np.ndarra
     (``k = 1``) or line (``k = 2``); with ``q`` cycle coefficients fitted to the same ``m`` values
     that variance is low by ``(m - k - q) / (m - k)`` in expectation (the residual variance of
     least squares), and every cost high by its inverse. 'meanvar' compares variances with each
-    other, so the bias cancels (1).
+    other, so the bias cancels (1). Row by row in compiled code (:func:`_cycle_factors`).
     """
     out = np.ones(adjusted.n_rows)
-    if code == MEANVAR:
-        return out
-    k = 2 if code == TREND else 1
-    for n, rows, matrix in adjusted.by_length():
+    if code != MEANVAR:
+        _cycle_factors(
+            np.ascontiguousarray(adjusted.values, dtype=np.float64),
+            np.ascontiguousarray(adjusted.offsets, dtype=np.int64),
+            np.ascontiguousarray(periods, dtype=np.float64),
+            2 if code == TREND else 1,
+            out,
+        )
+    return out
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _cycle_factors(values, offsets, periods, k, out) -> None:
+    """:func:`_cycle_factor` of each row ``r`` of ``values``, whose cycle of period ``periods[r]`` was removed.
+
+    ``q``, the coefficients :func:`_subtract_cycle` fits on a row of ``n`` positions: two per harmonic, less a
+    sine at Nyquist, which vanishes on the grid (its rule).
+    """
+    for r in range(len(offsets) - 1):
+        lo, hi = offsets[r], offsets[r + 1]
+        n = hi - lo
         if n == 0:
             continue
-        m = (~np.isnan(matrix)).sum(axis=1)
-        left = m - k - _cycle_parameters(periods[rows], n)
-        out[rows] = np.where(left > 0, (m - k) / np.maximum(left, 1), 1.0)
-    return out
+        m = 0
+        for t in range(lo, hi):
+            if not np.isnan(values[t]):
+                m += 1
+        h = _harmonics(periods[r])
+        w = 2.0 * np.pi * h / periods[r]
+        top = 0.0
+        for t in range(n):
+            s = math.sin(w * t)
+            top += s * s
+        left = m - k - (2 * h - (math.sqrt(top) <= 1e-6 * math.sqrt(n)))
+        if left > 0:
+            out[r] = (m - k) / left
 
 
 def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ragged, np.ndarray]:
@@ -2082,80 +2086,184 @@ def _steady_spread(adjusted: Ragged, periods: np.ndarray, code: int) -> tuple[Ra
     the row's root-mean-square scale ``s`` is shrunk to it: ``centre + r_t min(1, s / s_t)``.
     None is enlarged: where the noise is least, that would magnify whatever the cycle's fit
     missed (its shape, a second cycle) into shifts. Other rows are returned as they are. The
-    caller reports levels from the values, not from this.
+    caller reports levels from the values, not from this. Row by row in compiled code that
+    releases the GIL (:func:`_steady_spreads`).
 
     References: R. Koenker, "A note on studentizing a test for heteroscedasticity", Journal of
     Econometrics 17(1), 107-112 (1981); A. C. Harvey, "Estimating regression models with
     multiplicative heteroscedasticity", Econometrica 44(3), 461-465 (1976).
     """
-    values = np.array(adjusted.values, dtype=np.float64, copy=True)
+    source = np.ascontiguousarray(adjusted.values, dtype=np.float64)
+    values = source.copy()
     changed = np.zeros(adjusted.n_rows, dtype=np.bool_)
-    for n, rows, matrix in adjusted.by_length():
-        if n == 0:
-            continue
-        step = max(1, SPREAD_ELEMENTS // n)  # pieces of about SPREAD_ELEMENTS values (a row is never split)
-        for lo in range(0, len(rows), step):
-            part = rows[lo : lo + step]
-            standardised, steady = _spread_standardised(matrix[lo : lo + step], periods[part], code)
-            if steady.any():
-                values[adjusted.offsets[part[steady]][:, None] + np.arange(n)] = standardised[steady]
-                changed[part[steady]] = True
+    _steady_spreads(
+        source,
+        np.ascontiguousarray(adjusted.offsets, dtype=np.int64),
+        np.ascontiguousarray(periods, dtype=np.float64),
+        code,
+        _SPREAD_CRITICAL,
+        values,
+        changed,
+    )
     return Ragged(values, adjusted.offsets, adjusted.valid), changed
 
 
-def _spread_standardised(matrix: np.ndarray, periods: np.ndarray, code: int) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`_steady_spread` for the rows of one length bucket (NaN = missing): the rows standardised, which
-    rows hold. Every sum runs along a row's own last axis."""
-    rows, n = matrix.shape
-    t = np.arange(n, dtype=np.float64)
-    present = ~np.isnan(matrix)
-    m = present.sum(axis=1)
-    y = np.where(present, matrix, 0.0)
-    centre = (y.sum(axis=1) / np.maximum(m, 1))[:, None] + np.zeros(n)
-    if code == TREND:
-        mt = np.where(present, t, 0.0).sum(axis=1) / np.maximum(m, 1)
-        dt = np.where(present, t - mt[:, None], 0.0)
-        sxx = (dt * dt).sum(axis=1)
-        slope = (dt * (y - centre)).sum(axis=1) / np.where(sxx > 0, sxx, np.inf)
-        centre = centre + slope[:, None] * (t - mt[:, None])
-    r = np.where(present, matrix - centre, 0.0)
-    r2 = r * r
-    angle = (2.0 * np.pi / periods)[:, None] * t[None, :]
-    design = np.stack([np.ones_like(angle), np.cos(angle), np.sin(angle)], axis=1)  # (rows, 3, n)
-    used = np.sqrt((design * design).sum(axis=2)) > 1e-6 * math.sqrt(n)  # a sine at Nyquist vanishes
-    design *= used[:, :, None] * present[:, None, :]
-    gram = np.empty((rows, 3, 3))
+#: the Breusch-Pagan statistic's critical values at SEASONAL_LEVEL by its degrees of freedom (none at 0)
+_SPREAD_CRITICAL = np.array([np.inf, chi2.isf(SEASONAL_LEVEL, 1), chi2.isf(SEASONAL_LEVEL, 2)])
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _steady_spreads(values, offsets, periods, code, critical, out, changed) -> None:
+    """:func:`_spread_row` of each row ``r`` of ``values`` with period ``periods[r]``, into its place in ``out``
+    (which holds the values already); ``changed[r]``: whether row ``r`` was standardised."""
+    longest = 0
+    for r in range(len(offsets) - 1):
+        longest = max(longest, offsets[r + 1] - offsets[r])
+    design = np.empty((3, longest))
+    work = np.empty((4, longest))
+    for r in range(len(offsets) - 1):
+        lo, hi = offsets[r], offsets[r + 1]
+        if hi > lo:
+            changed[r] = _spread_row(values[lo:hi], periods[r], code, critical, out[lo:hi], design, work)
+
+
+@njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
+def _spread_row(y, period, code, critical, out, design, work) -> bool:
+    """:func:`_steady_spread` of one row (NaN = missing): whether its spread follows the cycle, and then ``out``
+    standardised by it. ``design`` and ``work`` are scratch of at least 3 and 4 rows of ``len(y)`` values."""
+    n = len(y)
+    m = 0
+    total = 0.0
+    top = 0.0
+    for t in range(n):
+        if not np.isnan(y[t]):
+            m += 1
+            total += y[t]
+            top = max(top, abs(y[t]))
+    count = max(m, 1)
+    level = total / count
+    slope = 0.0
+    mt = 0.0
+    if code == TREND:  # the costs of 'trend' are standardised about the line
+        st = 0.0
+        for t in range(n):
+            if not np.isnan(y[t]):
+                st += t
+        mt = st / count
+        sxx = 0.0
+        sxy = 0.0
+        for t in range(n):
+            if not np.isnan(y[t]):
+                d = t - mt
+                sxx += d * d
+                sxy += d * (y[t] - level)
+        if sxx > 0:
+            slope = sxy / sxx
+    r, fitted, target, log_s2 = work[0, :n], work[1, :n], work[2, :n], work[3, :n]
+    # a constant and the period's fundamental at the present values; a column that vanishes on the grid
+    # (a sine at Nyquist) is left out
+    w = 2.0 * np.pi / period
+    norms = np.zeros(3)
+    for t in range(n):
+        c = math.cos(w * t)
+        s = math.sin(w * t)
+        norms[0] += 1.0
+        norms[1] += c * c
+        norms[2] += s * s
+        design[0, t] = 1.0
+        design[1, t] = c
+        design[2, t] = s
+    gram = np.zeros((3, 3))
+    used = 0
     for i in range(3):
-        gram[:, i, :] = (design[:, i, None, :] * design).sum(axis=2)
-    gram += np.eye(3)[None] * ~used[:, :, None]
-
-    def fit(target: np.ndarray) -> np.ndarray:  # least squares on the harmonic, at the present values
-        coef = np.linalg.solve(gram, (design * target[:, None, :]).sum(axis=2)[:, :, None])
-        return (design * coef).sum(axis=1)
-
+        if math.sqrt(norms[i]) > 1e-6 * math.sqrt(n):
+            used += 1
+        else:
+            gram[i, i] = 1.0
+            design[i, :n] = 0.0
+    sum_r2 = 0.0
+    for t in range(n):
+        if np.isnan(y[t]):
+            design[0, t] = 0.0
+            design[1, t] = 0.0
+            design[2, t] = 0.0
+            r[t] = 0.0
+        else:
+            r[t] = y[t] - (level + slope * (t - mt))
+            sum_r2 += r[t] * r[t]
+    for i in range(3):
+        for j in range(i + 1):
+            g = 0.0
+            for t in range(n):
+                g += design[i, t] * design[j, t]
+            gram[i, j] += g
+    low, _ = cholesky(gram, 1e-12)
     # the test: Koenker's m R^2 of r^2 on the harmonic
-    mean_r2 = (r2.sum(axis=1) / np.maximum(m, 1))[:, None]
-    explained = ((fit(r2) - np.where(present, mean_r2, 0.0)) ** 2).sum(axis=1)
-    total = (np.where(present, r2 - mean_r2, 0.0) ** 2).sum(axis=1)
-    df = used.sum(axis=1) - 1
-    ok = (df > 0) & (m > df + 1) & (total > 0)
-    statistic = m * explained / np.where(ok, total, np.inf)
-    steady = ok & (chi2.sf(statistic, np.maximum(df, 1)) < SEASONAL_LEVEL)
-    if not steady.any():
-        return matrix, steady
-    # the scale, of the rows that hold only: Harvey's log-squares fit, its constant set so that
-    # mean(r^2 / s_t^2) = 1, then one scoring step
-    design, gram, present, m, y, r, r2, centre = (a[steady] for a in (design, gram, present, m, y, r, r2, centre))
-    tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * np.abs(y).max(axis=1))[:, None] ** 2
-    log_s2 = fit(np.where(present, np.log(np.maximum(r2, tiny + np.finfo(np.float64).tiny)), 0.0))
-    ratio = np.where(present, r2 * np.exp(-log_s2), 0.0)
-    log_s2 += np.log(np.maximum(ratio.sum(axis=1) / np.maximum(m, 1), np.finfo(np.float64).tiny))[:, None]
-    log_s2 += fit(np.where(present, r2 * np.exp(-log_s2) - 1.0, 0.0))
-    s2 = np.where(present, np.exp(log_s2), 0.0)
-    shrink = np.minimum(np.sqrt((s2.sum(axis=1) / np.maximum(m, 1))[:, None] / np.where(present, s2, 1.0)), 1.0)
-    out = matrix.copy()
-    out[steady] = np.where(present, centre + r * shrink, np.nan)
-    return out, steady
+    for t in range(n):
+        target[t] = r[t] * r[t]
+    _harmonic_fit(design, low, target, fitted)
+    mean_r2 = sum_r2 / count
+    explained = 0.0
+    spread = 0.0
+    for t in range(n):
+        if not np.isnan(y[t]):
+            explained += (fitted[t] - mean_r2) ** 2
+            spread += (target[t] - mean_r2) ** 2
+    df = used - 1
+    if not (df > 0 and m > df + 1 and spread > 0 and m * explained / spread > critical[df]):
+        return False
+    # the scale: Harvey's log-squares fit, its constant set so that mean(r^2 / s_t^2) = 1, then one scoring step
+    tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * top) ** 2 + np.finfo(np.float64).tiny
+    for t in range(n):
+        target[t] = 0.0 if np.isnan(y[t]) else math.log(max(r[t] * r[t], tiny))
+    _harmonic_fit(design, low, target, log_s2)
+    ratio = 0.0
+    for t in range(n):
+        if not np.isnan(y[t]):
+            ratio += r[t] * r[t] * math.exp(-log_s2[t])
+    shift = math.log(max(ratio / count, np.finfo(np.float64).tiny))
+    for t in range(n):
+        log_s2[t] += shift
+        target[t] = 0.0 if np.isnan(y[t]) else r[t] * r[t] * math.exp(-log_s2[t]) - 1.0
+    _harmonic_fit(design, low, target, fitted)
+    mean_s2 = 0.0
+    for t in range(n):
+        log_s2[t] += fitted[t]
+        if not np.isnan(y[t]):
+            mean_s2 += math.exp(log_s2[t])
+    mean_s2 /= count
+    for t in range(n):
+        if not np.isnan(y[t]):
+            out[t] = level + slope * (t - mt) + r[t] * min(math.sqrt(mean_s2 / math.exp(log_s2[t])), 1.0)
+    return True
+
+
+@njit(cache=True, error_model="numpy")
+def _harmonic_fit(design, low, target, out) -> None:
+    """``out`` = the least-squares fit of ``target`` on the rows of ``design``, whose cross products have the
+    Cholesky factor ``low`` (a column with a zero pivot has coefficient 0)."""
+    k = design.shape[0]
+    n = len(out)
+    coef = np.zeros(k)
+    for a in range(k):
+        if low[a, a] > 0.0:
+            v = 0.0
+            for t in range(n):
+                v += design[a, t] * target[t]
+            for b in range(a):
+                v -= low[a, b] * coef[b]
+            coef[a] = v / low[a, a]
+    for a in range(k - 1, -1, -1):
+        if low[a, a] > 0.0:
+            v = coef[a]
+            for i in range(a + 1, k):
+                v -= low[i, a] * coef[i]
+            coef[a] = v / low[a, a]
+    for t in range(n):
+        v = 0.0
+        for a in range(k):
+            v += design[a, t] * coef[a]
+        out[t] = v
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
@@ -2187,13 +2295,14 @@ def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: 
         period = float(seasonal)
         return np.where(row_ok & (lengths >= 2.0 * period), period, np.nan)
     # imported here: periodicity is only needed for 'auto'
-    from tsql.kernels.periodicity import seasonality
+    from tsql.kernels.periodicity import cycle_test
 
     out = np.full(n_rows, np.nan)
-    rows = np.flatnonzero(row_ok & (_fisher_screen(Ragged(residual, batch.offsets, batch.valid)) < 2 * SEASONAL_LEVEL))
+    residuals = Ragged(residual, batch.offsets, batch.valid)
+    rows = np.flatnonzero(row_ok & (_fisher_screen(residuals) < 2 * SEASONAL_LEVEL))
     if len(rows) == 0:
         return out
-    found = seasonality(Ragged(residual, batch.offsets, batch.valid).take(rows))
+    found = cycle_test(residuals if len(rows) == n_rows else residuals.take(rows))
     # a cycle repeats: at least SEASONAL_CYCLES of it in the record, else it is a slow wander
     significant = (found["p_value"] < SEASONAL_LEVEL) & (found["period"] * SEASONAL_CYCLES <= lengths[rows])
     out[rows] = np.where(significant, found["period"], np.nan)
@@ -2275,15 +2384,18 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
     kind, value = _penalty(penalty)
     cycles = seasonal != "none" and batch.n_rows > 0
     fields, counts, slots, row_ok, residual = _run(batch, spec, kind, value, min_size, max_changes, cycles)
+    skip = int(skip_first)
+    first_counts = np.maximum(counts - skip, 0)
+    off1, source = _gather(first_counts, slots + skip)
+    fields = {name: column[source] for name, column in fields.items()}  # packed: the run's slots are let go
     cyclic = np.empty(0, dtype=np.int64)
     if cycles:
         periods = _periods(batch, residual, row_ok, seasonal)
         if np.isfinite(periods).any():
             cyclic, adjusted = _remove_cycles(batch, residual, periods)
-    skip = int(skip_first)
+    del residual
     if len(cyclic) == 0:
-        offsets, source = _gather(np.maximum(counts - skip, 0), slots + skip)
-        return {name: column[source] for name, column in fields.items()}, offsets, row_ok
+        return fields, off1, row_ok
     # the rows with a cycle are segmented again without it (and without the spread that follows it);
     # the others keep the first answer
     searched, steady = _steady_spread(adjusted, periods[cyclic], spec.code)
@@ -2302,16 +2414,16 @@ def _segment_in_range(batch, model, penalty, min_size, seasonal, max_changes, sk
         )
     row_ok = row_ok.copy()
     row_ok[cyclic] &= ok2  # with max_changes, a long row may have no answer without its cycle
-    first_counts = np.maximum(counts - skip, 0)
-    first_counts[cyclic] = 0
+    kept = first_counts.copy()
+    kept[cyclic] = 0
     second_counts = np.maximum(counts2 - skip, 0)
-    total = first_counts.copy()
+    total = kept.copy()
     total[cyclic] = second_counts
     offsets = np.zeros(len(total) + 1, dtype=np.int64)
     np.cumsum(total, out=offsets[1:])
-    off1, src1 = _gather(first_counts, slots + skip)
+    off_kept, src1 = _gather(kept, off1[:-1])
     off2, src2 = _gather(second_counts, slots2 + skip)
-    dest1 = np.arange(off1[-1]) + np.repeat(offsets[:-1] - off1[:-1], first_counts)
+    dest1 = np.arange(off_kept[-1]) + np.repeat(offsets[:-1] - off_kept[:-1], kept)
     dest2 = np.arange(off2[-1]) + np.repeat(offsets[cyclic] - off2[:-1], second_counts)
     out = {}
     for name, column in fields.items():
