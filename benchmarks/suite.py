@@ -446,19 +446,17 @@ def run(sizes: bench.Sizes, out: Path | None, only: set[str] | None = None) -> d
     return result
 
 
-#: Sections of RESULTS.md written by other scripts (benchmarks.first_run, benchmarks.threads) or by hand
-#: (benchmarks.screen_sql, benchmarks.screen_kernels): kept as they are.
-KEPT = ("## First run\n", "## Threads\n", "## Screening, measured by hand")
+#: Sections of RESULTS.md written by other scripts (benchmarks.first_run, benchmarks.threads), and every
+#: section whose heading says it was measured by hand: kept as they are, in their order.
+KEPT = ("## First run\n", "## Threads\n")
+BY_HAND = "measured by hand"
 
 
 def kept_sections(path: Path) -> str:
-    """The sections of ``KEPT`` in the RESULTS.md at ``path``, ready to append."""
+    """The sections of RESULTS.md at ``path`` that this run does not write (see ``KEPT``), ready to append."""
     old = path.read_text(encoding="utf-8") if path.exists() else ""
-    parts = []
-    for head in KEPT:
-        if head in old:
-            rest = old.split(head, 1)[1]
-            parts.append(head + (rest[: rest.find("\n## ") + 1] if "\n## " in rest else rest))
+    sections = ["## " + part for part in ("\n" + old).split("\n## ")[1:]]
+    parts = [part for part in sections if part.startswith(KEPT) or BY_HAND in part.split("\n", 1)[0]]
     return "".join("\n" + part.rstrip("\n") + "\n" for part in parts)
 
 
