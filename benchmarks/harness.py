@@ -6,12 +6,26 @@ compared alternate (a, b, c, a, b, c, ...), and only figures from the same run a
 
 from __future__ import annotations
 
+import importlib.util
 import math
 import multiprocessing
 import resource
 import statistics
+import sys
 import time
 from collections.abc import Callable
+from pathlib import Path
+
+
+def load_module(path: str, name: str | None = None):
+    """A copy of a module from another revision, loaded from the file at ``path`` as ``name`` (default: the
+    file's stem); registered in ``sys.modules``, where numba's cache and dataclasses look their module up."""
+    name = name or Path(path).stem
+    spec = importlib.util.spec_from_file_location(name, path)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module
+    spec.loader.exec_module(module)
+    return module
 
 
 def timed(fn: Callable[[], object]) -> float:

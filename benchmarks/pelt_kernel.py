@@ -41,16 +41,14 @@ All figures are medians of wall-clock times measured in this one run.
 from __future__ import annotations
 
 import argparse
-import importlib.util
 import math
 import statistics
-import sys
 import time
 
 import numpy as np
 
 from benchmarks.data import piecewise
-from benchmarks.harness import interleaved, median_seconds, timed
+from benchmarks.harness import interleaved, load_module, median_seconds, timed
 from benchmarks.loops import mad_sigma as sigma_first
 from tsql.kernels import changepoint
 from tsql.kernels.ragged import Ragged
@@ -188,10 +186,7 @@ def calm(n: int, longer: list[int], repeat: int, old_repeat: int) -> None:
 
 
 def against(path: str, lengths: list[int], repeat: int) -> None:
-    spec = importlib.util.spec_from_file_location("changepoint_against", path)
-    other = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = other  # its dataclasses look their module up
-    spec.loader.exec_module(other)
+    other = load_module(path, "changepoint_against")
     print(f"7. 'meanvar' and 'trend', one level shift (1 sigma) in the middle, BIC: {path} against this tree")
     for n in lengths:
         rng = np.random.default_rng(1)

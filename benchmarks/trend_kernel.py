@@ -13,14 +13,11 @@ row are medians of interleaved runs, from this one run.
 from __future__ import annotations
 
 import argparse
-import importlib.util
-import sys
-from pathlib import Path
 
 import numpy as np
 
 from benchmarks import data
-from benchmarks.harness import side_by_side
+from benchmarks.harness import load_module, side_by_side
 from tsql.kernels import trend
 from tsql.kernels.ragged import Ragged
 
@@ -39,16 +36,6 @@ def kinds(rows: int, points: int) -> dict[str, np.ndarray]:
     }
 
 
-def load(path: str):
-    """A copy of the kernel module from ``path``, under its file name as module name."""
-    name = Path(path).stem
-    spec = importlib.util.spec_from_file_location(name, path)
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module  # numba's cache finds the module by name
-    spec.loader.exec_module(module)
-    return module
-
-
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--rows", type=int, default=2000)
@@ -58,7 +45,7 @@ def main() -> None:
     args = parser.parse_args()
     versions = {"this": trend.trend_test}
     if args.beside:
-        versions["beside"] = load(args.beside).trend_test
+        versions["beside"] = load_module(args.beside).trend_test
     print(f"trend_test: {args.rows} rows x {args.points} points, us per row (medians of {args.repeat})")
     for name, values in kinds(args.rows, args.points).items():
         batch = Ragged(values.ravel().copy(), np.arange(0, values.size + 1, args.points, dtype=np.int64))

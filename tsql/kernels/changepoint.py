@@ -39,7 +39,7 @@ import numpy as np
 from numba import njit
 from scipy.stats import chi2
 
-from tsql.kernels.normal_equations import cholesky
+from tsql.kernels.normal_equations import cholesky, solve
 from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
 
 __all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
@@ -1975,20 +1975,7 @@ def _subtract_cycle(residual, period, out, design) -> None:
             for b in range(k):
                 gram[a, b] = 0.0
                 gram[b, a] = 0.0
-    low, _ = cholesky(gram, 1e-12)
-    coef = np.zeros(k)
-    for a in range(k):
-        if low[a, a] > 0.0:
-            v = rhs[a]
-            for b in range(a):
-                v -= low[a, b] * coef[b]
-            coef[a] = v / low[a, a]
-    for a in range(k - 1, -1, -1):
-        if low[a, a] > 0.0:
-            v = coef[a]
-            for i in range(a + 1, k):
-                v -= low[i, a] * coef[i]
-            coef[a] = v / low[a, a]
+    coef = solve(cholesky(gram, 1e-12)[0], rhs)
     for t in range(n):
         if np.isnan(residual[t]):
             continue
@@ -2244,21 +2231,13 @@ def _harmonic_fit(design, low, target, out) -> None:
     Cholesky factor ``low`` (a column with a zero pivot has coefficient 0)."""
     k = design.shape[0]
     n = len(out)
-    coef = np.zeros(k)
+    rhs = np.zeros(k)
     for a in range(k):
-        if low[a, a] > 0.0:
-            v = 0.0
-            for t in range(n):
-                v += design[a, t] * target[t]
-            for b in range(a):
-                v -= low[a, b] * coef[b]
-            coef[a] = v / low[a, a]
-    for a in range(k - 1, -1, -1):
-        if low[a, a] > 0.0:
-            v = coef[a]
-            for i in range(a + 1, k):
-                v -= low[i, a] * coef[i]
-            coef[a] = v / low[a, a]
+        v = 0.0
+        for t in range(n):
+            v += design[a, t] * target[t]
+        rhs[a] = v
+    coef = solve(low, rhs)
     for t in range(n):
         v = 0.0
         for a in range(k):

@@ -1,6 +1,6 @@
-"""Least squares from the normal equations: the Cholesky factor of a cross-product matrix, shared by
-the kernels that regress row by row in compiled code (the unit-root tests, the cycles that
-change_points removes)."""
+"""Least squares from the normal equations: the Cholesky factor of a cross-product matrix and the
+solve from it, shared by the kernels that regress row by row in compiled code (the unit-root tests,
+the cycles that change_points removes and the spread that follows them)."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import math
 import numpy as np
 from numba import njit
 
-__all__ = ["cholesky"]
+__all__ = ["cholesky", "solve"]
 
 
 @njit(cache=True, error_model="numpy")
@@ -39,3 +39,24 @@ def cholesky(g, tolerance=0.0):
                 t -= low[i, c] * low[j, c]
             low[i, j] = t / root
     return low, pivots
+
+
+@njit(cache=True, error_model="numpy")
+def solve(low, rhs):
+    """The coefficients of the normal equations ``(L L^T) b = rhs`` from their :func:`cholesky` factor
+    ``low``, by forward then back substitution; a column with a zero pivot gets coefficient 0."""
+    k = len(rhs)
+    coef = np.zeros(k)
+    for a in range(k):
+        if low[a, a] > 0.0:
+            v = rhs[a]
+            for b in range(a):
+                v -= low[a, b] * coef[b]
+            coef[a] = v / low[a, a]
+    for a in range(k - 1, -1, -1):
+        if low[a, a] > 0.0:
+            v = coef[a]
+            for i in range(a + 1, k):
+                v -= low[i, a] * coef[i]
+            coef[a] = v / low[a, a]
+    return coef
