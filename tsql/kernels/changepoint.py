@@ -2049,11 +2049,15 @@ def _cycle_factors(values, offsets, periods, k, out) -> None:
                 m += 1
         h = _harmonics(periods[r])
         w = 2.0 * np.pi * h / periods[r]
+        # the sum only grows: once the top sine has length above the floor, the rest cannot change that
+        floor = 1e-6 * math.sqrt(n)
         top = 0.0
         for t in range(n):
             s = math.sin(w * t)
             top += s * s
-        left = m - k - (2 * h - (math.sqrt(top) <= 1e-6 * math.sqrt(n)))
+            if math.sqrt(top) > floor:
+                break
+        left = m - k - (2 * h - (math.sqrt(top) <= floor))
         if left > 0:
             out[r] = (m - k) / left
 
