@@ -2151,57 +2151,24 @@ def _spread_row(y, period, code, critical, out, design, work) -> bool:
         if sxx > 0:
             slope = sxy / sxx
     r, fitted, target, log_s2 = work[0, :n], work[1, :n], work[2, :n], work[3, :n]
-    # a constant and the period's fundamental at the present values; a column that vanishes on the grid
-    # (a sine at Nyquist) is left out
-    w = 2.0 * np.pi / period
-    norms = np.zeros(3)
-    for t in range(n):
-        c = math.cos(w * t)
-        s = math.sin(w * t)
-        norms[0] += 1.0
-        norms[1] += c * c
-        norms[2] += s * s
-        design[0, t] = 1.0
-        design[1, t] = c
-        design[2, t] = s
-    gram = np.zeros((3, 3))
-    used = 0
-    for i in range(3):
-        if math.sqrt(norms[i]) > 1e-6 * math.sqrt(n):
-            used += 1
-        else:
-            gram[i, i] = 1.0
-            design[i, :n] = 0.0
     sum_r2 = 0.0
     for t in range(n):
         if np.isnan(y[t]):
-            design[0, t] = 0.0
-            design[1, t] = 0.0
-            design[2, t] = 0.0
             r[t] = 0.0
         else:
             r[t] = y[t] - (level + slope * (t - mt))
             sum_r2 += r[t] * r[t]
-    for i in range(3):
-        for j in range(i + 1):
-            g = 0.0
-            for t in range(n):
-                g += design[i, t] * design[j, t]
-            gram[i, j] += g
-    low, _ = cholesky(gram, 1e-12)
-    # the test: Koenker's m R^2 of r^2 on the harmonic
-    for t in range(n):
-        target[t] = r[t] * r[t]
-    _harmonic_fit(design, low, target, fitted)
-    mean_r2 = sum_r2 / count
-    explained = 0.0
-    spread = 0.0
-    for t in range(n):
-        if not np.isnan(y[t]):
-            explained += (fitted[t] - mean_r2) ** 2
-            spread += (target[t] - mean_r2) ** 2
-    df = used - 1
-    if not (df > 0 and m > df + 1 and spread > 0 and m * explained / spread > critical[df]):
+    # The test runs first on the harmonic turned from one position to the next (cheap, within some
+    # 1e-14 of the cosines), which settles a row whose statistic is below the critical value by far
+    # more than that can move it; any other row is tested again on the harmonic evaluated, the
+    # design the answer is defined with. A column's length is trusted alike only far from its floor.
+    w = 2.0 * np.pi / period
+    for exact in range(2):
+        low, used, statistic, near = _spread_test(y, n, m, count, w, exact == 1, r, sum_r2, design, fitted, target)
+        df = used - 1
+        if exact == 0 and not near and not statistic * (1.0 + _SPREAD_SETTLED) > critical[max(df, 0)]:
+            return False  # also when df, m or the spread leave no test: the exact pass says no as well
+    if not (df > 0 and m > df + 1 and statistic > critical[df]):
         return False
     # the scale: Harvey's log-squares fit, its constant set so that mean(r^2 / s_t^2) = 1, then one scoring step
     tiny = (ROUNDING_ULPS * np.finfo(np.float64).eps * top) ** 2 + np.finfo(np.float64).tiny
@@ -2229,24 +2196,109 @@ def _spread_row(y, period, code, critical, out, design, work) -> bool:
     return True
 
 
+#: the share by which the spread's statistic on the turned harmonic must fall short of the critical value for
+#: the test to stand without the exact harmonic (the two differ by some 1e-14 of it)
+_SPREAD_SETTLED = 1e-6
+
+
+@njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
+def _spread_test(y, n, m, count, w, exact, r, sum_r2, design, fitted, target):
+    """The Breusch-Pagan step of :func:`_spread_row`: a constant and the fundamental of frequency ``w`` in
+    ``design`` (evaluated when ``exact``, else turned), their Cholesky factor, the columns used, Koenker's
+    statistic ``m R^2`` (0 without a test) and whether a column's length was near its floor."""
+    # a column that vanishes on the grid (a sine at Nyquist) is left out
+    norms = np.zeros(3)
+    if exact:
+        for t in range(n):
+            c = math.cos(w * t)
+            s = math.sin(w * t)
+            norms[1] += c * c
+            norms[2] += s * s
+            design[1, t] = c
+            design[2, t] = s
+    else:
+        turn_c = math.cos(w)
+        turn_s = math.sin(w)
+        c = 1.0
+        s = 0.0
+        for t in range(n):
+            if t % _RESYNC == 0:
+                c = math.cos(w * t)
+                s = math.sin(w * t)
+            else:
+                c, s = c * turn_c - s * turn_s, s * turn_c + c * turn_s
+            norms[1] += c * c
+            norms[2] += s * s
+            design[1, t] = c
+            design[2, t] = s
+    for t in range(n):
+        norms[0] += 1.0
+        design[0, t] = 1.0
+    gram = np.zeros((3, 3))
+    used = 0
+    near = False
+    floor = 1e-6 * math.sqrt(n)
+    for i in range(3):
+        length = math.sqrt(norms[i])
+        near |= abs(length - floor) <= _SPREAD_SETTLED * floor
+        if length > floor:
+            used += 1
+        else:
+            gram[i, i] = 1.0
+            design[i, :n] = 0.0
+    for t in range(n):
+        if np.isnan(y[t]):
+            design[0, t] = 0.0
+            design[1, t] = 0.0
+            design[2, t] = 0.0
+    # the six sums side by side (each still in order of t: independent chains keep the pipeline busy)
+    g00 = g10 = g11 = g20 = g21 = g22 = 0.0
+    for t in range(n):
+        d0 = design[0, t]
+        d1 = design[1, t]
+        d2 = design[2, t]
+        g00 += d0 * d0
+        g10 += d1 * d0
+        g11 += d1 * d1
+        g20 += d2 * d0
+        g21 += d2 * d1
+        g22 += d2 * d2
+    gram[0, 0] += g00
+    gram[1, 0] += g10
+    gram[1, 1] += g11
+    gram[2, 0] += g20
+    gram[2, 1] += g21
+    gram[2, 2] += g22
+    low, _ = cholesky(gram, 1e-12)
+    # Koenker's m R^2 of r^2 on the harmonic
+    for t in range(n):
+        target[t] = r[t] * r[t]
+    _harmonic_fit(design, low, target, fitted)
+    mean_r2 = sum_r2 / count
+    explained = 0.0
+    spread = 0.0
+    for t in range(n):
+        if not np.isnan(y[t]):
+            explained += (fitted[t] - mean_r2) ** 2
+            spread += (target[t] - mean_r2) ** 2
+    df = used - 1
+    statistic = m * explained / spread if df > 0 and m > df + 1 and spread > 0 else 0.0
+    return low, used, statistic, near
+
+
 @njit(cache=True, error_model="numpy")
 def _harmonic_fit(design, low, target, out) -> None:
-    """``out`` = the least-squares fit of ``target`` on the rows of ``design``, whose cross products have the
-    Cholesky factor ``low`` (a column with a zero pivot has coefficient 0)."""
-    k = design.shape[0]
+    """``out`` = the least-squares fit of ``target`` on the three rows of ``design``, whose cross products have
+    the Cholesky factor ``low`` (a column with a zero pivot has coefficient 0)."""
     n = len(out)
-    rhs = np.zeros(k)
-    for a in range(k):
-        v = 0.0
-        for t in range(n):
-            v += design[a, t] * target[t]
-        rhs[a] = v
-    coef = solve(low, rhs)
+    v0 = v1 = v2 = 0.0  # side by side, each in order of t
     for t in range(n):
-        v = 0.0
-        for a in range(k):
-            v += design[a, t] * coef[a]
-        out[t] = v
+        v0 += design[0, t] * target[t]
+        v1 += design[1, t] * target[t]
+        v2 += design[2, t] * target[t]
+    coef = solve(low, np.array([v0, v1, v2]))
+    for t in range(n):
+        out[t] = ((0.0 + design[0, t] * coef[0]) + design[1, t] * coef[1]) + design[2, t] * coef[2]  # as a sum from 0
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
