@@ -367,19 +367,28 @@ def _gram(x, p, terms):
     where[0] = k
     for c in range(1, p + 1):
         where[c] = terms + c
-    fixed = np.empty((terms + 1, nobs))  # the deterministic terms and the level, as rows
+    last = terms + 1
+    rows = np.empty((terms + 2, nobs))  # the deterministic terms and the level, then y, as rows
     z = np.empty(k + 1)
     for i in range(nobs):
         _observation(x, p + i, 0, terms, z)
-        for a in range(terms + 1):
-            fixed[a, i] = z[a]
-    for a in range(terms + 1):
+        for a in range(last):
+            rows[a, i] = z[a]
+    rows[last] = d[p : p + nobs]
+    for a in range(last):
         for b in range(a + 1):
-            g[a, b] = g[b, a] = _dot(fixed[a], 0, fixed[b], 0, nobs)
-        for c in range(p + 1):
-            g[a, where[c]] = g[where[c], a] = _dot(fixed[a], 0, d, p - c, nobs)
-    for j in range(p + 1):
-        g[where[0], where[j]] = g[where[j], where[0]] = _dot(d, p, d, p - j, nobs)
+            g[a, b] = g[b, a] = _dot(rows[a], 0, rows[b], 0, nobs)
+    # each lag's window of the differences against the fixed rows and y, three rows in one pass
+    dots = np.empty(terms + 4)
+    pick = np.empty(3, dtype=np.int64)
+    for c in range(p + 1):
+        for a in range(0, terms + 2, 3):
+            for i in range(3):
+                pick[i] = min(a + i, last)  # past the last row: the last again
+            dots[a], dots[a + 1], dots[a + 2] = _dot3(rows, pick, d, p - c, nobs)
+        for a in range(last):
+            g[a, where[c]] = g[where[c], a] = dots[a]
+        g[where[0], where[c]] = g[where[c], where[0]] = dots[last]
     for i in range(p):
         for j in range(i, p):
             # lags i + 1, j + 1 over the window = lags i, j over the window one step earlier
@@ -404,6 +413,41 @@ def _dot(a, a0, b, b0, m):
         s0 += a[a0 + i] * b[b0 + i]
         i += 1
     return (s0 + s1) + (s2 + s3)
+
+
+@njit(cache=True, error_model="numpy")
+def _dot3(rows, a, b, b0, m):
+    """``_dot(rows[i], 0, b, b0, m)`` for ``i`` in ``a`` (three rows) in one pass over ``b``: the same sums in
+    the same order, twelve chains at once instead of four."""
+    x, y, z = rows[a[0]], rows[a[1]], rows[a[2]]
+    s0 = s1 = s2 = s3 = 0.0
+    u0 = u1 = u2 = u3 = 0.0
+    v0 = v1 = v2 = v3 = 0.0
+    i = 0
+    while i + 4 <= m:
+        b_0 = b[b0 + i]
+        b_1 = b[b0 + i + 1]
+        b_2 = b[b0 + i + 2]
+        b_3 = b[b0 + i + 3]
+        s0 += x[i] * b_0
+        s1 += x[i + 1] * b_1
+        s2 += x[i + 2] * b_2
+        s3 += x[i + 3] * b_3
+        u0 += y[i] * b_0
+        u1 += y[i + 1] * b_1
+        u2 += y[i + 2] * b_2
+        u3 += y[i + 3] * b_3
+        v0 += z[i] * b_0
+        v1 += z[i + 1] * b_1
+        v2 += z[i + 2] * b_2
+        v3 += z[i + 3] * b_3
+        i += 4
+    while i < m:
+        s0 += x[i] * b[b0 + i]
+        u0 += y[i] * b[b0 + i]
+        v0 += z[i] * b[b0 + i]
+        i += 1
+    return (s0 + s1) + (s2 + s3), (u0 + u1) + (u2 + u3), (v0 + v1) + (v2 + v3)
 
 
 @njit(cache=True, error_model="numpy")
