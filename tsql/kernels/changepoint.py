@@ -110,7 +110,16 @@ def _select(a: np.ndarray, k: int, n: int) -> float:
 
     Median-of-three pivots; afterwards every ``a[i]`` with ``i < k`` is at most
     the answer.
+
+    Each partition makes Hoare's exchanges, in his order, without his data-dependent
+    branches: his left scan stops, in turn, at the positions (ascending) whose value is
+    not below the pivot, his right one at those (descending) whose value is not above
+    it, so the ``q``-th exchange swaps the ``q``-th of each list, for as long as the
+    two have not crossed; both lists are made first, branch-free, and where the scans
+    end follows from them. The array ends as his does (the callers sum parts of it).
     """
+    left = np.empty(n, dtype=np.int64)
+    right = np.empty(n, dtype=np.int64)
     lo = 0
     hi = n - 1
     while lo < hi:
@@ -118,17 +127,34 @@ def _select(a: np.ndarray, k: int, n: int) -> float:
         y = a[(lo + hi) // 2]
         z = a[hi]
         pivot = max(min(x, y), min(max(x, y), z))
-        i = lo
-        j = hi
-        while i <= j:
-            while a[i] < pivot:
-                i += 1
-            while a[j] > pivot:
-                j -= 1
+        n_left = 0
+        for i in range(lo, hi + 1):
+            left[n_left] = i
+            n_left += not (a[i] < pivot)
+        n_right = 0
+        for j in range(hi, lo - 1, -1):
+            right[n_right] = j
+            n_right += not (a[j] > pivot)
+        q = 0
+        while q < n_left and q < n_right and left[q] <= right[q]:
+            i = left[q]
+            j = right[q]
+            a[i], a[j] = a[j], a[i]
+            q += 1
+        if q == 0:
+            i = left[0]
+            j = right[0]
+        else:
+            # after the last exchange: the scans run again only if the two ends have not met
+            i = left[q - 1] + 1
+            j = right[q - 1] - 1
             if i <= j:
-                a[i], a[j] = a[j], a[i]
-                i += 1
-                j -= 1
+                # positions i..j are as they were; beyond them lie the values just exchanged,
+                # where each scan stops at the latest
+                end_i = j + 1
+                end_j = i - 1
+                i = left[q] if q < n_left and left[q] <= end_i - 1 else end_i
+                j = right[q] if q < n_right and right[q] >= end_j + 1 else end_j
         # a[lo..j] <= pivot <= a[i..hi], and a[j + 1..i - 1] == pivot
         if k <= j:
             hi = j
