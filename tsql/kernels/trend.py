@@ -99,7 +99,18 @@ def _sort_count(key, idx, work_key, work_idx):
     two chains of work that do not wait on each other."""
     n = len(key)
     inv = 0
-    for s in range(0, n, _RUN):
+    whole = n - n % _RUN
+    for s in range(0, whole, _RUN):
+        # runs of four by odd-even transposition, branch-free: exchanges of neighbours out of order (as
+        # insertion makes them: stable, one per inversion)
+        for p in (0, 2, 1, 0, 2, 1):
+            a, b = s + p, s + p + 1
+            ka, kb, ia, ib = key[a], key[b], idx[a], idx[b]
+            out = kb < ka
+            key[a], key[b] = (kb, ka) if out else (ka, kb)
+            idx[a], idx[b] = (ib, ia) if out else (ia, ib)
+            inv += out
+    for s in range(whole, n, _RUN):
         e = min(s + _RUN, n)
         for p in range(s + 1, e):
             k, v, q = key[p], idx[p], p
@@ -206,21 +217,39 @@ def _select(v, k):
     """Reorder ``v`` in place so that ``v[k]`` is its ``k``-th smallest
     (0-based), none larger before it and none smaller after; returns it.
     Hoare's partition around a median of three (no sorting routine: a short
-    compile)."""
-    lo, hi = 0, len(v) - 1
+    compile), his exchanges made without his data-dependent branches: his
+    left scan stops, in turn, at the positions whose value is not below the
+    pivot, his right one at those whose value is not above it, so both lists
+    are made first, branch-free, and the ``q``-th exchange swaps the ``q``-th
+    of each until they cross (as ``changepoint._select``)."""
+    n = len(v)
+    left = np.empty(n, dtype=np.int64)
+    right = np.empty(n, dtype=np.int64)
+    lo, hi = 0, n - 1
     while lo < hi:
         a, b, c = v[lo], v[(lo + hi) // 2], v[hi]
         pivot = max(min(a, b), min(max(a, b), c))
-        i, j = lo, hi
-        while i <= j:
-            while v[i] < pivot:
-                i += 1
-            while v[j] > pivot:
-                j -= 1
-            if i <= j:
-                v[i], v[j] = v[j], v[i]
-                i += 1
-                j -= 1
+        n_left = 0
+        for i in range(lo, hi + 1):
+            left[n_left] = i
+            n_left += not (v[i] < pivot)
+        n_right = 0
+        for j in range(hi, lo - 1, -1):
+            right[n_right] = j
+            n_right += not (v[j] > pivot)
+        q = 0
+        while q < n_left and q < n_right and left[q] <= right[q]:
+            i, j = left[q], right[q]
+            v[i], v[j] = v[j], v[i]
+            q += 1
+        if q == 0:
+            i, j = left[0], right[0]
+        else:  # after the last exchange the scans run again only if the ends have not met
+            i, j = left[q - 1] + 1, right[q - 1] - 1
+            if i <= j:  # i..j are as they were; each scan stops at the latest on a value just exchanged
+                end_i, end_j = j + 1, i - 1
+                i = left[q] if q < n_left and left[q] < end_i else end_i
+                j = right[q] if q < n_right and right[q] > end_j else end_j
         if k <= j:
             hi = j
         elif k >= i:
