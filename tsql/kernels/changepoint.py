@@ -606,6 +606,11 @@ def _fpop(stats, m, beta, length_term, use_length_term, min_size, F, last, start
     out_lows = bounds[2]
     out_highs = bounds[3]
     squares = _SQUARES_MARGIN * stats[1, m]
+    # the reciprocals of the segment lengths, each divided once (a division per start and step is
+    # the costliest step of the pass; looked up, the value is the same)
+    reciprocal = np.empty(m + 1)
+    for length in range(1, m + 1):
+        reciprocal[length] = 1.0 / float(length)
     n = 0
     for t in range(min_size, m + 1):
         a1 = stats[0, t]
@@ -638,7 +643,7 @@ def _fpop(stats, m, beta, length_term, use_length_term, min_size, F, last, start
             keep = True
             if admit:
                 length = cf - sj
-                inv = 1.0 / length
+                inv = reciprocal[int(length)]
                 s1 = ca1 - s1_j
                 mean = s1 * inv
                 gap = f_c - fs - ((ca2 - s2_j) - s1 * mean)

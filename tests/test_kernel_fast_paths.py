@@ -1,0 +1,123 @@
+"""The kernels' branch-free and shortcut forms against the plain procedures they must equal exactly.
+
+The noise scale of change_points sums parts of an array in the order Hoare's FIND leaves it, so its
+selection must make his exchanges, in his order: checked against FIND written out plainly from the
+paper (C. A. R. Hoare, "Algorithm 65: Find", Communications of the ACM 4(7), 321-322, 1961; pivot a
+median of three, as the kernels choose it). trend_test's merge sort must give the stable order
+(numpy's stable argsort) and the inversion count (counted pair by pair). The spread test of
+change_points settles most rows on a harmonic turned from one position to the next; its statistic
+must lie far within the margin it is trusted by of the one on the evaluated harmonic.
+"""
+
+import math
+
+import numpy as np
+import pytest
+import statsmodels.datasets
+
+from tsql.kernels import changepoint, trend
+
+
+def hoare_find(a: np.ndarray, k: int, n: int) -> float:
+    """Hoare's FIND on ``a[:n]`` for the k-th smallest (0-based), in place, as the paper's loop."""
+    lo, hi = 0, n - 1
+    while lo < hi:
+        x, y, z = a[lo], a[(lo + hi) // 2], a[hi]
+        pivot = max(min(x, y), min(max(x, y), z))
+        i, j = lo, hi
+        while i <= j:
+            while a[i] < pivot:
+                i += 1
+            while a[j] > pivot:
+                j -= 1
+            if i <= j:
+                a[i], a[j] = a[j], a[i]
+                i += 1
+                j -= 1
+        if k <= j:
+            hi = j
+        elif k >= i:
+            lo = i
+        else:
+            return a[k]
+    return a[k]
+
+
+def arrays(seed: int):
+    """Random, tied, sorted, reversed and few-valued arrays of many lengths."""
+    rng = np.random.default_rng(seed)
+    for n in [1, 2, 3, 4, 5, 7, 8, 16, 33, 100, 257, 999]:
+        yield rng.standard_normal(n)
+        yield rng.integers(0, 3, n).astype(float)
+        yield np.sort(rng.standard_normal(n))
+        yield np.sort(rng.standard_normal(n))[::-1].copy()
+        yield np.round(rng.standard_normal(n), 1) ** 2
+        yield np.full(n, 2.5)
+
+
+@pytest.mark.parametrize("select", ["changepoint", "trend"])
+def test_selection_makes_hoares_exchanges(select):
+    rng = np.random.default_rng(4)
+    for a in arrays(3):
+        n = len(a)
+        for k in sorted({0, n // 2, n - 1, int(rng.integers(0, n))}):
+            mine, plain = a.copy(), a.copy()
+            if select == "changepoint":
+                m = n if n < 3 else int(rng.integers(n // 2 + 1, n + 1))  # a prefix, as the noise scale uses
+                k = min(k, m - 1)
+                got = changepoint._select(mine, np.int64(k), np.int64(m))
+            else:
+                m = n
+                got = trend._select(mine, np.int64(k))
+            assert got == hoare_find(plain, k, m)
+            np.testing.assert_array_equal(mine, plain)  # the same arrangement, not only the same value
+
+
+def test_merge_sort_order_and_count():
+    for a in arrays(5):
+        n = len(a)
+        key, idx = a.copy(), np.arange(n, dtype=np.int64)
+        count = trend._sort_count(key, idx, np.empty(n), np.empty(n, dtype=np.int64))
+        order = np.argsort(a, kind="stable")  # reference: numpy's stable sort
+        np.testing.assert_array_equal(idx, order)
+        np.testing.assert_array_equal(key, a[order])
+        assert count == sum(int((a[p] > a[p + 1 :]).sum()) for p in range(n))  # pair by pair
+
+
+def spread_inputs(y: np.ndarray):
+    """What _spread_row hands its test: the deviations from the mean, their squares' sum, present count."""
+    present = ~np.isnan(y)
+    m = int(present.sum())
+    level = y[present].sum() / m
+    r = np.where(present, y - level, 0.0)
+    return m, r, float((r[present] ** 2).sum())
+
+
+def test_spread_statistic_on_the_turned_harmonic_within_its_margin():
+    # real series (statsmodels datasets: Mauna Loa CO2 weekly, sunspots, El Nino monthly temperatures)
+    # and a seeded one whose noise grows with its cycle, over periods short, long and at Nyquist
+    co2 = statsmodels.datasets.co2.load_pandas().data["co2"].to_numpy(float)
+    sunspots = statsmodels.datasets.sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(float)
+    elnino = statsmodels.datasets.elnino.load_pandas().data.iloc[:, 1:].to_numpy(float).ravel()
+    k = np.arange(2000)
+    rng = np.random.default_rng(0)
+    growing = 10 + 3 * np.sin(2 * np.pi * k / 12) + (1 + 0.8 * np.sin(2 * np.pi * k / 12)) * rng.standard_normal(2000)
+    largest = 0.0
+    for y in (co2, sunspots, elnino, growing, growing[:37]):
+        n = len(y)
+        m, r, sum_r2 = spread_inputs(y)
+        for period in (2.0, 3.0, 7.0, 11.0, 12.0, 52.18, n / 4.0):
+            w = 2.0 * np.pi / period
+            found = []
+            for exact in (False, True):
+                design, fitted, target = np.empty((3, n)), np.empty(n), np.empty(n)
+                low, used, statistic, near = changepoint._spread_test(
+                    y, n, m, max(m, 1), w, exact, r, sum_r2, design, fitted, target
+                )
+                found.append((used, statistic, near))
+            (used_t, turned, near_t), (used_e, evaluated, _) = found
+            assert near_t or used_t == used_e
+            largest = max(largest, abs(turned - evaluated) / max(evaluated, 1.0))
+    # the margin the turned harmonic is trusted by is many orders of magnitude above the gap
+    assert largest < 1e-4 * changepoint._SPREAD_SETTLED
+    assert math.isfinite(largest)
