@@ -1962,44 +1962,59 @@ def _subtract_cycle(residual, period, out, design) -> None:
     whose levels are the segments' to say. Normal equations by Cholesky; a column that
     depends on the others (too few present values) is left out too: every least-squares
     solution fits the present values alike, and only they are written (``out`` is NaN where
-    ``residual`` is). ``design`` is scratch of at least ``n * 2 MAX_HARMONICS`` values.
+    ``residual`` is). ``design`` is scratch of at least ``n * (2 MAX_HARMONICS + 1)`` values.
     """
     n = len(residual)
     h = _harmonics(period)
     k = 2 * h
+    wide = (k + 3) // 4 * 4  # the columns in blocks of four (the last padded with zeros)
     w = 2.0 * np.pi / period
     turn_c = math.cos(w)
     turn_s = math.sin(w)
     norms = np.zeros(k)
+    present = 0
+    for t in range(n):
+        present += not np.isnan(residual[t])
+    # the columns at the present positions, one per row, then the residual there
+    cols = design[: (wide + 1) * present].reshape(wide + 1, present)
+    cols[k:wide] = 0.0
     c = 1.0
     sn = 0.0
+    i = 0
     for t in range(n):
         if t % _RESYNC == 0:
             c = math.cos(w * t)
             sn = math.sin(w * t)
         else:
             c, sn = c * turn_c - sn * turn_s, sn * turn_c + c * turn_s
-        row = design[t * k : t * k + k]
+        r = residual[t]
+        here = not np.isnan(r)
         cj = c
         sj = sn
         for j in range(h):
-            row[j] = cj
-            row[h + j] = sj
+            if here:
+                cols[j, i] = cj
+                cols[h + j, i] = sj
             norms[j] += cj * cj
             norms[h + j] += sj * sj
             cj, sj = cj * c - sj * sn, sj * c + cj * sn
+        if here:
+            cols[wide, i] = r
+            i += 1
+    # the cross products by blocks of four columns against four (sixteen sums side by side, each over the
+    # present positions in order, from 0: the sums a loop over the positions makes)
     gram = np.zeros((k, k))
     rhs = np.zeros(k)
-    for t in range(n):
-        r = residual[t]
-        if np.isnan(r):
-            continue
-        row = design[t * k : t * k + k]
-        for a in range(k):
-            da = row[a]
-            rhs[a] += da * r
-            for b in range(a + 1):
-                gram[a, b] += da * row[b]
+    block = np.empty((4, 4))
+    for a0 in range(0, wide, 4):
+        for b0 in range(0, a0 + 1, 4):
+            _cross4(cols, a0, b0, present, block)
+            for a in range(a0, min(a0 + 4, k)):
+                for b in range(b0, min(b0 + 4, a + 1)):
+                    gram[a, b] = block[a - a0, b - b0]
+        _cross1(cols, a0, wide, present, block[0])
+        for a in range(a0, min(a0 + 4, k)):
+            rhs[a] = block[0, a - a0]
     floor = 1e-6 * math.sqrt(n)
     for a in range(k):
         if not math.sqrt(norms[a]) > floor:  # left out: a zero column has no length to factor
@@ -2007,14 +2022,62 @@ def _subtract_cycle(residual, period, out, design) -> None:
                 gram[a, b] = 0.0
                 gram[b, a] = 0.0
     coef = solve(cholesky(gram, 1e-12)[0], rhs)
+    i = 0
     for t in range(n):
         if np.isnan(residual[t]):
             continue
-        row = design[t * k : t * k + k]
         fitted = 0.0
         for a in range(k):
-            fitted += coef[a] * row[a]
+            fitted += coef[a] * cols[a, i]
         out[t] -= fitted
+        i += 1
+
+
+@njit(cache=True, error_model="numpy")
+def _cross4(cols, a0, b0, m, out) -> None:
+    """``out[i, j] = sum_t cols[a0 + i, t] * cols[b0 + j, t]`` over ``t < m`` in order, the sixteen at once."""
+    x0, x1, x2, x3 = cols[a0], cols[a0 + 1], cols[a0 + 2], cols[a0 + 3]
+    y0, y1, y2, y3 = cols[b0], cols[b0 + 1], cols[b0 + 2], cols[b0 + 3]
+    s00 = s01 = s02 = s03 = s10 = s11 = s12 = s13 = 0.0
+    s20 = s21 = s22 = s23 = s30 = s31 = s32 = s33 = 0.0
+    for t in range(m):
+        p0, p1, p2, p3 = x0[t], x1[t], x2[t], x3[t]
+        q0, q1, q2, q3 = y0[t], y1[t], y2[t], y3[t]
+        s00 += p0 * q0
+        s01 += p0 * q1
+        s02 += p0 * q2
+        s03 += p0 * q3
+        s10 += p1 * q0
+        s11 += p1 * q1
+        s12 += p1 * q2
+        s13 += p1 * q3
+        s20 += p2 * q0
+        s21 += p2 * q1
+        s22 += p2 * q2
+        s23 += p2 * q3
+        s30 += p3 * q0
+        s31 += p3 * q1
+        s32 += p3 * q2
+        s33 += p3 * q3
+    out[0, 0], out[0, 1], out[0, 2], out[0, 3] = s00, s01, s02, s03
+    out[1, 0], out[1, 1], out[1, 2], out[1, 3] = s10, s11, s12, s13
+    out[2, 0], out[2, 1], out[2, 2], out[2, 3] = s20, s21, s22, s23
+    out[3, 0], out[3, 1], out[3, 2], out[3, 3] = s30, s31, s32, s33
+
+
+@njit(cache=True, error_model="numpy")
+def _cross1(cols, a0, b, m, out) -> None:
+    """``out[i] = sum_t cols[a0 + i, t] * cols[b, t]`` over ``t < m`` in order, the four at once."""
+    x0, x1, x2, x3 = cols[a0], cols[a0 + 1], cols[a0 + 2], cols[a0 + 3]
+    y = cols[b]
+    s0 = s1 = s2 = s3 = 0.0
+    for t in range(m):
+        q = y[t]
+        s0 += x0[t] * q
+        s1 += x1[t] * q
+        s2 += x2[t] * q
+        s3 += x3[t] * q
+    out[0], out[1], out[2], out[3] = s0, s1, s2, s3
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
@@ -2023,7 +2086,7 @@ def _subtract_cycles(residual, offsets, rows, periods, out, out_offsets) -> None
     longest = 0
     for i in range(len(rows)):
         longest = max(longest, out_offsets[i + 1] - out_offsets[i])
-    design = np.empty(longest * 2 * MAX_HARMONICS)
+    design = np.empty(longest * (2 * MAX_HARMONICS + 1))
     for i in range(len(rows)):
         r = rows[i]
         _subtract_cycle(
