@@ -184,10 +184,10 @@ def test_calls_cut_for_the_threads_answer_as_whole_calls(rows, monkeypatch):
     query = f"SELECT g, {', '.join(forms)} FROM data GROUP BY g ORDER BY g"
     got, cut = [], []
 
-    def counted(run_pieces):
-        def run(work, first, stop, pieces):
-            cut.append(pieces)
-            run_pieces(work, first, stop, pieces)
+    def counted(run_each):
+        def run(work, count, threads):
+            cut.append(min(count, threads))
+            run_each(work, count, threads)
 
         return run
 
@@ -197,8 +197,8 @@ def test_calls_cut_for_the_threads_answer_as_whole_calls(rows, monkeypatch):
             monkeypatch.setattr(list_form, "PIECE_POINTS", 4096)
             monkeypatch.setattr(parallel, "cores", lambda: 4)
             monkeypatch.setattr(list_form, "cores", lambda: 4)
-            monkeypatch.setattr(parallel, "run_pieces", counted(parallel.run_pieces))
-            monkeypatch.setattr(list_form, "run_pieces", counted(list_form.run_pieces))
+            monkeypatch.setattr(parallel, "run_each", counted(parallel.run_each))
+            monkeypatch.setattr(list_form, "run_each", counted(list_form.run_each))
         con = tsql.connect(config={"threads": threads})
         con.register("data", rows)
         got.append(con.execute(query).fetchall())
