@@ -540,7 +540,7 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
         def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
             part = obs if rows is None else obs.take(pa.array(rows))
             type_name, span, fill, same_time, *arguments = key
-            bounds = row_pieces([part], form.piece_points)
+            bounds = row_pieces([part], form.piece_points, min(threads, parallel.cores()))
             pieces: dict[int, pa.Array] = {}
 
             def work(i: int) -> None:

@@ -77,7 +77,7 @@ def _answer(fn: Function, series: list[pa.Array], key: tuple, n_rows: int, threa
     # a row's answer does not depend on the rows beside it: cut, the call answers as a whole
     threads = min(threads, n_rows // PIECE_ROWS)  # one thread per PIECE_ROWS rows at least
     if fn.name in CUT_FOR_THREADS:  # pieces of about PIECE_POINTS elements, taken by the threads in turn
-        bounds = row_pieces(series, PIECE_POINTS)
+        bounds = row_pieces(series, PIECE_POINTS, min(threads, cores()))
     else:  # the pair functions' kernels budget their own work: one piece per thread
         pieces = max(1, min(threads, cores()))
         bounds = [(p * n_rows // pieces, (p + 1) * n_rows // pieces) for p in range(pieces)]
