@@ -2,8 +2,9 @@
 
 Kernels do not use numba's ``parallel=True``: it multiplies compile time, and DuckDB already runs a
 UDF from each of its threads (a ``nogil`` kernel lets those calls run at once). Only work that
-arrives as one call for a whole query (``dtw_nearest`` over all items) or that DuckDB hands over from
-one thread (the pairs of a self-join: ``forms.list_form``) is cut into pieces here.
+arrives as one call for a whole query (``dtw_nearest`` over all items), that DuckDB hands over from
+one thread (the pairs of a self-join: ``forms.list_form``) or in calls too few for its threads (the
+screen's, ``forms.agg.ROW_BY_ROW``) is cut into pieces here; each thread takes the next piece left.
 """
 
 from __future__ import annotations
