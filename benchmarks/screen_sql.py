@@ -7,15 +7,22 @@ the floor (the GROUP BY that only builds each ordered list), ``screen_agg(v, t)`
 diagnostics from each function's own ``*_agg`` form in one query. Ratios are taken within each
 round and their medians printed. ``--each`` also times every part alone, once, to show where the
 time goes, and the cores each query used (CPU time over wall time of a second run of it; 2.0 is both cores of
-a two-core machine). Each query ends in ``count(result)``: results are computed in full, not converted.
+a two-core machine) and wanted (its threads running or ready to run, at most two at a time: the cores it would use
+on an idle machine, see :func:`wanted_cores`). Each query ends in ``count(result)``: results are computed in
+full, not converted.
 """
 
 from __future__ import annotations
 
 import argparse
+import json
+import os
 import statistics
+import subprocess
+import sys
 import time
 from collections.abc import Callable
+from pathlib import Path
 
 import tsql
 from benchmarks import data
@@ -49,6 +56,58 @@ def cpu_and_wall(run: Callable[[], object]) -> tuple[float, float]:
     return time.process_time() - cpu, time.perf_counter() - wall
 
 
+_SAMPLER = """
+import json, os, select, sys, time
+tasks = f"/proc/{sys.argv[1]}/task"
+samples = []
+def sample():
+    seen = {}
+    for tid in os.listdir(tasks):
+        try:
+            with open(f"{tasks}/{tid}/schedstat") as f:
+                on_core, waiting, _ = f.read().split()
+        except (OSError, ValueError):  # a thread that ended
+            continue
+        seen[tid] = int(on_core) + int(waiting)
+    samples.append((time.perf_counter(), seen))
+sample()
+print("ready", flush=True)
+while not select.select([sys.stdin], [], [], float(sys.argv[2]))[0]:  # until a line after the run
+    sample()
+sample()
+print(json.dumps(samples))
+"""
+
+
+def wanted_cores(run: Callable[[], object], cap: int = 2, every: float = 0.01) -> float:
+    """How many cores ``run`` could use, up to ``cap``, whatever else the machine runs (Linux; NaN elsewhere).
+
+    Another process reads each thread's time on a core and waiting for one (``/proc/<pid>/task/*/schedstat``)
+    every ``every`` seconds: its growth over an interval, summed over the threads, counts those that were
+    running or ready to run (not waiting for the GIL, a lock or work); at most ``cap`` of them count. The
+    average over the run is the cores used on an otherwise idle machine of ``cap`` cores. (A thread holding
+    the GIL that the machine sets aside for another process's still makes the others wait: under load the
+    figure is somewhat low.)
+    """
+    if not Path(f"/proc/{os.getpid()}/task").exists():
+        return float("nan")
+    sampler = subprocess.Popen(
+        [sys.executable, "-c", _SAMPLER, str(os.getpid()), str(every)],
+        stdin=subprocess.PIPE,
+        stdout=subprocess.PIPE,
+        text=True,
+    )
+    sampler.stdout.readline()  # "ready"
+    run()
+    out, _ = sampler.communicate("done\n")
+    samples = json.loads(out)
+    used = 0.0
+    for (t0, before), (t1, after) in zip(samples, samples[1:]):
+        busy = sum(ns - before.get(tid, 0) for tid, ns in after.items())  # a new thread: all its time is new
+        used += min(cap * (t1 - t0), busy / 1e9)
+    return used / (samples[-1][0] - samples[0][0])
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--groups", type=int, default=10_000)
@@ -77,10 +136,15 @@ def main() -> None:
     print(f"  screen_agg / one by one  {ratio('screen_agg', 'one by one'):6.2f}x")
     if args.each:
         floor = statistics.median(times["floor"])
-        print("  each query alone, its second run: wall, over the floor's median, cores used (CPU / wall)")
+        print(
+            "  each query alone, its second run: wall, over the floor's median, cores used (CPU / wall), and a third"
+            " run's cores wanted (of 2; see wanted_cores)"
+        )
         for name, call in {"floor": FLOOR, "screen_agg": SCREEN, **PARTS}.items():
             cpu, wall = cpu_and_wall(lambda call=call: con.execute(query(call)).fetchall())
-            print(f"  {name:<16} {wall:8.2f} s  {wall / floor:6.2f}x floor  {cpu / wall:5.2f} cores")
+            wanted = wanted_cores(lambda call=call: con.execute(query(call)).fetchall())
+            used = f"{cpu / wall:5.2f} cores  {wanted:4.2f} wanted"
+            print(f"  {name:<16} {wall:8.2f} s  {wall / floor:6.2f}x floor  {used}")
 
 
 if __name__ == "__main__":

@@ -184,10 +184,10 @@ def test_calls_cut_for_the_threads_answer_as_whole_calls(rows, monkeypatch):
     query = f"SELECT g, {', '.join(forms)} FROM data GROUP BY g ORDER BY g"
     got, cut = [], []
 
-    def counted(run_pieces):
-        def run(work, first, stop, pieces):
-            cut.append(pieces)
-            run_pieces(work, first, stop, pieces)
+    def counted(run_each):
+        def run(work, count, threads):
+            cut.append(min(count, threads))
+            run_each(work, count, threads)
 
         return run
 
@@ -197,8 +197,8 @@ def test_calls_cut_for_the_threads_answer_as_whole_calls(rows, monkeypatch):
             monkeypatch.setattr(list_form, "PIECE_POINTS", 4096)
             monkeypatch.setattr(parallel, "cores", lambda: 4)
             monkeypatch.setattr(list_form, "cores", lambda: 4)
-            monkeypatch.setattr(parallel, "run_pieces", counted(parallel.run_pieces))
-            monkeypatch.setattr(list_form, "run_pieces", counted(list_form.run_pieces))
+            monkeypatch.setattr(parallel, "run_each", counted(parallel.run_each))
+            monkeypatch.setattr(list_form, "run_each", counted(list_form.run_each))
         con = tsql.connect(config={"threads": threads})
         con.register("data", rows)
         got.append(con.execute(query).fetchall())
@@ -566,6 +566,91 @@ def test_a_piece_on_the_pool_sees_the_interrupts_of_its_call():
     with pytest.raises(Interrupted, match="interrupted by tsql.interrupt"):
         watching(lambda: run_pieces(piece, 0, 4, 2), cancel)()
     assert seen
+
+
+def test_run_each_gives_every_piece_to_one_thread_and_raises_the_first_failure(monkeypatch):
+    """``parallel.run_each``: each piece runs once, on at most the threads asked for (the caller among them),
+    pieces of any cost; a failure is raised after all pieces ran, the lowest piece's first."""
+    from tsql.kernels import parallel
+
+    monkeypatch.setattr(parallel, "cores", lambda: 2)
+    ran: list[tuple[int, str]] = []
+
+    def work(i: int) -> None:
+        np.linalg.eigvalsh(np.eye(60 * (i % 5 + 1)))  # pieces of different cost
+        ran.append((i, threading.current_thread().name))
+
+    parallel.run_each(work, 23, 2)
+    assert sorted(i for i, _ in ran) == list(range(23))
+    assert len({name for _, name in ran}) <= 2
+    ran.clear()
+    parallel.run_each(work, 5, 1)
+    assert [i for i, _ in ran] == list(range(5)) and {name for _, name in ran} == {threading.current_thread().name}
+
+    def failing(i: int) -> None:
+        ran.append((i, ""))
+        if i in (3, 7):
+            raise ValueError(f"piece {i}")
+
+    ran.clear()
+    with pytest.raises(ValueError, match="piece 3"):
+        parallel.run_each(failing, 10, 2)
+    assert sorted(i for i, _ in ran) == list(range(10))
+
+
+def test_even_pieces_for_the_threads_cover_the_rows_once():
+    """``forms.arrow.row_pieces`` for threads: a multiple of the threads of pieces, none above the budget,
+    covering every row once in order; for one thread the budget's own cut."""
+    from tsql.forms.arrow import row_pieces
+
+    rng = np.random.default_rng(3)
+    column = pa.array([[0.0] * int(n) for n in rng.integers(0, 400, 3000)])  # rows of 0..399 elements
+    offsets = np.asarray(column.offsets)
+    for budget in (5_000, 40_000, 262_144):
+        for threads in (1, 2, 3):
+            bounds = row_pieces([column], budget, threads)
+            assert bounds[0][0] == 0 and bounds[-1][1] == len(column)
+            assert all(a[1] == b[0] for a, b in zip(bounds, bounds[1:]))
+            sizes = [offsets[b] - offsets[a] for a, b in bounds]
+            assert max(sizes) <= budget + 400  # a row is never split
+            if threads > 1:
+                assert len(bounds) % threads == 0 and max(sizes) - min(sizes) <= 2 * 400
+
+
+def test_the_screen_answers_alike_however_its_calls_are_cut(monkeypatch):
+    """``screen`` and ``screen_agg`` over series of many lengths, gaps and constants: the same answers, bit for
+    bit, whole on one thread as cut in small pieces over two and three threads."""
+    from tsql.forms import agg, list_form
+    from tsql.kernels import parallel
+
+    rng = np.random.default_rng(17)
+    g, t, v = [], [], []
+    for k in range(700):
+        n = int(rng.integers(2, 30)) if k % 5 == 0 else int(rng.integers(30, 300))
+        x = np.sin(2 * np.pi * np.arange(n) / (7 + k % 5)) + rng.standard_normal(n)
+        if k % 7 == 0:
+            x[rng.random(n) < 0.2] = np.nan
+        if k % 11 == 0:
+            x[:] = 3.0
+        g += [k] * n
+        t += list(range(n))
+        v += list(x)
+    rows = pa.table({"g": g, "t": t, "v": v})
+    query = "SELECT g, screen_agg(v, t), screen(list(v ORDER BY t)) FROM data GROUP BY g ORDER BY g"
+    got = []
+    for threads in (1, 2, 3):
+        if threads > 1:
+            monkeypatch.setattr(agg, "ROW_PIECE_POINTS", 2000 * threads)
+            monkeypatch.setattr(list_form, "PIECE_POINTS", 3000 * threads)
+            monkeypatch.setattr(list_form, "PIECE_ROWS", 16)
+            monkeypatch.setattr(parallel, "cores", lambda threads=threads: threads)
+            monkeypatch.setattr(list_form, "cores", lambda threads=threads: threads)
+        con = tsql.connect(config={"threads": threads})
+        con.register("data", rows)
+        got.append(con.execute(query).fetchall())
+        con.close()
+    assert len(got[0]) == 700 and sum(r[1] is not None and r[1]["period"] is not None for r in got[0]) > 300
+    assert str(got[0]) == str(got[1]) == str(got[2])  # NaN compares unequal; its text does not
 
 
 @pytest.mark.parametrize(

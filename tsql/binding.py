@@ -540,21 +540,16 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
         def run(rows: np.ndarray | None, key: tuple) -> pa.Array:
             part = obs if rows is None else obs.take(pa.array(rows))
             type_name, span, fill, same_time, *arguments = key
-            bounds = row_pieces([part], form.piece_points)
+            bounds = row_pieces([part], form.piece_points, min(threads, parallel.cores()))
             pieces: dict[int, pa.Array] = {}
 
-            def work(first: int, stop: int) -> None:
-                for i in range(first, stop):
-                    lo, hi = bounds[i]
-                    ticks, values = unpack(part.slice(lo, hi - lo))
-                    grid = (span, fill, same_time)
-                    pieces[i] = form(clock(form.name, type_name), grid, tuple(arguments), ticks, values)
+            def work(i: int) -> None:
+                lo, hi = bounds[i]
+                ticks, values = unpack(part.slice(lo, hi - lo))
+                grid = (span, fill, same_time)
+                pieces[i] = form(clock(form.name, type_name), grid, tuple(arguments), ticks, values)
 
-            cores = min(threads, parallel.cores(), len(bounds))
-            if cores > 1:
-                parallel.run_pieces(work, 0, len(bounds), cores)
-            else:
-                work(0, len(bounds))
+            parallel.run_each(work, len(bounds), threads)
             return pieces[0] if len(pieces) == 1 else pa.concat_arrays([pieces[i] for i in range(len(bounds))])
 
         return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)

@@ -164,10 +164,18 @@ def scalar_parameter(arr: ArrowInput) -> Sequence:
     return arr.to_pylist()
 
 
-def row_pieces(columns: list[pa.Array], elements: int = CACHE_ELEMENTS) -> list[tuple[int, int]]:
-    """Row ranges of about ``elements`` list elements each, all columns counted (see :func:`row_ranges`)."""
+def row_pieces(columns: list[pa.Array], elements: int = CACHE_ELEMENTS, threads: int = 1) -> list[tuple[int, int]]:
+    """Row ranges of about ``elements`` list elements each, all columns counted (see :func:`row_ranges`).
+
+    For ``threads`` taking the pieces in turn, as many pieces as a multiple of ``threads``, of even size
+    (at most ``elements``): the threads then run out of pieces together, rather than one waiting for
+    another's last, larger piece.
+    """
     counts = np.zeros(len(columns[0]) + 1, dtype=np.int64)
     for column in columns:
         offsets = np.asarray(column.offsets, dtype=np.int64)
         counts += offsets - offsets[0]
+    if threads > 1 and counts[-1] > elements:
+        rounds = -(-int(counts[-1]) // (elements * threads))  # each thread takes this many pieces
+        elements = -(-int(counts[-1]) // (rounds * threads))
     return row_ranges(counts, elements)

@@ -10,7 +10,7 @@ import pyarrow as pa
 
 from tsql.forms.arguments import by_settings, checked_arguments, with_arity
 from tsql.forms.arrow import row_pieces, single, to_arrow, to_ragged
-from tsql.kernels.parallel import cores, run_pieces
+from tsql.kernels.parallel import cores, run_each
 from tsql.kernels.ragged import CACHE_ELEMENTS
 from tsql.registry import Function
 
@@ -74,21 +74,21 @@ def _answer(fn: Function, series: list[pa.Array], key: tuple, n_rows: int, threa
     kwargs = checked_arguments(fn, key)
     if kwargs is None:  # a NULL argument that has no "not set" meaning
         return pa.nulls(n_rows, type=fn.returns.arrow)
-    bounded = fn.name in CUT_FOR_THREADS  # the pair functions' kernels budget their own work
-    parts: dict[int, pa.Array] = {}
+    # a row's answer does not depend on the rows beside it: cut, the call answers as a whole
+    threads = min(threads, n_rows // PIECE_ROWS)  # one thread per PIECE_ROWS rows at least
+    if fn.name in CUT_FOR_THREADS:  # pieces of about PIECE_POINTS elements, taken by the threads in turn
+        bounds = row_pieces(series, PIECE_POINTS, min(threads, cores()))
+    else:  # the pair functions' kernels budget their own work: one piece per thread
+        pieces = max(1, min(threads, cores()))
+        bounds = [(p * n_rows // pieces, (p + 1) * n_rows // pieces) for p in range(pieces)]
+    parts: list[pa.Array] = [None] * len(bounds)
 
-    def work(lo: int, hi: int) -> None:
-        part = [s.slice(lo, hi - lo) for s in series]
-        for a, b in row_pieces(part, PIECE_POINTS) if bounded else [(0, hi - lo)]:
-            parts[lo + a] = _computed(fn, [s.slice(a, b - a) for s in part], kwargs)
+    def work(i: int) -> None:
+        lo, hi = bounds[i]
+        parts[i] = _computed(fn, [s.slice(lo, hi - lo) for s in series], kwargs)
 
-    # one piece per thread (cut_for_threads): a row's answer does not depend on the rows beside it
-    pieces = min(threads, cores(), n_rows // PIECE_ROWS)
-    if pieces > 1:
-        run_pieces(work, 0, n_rows, pieces)
-    else:
-        work(0, n_rows)
-    return parts[0] if len(parts) == 1 else pa.concat_arrays([parts[lo] for lo in sorted(parts)])
+    run_each(work, len(bounds), threads)
+    return parts[0] if len(parts) == 1 else pa.concat_arrays(parts)
 
 
 def _computed(fn: Function, series: list[pa.Array], kwargs: dict) -> pa.Array:
