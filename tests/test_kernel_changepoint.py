@@ -950,6 +950,7 @@ def test_meanvar_clip_and_cut_against_sampled_points():
     # _meanvar_cut_misses may only skip a cut that could not reach an end of the box's means
     rng = np.random.default_rng(71)
     grid = np.linspace(0.0, 1.0, 161)
+    clipped = cut = skipped = 0
     for case in range(400):
         mean = rng.normal(0.0, 1.0)
         v = math.exp(rng.normal(0.0, 3.0)) + FLOOR  # tiny and huge variances
@@ -965,6 +966,7 @@ def test_meanvar_clip_and_cut_against_sampled_points():
         where = f"case {case}: g {g:.3g}, V {v:.3g}"
         box = np.array([[lo[0]], [hi[0]], [lo[1]], [hi[1]]])
         met = changepoint._clip_meanvar(box, 0, mean, v, log_v, g)
+        clipped += not (met and np.array_equal(box[:, 0], [lo[0], hi[0], lo[1], hi[1]]))
         kept = pts[excess <= g]
         if len(kept):
             assert met, where
@@ -972,15 +974,19 @@ def test_meanvar_clip_and_cut_against_sampled_points():
             assert (kept[:, 1] >= box[2, 0]).all() and (kept[:, 1] <= box[3, 0]).all(), where
         box = np.array([[lo[0]], [hi[0]], [lo[1]], [hi[1]]])
         if changepoint._meanvar_cut_misses(box, 0, mean, v, g):
+            skipped += 1
             reach = min(abs(lo[0] - mean), abs(hi[0] - mean))
             assert math.expm1(g) <= 1e-6 or v * math.expm1(g) < reach * reach, where
         gone = changepoint._cut_meanvar(box, 0, mean, v, log_v, length, g * length)
         outside = pts[excess >= g]
+        cut += gone or not np.array_equal(box[:, 0], [lo[0], hi[0], lo[1], hi[1]])
         if gone:
             assert len(outside) == 0, where
         else:
             assert (outside[:, 0] >= box[0, 0]).all() and (outside[:, 0] <= box[1, 0]).all(), where
             assert (outside[:, 1] >= box[2, 0]).all() and (outside[:, 1] <= box[3, 0]).all(), where
+    # every path taken often enough to matter
+    assert clipped > 100 and cut > 10 and skipped > 100, (clipped, cut, skipped)
 
 
 def test_meanvar_pruning_is_exact_on_extreme_spreads():
