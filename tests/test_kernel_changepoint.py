@@ -940,3 +940,76 @@ def test_box_clipping_and_cutting_against_sampled_points():
         else:
             assert (outside[:, 0] >= box[0, 0]).all() and (outside[:, 0] <= box[1, 0]).all()
             assert (outside[:, 1] >= box[2, 0]).all() and (outside[:, 1] <= box[3, 0]).all()
+
+
+def test_meanvar_clip_and_cut_against_sampled_points():
+    # reference: a dense grid of the box in (mean, log variance), each point's loss over the segment
+    # in closed form, sum of log v + ((z - mu)^2 + floor) / v - 1 = L (u + (1 + d^2 / V) e^-u - 1)
+    # above its least value, d = mu - mean, u = w - log V. _clip_meanvar must keep every point where
+    # it is at most the room, _cut_meanvar every point where it is not below it, and
+    # _meanvar_cut_misses may only skip a cut that could not reach an end of the box's means
+    rng = np.random.default_rng(71)
+    grid = np.linspace(0.0, 1.0, 161)
+    clipped = cut = skipped = 0
+    for case in range(400):
+        mean = rng.normal(0.0, 1.0)
+        v = math.exp(rng.normal(0.0, 3.0)) + FLOOR  # tiny and huge variances
+        log_v = math.log(v)
+        length = float(rng.integers(2, 5000))
+        g = math.exp(rng.normal(-3.0, 3.0))
+        lo = np.array([mean, log_v]) + rng.normal(0.0, 1.0, 2) * np.array([math.sqrt(v), 1.0]) * 3 * math.sqrt(g)
+        hi = lo + rng.exponential(1.0, 2) * np.array([math.sqrt(v), 1.0]) * 4 * math.sqrt(g)
+        pts = lo + np.stack(np.meshgrid(grid, grid), axis=-1).reshape(-1, 2) * (hi - lo)
+        d = pts[:, 0] - mean
+        u = pts[:, 1] - log_v
+        excess = u + (1.0 + d * d / v) * np.exp(-u) - 1.0
+        where = f"case {case}: g {g:.3g}, V {v:.3g}"
+        box = np.array([[lo[0]], [hi[0]], [lo[1]], [hi[1]]])
+        met = changepoint._clip_meanvar(box, 0, mean, v, log_v, g)
+        clipped += not (met and np.array_equal(box[:, 0], [lo[0], hi[0], lo[1], hi[1]]))
+        kept = pts[excess <= g]
+        if len(kept):
+            assert met, where
+            assert (kept[:, 0] >= box[0, 0]).all() and (kept[:, 0] <= box[1, 0]).all(), where
+            assert (kept[:, 1] >= box[2, 0]).all() and (kept[:, 1] <= box[3, 0]).all(), where
+        box = np.array([[lo[0]], [hi[0]], [lo[1]], [hi[1]]])
+        if changepoint._meanvar_cut_misses(box, 0, mean, v, g):
+            skipped += 1
+            reach = min(abs(lo[0] - mean), abs(hi[0] - mean))
+            assert math.expm1(g) <= 1e-6 or v * math.expm1(g) < reach * reach, where
+        gone = changepoint._cut_meanvar(box, 0, mean, v, log_v, length, g * length)
+        outside = pts[excess >= g]
+        cut += gone or not np.array_equal(box[:, 0], [lo[0], hi[0], lo[1], hi[1]])
+        if gone:
+            assert len(outside) == 0, where
+        else:
+            assert (outside[:, 0] >= box[0, 0]).all() and (outside[:, 0] <= box[1, 0]).all(), where
+            assert (outside[:, 1] >= box[2, 0]).all() and (outside[:, 1] <= box[3, 0]).all(), where
+    # every path taken often enough to matter
+    assert clipped > 100 and cut > 10 and skipped > 100, (clipped, cut, skipped)
+
+
+def test_meanvar_pruning_is_exact_on_extreme_spreads():
+    # reference: search_reference above (exhaustive optimal partitioning on the kernel's own sums)
+    # and plain PELT (Killick et al. 2012, K = 0) bit for bit. Spreads a million times apart (the
+    # quiet stretches near the variance floor, where a start's region is narrowest in log
+    # variance), constant stretches (zero variance), repeated values, gaps, min_size 2 and 3, penalties
+    # from 0 to 1e3: a region cut too tight drops an optimal start and changes F or the chain
+    rng = np.random.default_rng(73)
+    for case in range(10):
+        n = int(rng.integers(300, 700))
+        t = np.arange(n)
+        x = rng.standard_normal(n) * np.where((t // int(rng.integers(20, 90))) % 2 == 0, 1e-3, 1e3)
+        x[n // 3 : n // 3 + int(rng.integers(2, 40))] = 7.0
+        x[-int(rng.integers(2, 30)) :] = -2.0
+        if case % 2:
+            x = np.round(x, 2)
+        x[rng.integers(0, n, n // 15)] = np.nan
+        for penalty, min_size in ((0.0, 2), (1.0, 2), ("bic", 2), ("mbic", 3), (1e3, 2)):
+            F, last, stats, beta = search(x, "meanvar", penalty, min_size)
+            F_ref, last_ref = search_reference(stats, "meanvar", beta, penalty == "mbic", min_size)
+            where = f"case {case}: {penalty}, min_size {min_size}"
+            np.testing.assert_allclose(F[min_size:], F_ref[min_size:], rtol=1e-12, atol=1e-9, err_msg=where)
+            F_old, last_old, _, _ = search(x, "meanvar", penalty, min_size, functional=False)
+            np.testing.assert_array_equal(last, last_old, err_msg=where)
+            np.testing.assert_array_equal(F, F_old, err_msg=where)

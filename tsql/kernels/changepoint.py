@@ -545,6 +545,12 @@ _WAIT = 64.0
 #: remembers and others drawn by a fixed rule from those kept
 _EXCLUSIONS = 3
 
+#: 'meanvar': ... and clipped to where it beats this many newer kept starts as well (besides the
+#: newest), drawn by a fixed rule: on a calm million points this halves the starts kept (a start's
+#: box shrinks to where it beats every newer start only by many clips; with every newer start's
+#: and every older one's regions, boxes would keep a tenth of them, exact regions a hundredth)
+_NEWER_CLIPS = 2
+
 #: lazy evaluation: the starts looked at every step may grow by this many plus the square root of
 #: this many times the starts kept before all are looked at again (k new starts between full passes
 #: over n cost about k / 2 + n / k per step, least at k = sqrt(2 n))
@@ -795,14 +801,17 @@ def _log_variance_range(g, below, above) -> tuple[float, float]:
     on the right ``r (1 + r)`` with ``r = sqrt(2 g)`` for ``g <= 1/4``
     (``exp(-u) >= 1 - u + u^2/2 - u^3/6``), else ``1 + g``, or ``above`` if nearer. A
     side whose start is inside the roots (``f <= 0``: ``below >= 0`` or ``above <= 0``
-    at once) stops there. Every iterate is a bound; the last is widened for rounding.
+    at once) stops there, and so does one inside by the bounds ``f(u) <= e u^2 / 2 - g``
+    on ``[-1, 0]`` and ``f(u) <= u^2 / 2 - g`` on ``[0, inf)`` (Taylor, Lagrange's remainder),
+    before any ``exp``. Every iterate is a bound; the last is widened for rounding.
     """
     if not g > 0.0:
         return -1e-12, 1e-12
     r = math.sqrt(2.0 * g)
     lo = -np.inf
-    if below < 0.0:
-        u = max(max(-r, -math.log1p(g) - 1.0), below)
+    if below < 0.0 and not (below >= -1.0 and 1.3591409142295225 * below * below <= g):
+        # -log(1 + g) - 1 <= -r for g <= 2
+        u = max(max(-r, -math.log1p(g) - 1.0) if g > 2.0 else -r, below)
         for _ in range(3):
             e = math.expm1(-u)
             f = u + e - g
@@ -812,7 +821,7 @@ def _log_variance_range(g, below, above) -> tuple[float, float]:
         if u > below:
             lo = u - (_BOX_SLACK * (1.0 - u) + 1e-12)
     hi = np.inf
-    if above > 0.0:
+    if above > 0.0 and not 0.5 * above * above <= g:
         u = min(r * (1.0 + r) if g <= 0.25 else 1.0 + g, above)
         for _ in range(3):
             e = math.expm1(-u)
@@ -1003,11 +1012,26 @@ def _clip_meanvar(box, j, mean, v, log_v, g) -> bool:
         return False
     u = min(max(g, box[2, j] - log_v), box[3, j] - log_v)
     # beyond exp's range (a penalty far above the data's costs) the means are left as they are
-    room = math.expm1(u) + math.exp(u) * (g - u) if u < _EXP_RANGE else np.inf
+    room = math.expm1(u) * (1.0 + g - u) + (g - u) if u < _EXP_RANGE else np.inf
     if not room >= 0.0:
         return False
     half = (1.0 + _BOX_SLACK) * math.sqrt(v * room) + _BOX_SLACK * abs(mean)
     return _clip_interval(box, j, 0, mean - half, mean + half)
+
+
+@njit(cache=True, error_model="numpy")
+def _meanvar_cut_misses(box, j, mean, v, g) -> bool:
+    """True if :func:`_cut_meanvar` with ``g = room / L`` surely cuts nothing from box ``j`` (no ``exp``).
+
+    Its cut is at most ``|mu - mean| < sqrt(V (e^g - 1))`` wide (``e^u (1 + g - u)`` peaks at
+    ``u = g``), ``e^g - 1 <= g / (1 - g)`` for ``g < 1``, and it needs more than ``1e-6`` under the
+    root and a reach to an end of the box's means.
+    """
+    if not g < 0.5:
+        return not g > 0.0
+    top = g / (1.0 - g)
+    d = min(abs(box[0, j] - mean), abs(box[1, j] - mean))
+    return not (top > 1e-6 and v * top >= d * d)
 
 
 @njit(cache=True, error_model="numpy")
@@ -1021,6 +1045,8 @@ def _cut_meanvar(box, j, mean, v, log_v, length, room) -> bool:
     if not (room > 0.0 and box[2, j] > -np.inf and box[3, j] < np.inf):
         return False
     g = room / length
+    if _meanvar_cut_misses(box, j, mean, v, g):
+        return False
     u_a = box[2, j] - log_v
     u_b = box[3, j] - log_v
     if not max(u_a, u_b) < _EXP_RANGE:
@@ -1086,7 +1112,10 @@ def _narrow_box(
     ``gap = F(c) - F(s) - C(s, c)``); then the regions where two older starts beat ``s``
     are cut out (:func:`_cut_ellipse` / :func:`_cut_meanvar`): the one remembered
     (``box[4:11]``, :func:`_remember_region`) and one drawn by a fixed rule from the
-    starts kept. A start whose box is empty can never be best again and is retired.
+    starts kept. For 'meanvar' the box is first clipped to ``R_si`` of ``_NEWER_CLIPS``
+    newer kept starts ``i`` too, drawn by a fixed rule: any start with a finite ``F``
+    admitted by ``t`` is a competitor as ``c`` is. A start whose box is empty can never
+    be best again and is retired.
 
     ``x0_c`` is ``c``'s first position ('trend': the origin of the sums of ``(s, c]``).
     Starts in slots before ``oldest`` wait for a later call, however due.
@@ -1143,6 +1172,17 @@ def _narrow_box(
             live = _clip_interval(box, j, 0, z_mean - half, z_mean + half)
         else:
             live = _clip_meanvar(box, j, z_mean, v, log_v, room / length)
+            # a kept start i newer than s is a competitor as c is (its room without the length term)
+            for pick in range(_NEWER_CLIPS):
+                if not (live and j + 1 < n):
+                    break
+                i = j + 1 + (c * 7451 + j * 6143 + pick * 104723) % (n - j - 1)
+                fi = f_start[i]
+                if fi == np.inf:
+                    continue
+                mean, v, log_v, cost = _meanvar_fit(starts[i] - starts[j], c0[i] - c0[j], c1[i] - c1[j])
+                r = fi - fs - cost + (_PRUNE_MARGIN * (1.0 + abs(fi) + abs(fs)) + rounding)
+                live = r >= 0.0 and _clip_meanvar(box, j, mean, v, log_v, r / (starts[i] - starts[j]))
         s = int(starts[j])
         for pick in range(_EXCLUSIONS):
             if not live:
@@ -1179,6 +1219,12 @@ def _narrow_box(
                 e0, e1, e00, e01, e11 = _trend_ellipse(e_len, p_mean, z_mean, slope, spread, 0.0)
                 live = not _cut_ellipse(box, j, e0, e1, e00, e01, e11, r - cost)
             else:
+                # log V >= 1 - 1 / V: a room that cannot be positive or reach the box costs no log
+                inv = 1.0 / e_len
+                mean = (c0[j] - c0[i]) * inv
+                v = max((c1[j] - c1[i]) * inv - mean * mean, 0.0) + VARIANCE_FLOOR
+                if _meanvar_cut_misses(box, j, mean, v, (r - e_len * (1.0 - 1.0 / v)) * inv):
+                    continue
                 mean, v, log_v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
                 live = not _cut_meanvar(box, j, mean, v, log_v, e_len, r - cost)
         if not live:
