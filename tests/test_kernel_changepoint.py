@@ -946,10 +946,10 @@ def test_trend_pruning_margin_holds_for_clipped_costs_at_a_start_line():
     # reference: Python's decimal module at 60 digits, on the stored sums read exactly. The
     # 'trend' pruning (changepoint._trend_margins, Notes) needs, for a newer start c and a later
     # end t, the loss of (c, t] at the line of an older start s's segment (s, t] (inside s's box)
-    # to be at least the computed C(c, t) less 2 own less _box_drift of the box. The data make
-    # that hard: 1.2 million positions with gaps, an offset of 1e6, a shift near the end (the
-    # stored sums of z are largest far from position 0), and short steep exact lines there, whose
-    # costs are clipped at zero while the sums say a little less
+    # to be at least the computed C(c, t) less 2 own less _box_drift of the box, for t - s at
+    # least _STEEP_AFTER. The data make that hard: 1.2 million positions with gaps, an offset of
+    # 1e6, a shift near the end (the stored sums of z are largest far from position 0), and exact
+    # lines there, whose short segments' costs are clipped at zero while the sums say a little less
     from decimal import Decimal, getcontext
 
     getcontext().prec = 60
@@ -958,15 +958,15 @@ def test_trend_pruning_margin_holds_for_clipped_costs_at_a_start_line():
     keep = rng.random(n) > 0.15
     t = np.arange(n, dtype=float)
     x = 1e6 + rng.standard_normal(n) + 4.0 * (t >= n - n // 10)
-    lines = (n - n // 10 - 40, n - n // 10 + 5, n - n // 10 - 300, n - 12, 20, n // 2 + 11)
+    lines = (n - n // 10 - 40, n - n // 10 + 5, n - n // 10 - 300, n - 100, 20, n // 2 + 11)
     for lo in lines:
-        keep[lo : lo + 12] = True
-        x[lo : lo + 12] = 1e6 - 4.0 + 0.7 * (t[lo : lo + 12] - lo)
+        keep[lo : lo + 100] = True
+        x[lo : lo + 100] = 1e6 - 4.0 + 0.1 * (t[lo : lo + 100] - lo)
     p = np.flatnonzero(keep).astype(np.int64)
     m = len(p)
     stats = np.empty((changepoint.MAX_STATS, m + 1))
     assert changepoint._prepare(changepoint.TREND, x[keep], p, m, stats, np.empty(2 * m + 2))
-    margins = changepoint._trend_margins(changepoint.TREND, stats, m, 28.0, np.zeros(m + 1), 2)
+    margins = changepoint._trend_margins(changepoint.TREND, stats, m, 28.0, np.zeros(m + 1))
     own = changepoint._trend_rounding(stats, m)[0]
 
     def sums(a, b):  # over (a, b], positions in the stored sums' own coordinates
@@ -985,13 +985,14 @@ def test_trend_pruning_margin_holds_for_clipped_costs_at_a_start_line():
         )
 
     cases = []
+    shortest = changepoint._STEEP_AFTER
     for e in (int(np.searchsorted(p, lo)) for lo in lines):
-        for c in (e + 1, e + 2, e + 4):
-            for end in (c + 2, c + 3, c + 5, e + 12):
-                cases += [(s, c, end) for s in (e, c - 1, c - 2) if s < c and end <= m]
+        for s in (e, e + 1, e + 3):
+            for c in (s + 1, s + 2, s + shortest - 4, s + shortest - 2):
+                cases += [(s, c, end) for end in (c + 2, c + 3, e + 80, e + 100) if end - s >= shortest and end <= m]
     for _ in range(40):
-        c = int(rng.integers(5, m - 8))
-        cases.append((c - 1, c, c + 2 + int(rng.integers(0, 5))))
+        c = int(rng.integers(shortest, m - 8))
+        cases.append((c - shortest + 2, c, c + 2 + int(rng.integers(0, 5))))
     worst = 0.0
     beyond_own = 0.0
     for s, c, end in cases:

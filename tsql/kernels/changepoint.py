@@ -1025,6 +1025,11 @@ def _cut_meanvar(box, j, mean, v, log_v, length, room) -> bool:
     return _cut_interval(box, j, 0, mean - half, mean + half)
 
 
+#: 'trend' pruning: its margins hold for the segments of a start at least this long (shorter ones
+#: are left to PELT's grace: a start narrowed younger is not retired before its next narrowing,
+#: at least ``_WAIT`` steps later), so they may take its lines' slopes as those of this many values
+_STEEP_AFTER = int(_WAIT)
+
 #: 'trend' pruning: ulps of the largest total ``F(s) + C(s, t)`` (and length term) allowed for
 #: the rounding of the totals compared at any step and of the rooms computed from them (about 15
 #: would do: two sums on each side of a comparison, three in a room, then doubled twice)
@@ -1032,7 +1037,7 @@ _TOTAL_ULPS = 64.0
 
 
 @njit(cache=True, error_model="numpy")
-def _trend_margins(code, stats, m, beta, length_term, min_size) -> np.ndarray:
+def _trend_margins(code, stats, m, beta, length_term) -> np.ndarray:
     """The margins of the 'trend' pruning: ``[fixed, xx, x, tx, whole, steep]`` (zeros for the other models).
 
     A comparison of the pruning (:func:`_narrow_box`) leaves ``fixed`` plus, for the start
@@ -1066,13 +1071,19 @@ def _trend_margins(code, stats, m, beta, length_term, min_size) -> np.ndarray:
        the sums), ``e`` how far the stored differences are from those exact sums (at most
        ``drift_xx``, ``drift_x``, ``drift_tx``), ``a`` the level at position 0 and ``b`` the
        slope. At ``theta_s``, ``|a| <= A`` and ``|b| <= B`` from the box, so
-       ``|P| <= drift_xx + 2 A drift_x + 2 B drift_tx``; doubled as the whole-series bound
+       ``|P| <= drift_xx + 2 A drift_x + 2 B drift_tx`` (exact: ``P`` is linear; the drifts
+       are already twice the rounding of the stored sums); else the whole-series bound
        ``2 drift``, which holds too (``Q_ct(theta_s) >= min Q_ct``) and is used while the box
        is open. The cuts (``e`` for ``c``) are the same with ``Q_et``. Whatever the box,
-       ``theta_s`` is the least-squares line of ``L >= min_size + 1`` values at distinct
+       ``theta_s`` is the least-squares line of the ``L = t - s`` values at distinct
        integer positions, so (Cauchy-Schwarz) ``|b| <= sqrt(sum (z - mean z)^2 / S) <=
        sqrt(max z^2 * 12 / (L^2 - 1))`` (``S = sum (p - mean p)^2 >= L (L^2 - 1) / 12``);
-       ``steep`` is that, plus ``1e-3`` for the stored sums' own drift.
+       ``steep`` is that for ``L = _STEEP_AFTER``, plus ``1e-3`` for the stored sums' own
+       drift. The margins so hold for ``t >= s + _STEEP_AFTER``: :func:`_narrow_box` retires
+       no start narrowed younger than that (``c - s + 2 < _STEEP_AFTER``, as ``min_size >= 2``)
+       but leaves it to its next narrowing, ``_WAIT >= _STEEP_AFTER`` steps on at least (PELT's
+       grace: a start kept longer than it can win is harmless), and its box, which holds its
+       lines from then on, serves no one before.
 
     So ``fixed = _TOTAL_ULPS eps (sum z^2 + beta + max|length term|) + 6 own``. The
     whole-series bound's largest part is ``|a|`` up to the farthest position times a
@@ -1093,14 +1104,14 @@ def _trend_margins(code, stats, m, beta, length_term, min_size) -> np.ndarray:
     for k in range(m + 1):
         reach = max(reach, abs(length_term[k]))
     out[0] = _TOTAL_ULPS * eps * (stats[3, m] + 2.0 * own + beta + reach + 1.0) + 6.0 * own
-    out[1] = 2.0 * drift_xx
-    out[2] = 4.0 * drift_x
-    out[3] = 4.0 * drift_tx
+    out[1] = drift_xx
+    out[2] = 2.0 * drift_x
+    out[3] = 2.0 * drift_tx
     out[4] = 2.0 * drift
     top = 0.0
     for i in range(m):
         top = max(top, stats[3, i + 1] - stats[3, i])
-    shortest = float(min_size + 1)
+    shortest = float(_STEEP_AFTER)
     out[5] = math.sqrt((top + 4.0 * eps * stats[3, m]) * 12.0 / (shortest * shortest - 1.0)) + 1e-3
     return out
 
@@ -1311,7 +1322,9 @@ def _narrow_box(
             else:
                 mean, v, log_v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
                 live = not _cut_meanvar(box, j, mean, v, log_v, e_len, r - cost)
-        if not live:
+        # 'trend': a young start's margins hold from step s + _STEEP_AFTER on (_trend_margins), so
+        # it stays until its next narrowing, due after that
+        if not live and not (trend and length + 2.0 < _STEEP_AFTER):
             f_start[j] = np.inf
             retired += 1
         # where s beats c by more than the margin (and the most 'mbic' lets c gain back)
@@ -1404,7 +1417,7 @@ def _pelt(
     # a pruning rule compares up to three computed costs (the pair's now, both starts' at a later
     # step; the lazy pass doubles it for four), each within the scale of its exact value
     rounding = 3.0 * _rounding_scale(code, stats, m)
-    margins = _trend_margins(code, stats, m, beta, length_term, min_size)
+    margins = _trend_margins(code, stats, m, beta, length_term)
     n_cand = np.int64(0)  # not a literal 0: the callees that take it compile once
     n_pruned = 0
     next_prune = 0
