@@ -1116,7 +1116,7 @@ def _trend_margins(code, stats, m, beta, length_term) -> np.ndarray:
     return out
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")  # called only by _clip_trend
 def _box_drift(box, j, margins) -> float:
     """The part of a 'trend' margin that depends on box ``j`` (:func:`_trend_margins`)."""
     slope = min(max(abs(box[2, j]), abs(box[3, j])), margins[5])
@@ -1126,16 +1126,17 @@ def _box_drift(box, j, margins) -> float:
     return drift if drift < margins[4] else margins[4]
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
 def _clip_trend(box, j, length, p_mean, z_mean, slope, spread, gap, margins) -> tuple[bool, float]:
     """Box ``j`` shrunk to its meet with ``R_sc`` ('trend', room ``gap`` plus the margin); False if empty.
 
     Returns whether the box is left and the part of the margin from it (:func:`_box_drift`):
-    from the box before, then, where the box left gives a much smaller one, clipped again
-    with that (the box left bounds the start's line as well as the one before; a start's
-    first narrowing has an open box and the whole-series part).
+    from the box before; where that was open (a start's first narrowings: the whole-series
+    part) and the box left gives a much smaller one, clipped again with that (the box left
+    bounds the start's line as well as the one before).
     """
     drift = _box_drift(box, j, margins)
+    opened = not drift < margins[4]
     for _ in range(2):
         room = gap + margins[0] + drift
         if not room >= 0.0:
@@ -1146,8 +1147,9 @@ def _clip_trend(box, j, length, p_mean, z_mean, slope, spread, gap, margins) -> 
         else:  # one value: the level within sqrt(room) of it, any slope
             half = (1.0 + _BOX_SLACK) * math.sqrt(room) + _BOX_SLACK * abs(z_mean)
             live = _clip_interval(box, j, 0, z_mean - half, z_mean + half)
-        if not live:
-            return False, drift
+        if not live or not opened:
+            return live, drift
+        opened = False
         tighter = _box_drift(box, j, margins)
         if not tighter < 0.5 * drift:
             break
