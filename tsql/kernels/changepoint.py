@@ -1325,8 +1325,11 @@ def _narrow_box(
                 mean, v, log_v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
                 live = not _cut_meanvar(box, j, mean, v, log_v, e_len, r - cost)
         # 'trend': a young start's margins hold from step s + _STEEP_AFTER on (_trend_margins), so
-        # it stays until its next narrowing, due after that
-        if not live and not (trend and length + 2.0 < _STEEP_AFTER):
+        # it stays until its next narrowing, due after that, which finds its box empty
+        if not live and trend and length + 2.0 < _STEEP_AFTER:
+            box[0, j] = np.inf
+            box[1, j] = -np.inf
+        elif not live:
             f_start[j] = np.inf
             retired += 1
         # where s beats c by more than the margin (and the most 'mbic' lets c gain back)
