@@ -1013,3 +1013,74 @@ def test_meanvar_pruning_is_exact_on_extreme_spreads():
             F_old, last_old, _, _ = search(x, "meanvar", penalty, min_size, functional=False)
             np.testing.assert_array_equal(last, last_old, err_msg=where)
             np.testing.assert_array_equal(F, F_old, err_msg=where)
+
+
+def test_trend_pruning_margin_holds_for_clipped_costs_at_a_start_line():
+    # reference: Python's decimal module at 60 digits, on the stored sums read exactly. The
+    # 'trend' pruning (changepoint._trend_margins, Notes) needs, for a newer start c and a later
+    # end t, the loss of (c, t] at the line of an older start s's segment (s, t] (inside s's box)
+    # to be at least the computed C(c, t) less 2 own less _box_drift of the box, for t - s at
+    # least _STEEP_AFTER. The data make that hard: 1.2 million positions with gaps, an offset of
+    # 1e6, a shift near the end (the stored sums of z are largest far from position 0), and exact
+    # lines there, whose short segments' costs are clipped at zero while the sums say a little less
+    from decimal import Decimal, getcontext
+
+    getcontext().prec = 60
+    rng = np.random.default_rng(67)
+    n = 1_200_000
+    keep = rng.random(n) > 0.15
+    t = np.arange(n, dtype=float)
+    x = 1e6 + rng.standard_normal(n) + 4.0 * (t >= n - n // 10)
+    lines = (n - n // 10 - 40, n - n // 10 + 5, n - n // 10 - 300, n - 100, 20, n // 2 + 11)
+    for lo in lines:
+        keep[lo : lo + 100] = True
+        x[lo : lo + 100] = 1e6 - 4.0 + 0.1 * (t[lo : lo + 100] - lo)
+    p = np.flatnonzero(keep).astype(np.int64)
+    m = len(p)
+    stats = np.empty((changepoint.MAX_STATS, m + 1))
+    assert changepoint._prepare(changepoint.TREND, x[keep], p, m, stats, np.empty(2 * m + 2))
+    margins = changepoint._trend_margins(changepoint.TREND, stats, m, 28.0, np.zeros(m + 1))
+    own = changepoint._trend_rounding(stats, m)[0]
+
+    def sums(a, b):  # over (a, b], positions in the stored sums' own coordinates
+        d = [Decimal(stats[k, b]) - Decimal(stats[k, a]) for k in range(6)]
+        return Decimal(b - a), d[0], d[1] + d[5], d[2], d[3], d[4]
+
+    def line(a, b):  # least-squares level at position 0 and slope of (a, b]
+        n_, st, stt, sx, _, stx = sums(a, b)
+        slope = (n_ * stx - st * sx) / (n_ * stt - st * st)
+        return (sx - slope * st) / n_, slope
+
+    def loss(a, b, level, slope):
+        n_, st, stt, sx, sxx, stx = sums(a, b)
+        return (
+            sxx - 2 * level * sx - 2 * slope * stx + level * level * n_ + 2 * level * slope * st + slope * slope * stt
+        )
+
+    cases = []
+    shortest = changepoint._STEEP_AFTER
+    for e in (int(np.searchsorted(p, lo)) for lo in lines):
+        for s in (e, e + 1, e + 3):
+            for c in (s + 1, s + 2, s + shortest - 4, s + shortest - 2):
+                cases += [(s, c, end) for end in (c + 2, c + 3, e + 80, e + 100) if end - s >= shortest and end <= m]
+    for _ in range(40):
+        c = int(rng.integers(shortest, m - 8))
+        cases.append((c - shortest + 2, c, c + 2 + int(rng.integers(0, 5))))
+    worst = 0.0
+    beyond_own = 0.0
+    for s, c, end in cases:
+        out = np.empty(1)
+        rows = tuple(stats[:, c : c + 1])
+        changepoint._cost_trend(stats, rows, np.array([float(c)]), np.zeros(1), np.zeros(1, np.int64), 1, end, out)
+        level, slope = line(s, end)
+        x0 = stats[0, s + 1] - stats[0, s]  # the box's levels are at s's first position
+        at_x0 = float(level + slope * Decimal(x0))
+        box = np.zeros((changepoint._BOX_ROWS, 1))
+        box[:4, 0] = (at_x0 - 1e-3, at_x0 + 1e-3, float(slope) - 1e-4, float(slope) + 1e-4)
+        box[11, 0] = x0
+        short = float(Decimal(out[0]) - loss(c, end, level, slope))
+        worst = max(worst, short / (2.0 * own + changepoint._box_drift(box, 0, margins)))
+        beyond_own = max(beyond_own, short - 2.0 * own)
+    assert worst <= 1.0, worst
+    # the data need the box's part: the rounding of the arithmetic alone would not do
+    assert beyond_own > 0.0

@@ -756,37 +756,57 @@ def _rounding_scale(code, stats, m) -> float:
     eps = np.finfo(np.float64).eps
     if code == MEAN:
         return _SQUARES_MARGIN * stats[1, m]
-    row_x = 0 if code == MEANVAR else 2
-    row_xx = 1 if code == MEANVAR else 3
-    total = stats[row_xx, m]
+    if code == TREND:
+        own, drift_xx, drift_x, drift_tx, drift = _trend_rounding(stats, m)
+        return 2.0 * (own + drift)
+    total = stats[1, m]
     top = 0.0
     reach_x = 0.0
-    reach_tx = 0.0
-    gap = 1.0
     for i in range(m):
-        top = max(top, stats[row_xx, i + 1] - stats[row_xx, i])
-        reach_x = max(reach_x, abs(stats[row_x, i + 1]))
-        if code == TREND:
-            reach_tx = max(reach_tx, abs(stats[4, i + 1]))
-            if i > 0:
-                gap = max(gap, (stats[0, i + 1] - stats[0, i]) - (stats[0, i] - stats[0, i - 1]))
+        top = max(top, stats[1, i + 1] - stats[1, i])
+        reach_x = max(reach_x, abs(stats[0, i + 1]))
     top += 4.0 * eps * total
     zmax = math.sqrt(top)
     abs_x = math.sqrt(m * total)  # sum |z| (Cauchy-Schwarz)
     drift_x = 2.0 * eps * reach_x + 2.0 * m * eps * eps * abs_x
     drift_xx = 2.0 * eps * total + 2.0 * m * eps * eps * total
-    if code == MEANVAR:
-        # L log(var + floor): d cost / d sum z^2 = 1 / v <= 1 / floor, d / d sum z <= 2 |mean| / floor
-        logs = max(-math.log(VARIANCE_FLOOR), math.log(top + VARIANCE_FLOOR))
-        own = eps * (12.0 * total / VARIANCE_FLOOR + 4.0 * m * (1.0 + logs))
-        drift = (2.0 * drift_xx + 4.0 * zmax * drift_x) / VARIANCE_FLOOR
-        return 2.0 * (own + drift)
+    # L log(var + floor): d cost / d sum z^2 = 1 / v <= 1 / floor, d / d sum z <= 2 |mean| / floor
+    logs = max(-math.log(VARIANCE_FLOOR), math.log(top + VARIANCE_FLOOR))
+    own = eps * (12.0 * total / VARIANCE_FLOOR + 4.0 * m * (1.0 + logs))
+    drift = (2.0 * drift_xx + 4.0 * zmax * drift_x) / VARIANCE_FLOOR
+    return 2.0 * (own + drift)
+
+
+@njit(cache=True, error_model="numpy")
+def _trend_rounding(stats, m) -> tuple[float, float, float, float, float]:
+    """The parts of :func:`_rounding_scale` for 'trend': ``own``, the rounding of a cost's own
+    arithmetic; ``drift_xx``, ``drift_x``, ``drift_tx``, how far a difference of two stored sums of
+    ``z^2``, ``z``, ``u z`` may be from the exact sum of the values between them; ``drift``, the
+    most that moves a segment's least RSS (about its own line). The scale is ``2 (own + drift)``.
+    """
+    eps = np.finfo(np.float64).eps
+    total = stats[3, m]
+    top = 0.0
+    reach_x = 0.0
+    reach_tx = 0.0
+    gap = 1.0
+    for i in range(m):
+        top = max(top, stats[3, i + 1] - stats[3, i])
+        reach_x = max(reach_x, abs(stats[2, i + 1]))
+        reach_tx = max(reach_tx, abs(stats[4, i + 1]))
+        if i > 0:
+            gap = max(gap, (stats[0, i + 1] - stats[0, i]) - (stats[0, i] - stats[0, i - 1]))
+    top += 4.0 * eps * total
+    zmax = math.sqrt(top)
+    abs_x = math.sqrt(m * total)  # sum |z| (Cauchy-Schwarz)
+    drift_x = 2.0 * eps * reach_x + 2.0 * m * eps * eps * abs_x
+    drift_xx = 2.0 * eps * total + 2.0 * m * eps * eps * total
     far = max(abs(stats[0, 1]), abs(stats[0, m] - stats[0, m - 1]))
     drift_tx = 2.0 * eps * reach_tx + 2.0 * m * eps * eps * far * abs_x
     own = eps * (48.0 * far * top + (16.0 + 6.0 * min(float(m), 12.0 * gap * gap)) * total)
     # RSS: d / d sum z^2 = 1, d / d sum z <= 2 |mean| + 2 |slope| U, d / d sum u z = 2 |slope|
     drift = 2.0 * drift_xx + 2.0 * (2.0 + 8.0 * far) * zmax * drift_x + 16.0 * zmax * drift_tx
-    return 2.0 * (own + drift)
+    return own, drift_xx, drift_x, drift_tx, drift
 
 
 @njit(cache=True, error_model="numpy")
@@ -849,14 +869,17 @@ def _trend_fit(length, dt, dtt, dx, dxx, dtx) -> tuple[float, float, float, floa
     """Mean position, mean value, slope, ``sum (p - mean p)^2`` and RSS of a segment from its sums.
 
     The sums are :func:`_trend_local`'s, over positions less an origin, and so is the mean
-    position. RSS as :func:`_cost_trend` computes it; slope 0 and spread 0 for one value.
+    position. RSS as :func:`_cost_trend` computes it, but not clipped at zero: within the
+    rounding of its own arithmetic of the least loss the sums define, even where that is
+    below zero (the pruning's margins rely on it, see :func:`_trend_margins`); slope 0 and
+    spread 0 for one value.
     """
     tt = length * dtt - dt * dt
     tx = length * dtx - dt * dx
     xx = length * dxx - dx * dx
     inv = 1.0 / length
     if tt > 0.0:
-        return dt * inv, dx * inv, tx / tt, tt * inv, max((xx * tt - tx * tx) / (tt * length), 0.0)
+        return dt * inv, dx * inv, tx / tt, tt * inv, (xx * tt - tx * tx) / (tt * length)
     return dt * inv, dx * inv, 0.0, 0.0, 0.0
 
 
@@ -1059,6 +1082,138 @@ def _cut_meanvar(box, j, mean, v, log_v, length, room) -> bool:
     return _cut_interval(box, j, 0, mean - half, mean + half)
 
 
+#: 'trend' pruning: its margins hold for the segments of a start at least this long (shorter ones
+#: are left to PELT's grace: a start narrowed younger is not retired before its next narrowing,
+#: at least ``_WAIT`` steps later), so they may take its lines' slopes as those of this many values
+_STEEP_AFTER = int(_WAIT)
+
+#: 'trend' pruning: ulps of the largest total ``F(s) + C(s, t)`` (and length term) allowed for
+#: the rounding of the totals compared at any step and of the rooms computed from them (about 15
+#: would do: two sums on each side of a comparison, three in a room, then doubled twice)
+_TOTAL_ULPS = 64.0
+
+
+@njit(cache=True, error_model="numpy")
+def _trend_margins(code, stats, m, beta, length_term) -> np.ndarray:
+    """The margins of the 'trend' pruning: ``[fixed, xx, x, tx, whole, steep]`` (zeros for the other models).
+
+    A comparison of the pruning (:func:`_narrow_box`) leaves ``fixed`` plus, for the start
+    ``s`` it narrows, ``min(xx + x A + tx B, whole)`` (:func:`_box_drift`), ``B`` the
+    least of ``steep`` and the box's largest ``|slope|``, ``A`` the box's largest
+    ``|level|`` plus ``B`` times the distance of ``s``'s first position from position 0.
+
+    Notes
+    -----
+    The pruning keeps ``s`` where ``D(theta) = F(s) - F(c) + Q_sc(theta)`` is at most the
+    margin, ``Q_sc`` the loss that the stored sums of ``(s, c]`` define (their differences
+    taken exactly), and cuts where ``D_es = F(e) - F(s) + Q_es < -margin`` for an older
+    ``e``. If ``s`` is best at a later ``t`` (in floating point), at its line ``theta_s``
+    (in its box: every narrowing keeps it there)
+    ``D(theta_s) = F(s) + Q_st(theta_s) - F(c) - Q_ct(theta_s)`` with
+    ``Q_st(theta_s) = min Q_st``; so the margin must cover four things:
+
+    1. the rounding of the totals compared and of the rooms: a few ulps of the largest
+       total, ``F(t) <= C(0, t) + beta + |length term|`` and ``F(t) >= -beta`` (costs and
+       ``beta`` plus the length term are never negative): ``_TOTAL_ULPS`` ulps of
+       ``sum z^2 + beta + max |length term|``;
+    2. ``min Q_st - C(s, t)``: the rounding of the cost's arithmetic, ``2 own`` of
+       :func:`_trend_rounding` (the clip at zero only raises ``C``);
+    3. the cost of the present pair from its unclipped RSS (:func:`_trend_fit`): again
+       ``2 own``;
+    4. ``C(c, t) - Q_ct(theta_s)``: ``2 own`` where ``C(c, t)`` is not clipped. Where it
+       is (the stored sums say a little less than zero, an exact line), ``Q_ct = Q* + P``:
+       ``Q*`` the loss of the exact sums of the values each sum adds up (``z``, the rounded
+       ``z^2`` and ``u z``), whose least is above ``-own`` (the rounded products, at the
+       segment's own slope), and ``P(theta) = e_xx - 2 a e_x - 2 b e_tx`` (``Q`` is linear in
+       the sums), ``e`` how far the stored differences are from those exact sums (at most
+       ``drift_xx``, ``drift_x``, ``drift_tx``), ``a`` the level at position 0 and ``b`` the
+       slope. At ``theta_s``, ``|a| <= A`` and ``|b| <= B`` from the box, so
+       ``|P| <= drift_xx + 2 A drift_x + 2 B drift_tx`` (exact: ``P`` is linear; the drifts
+       are already twice the rounding of the stored sums); else the whole-series bound
+       ``2 drift``, which holds too (``Q_ct(theta_s) >= min Q_ct``) and is used while the box
+       is open. The cuts (``e`` for ``c``) are the same with ``Q_et``. Whatever the box,
+       ``theta_s`` is the least-squares line of the ``L = t - s`` values at distinct
+       integer positions, so (Cauchy-Schwarz) ``|b| <= sqrt(sum (z - mean z)^2 / S) <=
+       sqrt(max z^2 * 12 / (L^2 - 1))`` (``S = sum (p - mean p)^2 >= L (L^2 - 1) / 12``);
+       ``steep`` is that for ``L = _STEEP_AFTER``, plus ``1e-3`` for the stored sums' own
+       drift. The margins so hold for ``t >= s + _STEEP_AFTER``: :func:`_narrow_box` retires
+       no start narrowed younger than that (``c - s + 2 < _STEEP_AFTER``, as ``min_size >= 2``)
+       but leaves it to its next narrowing, ``_WAIT >= _STEEP_AFTER`` steps on at least (PELT's
+       grace: a start kept longer than it can win is harmless), and its box, which holds its
+       lines from then on, serves no one before.
+
+    So ``fixed = _TOTAL_ULPS eps (sum z^2 + beta + max|length term|) + 6 own``. The
+    whole-series bound's largest part is ``|a|`` up to the farthest position times a
+    slope of a few ``sqrt(max z^2)`` (a two-point segment at an end of the series); a start
+    kept long has a box of slopes near zero, and its margin is that much smaller.
+    Floating-point error bounds of sums and products: Higham (2002), chapters 2-4.
+
+    References
+    ----------
+    1. N. J. Higham, "Accuracy and Stability of Numerical Algorithms", 2nd ed., SIAM, 2002.
+    """
+    out = np.zeros(6)
+    if code != TREND:
+        return out
+    eps = np.finfo(np.float64).eps
+    own, drift_xx, drift_x, drift_tx, drift = _trend_rounding(stats, m)
+    reach = 0.0
+    for k in range(m + 1):
+        reach = max(reach, abs(length_term[k]))
+    out[0] = _TOTAL_ULPS * eps * (stats[3, m] + 2.0 * own + beta + reach + 1.0) + 6.0 * own
+    out[1] = drift_xx
+    out[2] = 2.0 * drift_x
+    out[3] = 2.0 * drift_tx
+    out[4] = 2.0 * drift
+    top = 0.0
+    for i in range(m):
+        top = max(top, stats[3, i + 1] - stats[3, i])
+    shortest = float(_STEEP_AFTER)
+    out[5] = math.sqrt((top + 4.0 * eps * stats[3, m]) * 12.0 / (shortest * shortest - 1.0)) + 1e-3
+    return out
+
+
+@njit(cache=True, error_model="numpy", inline="always")  # called only by _clip_trend
+def _box_drift(box, j, margins) -> float:
+    """The part of a 'trend' margin that depends on box ``j`` (:func:`_trend_margins`)."""
+    slope = min(max(abs(box[2, j]), abs(box[3, j])), margins[5])
+    level = max(abs(box[0, j]), abs(box[1, j])) + slope * abs(box[11, j])
+    drift = margins[1] + margins[2] * level + margins[3] * slope
+    # an open box (infinite levels) leaves the whole-series bound
+    return drift if drift < margins[4] else margins[4]
+
+
+@njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
+def _clip_trend(box, j, length, p_mean, z_mean, slope, spread, gap, margins) -> tuple[bool, float]:
+    """Box ``j`` shrunk to its meet with ``R_sc`` ('trend', room ``gap`` plus the margin); False if empty.
+
+    Returns whether the box is left and the part of the margin from it (:func:`_box_drift`):
+    from the box before; where that was open (a start's first narrowings: the whole-series
+    part) and the box left gives a much smaller one, clipped again with that (the box left
+    bounds the start's line as well as the one before).
+    """
+    drift = _box_drift(box, j, margins)
+    opened = not drift < margins[4]
+    for _ in range(2):
+        room = gap + margins[0] + drift
+        if not room >= 0.0:
+            return False, drift
+        if spread > 0.0:
+            e0, e1, e00, e01, e11 = _trend_ellipse(length, p_mean, z_mean, slope, spread, box[11, j])
+            live = _clip_ellipse(box, j, e0, e1, e00, e01, e11, room)
+        else:  # one value: the level within sqrt(room) of it, any slope
+            half = (1.0 + _BOX_SLACK) * math.sqrt(room) + _BOX_SLACK * abs(z_mean)
+            live = _clip_interval(box, j, 0, z_mean - half, z_mean + half)
+        if not live or not opened:
+            return live, drift
+        opened = False
+        tighter = _box_drift(box, j, margins)
+        if not tighter < 0.5 * drift:
+            break
+        drift = tighter
+    return True, drift
+
+
 @njit(cache=True, error_model="numpy")
 def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
     """Keep in ``box[4:11, k]`` where older start ``e`` beats ``s`` (slot ``k``), and ``s``'s first position.
@@ -1089,6 +1244,10 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
         box[7, k] = a00
         box[8, k] = a01
         box[9, k] = a11
+        # 'trend': ``rounding`` is the fixed part of its margin (:func:`_trend_margins`); the part
+        # that depends on the box is taken off when the region is cut
+        box[10, k] = F[s] - F[e] - cost - rounding
+        return
     else:
         mean, v, log_v, cost = _meanvar_fit(length, stats[0, s] - stats[0, e], stats[1, s] - stats[1, e])
         box[5, k] = mean
@@ -1100,7 +1259,23 @@ def _remember_region(code, stats, F, e, s, box, k, rounding) -> None:
 
 @njit(cache=True, error_model="numpy")
 def _narrow_box(
-    code, rows, starts, f_start, box, visit, oldest, n, c, f_c, stats_c, x0_c, t, length_term, use_length_term, rounding
+    code,
+    rows,
+    starts,
+    f_start,
+    box,
+    visit,
+    oldest,
+    n,
+    c,
+    f_c,
+    stats_c,
+    x0_c,
+    t,
+    length_term,
+    use_length_term,
+    rounding,
+    margins,
 ) -> tuple[int, int]:
     """Geometric functional pruning (Pishchagina, Rigaill & Runge 2024) for 'meanvar' and 'trend', by start ``c``.
 
@@ -1120,7 +1295,8 @@ def _narrow_box(
     ``x0_c`` is ``c``'s first position ('trend': the origin of the sums of ``(s, c]``).
     Starts in slots before ``oldest`` wait for a later call, however due.
     Margins as in :func:`_fpop`, with ``rounding`` (:func:`_rounding_scale`) for
-    the costs. With 'mbic' an older start only loses more by its length term, so the
+    the costs; 'trend' has its own, ``margins`` (:func:`_trend_margins`), one per start
+    from its box. With 'mbic' an older start only loses more by its length term, so the
     first cut holds as it is; in the second a newer start gains at most
     ``log((t - e) / (t - s))`` from step ``t`` on.
 
@@ -1153,6 +1329,7 @@ def _narrow_box(
         length = cf - starts[j]
         visit[j] = tf + 1.0 + _WAIT + _REVISIT * length
         margin = base + _PRUNE_MARGIN * abs(fs)
+        drift = 0.0
         if trend:
             dx = a2 - c2[j]
             st, stt, stx = _trend_local(length, x0_c, a0 - c0[j], a1 - c1[j], a5 - c5[j], dx, a4 - c4[j])
@@ -1162,14 +1339,11 @@ def _narrow_box(
             z_mean, v, log_v, cost = _meanvar_fit(length, a0 - c0[j], a1 - c1[j])
         gap = f_c - fs - cost
         room = gap + margin
-        if not room >= 0.0:
+        if trend:
+            live, drift = _clip_trend(box, j, length, p_mean, z_mean, slope, spread, gap, margins)
+            margin = margins[0] + drift
+        elif not room >= 0.0:
             live = False
-        elif trend and spread > 0.0:
-            e0, e1, e00, e01, e11 = _trend_ellipse(length, p_mean, z_mean, slope, spread, box[11, j])
-            live = _clip_ellipse(box, j, e0, e1, e00, e01, e11, room)
-        elif trend:  # one value: the level within sqrt(room) of it, any slope
-            half = (1.0 + _BOX_SLACK) * math.sqrt(room) + _BOX_SLACK * abs(z_mean)
-            live = _clip_interval(box, j, 0, z_mean - half, z_mean + half)
         else:
             live = _clip_meanvar(box, j, z_mean, v, log_v, room / length)
             # a kept start i newer than s is a competitor as c is (its room without the length term)
@@ -1191,7 +1365,7 @@ def _narrow_box(
                 e = int(box[4, j])
                 if e < 0:
                     continue
-                r = box[10, j]
+                r = box[10, j] - drift if trend else box[10, j]
                 if use_length_term:
                     r -= length_term[t - e] - length_term[t - s]
                 if trend:
@@ -1207,7 +1381,7 @@ def _narrow_box(
                 continue
             e = int(starts[i])
             e_len = float(s - e)
-            r = fs - fe - (_PRUNE_MARGIN * (2.0 + abs(fs) + abs(fe)) + rounding)
+            r = fs - fe - (margin if trend else _PRUNE_MARGIN * (2.0 + abs(fs) + abs(fe)) + rounding)
             if use_length_term:
                 r -= length_term[t - e] - length_term[t - s]
             if trend:
@@ -1227,7 +1401,12 @@ def _narrow_box(
                     continue
                 mean, v, log_v, cost = _meanvar_fit(e_len, c0[j] - c0[i], c1[j] - c1[i])
                 live = not _cut_meanvar(box, j, mean, v, log_v, e_len, r - cost)
-        if not live:
+        # 'trend': a young start's margins hold from step s + _STEEP_AFTER on (_trend_margins), so
+        # it stays until its next narrowing, due after that, which finds its box empty
+        if not live and trend and length + 2.0 < _STEEP_AFTER:
+            box[0, j] = np.inf
+            box[1, j] = -np.inf
+        elif not live:
             f_start[j] = np.inf
             retired += 1
         # where s beats c by more than the margin (and the most 'mbic' lets c gain back)
@@ -1320,6 +1499,7 @@ def _pelt(
     # a pruning rule compares up to three computed costs (the pair's now, both starts' at a later
     # step; the lazy pass doubles it for four), each within the scale of its exact value
     rounding = 3.0 * _rounding_scale(code, stats, m)
+    margins = _trend_margins(code, stats, m, beta, length_term)
     n_cand = np.int64(0)  # not a literal 0: the callees that take it compile once
     n_pruned = 0
     next_prune = 0
@@ -1369,6 +1549,7 @@ def _pelt(
                     length_term,
                     use_length_term,
                     rounding,
+                    margins,
                 )
                 n_pruned += retired
                 excluder = int(starts[beater]) if beater >= 0 else (last[s] if s > 0 else -1)
@@ -1376,7 +1557,7 @@ def _pelt(
                 bounds[1, n_cand] = np.inf
                 bounds[2, n_cand] = -np.inf
                 bounds[3, n_cand] = np.inf
-                _remember_region(code, stats, F, excluder, s, bounds, n_cand, rounding)
+                _remember_region(code, stats, F, excluder, s, bounds, n_cand, margins[0] if code == TREND else rounding)
             starts[n_cand] = s
             f_start[n_cand] = F[s]
             until[n_cand] = 0.0 if functional else np.inf
