@@ -511,19 +511,12 @@ def _or_error(answer: SqlType) -> Struct:
 def _answers_or_error(name: str, n: int, answers: Callable[[], pa.Array], answer_type: pa.DataType) -> pa.Array:
     """``answers()`` with no errors, or no answers and the message of an error of ``name``'s on every row."""
     try:
-        found = answers()
+        found, errors = answers(), pa.nulls(n, pa.string())
     except ValueError as error:
         if not str(error).startswith(f"{name}: "):
             raise
         found, errors = pa.nulls(n, answer_type), pa.array([str(error)] * n, pa.string())
-        return pa.StructArray.from_arrays([found, errors], names=["answer", "error"])
-    if isinstance(found, pa.Array):
-        return pa.StructArray.from_arrays([found, pa.nulls(n, pa.string())], names=["answer", "error"])
-    # answers in pieces stay in pieces: joined, they would be one more copy of them all
-    chunks = [
-        pa.StructArray.from_arrays([c, pa.nulls(len(c), pa.string())], names=["answer", "error"]) for c in found.chunks
-    ]
-    return pa.chunked_array(chunks, type=pa.struct([("answer", answer_type), ("error", pa.string())]))
+    return pa.StructArray.from_arrays([found, errors], names=["answer", "error"])
 
 
 def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
@@ -562,11 +555,7 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
                 parallel.run_pieces(work, 0, len(bounds), cores)
             else:
                 work(0, len(bounds))
-            return (
-                pieces[0]
-                if len(pieces) == 1
-                else pa.chunked_array([pieces[i] for i in range(len(bounds))], answer_type)
-            )
+            return pieces[0] if len(pieces) == 1 else pa.concat_arrays([pieces[i] for i in range(len(bounds))])
 
         return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)
 

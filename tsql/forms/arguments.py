@@ -42,8 +42,7 @@ def _constant(column: pa.Array) -> bool:
 
 
 def by_keys(keys: list[tuple], run: Callable[[np.ndarray | None, tuple], pa.Array]) -> pa.Array:
-    """Call ``run(rows, key)`` once per distinct key (one per row) and put the rows back in order (``run`` may
-    answer in chunks)."""
+    """Call ``run(rows, key)`` once per distinct key (one per row) and put the rows back in order."""
     distinct = dict.fromkeys(keys)
     if len(distinct) <= 1:
         return run(None, next(iter(distinct), ()))
@@ -56,7 +55,7 @@ def by_keys(keys: list[tuple], run: Callable[[np.ndarray | None, tuple], pa.Arra
         rows = np.asarray(members, dtype=np.int64)
         parts.append(run(rows, key))
         order.append(rows)
-    joined = pa.concat_arrays([c for p in parts for c in (p.chunks if isinstance(p, pa.ChunkedArray) else [p])])
+    joined = pa.concat_arrays(parts)
     return joined.take(pa.array(np.argsort(np.concatenate(order), kind="stable")))
 
 
