@@ -73,9 +73,9 @@ def test_kernels_see_one_argument_type_whichever_form_made_the_batch():
 
 
 def test_an_agg_call_in_pieces_with_settings_by_group_answers_as_the_list_form():
-    """A vector of groups larger than one piece comes back from the ``*_agg`` UDF in chunks (one per piece), and
-    groups with different settings are answered apart and put back in order: each group's values are those of
-    the list form on the same (complete, daily) series. Seeded synthetic data."""
+    """A vector of groups larger than one piece is answered piece by piece, and groups with different settings
+    apart and put back in order: each group's values are those of the list form on the same (complete, daily)
+    series. Seeded synthetic data."""
     import tsql
     from tsql.forms.agg import PIECE_POINTS
 
