@@ -70,3 +70,38 @@ def test_kernels_see_one_argument_type_whichever_form_made_the_batch():
     answers = [changepoint.change_points(b).values.tolist() for b in (from_numpy, from_arrow)]
     assert answers[0] == answers[1] == [7.0]
     assert len(changepoint._segment_rows.signatures) == 1
+
+
+def test_an_agg_call_in_pieces_with_settings_by_group_answers_as_the_list_form():
+    """A vector of groups larger than one piece is answered piece by piece, and groups with different settings
+    apart and put back in order: each group's values are those of the list form on the same (complete, daily)
+    series. Seeded synthetic data."""
+    import tsql
+    from tsql.forms.agg import PIECE_POINTS
+
+    groups, points = 800, 400
+    assert groups * points // 2 > 2 * PIECE_POINTS  # several pieces for each setting in one call
+    rng = np.random.default_rng(5)
+    values = np.sin(np.arange(points) / 3.0)[None, :] + rng.standard_normal((groups, points))
+    con = tsql.connect()
+    con.register(
+        "src",
+        pa.table(
+            {
+                "g": np.repeat(np.arange(groups, dtype=np.int32), points),
+                "t": pa.array(np.tile(np.datetime64("2020-01-01") + np.arange(points), groups)).cast(pa.date32()),
+                "v": values.ravel(),
+            }
+        ),
+    )
+    by_agg, by_list = (
+        con.execute(
+            "SELECT list_transform(harmonic_smooth_agg(v, t, harmonics := g % 2 + 1), lambda r: r.value), "
+            "harmonic_smooth(list(v ORDER BY t), harmonics := g % 2 + 1) FROM src GROUP BY g ORDER BY g"
+        )
+        .fetchnumpy()
+        .values()
+    )
+    assert len(by_agg) == groups
+    for a, b in zip(by_agg, by_list):
+        np.testing.assert_array_equal(np.asarray(a, dtype=float), np.asarray(b, dtype=float))
