@@ -49,8 +49,8 @@ CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, kind) AS
     END;
 
 -- An *_agg UDF's answer, or its error message (an error found in the data) raised as an error naming
--- the function. DuckDB computes the UDF's result once (one expression used three times) and hands the
--- answer on as it is, where a lambda over [r] would copy it three times (a list of each group's series
--- is the largest thing the query holds).
+-- the function. The lambda reads the UDF's one result twice without calling it twice: a plain CASE over
+-- r.error and r.answer has DuckDB call the UDF once for each (measured: screen_agg over 10,000 groups
+-- took 1.7x as long).
 CREATE OR REPLACE TEMP MACRO __tsql_answer(r) AS
-    CASE WHEN r.error IS NULL THEN r.answer ELSE error(r.error) END;
+    list_transform([r], lambda x: CASE WHEN x.error IS NULL THEN x.answer ELSE error(x.error) END)[1];
