@@ -1,6 +1,7 @@
 """Every function through DuckDB: registration, macros, GROUP BY, NULLs and errors."""
 
 import hashlib
+import importlib
 import re
 from pathlib import Path
 
@@ -114,6 +115,29 @@ def test_aggregate_form_equals_list_form(con, fn):
             else:
                 b = b * 7
         assert a is not None and as_comparable(a) == as_comparable(b)
+
+
+@pytest.mark.parametrize("fn", [f for f in SINGLE if f.aggregate], ids=lambda f: f.name)
+def test_aggregate_form_computes_each_group_once(con, fn, monkeypatch):
+    """Each ``*_agg`` macro reads its UDF's one result twice (the answer and the error): DuckDB must still
+    compute every group once. (A plain CASE over ``r.error`` and ``r.answer`` had it call the UDF twice.)"""
+    module_name, name = fn.kernel_path.split(":")
+    module = importlib.import_module(f"tsql.kernels.{module_name}")
+    kernel = getattr(module, name)
+    rows = []
+
+    def counted(values, *args, **kwargs):
+        rows.append(values.n_rows)
+        return kernel(values, *args, **kwargs)
+
+    monkeypatch.setattr(module, name, counted)
+    sql_args, _ = settings(fn, fn.test_args[0])  # the usual setting: every group computed
+    extra = f", {sql_args}" if sql_args else ""
+    query = f"""
+        WITH data AS (SELECT i % 300 AS g, i AS t, sin(i * 0.7) + (i * 7919 % 1013) / 1013 AS v FROM range(12000) r(i))
+        SELECT count(a) FROM (SELECT g, {fn.name}_agg(v, t{extra}) AS a FROM data GROUP BY g)"""
+    assert con.execute(query).fetchone()[0] == 300
+    assert sum(rows) == 300
 
 
 @pytest.mark.parametrize("fn", FUNCTIONS, ids=lambda f: f.name)
