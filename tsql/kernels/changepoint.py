@@ -2174,6 +2174,15 @@ def _gather(counts: np.ndarray, slots: np.ndarray) -> tuple[np.ndarray, np.ndarr
 _RESYNC = 32
 
 
+@njit(cache=True, error_model="numpy", inline="always")  # inside the harmonics' loops
+def _turn(t, w, c, s, turn_c, turn_s, exact):
+    """cos and sin of ``w t``: evaluated at every :data:`_RESYNC`-th position (at every one when
+    ``exact``), elsewhere those of ``t - 1`` (``c``, ``s``) turned by ``w`` (``turn_c``, ``turn_s``)."""
+    if exact or t % _RESYNC == 0:
+        return math.cos(w * t), math.sin(w * t)
+    return c * turn_c - s * turn_s, s * turn_c + c * turn_s
+
+
 @njit(cache=True, error_model="numpy", nogil=True)
 def _harmonics(period: float) -> int:
     return int(min(max(math.floor(period / 2.0), 1.0), float(MAX_HARMONICS)))
@@ -2209,11 +2218,7 @@ def _subtract_cycle(residual, period, out, design) -> None:
     sn = 0.0
     i = 0
     for t in range(n):
-        if t % _RESYNC == 0:
-            c = math.cos(w * t)
-            sn = math.sin(w * t)
-        else:
-            c, sn = c * turn_c - sn * turn_s, sn * turn_c + c * turn_s
+        c, sn = _turn(t, w, c, sn, turn_c, turn_s, False)
         r = residual[t]
         here = not np.isnan(r)
         cj = c
@@ -2529,29 +2534,16 @@ def _spread_test(y, n, m, count, w, exact, r, sum_r2, design, fitted, target):
     statistic ``m R^2`` (0 without a test) and whether a column's length was near its floor."""
     # a column that vanishes on the grid (a sine at Nyquist) is left out
     norms = np.zeros(3)
-    if exact:
-        for t in range(n):
-            c = math.cos(w * t)
-            s = math.sin(w * t)
-            norms[1] += c * c
-            norms[2] += s * s
-            design[1, t] = c
-            design[2, t] = s
-    else:
-        turn_c = math.cos(w)
-        turn_s = math.sin(w)
-        c = 1.0
-        s = 0.0
-        for t in range(n):
-            if t % _RESYNC == 0:
-                c = math.cos(w * t)
-                s = math.sin(w * t)
-            else:
-                c, s = c * turn_c - s * turn_s, s * turn_c + c * turn_s
-            norms[1] += c * c
-            norms[2] += s * s
-            design[1, t] = c
-            design[2, t] = s
+    turn_c = math.cos(w)
+    turn_s = math.sin(w)
+    c = 1.0
+    s = 0.0
+    for t in range(n):
+        c, s = _turn(t, w, c, s, turn_c, turn_s, exact)
+        norms[1] += c * c
+        norms[2] += s * s
+        design[1, t] = c
+        design[2, t] = s
     for t in range(n):
         norms[0] += 1.0
         design[0, t] = 1.0
