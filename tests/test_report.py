@@ -243,6 +243,11 @@ FLAGS = (
     "--disable-component-update",
     "--disable-sync",
     "--window-size=1280,1600",
+    # a page the browser takes for hidden or in the background gets no animation frames, so no
+    # IntersectionObserver callbacks and no plotly draws: keep every frame coming under load
+    "--disable-backgrounding-occluded-windows",
+    "--disable-renderer-backgrounding",
+    "--disable-background-timer-throttling",
     # the network off: every host name fails to resolve, and any proxy lookup goes nowhere
     "--host-resolver-rules=MAP * ~NOTFOUND",
     "--proxy-server=127.0.0.1:9",
@@ -286,8 +291,22 @@ def draw(browser, chart) -> None:
     """Scroll a chart into view and wait until plotly has drawn it (charts below the fold are drawn lazily)."""
     from selenium.webdriver.support.ui import WebDriverWait
 
+    from selenium.common.exceptions import TimeoutException
+
     browser.execute_script("arguments[0].scrollIntoView({block: 'center'})", chart)
-    WebDriverWait(browser, 20).until(lambda _: chart.get_attribute("data-drawn") == "1")
+    try:
+        WebDriverWait(browser, 60).until(lambda _: chart.get_attribute("data-drawn") == "1")
+    except TimeoutException:
+        state = browser.execute_script(
+            "const r = arguments[0].getBoundingClientRect();"
+            "return [document.visibilityState, Math.round(r.top), Math.round(r.height), innerHeight];",
+            chart,
+        )
+        console = [entry["message"] for entry in browser.get_log("browser")]
+        raise AssertionError(
+            f"chart {chart.get_attribute('id')!r} not drawn in 60 s; page visibility, chart top and height, "
+            f"window height: {state}; console: {console}"
+        ) from None
 
 
 def draw_all(browser) -> int:
