@@ -190,8 +190,10 @@ def ljung_box_of(batch: Ragged, table: Ragged, max_lag: int) -> dict[str, np.nda
     """:func:`ljung_box` from the batch's ``acf(batch, max_lag)`` table, when it serves several statistics
     (:func:`tsql.kernels.screen.screen`)."""
     r = table.values.reshape(batch.n_rows, max_lag)
-    present = batch.present.astype(np.float64) if batch.has_missing else np.ones(len(batch.values))
-    n = batch.segment_sum(present)
+    if batch.has_missing:
+        n = batch.segment_sum(batch.present.astype(np.float64))
+    else:
+        n = batch.lengths.astype(np.float64)
     k = np.arange(1, max_lag + 1)
     with np.errstate(invalid="ignore", divide="ignore"):
         q = n * (n + 2) * np.sum(r * r / (n[:, None] - k), axis=1)
