@@ -6,7 +6,8 @@ paper (C. A. R. Hoare, "Algorithm 65: Find", Communications of the ACM 4(7), 321
 median of three, as the kernels choose it). trend_test's merge sort must give the stable order
 (numpy's stable argsort) and the inversion count (counted pair by pair). The spread test of
 change_points settles most rows on a harmonic turned from one position to the next; its statistic
-must lie far within the margin it is trusted by of the one on the evaluated harmonic.
+must lie far within the margin it is trusted by of the one on the evaluated harmonic. spectral_entropy
+and ljung_box skip their masks for complete rows: the same answers as through the masks.
 """
 
 import math
@@ -16,6 +17,9 @@ import pytest
 import statsmodels.datasets
 
 from tsql.kernels import changepoint, trend
+from tsql.kernels.correlation import ljung_box
+from tsql.kernels.periodicity import spectral_entropy
+from tsql.kernels.ragged import Ragged
 
 
 def hoare_find(a: np.ndarray, k: int, n: int) -> float:
@@ -121,3 +125,30 @@ def test_spread_statistic_on_the_turned_harmonic_within_its_margin():
     # the margin the turned harmonic is trusted by is many orders of magnitude above the gap
     assert largest < 1e-4 * changepoint._SPREAD_SETTLED
     assert math.isfinite(largest)
+
+
+@pytest.mark.parametrize("n", [40, 101, 1000])
+def test_complete_rows_skip_the_masks_with_the_same_answers(n):
+    """spectral_entropy and ljung_box take a shortcut for a batch (a bucket) whose values are all present:
+    no masks, the lengths as the counts. A row with a gap beside the complete ones sends them through the
+    masked path; their answers must not move by a bit. Among the rows: one whose power is all at Nyquist
+    (the other ordinates exactly 0, the entropy's terms 0 log 0) and one of huge magnitude (scaled first)."""
+    rng = np.random.default_rng(n)
+    t = np.arange(n)
+    complete = [
+        rng.standard_normal(n),
+        np.sin(2 * np.pi * t / 7) + 0.1 * rng.standard_normal(n),
+        np.cumsum(rng.standard_normal(n)),
+        np.where(t % 2 == 0, 1.0, -1.0),
+        1e300 * rng.standard_normal(n),
+        np.round(rng.standard_normal(n)),
+    ]
+    gappy = rng.standard_normal(n)
+    gappy[::5] = np.nan
+    alone = Ragged.from_list(complete)
+    beside = Ragged.from_list([*complete, gappy])
+    assert not alone.has_missing and beside.has_missing
+    for fn in (spectral_entropy, lambda b: ljung_box(b)["q"], lambda b: ljung_box(b)["p_value"]):
+        a, b = fn(alone), fn(beside)[: len(complete)]
+        assert np.isfinite(a[[0, 1, 2, 5]]).all()
+        np.testing.assert_array_equal(a.view(np.int64), b.view(np.int64))

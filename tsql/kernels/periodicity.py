@@ -921,20 +921,29 @@ def spectral_entropy(batch: Ragged) -> np.ndarray:
         if n < _MIN_PRESENT:
             continue
         matrix = in_safe_range(matrix)
-        present = ~np.isnan(matrix)
-        count = present.sum(axis=1)
-        finite = ~np.isinf(matrix).any(axis=1)
-        x = np.where(present & finite[:, None], matrix, 0.0)
-        x = np.where(present, x - (x.sum(axis=1) / np.maximum(count, 1))[:, None], 0.0)
-        scale = np.where(present & finite[:, None], np.abs(matrix), 0.0).max(axis=1)
+        scale = np.abs(matrix).max(axis=1)  # NaN where a value is missing
+        if np.isfinite(scale).all():  # every value present and finite: the masks below would keep them all
+            count = np.full(len(rows), n)
+            x = matrix - (matrix.sum(axis=1) / n)[:, None]
+            finite = np.ones(len(rows), dtype=bool)
+        else:
+            present = ~np.isnan(matrix)
+            count = present.sum(axis=1)
+            finite = ~np.isinf(matrix).any(axis=1)
+            x = np.where(present & finite[:, None], matrix, 0.0)
+            x = np.where(present, x - (x.sum(axis=1) / np.maximum(count, 1))[:, None], 0.0)
+            scale = np.where(present & finite[:, None], np.abs(matrix), 0.0).max(axis=1)
         spread = np.sqrt((x * x).sum(axis=1) / np.maximum(count, 1))
         answered = valid[rows] & finite & (count >= _MIN_PRESENT) & (spread > _CONSTANT_RTOL * scale)
         if not answered.any():
             continue
-        spectrum = np.fft.rfft(x[answered], axis=1)[:, 1:]
+        spectrum = np.fft.rfft(x if answered.all() else x[answered], axis=1)[:, 1:]
         power = spectrum.real * spectrum.real + spectrum.imag * spectrum.imag
         power[:, : (n - 1) // 2] *= 2.0  # the one-sided periodogram: every bin but Nyquist stands for two
         share = power / power.sum(axis=1)[:, None]
-        terms = np.where(share > 0, share * np.log(np.where(share > 0, share, 1.0)), 0.0)
+        if (share > 0).all():
+            terms = share * np.log(share)
+        else:
+            terms = np.where(share > 0, share * np.log(np.where(share > 0, share, 1.0)), 0.0)
         out[rows[answered]] = np.clip(-terms.sum(axis=1) / np.log(n // 2), 0.0, 1.0) + 0.0  # no -0.0
     return out
