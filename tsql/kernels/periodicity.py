@@ -482,8 +482,14 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
     (True, True)
     """
     rows, width = power.shape
+    if tested.ndim == 1:  # one mask for every row: counted, looked up and negated once
+        m = np.full(rows, float(tested.sum()))
+        at_peak = tested[peak]
+    else:
+        m = tested.sum(axis=1).astype(np.float64)
+        at_peak = np.take_along_axis(tested, peak[:, None], axis=1)[:, 0]
+    untested = ~tested
     tested = np.broadcast_to(tested, power.shape)
-    m = tested.sum(axis=1).astype(np.float64)
     cos = np.cos(2.0 * np.pi * np.arange(width) / n)
     weight = np.full(width, 2.0)
     weight[0] = 1.0
@@ -495,7 +501,6 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
     with np.errstate(invalid="ignore", divide="ignore"):
         phi = np.clip(weighted.sum(axis=1) / total, -_MAX_PHI, _MAX_PHI)
     phi = np.where((total > 0) & (np.abs(phi) > _RED_Z / np.sqrt(n)), phi, 0.0)[:, None]
-    at_peak = np.take_along_axis(tested, peak[:, None], axis=1)[:, 0]
     p_value = np.zeros(rows)
     for red in (False, True):
         if red:  # power * (1 - 2 phi cos + phi^2), in place of the white one (one table less)
@@ -503,7 +508,7 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
             np.subtract(1.0, whitened, out=whitened)
             whitened += phi * phi
             whitened *= power
-            np.copyto(whitened, 0.0, where=~tested)
+            np.copyto(whitened, 0.0, where=untested)
         else:
             whitened = np.where(tested, power, 0.0)
         top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
