@@ -7,7 +7,8 @@ median of three, as the kernels choose it). trend_test's merge sort must give th
 (numpy's stable argsort) and the inversion count (counted pair by pair). The spread test of
 change_points settles most rows on a harmonic turned from one position to the next; its statistic
 must lie far within the margin it is trusted by of the one on the evaluated harmonic. spectral_entropy
-and ljung_box skip their masks for complete rows: the same answers as through the masks.
+and ljung_box skip their masks for complete rows: the same answers as through the masks. fisher_g_pvalue sums
+each band of rows in a table only as wide as the band needs: the same sums as one table.
 """
 
 import math
@@ -18,7 +19,7 @@ import statsmodels.datasets
 
 from tsql.kernels import changepoint, trend
 from tsql.kernels.correlation import ljung_box
-from tsql.kernels.periodicity import spectral_entropy
+from tsql.kernels.periodicity import fisher_g_pvalue, spectral_entropy
 from tsql.kernels.ragged import Ragged
 
 
@@ -152,3 +153,36 @@ def test_complete_rows_skip_the_masks_with_the_same_answers(n):
         a, b = fn(alone), fn(beside)[: len(complete)]
         assert np.isfinite(a[[0, 1, 2, 5]]).all()
         np.testing.assert_array_equal(a.view(np.int64), b.view(np.int64))
+
+
+def fisher_one_table(g: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """fisher_g_pvalue's sum as one table for all rows, as wide as the widest row needs (at most 128 terms)."""
+    x, mm = g.astype(np.float64), np.floor(m.astype(np.float64))
+    needed = np.minimum(mm, np.floor(1.0 / x))
+    width = int(min(128, needed.max()))
+    j = np.arange(1, width + 1, dtype=np.float64)
+    jx = x[:, None] * j
+    used = (j <= mm[:, None]) & (jx < 1.0)
+    log_comb = np.cumsum(np.log(np.maximum(mm[:, None] - j + 1.0, 1.0) / j), axis=1)
+    log_term = np.where(used, log_comb + (mm[:, None] - 1.0) * np.log1p(-np.where(used, jx, 0.0)), -np.inf)
+    terms = np.exp(log_term)
+    exact = np.cumsum(np.where(j % 2 == 1, terms, -terms), axis=1)[:, -1]
+    stable = (log_term.max(axis=1) <= np.log(1e6)) & ~((needed > width) & (terms[:, -1] > 1e-30))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tail = np.exp((mm - 1.0) * np.log1p(-x))
+        approx = -np.expm1(mm * np.log1p(-tail))
+    p = np.where((x == 0.0) | (mm == 1.0), 1.0, np.where(stable, exact, approx))
+    return np.clip(p, 0.0, 1.0)
+
+
+def test_fisher_bands_equal_one_table():
+    """fisher_g_pvalue sums each row's terms in a table only as wide as the rows of its band need; the
+    terms a wider table adds are 0, so every p-value equals the one-table sum bit for bit."""
+    rng = np.random.default_rng(17)
+    m = rng.integers(1, 600, 4000).astype(np.float64)
+    g = np.concatenate([rng.uniform(0, 1, 1000), 10.0 ** rng.uniform(-3.5, 0, 3000)])  # up to the 128-term cap
+    g[:5] = [1.0, 0.5, 0.25, 1 / 3, 1 / 128]  # on band edges
+    want = fisher_one_table(g, m)
+    got = fisher_g_pvalue(g, m)
+    assert len(np.unique(np.ceil(np.log2(np.minimum(m, np.floor(1 / g)).clip(1, 128))))) == 8  # every band
+    np.testing.assert_array_equal(got.view(np.int64), want.view(np.int64))

@@ -252,6 +252,19 @@ def fisher_g_pvalue(g: np.ndarray, m: np.ndarray) -> np.ndarray:
     x, mm = x[ok], mm[ok]
     with np.errstate(divide="ignore"):
         needed = np.minimum(mm, np.floor(1.0 / x))
+    # rows in bands of the terms they need (1, 2, 3-4, 5-8, ...): each band's table only as wide as it
+    # needs; a row's terms beyond its own are 0 and leave its sum as it is, so the band changes no bit
+    band = np.ceil(np.log2(np.clip(needed, 1.0, _FISHER_TERMS))).astype(np.int64)
+    p = np.empty(len(x))
+    for b in np.unique(band):
+        part = band == b
+        p[part] = _fisher_terms(x[part], mm[part], needed[part])
+    out[ok] = np.clip(p, 0.0, 1.0)
+    return out.reshape(shape)
+
+
+def _fisher_terms(x: np.ndarray, mm: np.ndarray, needed: np.ndarray) -> np.ndarray:
+    """:func:`fisher_g_pvalue` of valid ``x``, ``mm`` (``needed``: the terms each row's sum has), unclipped."""
     width = int(min(_FISHER_TERMS, needed.max()))
     j = np.arange(1, width + 1, dtype=np.float64)
     jx = x[:, None] * j
@@ -268,9 +281,7 @@ def fisher_g_pvalue(g: np.ndarray, m: np.ndarray) -> np.ndarray:
         tail = np.exp((mm - 1.0) * np.log1p(-x))
         approx = -np.expm1(mm * np.log1p(-tail))
     p = np.where(stable, exact, approx)
-    p = np.where((x == 0.0) | (mm == 1.0), 1.0, p)  # one ordinate: g = 1 always, nothing to test
-    out[ok] = np.clip(p, 0.0, 1.0)
-    return out.reshape(shape)
+    return np.where((x == 0.0) | (mm == 1.0), 1.0, p)  # one ordinate: g = 1 always, nothing to test
 
 
 # --------------------------------------------------------------------------------------------
