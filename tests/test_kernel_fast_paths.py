@@ -7,7 +7,8 @@ median of three, as the kernels choose it). trend_test's merge sort must give th
 (numpy's stable argsort) and the inversion count (counted pair by pair). The spread test of
 change_points settles most rows on a harmonic turned from one position to the next; its statistic
 must lie far within the margin it is trusted by of the one on the evaluated harmonic. The test makes
-its sums in one pass: they must equal those of the plain procedure, one loop per sum, bit for bit.
+its sums in one pass: they must equal those of the plain procedure, one loop per sum, bit for bit; so
+must the cycle fit's cross products made ten and four at a time on the Gram matrix's diagonal.
 """
 
 import math
@@ -200,3 +201,28 @@ def test_spread_test_in_one_pass_equals_the_plain_procedure():
                 assert got[1:] == want[1:]
                 checked += got[2] > 0
     assert checked > 20  # most cases have a statistic to compare
+
+
+def test_diagonal_cross_products_equal_their_sums_one_by_one():
+    # the cycle fit's columns (cosines and sines of a period, a residual) with values of many magnitudes
+    rng = np.random.default_rng(11)
+    for m in (0, 1, 5, 96, 1001):
+        t = np.arange(m)
+        cols = np.vstack(
+            [np.cos(2 * np.pi * j * t / 12.3) for j in range(1, 4)]
+            + [np.sin(2 * np.pi * j * t / 12.3) for j in range(1, 4)]
+            + [np.zeros((2, m)), rng.standard_normal(m) * 10.0 ** rng.integers(-8, 8, m)]
+        )
+        for a0 in (0, 4):
+            block, four = np.full((4, 4), np.nan), np.full(4, np.nan)
+            changepoint._cross4_lower(cols, a0, 8, m, block, four)
+            for i in range(4):
+                for j in range(i + 1):
+                    acc = 0.0
+                    for k in range(m):
+                        acc += cols[a0 + i, k] * cols[a0 + j, k]
+                    assert block[i, j] == acc
+                acc = 0.0
+                for k in range(m):
+                    acc += cols[a0 + i, k] * cols[8, k]
+                assert four[i] == acc

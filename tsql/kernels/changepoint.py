@@ -2240,15 +2240,19 @@ def _subtract_cycle(residual, period, out, design) -> None:
     gram = np.zeros((k, k))
     rhs = np.zeros(k)
     block = np.empty((4, 4))
+    four = np.empty(4)
     for a0 in range(0, wide, 4):
         for b0 in range(0, a0 + 1, 4):
-            _cross4(cols, a0, b0, present, block)
+            if b0 == a0:
+                # the block on the diagonal: its lower half, and the four columns against the residual
+                _cross4_lower(cols, a0, wide, present, block, four)
+                for a in range(a0, min(a0 + 4, k)):
+                    rhs[a] = four[a - a0]
+            else:
+                _cross4(cols, a0, b0, present, block)
             for a in range(a0, min(a0 + 4, k)):
                 for b in range(b0, min(b0 + 4, a + 1)):
                     gram[a, b] = block[a - a0, b - b0]
-        _cross1(cols, a0, wide, present, block[0])
-        for a in range(a0, min(a0 + 4, k)):
-            rhs[a] = block[0, a - a0]
     floor = 1e-6 * math.sqrt(n)
     for a in range(h, k):
         if not math.sqrt(norms[a - h]) > floor:  # left out: a zero column has no length to factor
@@ -2300,18 +2304,36 @@ def _cross4(cols, a0, b0, m, out) -> None:
 
 
 @njit(cache=True, error_model="numpy")
-def _cross1(cols, a0, b, m, out) -> None:
-    """``out[i] = sum_t cols[a0 + i, t] * cols[b, t]`` over ``t < m`` in order, the four at once."""
+def _cross4_lower(cols, a0, b, m, out, four) -> None:
+    """``out[i, j] = sum_t cols[a0 + i, t] * cols[a0 + j, t]`` for ``j <= i`` (the ten of :func:`_cross4` with
+    ``b0 = a0`` that the Gram matrix uses) and ``four[i] = sum_t cols[a0 + i, t] * cols[b, t]``, each over
+    ``t < m`` in order."""
     x0, x1, x2, x3 = cols[a0], cols[a0 + 1], cols[a0 + 2], cols[a0 + 3]
     y = cols[b]
-    s0 = s1 = s2 = s3 = 0.0
+    s00 = s10 = s11 = s20 = s21 = s22 = s30 = s31 = s32 = s33 = 0.0
+    r0 = r1 = r2 = r3 = 0.0
     for t in range(m):
+        p0, p1, p2, p3 = x0[t], x1[t], x2[t], x3[t]
         q = y[t]
-        s0 += x0[t] * q
-        s1 += x1[t] * q
-        s2 += x2[t] * q
-        s3 += x3[t] * q
-    out[0], out[1], out[2], out[3] = s0, s1, s2, s3
+        r0 += p0 * q
+        r1 += p1 * q
+        r2 += p2 * q
+        r3 += p3 * q
+        s00 += p0 * p0
+        s10 += p1 * p0
+        s11 += p1 * p1
+        s20 += p2 * p0
+        s21 += p2 * p1
+        s22 += p2 * p2
+        s30 += p3 * p0
+        s31 += p3 * p1
+        s32 += p3 * p2
+        s33 += p3 * p3
+    out[0, 0] = s00
+    out[1, 0], out[1, 1] = s10, s11
+    out[2, 0], out[2, 1], out[2, 2] = s20, s21, s22
+    out[3, 0], out[3, 1], out[3, 2], out[3, 3] = s30, s31, s32, s33
+    four[0], four[1], four[2], four[3] = r0, r1, r2, r3
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
