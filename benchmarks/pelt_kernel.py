@@ -258,8 +258,8 @@ def mean_search(rows: int, repeat: int) -> None:
         stats = np.empty((changepoint.MAX_STATS, m + 1))
         work = np.empty(2 * m + 2)
         p = np.arange(m, dtype=np.int64)
-        changepoint._prepare(spec.code, x, p, m, stats, work)
-        beta = spec.params_per_change * math.log(m) * changepoint._noise_factor(spec.code, x, p, m, work)
+        scale = changepoint._prepare(spec.code, x, p, m, stats, work)
+        beta = spec.params_per_change * math.log(m) * changepoint._noise_factor(spec.code, x, m, scale, work)
         sums = (stats, m, beta, np.zeros(m + 1), False, 2)
         # F, last, starts, candidates' sums, F of the starts, until, values, bounds
         buffers = (np.empty(m + 1), np.empty(m + 1, dtype=np.int64), np.empty(m + 1))

@@ -9,6 +9,9 @@ change_points settles most rows on a harmonic turned from one position to the ne
 must lie far within the margin it is trusted by of the one on the evaluated harmonic. spectral_entropy
 and ljung_box skip their masks for complete rows: the same answers as through the masks. fisher_g_pvalue sums
 each band of rows in a table only as wide as the band needs: the same sums as one table.
+must lie far within the margin it is trusted by of the one on the evaluated harmonic. The test makes
+its sums in one pass: they must equal those of the plain procedure, one loop per sum, bit for bit; so
+must the cycle fit's cross products made ten and four at a time on the Gram matrix's diagonal.
 """
 
 import math
@@ -186,3 +189,106 @@ def test_fisher_bands_equal_one_table():
     got = fisher_g_pvalue(g, m)
     assert len(np.unique(np.ceil(np.log2(np.minimum(m, np.floor(1 / g)).clip(1, 128))))) == 8  # every band
     np.testing.assert_array_equal(got.view(np.int64), want.view(np.int64))
+
+
+def plain_spread_test(y, n, m, count, w, exact, r, sum_r2):
+    """Koenker's statistic as the plain procedure makes it: the design (turned or evaluated), its columns'
+    lengths, the columns left out zeroed, then each sum over the positions in a loop of its own."""
+    design = np.zeros((3, n))
+    norms = [0.0, 0.0, 0.0]
+    c, s = 1.0, 0.0
+    turn_c, turn_s = math.cos(w), math.sin(w)
+    for t in range(n):
+        if exact or t % changepoint._RESYNC == 0:
+            c, s = math.cos(w * t), math.sin(w * t)
+        else:
+            c, s = c * turn_c - s * turn_s, s * turn_c + c * turn_s
+        design[:, t] = (1.0, c, s)
+        norms[0] += 1.0
+        norms[1] += c * c
+        norms[2] += s * s
+    gram = np.zeros((3, 3))
+    used, near, floor = 0, False, 1e-6 * math.sqrt(n)
+    for i in range(3):
+        length = math.sqrt(norms[i])
+        near |= abs(length - floor) <= changepoint._SPREAD_SETTLED * floor
+        if length > floor:
+            used += 1
+        else:
+            gram[i, i] = 1.0
+            design[i] = 0.0
+    design[:, np.isnan(y)] = 0.0
+    for a in range(3):
+        for b in range(a + 1):
+            acc = 0.0
+            for t in range(n):
+                acc += design[a, t] * design[b, t]
+            gram[a, b] += acc
+    low, _ = changepoint.cholesky(gram, 1e-12)
+    target = r * r
+    v = np.zeros(3)
+    for a in range(3):
+        for t in range(n):
+            v[a] += design[a, t] * target[t]
+    coef = changepoint.solve(low, v)
+    mean_r2 = sum_r2 / count
+    explained = spread = 0.0
+    for t in range(n):
+        if not np.isnan(y[t]):
+            fitted = ((0.0 + design[0, t] * coef[0]) + design[1, t] * coef[1]) + design[2, t] * coef[2]
+            explained += (fitted - mean_r2) ** 2
+            spread += (target[t] - mean_r2) ** 2
+    df = used - 1
+    statistic = m * explained / spread if df > 0 and m > df + 1 and spread > 0 else 0.0
+    return low, used, statistic, near
+
+
+def test_spread_test_in_one_pass_equals_the_plain_procedure():
+    # real series (statsmodels datasets: sunspots yearly, El Nino monthly temperatures, the latter also with
+    # a seeded fifth of its values missing) and a seeded one whose noise grows with its cycle; periods short,
+    # long and at Nyquist (2: the sine vanishes on the grid and is left out)
+    sunspots = statsmodels.datasets.sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(float)
+    elnino = statsmodels.datasets.elnino.load_pandas().data.iloc[:, 1:].to_numpy(float).ravel()
+    rng = np.random.default_rng(7)
+    gappy = np.where(rng.random(len(elnino)) < 0.2, np.nan, elnino)
+    k = np.arange(300)
+    growing = 10 + 3 * np.sin(2 * np.pi * k / 12) + (1 + 0.8 * np.sin(2 * np.pi * k / 12)) * rng.standard_normal(300)
+    checked = 0
+    for y in (sunspots, elnino, gappy, growing, growing[:9]):
+        n = len(y)
+        m, r, sum_r2 = spread_inputs(y)
+        for period in (2.0, 3.0, 7.0, 12.0, 52.18):
+            w = 2.0 * np.pi / period
+            for exact in (False, True):
+                design, fitted, target = np.empty((3, n)), np.empty(n), np.empty(n)
+                got = changepoint._spread_test(y, n, m, max(m, 1), w, exact, r, sum_r2, design, fitted, target)
+                want = plain_spread_test(y, n, m, max(m, 1), w, exact, r, sum_r2)
+                np.testing.assert_array_equal(got[0], want[0])
+                assert got[1:] == want[1:]
+                checked += got[2] > 0
+    assert checked > 20  # most cases have a statistic to compare
+
+
+def test_diagonal_cross_products_equal_their_sums_one_by_one():
+    # the cycle fit's columns (cosines and sines of a period, a residual) with values of many magnitudes
+    rng = np.random.default_rng(11)
+    for m in (0, 1, 5, 96, 1001):
+        t = np.arange(m)
+        cols = np.vstack(
+            [np.cos(2 * np.pi * j * t / 12.3) for j in range(1, 4)]
+            + [np.sin(2 * np.pi * j * t / 12.3) for j in range(1, 4)]
+            + [np.zeros((2, m)), rng.standard_normal(m) * 10.0 ** rng.integers(-8, 8, m)]
+        )
+        for a0 in (0, 4):
+            block, four = np.full((4, 4), np.nan), np.full(4, np.nan)
+            changepoint._cross4_lower(cols, a0, 8, m, block, four)
+            for i in range(4):
+                for j in range(i + 1):
+                    acc = 0.0
+                    for k in range(m):
+                        acc += cols[a0 + i, k] * cols[a0 + j, k]
+                    assert block[i, j] == acc
+                acc = 0.0
+                for k in range(m):
+                    acc += cols[a0 + i, k] * cols[8, k]
+                assert four[i] == acc

@@ -15,7 +15,7 @@ Cycles are removed first (``seasonal``). How the costs, noise scale and
 penalties are defined and chosen is in :func:`segments`, Notes.
 
 Adding a model: ``_prepare_x`` (cumulative sums ``stats[k, i]`` over the first
-``i`` present values of the scaled series; False if it has no scale),
+``i`` present values of the scaled series; it returns the scale, 0 if there is none),
 ``_cost_x`` (``base[j] + C(s_j, t)`` for all candidate starts at once) and a
 :class:`CostModel` entry, plus one branch in :func:`_prepare`, in the step of
 :func:`_pelt` and in :func:`_neighbourhood`. Every cost satisfies
@@ -307,12 +307,12 @@ def _standardised_sums(y, m, centre, scale, stats) -> None:
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare_mean(y, p, m, stats, work) -> bool:
+def _prepare_mean(y, p, m, stats, work) -> float:
     centre, sd = _std(y, m)
     if not sd > _rounding(y, m):
-        return False
+        return 0.0
     _standardised_sums(y, m, centre, sd, stats)
-    return True
+    return sd
 
 
 @njit(cache=True, error_model="numpy")
@@ -339,12 +339,12 @@ def _cost_mean(stats, rows, starts, base, idx, m, t, out) -> None:
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare_meanvar(y, p, m, stats, work) -> bool:
+def _prepare_meanvar(y, p, m, stats, work) -> float:
     centre, sd = _std(y, m)
     if not sd > _rounding(y, m):
-        return False
+        return 0.0
     _standardised_sums(y, m, centre, sd, stats)
-    return True
+    return sd
 
 
 @njit(cache=True, error_model="numpy")
@@ -373,7 +373,7 @@ _SQUARES_SPLIT = 1 << 24
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare_trend(y, p, m, stats, work) -> bool:
+def _prepare_trend(y, p, m, stats, work) -> float:
     """Sums over the positions ``u`` (centred on the middle one) and ``z``, the values' residuals
     about the whole series' line in units of their standard deviation.
 
@@ -386,7 +386,7 @@ def _prepare_trend(y, p, m, stats, work) -> bool:
     """
     centre, slope, sigma = _line_residual_sd(y, p, m)
     if not sigma > _rounding(y, m):
-        return False
+        return 0.0
     mp = 0.0
     for i in range(m):
         mp += p[i]
@@ -417,7 +417,7 @@ def _prepare_trend(y, p, m, stats, work) -> bool:
         stats[2, i + 1] = sx + ex
         stats[3, i + 1] = sxx + exx
         stats[4, i + 1] = stx + etx
-    return True
+    return sigma
 
 
 @njit(cache=True, error_model="numpy")
@@ -471,8 +471,9 @@ def _cost_trend(stats, rows, starts, base, idx, m, t, out) -> None:
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare(code, y, p, m, stats, work) -> bool:
-    """Fill ``stats[:, :m + 1]`` for model ``code``; False if the series has no scale.
+def _prepare(code, y, p, m, stats, work) -> float:
+    """Fill ``stats[:, :m + 1]`` for model ``code``; the scale the series is standardised by, 0 if it has none
+    (the standard deviation about its mean, for 'trend' about its line).
 
     ``work`` needs ``2 * m`` elements of scratch.
     """
@@ -484,16 +485,15 @@ def _prepare(code, y, p, m, stats, work) -> bool:
 
 
 @njit(cache=True, error_model="numpy")
-def _noise_factor(code, y, p, m, work) -> float:
+def _noise_factor(code, y, m, scale, work) -> float:
     """The long-run factor (>= 1) that multiplies a named penalty for model ``code``.
 
-    Against the variance the cost is scaled by: the series' own for 'mean' and
-    'meanvar' (trends count as drift), the residuals' about the series' line for
-    'trend' (its semivariogram centred, blind to the line).
+    Against the variance the cost is scaled by, ``scale ** 2`` (``scale`` as :func:`_prepare`
+    returns it): the series' own for 'mean' and 'meanvar' (trends count as drift), the
+    residuals' about the series' line for 'trend' (its semivariogram centred, blind to the line).
     """
     centred = code == TREND  # one call site: a literal True / False would compile the callee twice
-    variance = _line_residual_sd(y, p, m)[2] ** 2 if centred else _std(y, m)[1] ** 2
-    return _long_run_factor(y, m, variance, centred, work)
+    return _long_run_factor(y, m, scale**2, centred, work)
 
 
 #: smallest ``min_size`` each model accepts
@@ -1812,7 +1812,7 @@ def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p
         return
     work = np.empty(2 * m + 2)
     stats = np.empty((MAX_STATS, m + 1))
-    if not _prepare(code, y, p, m, stats, work):
+    if not _prepare(code, y, p, m, stats, work) > 0.0:
         return
     k_eff = min(k_max, m // min_size - 1)
     D = np.empty((k_eff + 1, m + 1))
@@ -1937,10 +1937,11 @@ def _segment_row(
     if m >= 2 * min_size and lowest < highest:
         work = np.empty(2 * m + 2)
         stats = np.empty((MAX_STATS, m + 1))
-        if _prepare(code, y, p, m, stats, work):
+        scale = _prepare(code, y, p, m, stats, work)
+        if scale > 0.0:
             log_m = math.log(m)
             # a named penalty grows with the serial dependence of the noise (see segments, Notes)
-            factor = 1.0 if penalty_kind == _FIXED else _noise_factor(code, y, p, m, work)
+            factor = 1.0 if penalty_kind == _FIXED else _noise_factor(code, y, m, scale, work)
             if penalty_kind != _FIXED:
                 factor = max(factor, least_factor[r])  # a removed cycle's degrees of freedom (see _cycle_factor)
             if penalty_kind == _BIC:
@@ -2207,7 +2208,9 @@ def _subtract_cycle(residual, period, out, design) -> None:
     w = 2.0 * np.pi / period
     turn_c = math.cos(w)
     turn_s = math.sin(w)
-    norms = np.zeros(k)
+    # only a sine can vanish: every cosine is 1.0 at t = 0 (cos 0 and sin 0 exactly, turned by
+    # 1 * c - 0 * s), so its length is at least 1, above the floor for any n below 10^12
+    norms = np.zeros(h)
     present = 0
     for t in range(n):
         present += not np.isnan(residual[t])
@@ -2227,8 +2230,7 @@ def _subtract_cycle(residual, period, out, design) -> None:
             if here:
                 cols[j, i] = cj
                 cols[h + j, i] = sj
-            norms[j] += cj * cj
-            norms[h + j] += sj * sj
+            norms[j] += sj * sj
             cj, sj = cj * c - sj * sn, sj * c + cj * sn
         if here:
             cols[wide, i] = r
@@ -2238,18 +2240,22 @@ def _subtract_cycle(residual, period, out, design) -> None:
     gram = np.zeros((k, k))
     rhs = np.zeros(k)
     block = np.empty((4, 4))
+    four = np.empty(4)
     for a0 in range(0, wide, 4):
         for b0 in range(0, a0 + 1, 4):
-            _cross4(cols, a0, b0, present, block)
+            if b0 == a0:
+                # the block on the diagonal: its lower half, and the four columns against the residual
+                _cross4_lower(cols, a0, wide, present, block, four)
+                for a in range(a0, min(a0 + 4, k)):
+                    rhs[a] = four[a - a0]
+            else:
+                _cross4(cols, a0, b0, present, block)
             for a in range(a0, min(a0 + 4, k)):
                 for b in range(b0, min(b0 + 4, a + 1)):
                     gram[a, b] = block[a - a0, b - b0]
-        _cross1(cols, a0, wide, present, block[0])
-        for a in range(a0, min(a0 + 4, k)):
-            rhs[a] = block[0, a - a0]
     floor = 1e-6 * math.sqrt(n)
-    for a in range(k):
-        if not math.sqrt(norms[a]) > floor:  # left out: a zero column has no length to factor
+    for a in range(h, k):
+        if not math.sqrt(norms[a - h]) > floor:  # left out: a zero column has no length to factor
             for b in range(k):
                 gram[a, b] = 0.0
                 gram[b, a] = 0.0
@@ -2298,18 +2304,36 @@ def _cross4(cols, a0, b0, m, out) -> None:
 
 
 @njit(cache=True, error_model="numpy")
-def _cross1(cols, a0, b, m, out) -> None:
-    """``out[i] = sum_t cols[a0 + i, t] * cols[b, t]`` over ``t < m`` in order, the four at once."""
+def _cross4_lower(cols, a0, b, m, out, four) -> None:
+    """``out[i, j] = sum_t cols[a0 + i, t] * cols[a0 + j, t]`` for ``j <= i`` (the ten of :func:`_cross4` with
+    ``b0 = a0`` that the Gram matrix uses) and ``four[i] = sum_t cols[a0 + i, t] * cols[b, t]``, each over
+    ``t < m`` in order."""
     x0, x1, x2, x3 = cols[a0], cols[a0 + 1], cols[a0 + 2], cols[a0 + 3]
     y = cols[b]
-    s0 = s1 = s2 = s3 = 0.0
+    s00 = s10 = s11 = s20 = s21 = s22 = s30 = s31 = s32 = s33 = 0.0
+    r0 = r1 = r2 = r3 = 0.0
     for t in range(m):
+        p0, p1, p2, p3 = x0[t], x1[t], x2[t], x3[t]
         q = y[t]
-        s0 += x0[t] * q
-        s1 += x1[t] * q
-        s2 += x2[t] * q
-        s3 += x3[t] * q
-    out[0], out[1], out[2], out[3] = s0, s1, s2, s3
+        r0 += p0 * q
+        r1 += p1 * q
+        r2 += p2 * q
+        r3 += p3 * q
+        s00 += p0 * p0
+        s10 += p1 * p0
+        s11 += p1 * p1
+        s20 += p2 * p0
+        s21 += p2 * p1
+        s22 += p2 * p2
+        s30 += p3 * p0
+        s31 += p3 * p1
+        s32 += p3 * p2
+        s33 += p3 * p3
+    out[0, 0] = s00
+    out[1, 0], out[1, 1] = s10, s11
+    out[2, 0], out[2, 1], out[2, 2] = s20, s21, s22
+    out[3, 0], out[3, 1], out[3, 2], out[3, 3] = s30, s31, s32, s33
+    four[0], four[1], four[2], four[3] = r0, r1, r2, r3
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
@@ -2531,22 +2555,45 @@ _SPREAD_SETTLED = 1e-6
 def _spread_test(y, n, m, count, w, exact, r, sum_r2, design, fitted, target):
     """The Breusch-Pagan step of :func:`_spread_row`: a constant and the fundamental of frequency ``w`` in
     ``design`` (evaluated when ``exact``, else turned), their Cholesky factor, the columns used, Koenker's
-    statistic ``m R^2`` (0 without a test) and whether a column's length was near its floor."""
-    # a column that vanishes on the grid (a sine at Nyquist) is left out
-    norms = np.zeros(3)
+    statistic ``m R^2`` (0 without a test) and whether a column's length was near its floor.
+
+    One pass builds the design (0 where ``y`` is missing), the columns' lengths, their cross products,
+    ``target = r^2`` and the design's products with it, each sum in order of ``t`` from 0 as a loop
+    of its own would make it; a second pass makes the fit and the statistic's two sums. A column left
+    out (below its floor: a sine at Nyquist) is zeroed and its sums are made again from the zeros."""
     turn_c = math.cos(w)
     turn_s = math.sin(w)
     c = 1.0
     s = 0.0
+    norm_c = 0.0
+    norm_s = 0.0
+    g00 = g10 = g11 = g20 = g21 = g22 = 0.0  # side by side, each in order of t
+    v0 = v1 = v2 = 0.0
     for t in range(n):
         c, s = _turn(t, w, c, s, turn_c, turn_s, exact)
-        norms[1] += c * c
-        norms[2] += s * s
-        design[1, t] = c
-        design[2, t] = s
-    for t in range(n):
-        norms[0] += 1.0
-        design[0, t] = 1.0
+        norm_c += c * c
+        norm_s += s * s
+        here = not np.isnan(y[t])
+        d0 = 1.0 if here else 0.0
+        d1 = c if here else 0.0
+        d2 = s if here else 0.0
+        design[0, t] = d0
+        design[1, t] = d1
+        design[2, t] = d2
+        g00 += d0 * d0
+        g10 += d1 * d0
+        g11 += d1 * d1
+        g20 += d2 * d0
+        g21 += d2 * d1
+        g22 += d2 * d2
+        square = r[t] * r[t]
+        target[t] = square
+        v0 += d0 * square
+        v1 += d1 * square
+        v2 += d2 * square
+    # a column that vanishes on the grid (a sine at Nyquist) is left out; the constant's length is
+    # sqrt(n) (n ones summed exactly)
+    norms = np.array([float(n), norm_c, norm_s])
     gram = np.zeros((3, 3))
     used = 0
     near = False
@@ -2559,23 +2606,22 @@ def _spread_test(y, n, m, count, w, exact, r, sum_r2, design, fitted, target):
         else:
             gram[i, i] = 1.0
             design[i, :n] = 0.0
-    for t in range(n):
-        if np.isnan(y[t]):
-            design[0, t] = 0.0
-            design[1, t] = 0.0
-            design[2, t] = 0.0
-    # the six sums side by side (each still in order of t: independent chains keep the pipeline busy)
-    g00 = g10 = g11 = g20 = g21 = g22 = 0.0
-    for t in range(n):
-        d0 = design[0, t]
-        d1 = design[1, t]
-        d2 = design[2, t]
-        g00 += d0 * d0
-        g10 += d1 * d0
-        g11 += d1 * d1
-        g20 += d2 * d0
-        g21 += d2 * d1
-        g22 += d2 * d2
+    if used < 3:
+        g00 = g10 = g11 = g20 = g21 = g22 = 0.0
+        v0 = v1 = v2 = 0.0
+        for t in range(n):
+            d0 = design[0, t]
+            d1 = design[1, t]
+            d2 = design[2, t]
+            g00 += d0 * d0
+            g10 += d1 * d0
+            g11 += d1 * d1
+            g20 += d2 * d0
+            g21 += d2 * d1
+            g22 += d2 * d2
+            v0 += d0 * target[t]
+            v1 += d1 * target[t]
+            v2 += d2 * target[t]
     gram[0, 0] += g00
     gram[1, 0] += g10
     gram[1, 1] += g11
@@ -2583,16 +2629,16 @@ def _spread_test(y, n, m, count, w, exact, r, sum_r2, design, fitted, target):
     gram[2, 1] += g21
     gram[2, 2] += g22
     low, _ = cholesky(gram, 1e-12)
-    # Koenker's m R^2 of r^2 on the harmonic
-    for t in range(n):
-        target[t] = r[t] * r[t]
-    _harmonic_fit(design, low, target, fitted)
+    # Koenker's m R^2 of r^2 on the harmonic (the fit as _harmonic_fit makes it)
+    coef = solve(low, np.array([v0, v1, v2]))
     mean_r2 = sum_r2 / count
     explained = 0.0
     spread = 0.0
     for t in range(n):
+        fit = ((0.0 + design[0, t] * coef[0]) + design[1, t] * coef[1]) + design[2, t] * coef[2]
+        fitted[t] = fit
         if not np.isnan(y[t]):
-            explained += (fitted[t] - mean_r2) ** 2
+            explained += (fit - mean_r2) ** 2
             spread += (target[t] - mean_r2) ** 2
     df = used - 1
     statistic = m * explained / spread if df > 0 and m > df + 1 and spread > 0 else 0.0
