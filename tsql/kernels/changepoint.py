@@ -1287,9 +1287,16 @@ def _narrow_box(
     ``gap = F(c) - F(s) - C(s, c)``); then the regions where two older starts beat ``s``
     are cut out (:func:`_cut_ellipse` / :func:`_cut_meanvar`): the one remembered
     (``box[4:11]``, :func:`_remember_region`) and one drawn by a fixed rule from the
-    starts kept. For 'meanvar' the box is first clipped to ``R_si`` of ``_NEWER_CLIPS``
-    newer kept starts ``i`` too, drawn by a fixed rule: any start with a finite ``F``
-    admitted by ``t`` is a competitor as ``c`` is. A start whose box is empty can never
+    starts kept. 'meanvar' remembers the region of the start ``l`` of ``s``'s own last
+    segment: in a calm stretch ``F(s) = F(l) + C(l, s) + penalty``, so ``l`` beats ``s``
+    wherever the loss of ``(l, s]`` is within about a penalty of its least, around the
+    stretch's parameters, where the box of ``s`` shrinks (on a calm million points it
+    retires half the starts and halves those kept; the region of the start that beats
+    ``s`` most among those narrowed when ``s`` came, which 'trend' keeps, retired one in
+    sixteen). Any older start with a finite ``F`` may be the one. For 'meanvar' the box
+    is first clipped to ``R_si`` of ``_NEWER_CLIPS`` newer kept starts ``i`` too, drawn
+    by a fixed rule: any start with a finite ``F`` admitted by ``t`` is a competitor as
+    ``c`` is. A start whose box is empty can never
     be best again and is retired.
 
     ``x0_c`` is ``c``'s first position ('trend': the origin of the sums of ``(s, c]``).
@@ -1525,8 +1532,9 @@ def _pelt(
         s = t - min_size
         if s == 0 or s >= min_size:
             if functional:
-                # the region of defeat the newest start remembers: that of the start that beats
-                # it most, found by a pass, else that of the start of its own last segment
+                # the region of defeat the newest start remembers: 'trend', that of the start that
+                # beats it most, found by a pass, else that of the start of its own last segment;
+                # 'meanvar', always the latter (see _narrow_box)
                 # the youngest starts are due most often, the others seldom: those are looked
                 # for only every _SWEEP_EVERY steps (a start narrowed late is only pruned later)
                 oldest = 0 if t >= next_sweep else max(0, n_cand - _YOUNG)
@@ -1552,7 +1560,8 @@ def _pelt(
                     margins,
                 )
                 n_pruned += retired
-                excluder = int(starts[beater]) if beater >= 0 else (last[s] if s > 0 else -1)
+                own = last[s] if s > 0 else -1
+                excluder = int(starts[beater]) if beater >= 0 and code == TREND else own
                 bounds[0, n_cand] = -np.inf
                 bounds[1, n_cand] = np.inf
                 bounds[2, n_cand] = -np.inf
