@@ -899,6 +899,31 @@ def test_log_variance_range_brackets_the_roots():
         assert changepoint._log_variance_range(g, 0.5 * left, 0.5 * right) == (-np.inf, np.inf), g
 
 
+def test_log_variance_bounds_lie_outside_the_roots():
+    # reference: f(u) = u + exp(-u) - 1 - g in 60-digit decimals; f is convex with its least value
+    # -g at 0, so a bound lies outside a root exactly when f >= 0 there; g drawn over the table's
+    # range and beyond, and at its points and their neighbours (where a chord would fail)
+    from decimal import Decimal, getcontext
+
+    getcontext().prec = 60
+
+    def f(u, g):
+        u = Decimal(float(u))
+        return u + (-u).exp() - 1 - Decimal(float(g))
+
+    table = changepoint._ROOTS
+    rng = np.random.default_rng(53)
+    points = np.concatenate([table[0, ::7], table[3, 3::7]])
+    middles = np.sqrt(points[:-1] * points[1:])
+    drawn = 2.0 ** rng.uniform(-64.0, 12.0, 400)
+    for g in np.concatenate([points, np.nextafter(points, 0.0), middles, drawn, [1e-300, 300.0, 1e5]]):
+        lo, hi = changepoint._log_variance_bounds(g, -np.inf, np.inf)
+        assert lo < 0.0 < hi and f(lo, g) >= 0 and f(hi, g) >= 0, g
+        if 1e-9 <= g <= 100.0:
+            # and close: 1e-4 of the root inside either bound is inside the roots
+            assert f(lo * (1.0 - 1e-4), g) < 0 and f(hi * (1.0 - 1e-4), g) < 0, g
+
+
 def test_box_clipping_and_cutting_against_sampled_points():
     # reference: a dense grid of points of the box; _clip_ellipse must keep every point of the box in
     # the ellipse (and be tight), _cut_ellipse every point of the box outside it

@@ -854,6 +854,59 @@ def _log_variance_range(g, below, above) -> tuple[float, float]:
     return lo, hi
 
 
+#: :func:`_log_variance_bounds`: its table's points per doubling of ``g``, and its range of ``g``
+_ROOTS_PER_OCTAVE = 32
+_ROOTS_OCTAVES = (-60, 8)
+
+
+def _log_variance_table() -> np.ndarray:
+    """Points on the two branches of ``g = u + exp(-u) - 1`` and the slopes ``du / dg`` there.
+
+    Rows: ``g`` and ``u`` on the left branch (``u < 0``), the slope there, then the same on
+    the right; one column per ``2^(k / _ROOTS_PER_OCTAVE)`` in ``_ROOTS_OCTAVES``. Each
+    ``u`` is a root found by Newton's steps from outside it (see :func:`_log_variance_range`)
+    and its ``g`` is computed back from it, so the point lies on the curve within the
+    rounding of that sum.
+    """
+    first, last = _ROOTS_OCTAVES
+    g = 2.0 ** (np.arange(first * _ROOTS_PER_OCTAVE, last * _ROOTS_PER_OCTAVE + 1) / _ROOTS_PER_OCTAVE)
+    r = np.sqrt(2.0 * g)
+    table = np.empty((6, len(g)))
+    starts = (np.where(g > 2.0, np.maximum(-r, -np.log1p(g) - 1.0), -r), np.where(g <= 0.25, r * (1.0 + r), 1.0 + g))
+    for side, u in enumerate(starts):
+        for _ in range(100):
+            e = np.expm1(-u)
+            f = u + e - g
+            u = np.where(f > 0.0, u + f / e, u)
+        table[3 * side] = u + np.expm1(-u)
+        table[3 * side + 1] = u
+        table[3 * side + 2] = -1.0 / np.expm1(-u)
+    return table
+
+
+_ROOTS = _log_variance_table()
+
+
+@njit(cache=True, error_model="numpy")
+def _log_variance_bounds(g, below, above) -> tuple[float, float]:
+    """Outer bounds on the two roots of ``u + exp(-u) = 1 + g``, as :func:`_log_variance_range`, without ``exp``.
+
+    The roots' curve ``u(g)`` is convex on the left branch and concave on the right
+    (``d2u/dg2 = -g''(u) / g'(u)^3`` with ``g(u) = u + exp(-u) - 1``, ``g'' > 0`` and ``g'``
+    of ``u``'s sign), so its tangent at any point of a branch lies below it on the left and
+    above it on the right, everywhere: a bound whatever point the table gives, tight (about
+    ``6e-5`` of the root) at the nearest one. Widened for rounding as there; outside the
+    table's range of ``g``, :func:`_log_variance_range`.
+    """
+    first, last = _ROOTS_OCTAVES
+    if not (g >= 2.0**first and g <= 2.0**last):
+        return _log_variance_range(g, below, above)
+    k = min(max(int((math.log2(g) - first) * _ROOTS_PER_OCTAVE + 0.5), 0), _ROOTS.shape[1] - 1)
+    lo = _ROOTS[1, k] + _ROOTS[2, k] * (g - _ROOTS[0, k])
+    hi = _ROOTS[4, k] + _ROOTS[5, k] * (g - _ROOTS[3, k])
+    return lo - (_BOX_SLACK * (1.0 - lo) + 1e-12), hi + (_BOX_SLACK * (1.0 + hi) + 1e-12)
+
+
 @njit(cache=True, error_model="numpy")
 def _meanvar_fit(length, s1, s2) -> tuple[float, float, float, float]:
     """Mean, variance + floor, its log and cost ``L log(var + floor)`` of a segment (as :func:`_cost_meanvar`)."""
@@ -1018,9 +1071,9 @@ def _clip_meanvar(box, j, mean, v, log_v, g) -> bool:
 
     ``R``: ``u + (1 + d^2 / V) e^-u <= 1 + g`` with ``d = mu - mean``, ``u = w - log V``.
     Over the box's means (``|d| >= d_min``) ``w`` lies within ``log V + log k`` plus the
-    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_range`, only
-    where they cut the box); then over the log variances left ``d^2 <= V (e^u (1 + g - u) - 1)``,
-    unimodal in ``u``, peak at ``g``.
+    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_bounds`); then
+    over the log variances left ``d^2 <= V (e^u (1 + g - u) - 1)``, unimodal in ``u``, peak
+    at ``g``.
     """
     lo0 = box[0, j]
     hi0 = box[1, j]
@@ -1029,7 +1082,7 @@ def _clip_meanvar(box, j, mean, v, log_v, g) -> bool:
     if not g - shift >= 0.0:
         return False
     centre = log_v + shift
-    u_lo, u_hi = _log_variance_range(g - shift, box[2, j] - centre, box[3, j] - centre)
+    u_lo, u_hi = _log_variance_bounds(g - shift, box[2, j] - centre, box[3, j] - centre)
     pad = _BOX_SLACK * abs(log_v)
     if not _clip_interval(box, j, 2, centre + u_lo - pad, centre + u_hi + pad):
         return False
