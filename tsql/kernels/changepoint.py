@@ -551,10 +551,12 @@ _EXCLUSIONS = 3
 #: and every older one's regions, boxes would keep a tenth of them, exact regions a hundredth)
 _NEWER_CLIPS = 2
 
-#: lazy evaluation: the starts looked at every step may grow by this many plus the square root of
-#: this many times the starts kept before all are looked at again (k new starts between full passes
-#: over n cost about k / 2 + n / k per step, least at k = sqrt(2 n))
+#: lazy evaluation: the starts looked at every step may grow by this many plus the cube root of
+#: twice the starts kept before those are sorted again (a new group set aside), and there may be as
+#: many groups (at most ``_GROUPS``) before all starts are looked at again (k new starts between
+#: groups, k groups between full passes over n: about k / 2 + k / 2 + n / k^2 costs per step)
 _NEAR_GROWTH = 2
+_GROUPS = 32
 
 #: geometric functional pruning ('meanvar', 'trend'): the newest starts (slots) looked for every step,
 #: and the steps between looks for the older ones due to be narrowed
@@ -862,8 +864,9 @@ _ROOTS_OCTAVES = (-60, 8)
 def _log_variance_table() -> np.ndarray:
     """Points on the two branches of ``g = u + exp(-u) - 1`` and the slopes ``du / dg`` there.
 
-    Rows: ``g`` and ``u`` on the left branch (``u < 0``), the slope there, then the same on
-    the right; one column per ``2^(k / _ROOTS_PER_OCTAVE)`` in ``_ROOTS_OCTAVES``. Each
+    Columns: ``g`` and ``u`` on the left branch (``u < 0``), the slope there, then the same on
+    the right (one row is one cache line's reach); one row per ``2^(k / _ROOTS_PER_OCTAVE)``
+    in ``_ROOTS_OCTAVES``. Each
     ``u`` is a root found by Newton's steps from outside it (see :func:`_log_variance_range`)
     and its ``g`` is computed back from it, so the point lies on the curve within the
     rounding of that sum.
@@ -871,16 +874,16 @@ def _log_variance_table() -> np.ndarray:
     first, last = _ROOTS_OCTAVES
     g = 2.0 ** (np.arange(first * _ROOTS_PER_OCTAVE, last * _ROOTS_PER_OCTAVE + 1) / _ROOTS_PER_OCTAVE)
     r = np.sqrt(2.0 * g)
-    table = np.empty((6, len(g)))
+    table = np.empty((len(g), 6))
     starts = (np.where(g > 2.0, np.maximum(-r, -np.log1p(g) - 1.0), -r), np.where(g <= 0.25, r * (1.0 + r), 1.0 + g))
     for side, u in enumerate(starts):
         for _ in range(100):
             e = np.expm1(-u)
             f = u + e - g
             u = np.where(f > 0.0, u + f / e, u)
-        table[3 * side] = u + np.expm1(-u)
-        table[3 * side + 1] = u
-        table[3 * side + 2] = -1.0 / np.expm1(-u)
+        table[:, 3 * side] = u + np.expm1(-u)
+        table[:, 3 * side + 1] = u
+        table[:, 3 * side + 2] = -1.0 / np.expm1(-u)
     return table
 
 
@@ -901,9 +904,9 @@ def _log_variance_bounds(g, below, above) -> tuple[float, float]:
     first, last = _ROOTS_OCTAVES
     if not (g >= 2.0**first and g <= 2.0**last):
         return _log_variance_range(g, below, above)
-    k = min(max(int((math.log2(g) - first) * _ROOTS_PER_OCTAVE + 0.5), 0), _ROOTS.shape[1] - 1)
-    lo = _ROOTS[1, k] + _ROOTS[2, k] * (g - _ROOTS[0, k])
-    hi = _ROOTS[4, k] + _ROOTS[5, k] * (g - _ROOTS[3, k])
+    k = min(max(int((math.log2(g) - first) * _ROOTS_PER_OCTAVE + 0.5), 0), _ROOTS.shape[0] - 1)
+    lo = _ROOTS[k, 1] + _ROOTS[k, 2] * (g - _ROOTS[k, 0])
+    hi = _ROOTS[k, 4] + _ROOTS[k, 5] * (g - _ROOTS[k, 3])
     return lo - (_BOX_SLACK * (1.0 - lo) + 1e-12), hi + (_BOX_SLACK * (1.0 + hi) + 1e-12)
 
 
@@ -1534,18 +1537,21 @@ def _pelt(
     looked at lazily ('mean' keeps few, each cheap to cost). Every cost
     here is a least sum of per-point losses, so ``C(s, t) >= C(s, tau) +
     C(tau, t)`` for ``s < tau < t`` (PELT's own inequality, Killick et al.
-    2012), and the length term only grows. A full pass at step ``tau`` sets
-    aside the starts whose total exceeds the least, the leader's ``A(tau)``,
-    by more than half a penalty; at a later ``t`` each of them totals at least
-    ``A(tau) + excess + C(tau, t)``, while the optimum is at most the leader's
-    ``A(t)``. So they cannot be best (nor tied) while the leader's gain from a
-    change at ``tau``, ``A(t) - A(tau) - C(tau, t)``, stays below their least
-    excess less the margin; the other starts and those admitted since are
-    costed every step, and a full pass comes when the gain gets there (a
-    change), when those grow by ``_NEAR_GROWTH`` plus the square root of
-    ``_NEAR_GROWTH`` times the starts kept, or after a compaction. The answer
-    is the same bit for bit; on a long calm stretch a step costs a few dozen
-    segment costs instead of one per kept start.
+    2012), and the length term only grows. A pass at step ``tau`` sets
+    aside the starts it looks at whose total exceeds the least, ``A(tau)``,
+    by more than half a penalty, as a group; at a later ``t`` each of them
+    totals at least ``A(tau) + excess + C(tau, t)``, while the optimum is at
+    most ``B(t)``, the least total of the starts looked at. So they cannot be
+    best (nor tied) while ``B(t) - A(tau) - C(tau, t)`` (the gain from a
+    change at ``tau``) stays below their least excess less the margin; the
+    other starts and those admitted since are costed every step, with one
+    segment cost per group. When those grow by ``_NEAR_GROWTH`` plus the
+    cube root of twice the starts kept, a pass over them alone sets aside a
+    new group; a full pass, over every start, comes when a group's gain gets
+    there (a change), when the groups are as many as that growth, or after
+    a compaction. The answer is the same bit for bit; on a long calm
+    stretch a step costs a few dozen segment costs instead of one per kept
+    start.
     """
     F[0] = -beta
     last[0] = 0
@@ -1565,21 +1571,23 @@ def _pelt(
     next_prune = 0
     next_compaction = 0
     next_sweep = 0
-    # lazy evaluation (see Notes): the starts looked at since the last full pass (``near``, in
-    # order), the leader's slot among them, the pass's step, least value and least excess of the rest
+    # lazy evaluation (see Notes): the starts looked at every step (``near``, in order), and per
+    # group set aside its pass's step (and the sums there), least value and least excess
     ident = np.arange(m + 1)
     near = np.empty(m + 1, dtype=np.int64)
     n_near = 0
-    lead = 0
-    tau = 0
-    at_tau = 0.0
-    far = np.inf
     near_limit = 0
+    growth = 0
     full = True
-    here = np.empty(1)
-    tail_cost = np.empty(1)
-    nothing = np.zeros(1)
-    first = np.zeros(1, dtype=np.int64)
+    n_groups = 0
+    most_groups = 0
+    group_sums = np.zeros((MAX_STATS, _GROUPS))
+    group_rows = (group_sums[0], group_sums[1], group_sums[2], group_sums[3], group_sums[4], group_sums[5])
+    group_step = np.empty(_GROUPS)
+    group_zero = np.zeros(_GROUPS)
+    group_at = np.empty(_GROUPS)
+    group_far = np.empty(_GROUPS)
+    group_cost = np.empty(_GROUPS)
     for t in range(min_size, m + 1):
         # admit the newest start; F is infinite (never a segment end) for 0 < s < min_size
         s = t - min_size
@@ -1628,17 +1636,34 @@ def _pelt(
             near[n_near] = n_cand
             n_near += 1
             n_cand += 1
+        partial = False
         if not full:
-            # the starts set aside stay worse than the leader by more than the margin while the
-            # leader's segment gains less than their excess by a change at tau
+            # the starts of a group set aside at tau stay worse than the best start looked at by
+            # more than the margin while its segment gains less than their excess by a change at tau
             _costs(code, stats, rows, starts, f_start, near, n_near, t, length_term, use_length_term, vals)
-            here[0] = float(tau)
-            tail = (stats[0, tau:], stats[1, tau:], stats[2, tau:], stats[3, tau:], stats[4, tau:], stats[5, tau:])
-            _costs(code, stats, tail, here, nothing, first, np.int64(1), t, length_term, np.bool_(False), tail_cost)
-            at_t = vals[lead]
-            gain = at_t - at_tau - tail_cost[0]
-            margin = _PRUNE_MARGIN * (2.0 + abs(at_tau) + abs(at_t)) + 2.0 * rounding
-            full = not gain + margin < far or n_near > near_limit
+            _costs(
+                code,
+                stats,
+                group_rows,
+                group_step,
+                group_zero,
+                ident,
+                n_groups,
+                t,
+                length_term,
+                np.bool_(False),
+                group_cost,
+            )
+            at_t = np.inf
+            for j in range(n_near):
+                at_t = min(at_t, vals[j])
+            for g in range(n_groups):
+                gain = at_t - group_at[g] - group_cost[g]
+                margin = _PRUNE_MARGIN * (2.0 + abs(group_at[g]) + abs(at_t)) + 2.0 * rounding
+                full = full or not gain + margin < group_far[g]
+            partial = not full and n_near > near_limit
+            full = full or (partial and n_groups == most_groups)
+            partial = partial and not full
         # vals[k] = F(s_j) + C(s_j, t) (+ length term) for the k-th start j looked at
         if full:
             _costs(code, stats, rows, starts, f_start, ident, n_cand, t, length_term, use_length_term, vals)
@@ -1673,23 +1698,34 @@ def _pelt(
             k += 1
         F[t] = best + beta
         last[t] = int(starts[idx[k]])
-        if full and functional and code != MEAN:
-            # set aside the starts worse than the best by more than half a penalty
-            tau = t
-            at_tau = best
+        if (full or partial) and functional and code != MEAN:
+            # set aside the starts looked at (all of them after a full pass) worse than the best
+            # by more than half a penalty, as a new group
+            if full:
+                n_groups = 0
             far = np.inf
+            looked = n_near if partial else n_cand
             n_near = 0
             threshold = 0.5 * beta
-            for j in range(n_cand):
-                excess = vals[j] - best
+            for i in range(looked):
+                j = idx[i]
+                excess = vals[i] - best
                 if excess <= threshold:
-                    if j == idx[k]:
-                        lead = n_near
                     near[n_near] = j
                     n_near += 1
                 else:
                     far = min(far, excess)
-            near_limit = n_near + _NEAR_GROWTH + int(math.sqrt(_NEAR_GROWTH * n_cand))
+            if far < np.inf:
+                group_step[n_groups] = float(t)
+                group_at[n_groups] = best
+                group_far[n_groups] = far
+                for r in range(MAX_STATS):
+                    group_sums[r, n_groups] = stats[r, t]
+                n_groups += 1
+            if full:
+                growth = _NEAR_GROWTH + int((2.0 * n_cand) ** (1.0 / 3.0))
+                most_groups = min(growth, _GROUPS)
+            near_limit = n_near + growth
             full = False
         # prune, every PRUNE_EVERY steps (any step may prune; a pass costs about as much as
         # the costs themselves), and retire the starts whose grace has run out
