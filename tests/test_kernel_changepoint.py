@@ -714,8 +714,8 @@ def test_geometric_pruning_on_long_calm_series(model):
 def test_lazy_evaluation_equals_plain_pelt_on_seeded_signals(model):
     # reference: plain PELT on the same sums (Killick et al. 2012, K = 0: every start costed at
     # every step until PELT's own rule drops it) and, on the short ones, search_reference above.
-    # The search costs a start set aside by a full pass again only when the leader's gain since the
-    # pass could reach its excess: long calm stretches, a change after one (the gain grows), changes
+    # The search costs a start set aside by a pass (a group) again only when the best start's gain
+    # since the pass could reach its excess: long calm stretches, a change after one (the gain grows), changes
     # of mean, spread and slope, rounded values (ties), gaps, several penalties and min_size
     rng = np.random.default_rng({"meanvar": 51, "trend": 52}[model])
     runs = 0
