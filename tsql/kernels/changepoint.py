@@ -549,12 +549,13 @@ _EXCLUSIONS = 3
 #: newest), drawn by a fixed rule: on a calm million points this halves the starts kept (a start's
 #: box shrinks to where it beats every newer start only by many clips; with every newer start's
 #: and every older one's regions, boxes would keep a tenth of them, exact regions a hundredth).
-#: With the remembered region that of the start's own last segment (see :func:`_narrow_box`), 0, 1,
-#: 2 or 3 newer clips and 2, 3 or 5 exclusions all took the same time on a calm million points
-#: within the noise: fewer starts kept cost dearer narrowings. There the search's time went to
+#: With the remembered region that of the start's own last segment (see :func:`_narrow_box`), 1, 2
+#: or 3 newer clips (none: 5% more) and 2 or 3 exclusions (before it, 3, 5 or 8) took the same time on
+#: a calm million points within the noise: fewer starts kept cost dearer narrowings. The time went to
 #: clips (the bounding boxes: about half, before the table of :func:`_log_variance_bounds` a
 #: quarter of it in ``exp``), the narrowing loop (a quarter), logs (an eighth), segment costs; most
 #: starts went in the cut of an older start's region, at ages 256 to 2,048, after 4 to 10 narrowings
+#: (the first, at age 1, never retires one, but leaving it out took 5% more: its clip seeds the box)
 _NEWER_CLIPS = 2
 
 #: lazy evaluation: the starts looked at every step may grow by this many plus the cube root of
