@@ -714,8 +714,8 @@ def test_geometric_pruning_on_long_calm_series(model):
 def test_lazy_evaluation_equals_plain_pelt_on_seeded_signals(model):
     # reference: plain PELT on the same sums (Killick et al. 2012, K = 0: every start costed at
     # every step until PELT's own rule drops it) and, on the short ones, search_reference above.
-    # The search costs a start set aside by a full pass again only when the leader's gain since the
-    # pass could reach its excess: long calm stretches, a change after one (the gain grows), changes
+    # The search costs a start set aside by a pass (a group) again only when the best start's gain
+    # since the pass could reach its excess: long calm stretches, a change after one (the gain grows), changes
     # of mean, spread and slope, rounded values (ties), gaps, several penalties and min_size
     rng = np.random.default_rng({"meanvar": 51, "trend": 52}[model])
     runs = 0
@@ -897,6 +897,31 @@ def test_log_variance_range_brackets_the_roots():
         assert lo_box >= lo and hi_box <= hi, g
         # ends inside them: nothing to cut on either side
         assert changepoint._log_variance_range(g, 0.5 * left, 0.5 * right) == (-np.inf, np.inf), g
+
+
+def test_log_variance_bounds_lie_outside_the_roots():
+    # reference: f(u) = u + exp(-u) - 1 - g in 60-digit decimals; f is convex with its least value
+    # -g at 0, so a bound lies outside a root exactly when f >= 0 there; g drawn over the table's
+    # range and beyond, and at its points and their neighbours (where a chord would fail)
+    from decimal import Decimal, getcontext
+
+    getcontext().prec = 60
+
+    def f(u, g):
+        u = Decimal(float(u))
+        return u + (-u).exp() - 1 - Decimal(float(g))
+
+    table = changepoint._ROOTS
+    rng = np.random.default_rng(53)
+    points = np.concatenate([table[::7, 0], table[3::7, 3]])
+    middles = np.sqrt(points[:-1] * points[1:])
+    drawn = 2.0 ** rng.uniform(-64.0, 12.0, 400)
+    for g in np.concatenate([points, np.nextafter(points, 0.0), middles, drawn, [1e-300, 300.0, 1e5]]):
+        lo, hi = changepoint._log_variance_bounds(g, -np.inf, np.inf)
+        assert lo < 0.0 < hi and f(lo, g) >= 0 and f(hi, g) >= 0, g
+        if 1e-9 <= g <= 100.0:
+            # and close: 1e-4 of the root inside either bound is inside the roots
+            assert f(lo * (1.0 - 1e-4), g) < 0 and f(hi * (1.0 - 1e-4), g) < 0, g
 
 
 def test_box_clipping_and_cutting_against_sampled_points():

@@ -548,13 +548,22 @@ _EXCLUSIONS = 3
 #: 'meanvar': ... and clipped to where it beats this many newer kept starts as well (besides the
 #: newest), drawn by a fixed rule: on a calm million points this halves the starts kept (a start's
 #: box shrinks to where it beats every newer start only by many clips; with every newer start's
-#: and every older one's regions, boxes would keep a tenth of them, exact regions a hundredth)
+#: and every older one's regions, boxes would keep a tenth of them, exact regions a hundredth).
+#: With the remembered region that of the start's own last segment (see :func:`_narrow_box`), 1, 2
+#: or 3 newer clips (none: 5% more) and 2 or 3 exclusions (before it, 3, 5 or 8) took the same time on
+#: a calm million points within the noise: fewer starts kept cost dearer narrowings. The time went to
+#: clips (the bounding boxes: about half, before the table of :func:`_log_variance_bounds` a
+#: quarter of it in ``exp``), the narrowing loop (a quarter), logs (an eighth), segment costs; most
+#: starts went in the cut of an older start's region, at ages 256 to 2,048, after 4 to 10 narrowings
+#: (the first, at age 1, never retires one, but leaving it out took 5% more: its clip seeds the box)
 _NEWER_CLIPS = 2
 
-#: lazy evaluation: the starts looked at every step may grow by this many plus the square root of
-#: this many times the starts kept before all are looked at again (k new starts between full passes
-#: over n cost about k / 2 + n / k per step, least at k = sqrt(2 n))
+#: lazy evaluation: the starts looked at every step may grow by this many plus the cube root of
+#: twice the starts kept before those are sorted again (a new group set aside), and there may be as
+#: many groups (at most ``_GROUPS``) before all starts are looked at again (k new starts between
+#: groups, k groups between full passes over n: about k / 2 + k / 2 + n / k^2 costs per step)
 _NEAR_GROWTH = 2
+_GROUPS = 32
 
 #: geometric functional pruning ('meanvar', 'trend'): the newest starts (slots) looked for every step,
 #: and the steps between looks for the older ones due to be narrowed
@@ -854,6 +863,60 @@ def _log_variance_range(g, below, above) -> tuple[float, float]:
     return lo, hi
 
 
+#: :func:`_log_variance_bounds`: its table's points per doubling of ``g``, and its range of ``g``
+_ROOTS_PER_OCTAVE = 32
+_ROOTS_OCTAVES = (-60, 8)
+
+
+def _log_variance_table() -> np.ndarray:
+    """Points on the two branches of ``g = u + exp(-u) - 1`` and the slopes ``du / dg`` there.
+
+    Columns: ``g`` and ``u`` on the left branch (``u < 0``), the slope there, then the same on
+    the right (one row is one cache line's reach); one row per ``2^(k / _ROOTS_PER_OCTAVE)``
+    in ``_ROOTS_OCTAVES``. Each
+    ``u`` is a root found by Newton's steps from outside it (see :func:`_log_variance_range`)
+    and its ``g`` is computed back from it, so the point lies on the curve within the
+    rounding of that sum.
+    """
+    first, last = _ROOTS_OCTAVES
+    g = 2.0 ** (np.arange(first * _ROOTS_PER_OCTAVE, last * _ROOTS_PER_OCTAVE + 1) / _ROOTS_PER_OCTAVE)
+    r = np.sqrt(2.0 * g)
+    table = np.empty((len(g), 6))
+    starts = (np.where(g > 2.0, np.maximum(-r, -np.log1p(g) - 1.0), -r), np.where(g <= 0.25, r * (1.0 + r), 1.0 + g))
+    for side, u in enumerate(starts):
+        for _ in range(100):
+            e = np.expm1(-u)
+            f = u + e - g
+            u = np.where(f > 0.0, u + f / e, u)
+        table[:, 3 * side] = u + np.expm1(-u)
+        table[:, 3 * side + 1] = u
+        table[:, 3 * side + 2] = -1.0 / np.expm1(-u)
+    return table
+
+
+_ROOTS = _log_variance_table()
+
+
+@njit(cache=True, error_model="numpy")
+def _log_variance_bounds(g, below, above) -> tuple[float, float]:
+    """Outer bounds on the two roots of ``u + exp(-u) = 1 + g``, as :func:`_log_variance_range`, without ``exp``.
+
+    The roots' curve ``u(g)`` is convex on the left branch and concave on the right
+    (``d2u/dg2 = -g''(u) / g'(u)^3`` with ``g(u) = u + exp(-u) - 1``, ``g'' > 0`` and ``g'``
+    of ``u``'s sign), so its tangent at any point of a branch lies below it on the left and
+    above it on the right, everywhere: a bound whatever point the table gives, tight (about
+    ``6e-5`` of the root) at the nearest one. Widened for rounding as there; outside the
+    table's range of ``g``, :func:`_log_variance_range`.
+    """
+    first, last = _ROOTS_OCTAVES
+    if not (g >= 2.0**first and g <= 2.0**last):
+        return _log_variance_range(g, below, above)
+    k = min(max(int((math.log2(g) - first) * _ROOTS_PER_OCTAVE + 0.5), 0), _ROOTS.shape[0] - 1)
+    lo = _ROOTS[k, 1] + _ROOTS[k, 2] * (g - _ROOTS[k, 0])
+    hi = _ROOTS[k, 4] + _ROOTS[k, 5] * (g - _ROOTS[k, 3])
+    return lo - (_BOX_SLACK * (1.0 - lo) + 1e-12), hi + (_BOX_SLACK * (1.0 + hi) + 1e-12)
+
+
 @njit(cache=True, error_model="numpy")
 def _meanvar_fit(length, s1, s2) -> tuple[float, float, float, float]:
     """Mean, variance + floor, its log and cost ``L log(var + floor)`` of a segment (as :func:`_cost_meanvar`)."""
@@ -1018,9 +1081,9 @@ def _clip_meanvar(box, j, mean, v, log_v, g) -> bool:
 
     ``R``: ``u + (1 + d^2 / V) e^-u <= 1 + g`` with ``d = mu - mean``, ``u = w - log V``.
     Over the box's means (``|d| >= d_min``) ``w`` lies within ``log V + log k`` plus the
-    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_range`, only
-    where they cut the box); then over the log variances left ``d^2 <= V (e^u (1 + g - u) - 1)``,
-    unimodal in ``u``, peak at ``g``.
+    roots for ``g - log k``, ``k = 1 + d_min^2 / V`` (:func:`_log_variance_bounds`); then
+    over the log variances left ``d^2 <= V (e^u (1 + g - u) - 1)``, unimodal in ``u``, peak
+    at ``g``.
     """
     lo0 = box[0, j]
     hi0 = box[1, j]
@@ -1029,7 +1092,7 @@ def _clip_meanvar(box, j, mean, v, log_v, g) -> bool:
     if not g - shift >= 0.0:
         return False
     centre = log_v + shift
-    u_lo, u_hi = _log_variance_range(g - shift, box[2, j] - centre, box[3, j] - centre)
+    u_lo, u_hi = _log_variance_bounds(g - shift, box[2, j] - centre, box[3, j] - centre)
     pad = _BOX_SLACK * abs(log_v)
     if not _clip_interval(box, j, 2, centre + u_lo - pad, centre + u_hi + pad):
         return False
@@ -1287,9 +1350,16 @@ def _narrow_box(
     ``gap = F(c) - F(s) - C(s, c)``); then the regions where two older starts beat ``s``
     are cut out (:func:`_cut_ellipse` / :func:`_cut_meanvar`): the one remembered
     (``box[4:11]``, :func:`_remember_region`) and one drawn by a fixed rule from the
-    starts kept. For 'meanvar' the box is first clipped to ``R_si`` of ``_NEWER_CLIPS``
-    newer kept starts ``i`` too, drawn by a fixed rule: any start with a finite ``F``
-    admitted by ``t`` is a competitor as ``c`` is. A start whose box is empty can never
+    starts kept. 'meanvar' remembers the region of the start ``l`` of ``s``'s own last
+    segment: in a calm stretch ``F(s) = F(l) + C(l, s) + penalty``, so ``l`` beats ``s``
+    wherever the loss of ``(l, s]`` is within about a penalty of its least, around the
+    stretch's parameters, where the box of ``s`` shrinks (on a calm million points it
+    retires half the starts and halves those kept; the region of the start that beats
+    ``s`` most among those narrowed when ``s`` came, which 'trend' keeps, retired one in
+    sixteen). Any older start with a finite ``F`` may be the one. For 'meanvar' the box
+    is first clipped to ``R_si`` of ``_NEWER_CLIPS`` newer kept starts ``i`` too, drawn
+    by a fixed rule: any start with a finite ``F`` admitted by ``t`` is a competitor as
+    ``c`` is. A start whose box is empty can never
     be best again and is retired.
 
     ``x0_c`` is ``c``'s first position ('trend': the origin of the sums of ``(s, c]``).
@@ -1474,18 +1544,21 @@ def _pelt(
     looked at lazily ('mean' keeps few, each cheap to cost). Every cost
     here is a least sum of per-point losses, so ``C(s, t) >= C(s, tau) +
     C(tau, t)`` for ``s < tau < t`` (PELT's own inequality, Killick et al.
-    2012), and the length term only grows. A full pass at step ``tau`` sets
-    aside the starts whose total exceeds the least, the leader's ``A(tau)``,
-    by more than half a penalty; at a later ``t`` each of them totals at least
-    ``A(tau) + excess + C(tau, t)``, while the optimum is at most the leader's
-    ``A(t)``. So they cannot be best (nor tied) while the leader's gain from a
-    change at ``tau``, ``A(t) - A(tau) - C(tau, t)``, stays below their least
-    excess less the margin; the other starts and those admitted since are
-    costed every step, and a full pass comes when the gain gets there (a
-    change), when those grow by ``_NEAR_GROWTH`` plus the square root of
-    ``_NEAR_GROWTH`` times the starts kept, or after a compaction. The answer
-    is the same bit for bit; on a long calm stretch a step costs a few dozen
-    segment costs instead of one per kept start.
+    2012), and the length term only grows. A pass at step ``tau`` sets
+    aside the starts it looks at whose total exceeds the least, ``A(tau)``,
+    by more than half a penalty, as a group; at a later ``t`` each of them
+    totals at least ``A(tau) + excess + C(tau, t)``, while the optimum is at
+    most ``B(t)``, the least total of the starts looked at. So they cannot be
+    best (nor tied) while ``B(t) - A(tau) - C(tau, t)`` (the gain from a
+    change at ``tau``) stays below their least excess less the margin; the
+    other starts and those admitted since are costed every step, with one
+    segment cost per group. When those grow by ``_NEAR_GROWTH`` plus the
+    cube root of twice the starts kept, a pass over them alone sets aside a
+    new group; a full pass, over every start, comes when a group's gain gets
+    there (a change), when the groups are as many as that growth, or after
+    a compaction. The answer is the same bit for bit; on a long calm
+    stretch a step costs a few dozen segment costs instead of one per kept
+    start.
     """
     F[0] = -beta
     last[0] = 0
@@ -1505,28 +1578,31 @@ def _pelt(
     next_prune = 0
     next_compaction = 0
     next_sweep = 0
-    # lazy evaluation (see Notes): the starts looked at since the last full pass (``near``, in
-    # order), the leader's slot among them, the pass's step, least value and least excess of the rest
+    # lazy evaluation (see Notes): the starts looked at every step (``near``, in order), and per
+    # group set aside its pass's step (and the sums there), least value and least excess
     ident = np.arange(m + 1)
     near = np.empty(m + 1, dtype=np.int64)
     n_near = 0
-    lead = 0
-    tau = 0
-    at_tau = 0.0
-    far = np.inf
     near_limit = 0
+    growth = 0
     full = True
-    here = np.empty(1)
-    tail_cost = np.empty(1)
-    nothing = np.zeros(1)
-    first = np.zeros(1, dtype=np.int64)
+    n_groups = 0
+    most_groups = 0
+    group_sums = np.zeros((MAX_STATS, _GROUPS))
+    group_rows = (group_sums[0], group_sums[1], group_sums[2], group_sums[3], group_sums[4], group_sums[5])
+    group_step = np.empty(_GROUPS)
+    group_zero = np.zeros(_GROUPS)
+    group_at = np.empty(_GROUPS)
+    group_far = np.empty(_GROUPS)
+    group_cost = np.empty(_GROUPS)
     for t in range(min_size, m + 1):
         # admit the newest start; F is infinite (never a segment end) for 0 < s < min_size
         s = t - min_size
         if s == 0 or s >= min_size:
             if functional:
-                # the region of defeat the newest start remembers: that of the start that beats
-                # it most, found by a pass, else that of the start of its own last segment
+                # the region of defeat the newest start remembers: 'trend', that of the start that
+                # beats it most, found by a pass, else that of the start of its own last segment;
+                # 'meanvar', always the latter (see _narrow_box)
                 # the youngest starts are due most often, the others seldom: those are looked
                 # for only every _SWEEP_EVERY steps (a start narrowed late is only pruned later)
                 oldest = 0 if t >= next_sweep else max(0, n_cand - _YOUNG)
@@ -1552,7 +1628,8 @@ def _pelt(
                     margins,
                 )
                 n_pruned += retired
-                excluder = int(starts[beater]) if beater >= 0 else (last[s] if s > 0 else -1)
+                own = last[s] if s > 0 else -1
+                excluder = int(starts[beater]) if beater >= 0 and code == TREND else own
                 bounds[0, n_cand] = -np.inf
                 bounds[1, n_cand] = np.inf
                 bounds[2, n_cand] = -np.inf
@@ -1566,17 +1643,34 @@ def _pelt(
             near[n_near] = n_cand
             n_near += 1
             n_cand += 1
+        partial = False
         if not full:
-            # the starts set aside stay worse than the leader by more than the margin while the
-            # leader's segment gains less than their excess by a change at tau
+            # the starts of a group set aside at tau stay worse than the best start looked at by
+            # more than the margin while its segment gains less than their excess by a change at tau
             _costs(code, stats, rows, starts, f_start, near, n_near, t, length_term, use_length_term, vals)
-            here[0] = float(tau)
-            tail = (stats[0, tau:], stats[1, tau:], stats[2, tau:], stats[3, tau:], stats[4, tau:], stats[5, tau:])
-            _costs(code, stats, tail, here, nothing, first, np.int64(1), t, length_term, np.bool_(False), tail_cost)
-            at_t = vals[lead]
-            gain = at_t - at_tau - tail_cost[0]
-            margin = _PRUNE_MARGIN * (2.0 + abs(at_tau) + abs(at_t)) + 2.0 * rounding
-            full = not gain + margin < far or n_near > near_limit
+            _costs(
+                code,
+                stats,
+                group_rows,
+                group_step,
+                group_zero,
+                ident,
+                n_groups,
+                t,
+                length_term,
+                np.bool_(False),
+                group_cost,
+            )
+            at_t = np.inf
+            for j in range(n_near):
+                at_t = min(at_t, vals[j])
+            for g in range(n_groups):
+                gain = at_t - group_at[g] - group_cost[g]
+                margin = _PRUNE_MARGIN * (2.0 + abs(group_at[g]) + abs(at_t)) + 2.0 * rounding
+                full = full or not gain + margin < group_far[g]
+            partial = not full and n_near > near_limit
+            full = full or (partial and n_groups == most_groups)
+            partial = partial and not full
         # vals[k] = F(s_j) + C(s_j, t) (+ length term) for the k-th start j looked at
         if full:
             _costs(code, stats, rows, starts, f_start, ident, n_cand, t, length_term, use_length_term, vals)
@@ -1611,23 +1705,34 @@ def _pelt(
             k += 1
         F[t] = best + beta
         last[t] = int(starts[idx[k]])
-        if full and functional and code != MEAN:
-            # set aside the starts worse than the best by more than half a penalty
-            tau = t
-            at_tau = best
+        if (full or partial) and functional and code != MEAN:
+            # set aside the starts looked at (all of them after a full pass) worse than the best
+            # by more than half a penalty, as a new group
+            if full:
+                n_groups = 0
             far = np.inf
+            looked = n_near if partial else n_cand
             n_near = 0
             threshold = 0.5 * beta
-            for j in range(n_cand):
-                excess = vals[j] - best
+            for i in range(looked):
+                j = idx[i]
+                excess = vals[i] - best
                 if excess <= threshold:
-                    if j == idx[k]:
-                        lead = n_near
                     near[n_near] = j
                     n_near += 1
                 else:
                     far = min(far, excess)
-            near_limit = n_near + _NEAR_GROWTH + int(math.sqrt(_NEAR_GROWTH * n_cand))
+            if far < np.inf:
+                group_step[n_groups] = float(t)
+                group_at[n_groups] = best
+                group_far[n_groups] = far
+                for r in range(MAX_STATS):
+                    group_sums[r, n_groups] = stats[r, t]
+                n_groups += 1
+            if full:
+                growth = _NEAR_GROWTH + int((2.0 * n_cand) ** (1.0 / 3.0))
+                most_groups = min(growth, _GROUPS)
+            near_limit = n_near + growth
             full = False
         # prune, every PRUNE_EVERY steps (any step may prune; a pass costs about as much as
         # the costs themselves), and retire the starts whose grace has run out
