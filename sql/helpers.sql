@@ -38,8 +38,8 @@ CREATE OR REPLACE TEMP MACRO __tsql_pairs(function, a, b, time) AS
 
 CREATE OR REPLACE TEMP MACRO __tsql_time_type(time) AS any_value(typeof(time));
 
--- A grid time from its tick and the type name of the time column (typeof: a constant when DuckDB plans
--- the query, so only one branch is left): TIMESTAMPTZ, DATE or TIMESTAMP (as TIMESTAMP), or a number.
+-- A grid time from its tick and the type name of the time column (__tsql_time_type): TIMESTAMPTZ,
+-- DATE or TIMESTAMP (as TIMESTAMP), or a number.
 -- Each value is cast straight to the union (its type picks the member): no one-member union on the way.
 CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, time_type) AS
     CASE WHEN time_type = 'TIMESTAMP WITH TIME ZONE'
@@ -56,4 +56,3 @@ CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, time_type) AS
 -- took 1.7x as long).
 CREATE OR REPLACE TEMP MACRO __tsql_answer(r) AS
     list_transform([r], lambda x: CASE WHEN x.error IS NULL THEN x.answer ELSE error(x.error) END)[1];
-

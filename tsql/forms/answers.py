@@ -28,6 +28,10 @@ ROW_TIMES = "list(time ORDER BY time NULLS LAST)"
 class Answer:
     """The answer as the list form gives it (a correlation, a test, a profile ...)."""
 
+    errors_inside = False
+    """Whether the ``*_agg`` UDF answers an error found in the data inside its answer (:class:`Series`, see
+    :meth:`Series.error_rows`) instead of beside it, as ``STRUCT(answer, error)`` (``__tsql_answer``)."""
+
     def agg_returns(self, returns: SqlType) -> SqlType:
         """The type the ``*_agg`` form answers with in SQL."""
         return returns
@@ -44,12 +48,8 @@ class Answer:
         """The answers of a gridded batch."""
         return to_arrow(returns, kernel(grid.values, **kwargs), grid.values.row_valid)
 
-    errors_inside = False
-    """Whether the ``*_agg`` UDF answers an error found in the data inside its answer (:class:`Series`, see
-    :meth:`Series.error_rows`) instead of beside it, as ``STRUCT(answer, error)`` (``__tsql_answer``)."""
-
     def finish_sql(self, returns: SqlType, call: str) -> str:
-        """The macro body around the UDF call (``__tsql_answer(udf(...))``, or the bare call with :attr:`errors_inside`)."""
+        """The macro body around the UDF call: ``__tsql_answer(udf(...))``, or the bare call (:attr:`errors_inside`)."""
         return call
 
     def in_host_times(
@@ -263,8 +263,9 @@ class Series(Answer):
 
     The UDF gives ``(tick, value ...)`` records; the macro makes the time from the tick and the time column's
     type (``__tsql_moment``): DuckDB builds UNION values in SQL about 8x faster than it imports Arrow unions.
-    An error found in the data comes inside the answer (:meth:`error_rows`), not beside it: the list around
-    the answer that ``__tsql_answer`` reads twice would have DuckDB copy these long lists three times.
+    An error found in the data comes inside the answer (:meth:`error_rows`), not beside it: through
+    ``__tsql_answer`` DuckDB would copy these long lists again (the list around the answer, its lambda's
+    result, ``[1]``).
     """
 
     errors_inside = True
