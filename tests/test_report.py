@@ -289,9 +289,8 @@ def open_page(browser, path: Path):
 
 def draw(browser, chart) -> None:
     """Scroll a chart into view and wait until plotly has drawn it (charts below the fold are drawn lazily)."""
-    from selenium.webdriver.support.ui import WebDriverWait
-
     from selenium.common.exceptions import TimeoutException
+    from selenium.webdriver.support.ui import WebDriverWait
 
     browser.execute_script("arguments[0].scrollIntoView({block: 'center'})", chart)
     try:
