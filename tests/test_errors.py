@@ -117,6 +117,9 @@ def test_everyday_mistake_names_the_function_and_the_fix(con, fn, call, table, w
         ("acf_agg(v, t, step := 1e-300)", ["acf_agg: the step makes a grid of"]),
         ("harmonic_profile_agg(v, d, INTERVAL 1 HOUR)", ["harmonic_profile_agg: period must be >= 2 grid steps"]),
         ("on_grid(list(v), list(t), step := 1e-300)", ["on_grid: the step makes a grid of"]),
+        # a series on the grid carries its error inside its answer (forms.answers.Series.error_rows)
+        ("harmonic_smooth_agg(v, t, step := 1e-300)", ["harmonic_smooth_agg: the step makes a grid of"]),
+        ("stl_decompose_agg(v, d, INTERVAL 1 HOUR)", ["stl_decompose_agg: period must be >= 2 grid steps"]),
     ],
 )
 def test_errors_found_in_the_data_are_clean_too(con, call, words):
@@ -125,6 +128,22 @@ def test_errors_found_in_the_data_are_clean_too(con, call, words):
     message = str(error.value)
     for word in words:
         assert word in message, message
+    for internal in INTERNALS:
+        assert internal not in message, message
+
+
+@pytest.mark.parametrize(
+    "call", ["harmonic_smooth_agg(v, t, same_time := 'error')", "acf_agg(v, t, same_time := 'error')"]
+)
+def test_an_error_in_one_group_of_a_large_call_stops_the_query(con, call):
+    """Two rows at one time in the last of 300 groups of 500 rows: the call runs in pieces (forms.agg.PIECE_POINTS),
+    the last piece finds the error, and the query stops with its message, whatever the form's answer."""
+    public = call.split("(")[0]
+    data = "SELECT i // 500 AS g, i % 500 - (i = 149999)::INTEGER AS t, sin(i) AS v FROM range(150000) r(i)"
+    with pytest.raises(duckdb.Error) as error:
+        con.execute(f"SELECT g, {call} AS r FROM ({data}) GROUP BY g").fetchall()
+    message = str(error.value)
+    assert f"{public}: several rows at 498 (same_time := 'error')" in message, message
     for internal in INTERNALS:
         assert internal not in message, message
 

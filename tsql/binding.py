@@ -9,6 +9,7 @@ Also here: the catalog of reminders for unregistered cursors, and :func:`interru
 
 from __future__ import annotations
 
+import itertools
 import sys
 import threading
 import time
@@ -219,7 +220,9 @@ def agg_macro(fn: Function) -> str:
     packed = "__tsql_observations" if len(fn.agg_values) == 1 else "__tsql_pairs"
     observations = f"{packed}({name!r}, {', '.join(fn.agg_values)}, time)"
     threads = ["current_setting('threads')"] if fn.name in agg.ROW_BY_ROW else []
-    call = f"__tsql_answer({fn.udf_name}_on_grid({', '.join([observations, *grid, *passed, *threads])}))"
+    call = f"{fn.udf_name}_on_grid({', '.join([observations, *grid, *passed, *threads])})"
+    if not fn.answer.errors_inside:
+        call = f"__tsql_answer({call})"
     check = f"{_check_name(name)}({', '.join(grid + passed)})"
     body = _checked(check, fn.answer.finish_sql(fn.returns, call))
     return _overloaded(name, (*fn.agg_values, "time"), fn.agg_params, body, list_name=fn.name)
@@ -359,7 +362,8 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
         create_udf(con, fn.udf_name, list_udf(fn, threads=cut), types, fn.returns)
         if fn.aggregate:
             params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
-            udf_returns = _or_error(fn.answer.udf_returns(fn.returns))
+            udf_returns = fn.answer.udf_returns(fn.returns)
+            udf_returns = udf_returns if fn.answer.errors_inside else _or_error(udf_returns)
             packed = _OBSERVATIONS if len(fn.agg_values) == 1 else _PAIRS
             threads = ["BIGINT"] if fn.name in agg.ROW_BY_ROW else []
             udf_types = [packed] + grid_types + params + threads
@@ -377,6 +381,7 @@ def _create_udfs(con: duckdb.DuckDBPyConnection) -> None:
             params = [SPAN_ARGUMENT.sql if p.span else p.sql_type.sql for p in agg_udf_params(fn)]
             create_udf(con, _check_name(f"{fn.name}_agg"), _agg_check(fn), grid_types + params, VARCHAR)
     create_udf(con, _check_name("on_grid"), _agg_check(None), grid_types, VARCHAR)
+    create_udf(con, "__tsql_message", _message_udf, ["DOUBLE"], VARCHAR)
     on_grid = with_arity(_on_grid_udf, "__tsql_on_grid", BY_NAME["on_grid"].doc, ["values", "times", *_GRID_ARGS])
     on_grid_returns = _or_error(BY_NAME["on_grid"].returns)
     create_udf(con, "__tsql_on_grid", on_grid, ["DOUBLE[]", "DOUBLE[]"] + grid_types, on_grid_returns)
@@ -519,11 +524,36 @@ def _answers_or_error(name: str, n: int, answers: Callable[[], pa.Array], answer
     return pa.StructArray.from_arrays([found, errors], names=["answer", "error"])
 
 
+_MESSAGES: dict[int, str] = {}
+_MESSAGES_KEPT = 10_000
+_MESSAGE_NUMBERS = itertools.count(1)
+_MESSAGES_LOCK = threading.Lock()
+
+
+def _numbered(message: str) -> int:
+    """A number for the message of an error found in the data, which ``__tsql_message`` gives back (the newest
+    :data:`_MESSAGES_KEPT` are kept: the macro reads one at once, in the query whose UDF call made it)."""
+    with _MESSAGES_LOCK:
+        number = next(_MESSAGE_NUMBERS)
+        _MESSAGES[number] = message
+        if len(_MESSAGES) > _MESSAGES_KEPT:
+            del _MESSAGES[next(iter(_MESSAGES))]
+    return number
+
+
+def _message_udf(numbers: Any) -> pa.Array:
+    """``__tsql_message(number)``: the message numbered by :func:`_numbered`."""
+    found = single(numbers).to_numpy(zero_copy_only=False)
+    fallback = "an error found in the data, whose message is no longer kept: run the query again"
+    return pa.array([_MESSAGES.get(int(x), fallback) if np.isfinite(x) else None for x in found], pa.string())
+
+
 def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
     """The UDF behind ``<name>_agg``: groups in pieces of about ``AggForm.piece_points`` observations.
 
     An error the data reveals (a given step that makes too many grid points, a length of time shorter than
-    allowed on a group's grid) comes back as the message of every row (see :func:`_or_error`). For
+    allowed on a group's grid) comes back as the message of every row (see :func:`_or_error`), or for an
+    answer with ``errors_inside`` (``forms.answers.Series``) as rows that stand for it (:func:`_numbered`). For
     :data:`~tsql.forms.agg.ROW_BY_ROW` a last column gives DuckDB's number of threads, over which the pieces
     of a call run (a query of fewer groups than two calls would otherwise run on one thread).
     """
@@ -550,9 +580,21 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
                 pieces[i] = form(clock(form.name, type_name), grid, tuple(arguments), ticks, values)
 
             parallel.run_each(work, len(bounds), threads)
-            return pieces[0] if len(pieces) == 1 else pa.concat_arrays([pieces[i] for i in range(len(bounds))])
+            found = [pieces[i] for i in range(len(bounds))]
+            if len(found) == 1:
+                return found[0]
+            if rows is None and fn.answer.errors_inside:  # the whole call: DuckDB reads the pieces as they are
+                return pa.chunked_array(found)
+            return pa.concat_arrays(found)
 
-        return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)
+        if not fn.answer.errors_inside:
+            return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)
+        try:
+            return by_settings(len(obs), settings, run)
+        except ValueError as error:
+            if not str(error).startswith(f"{form.name}: "):
+                raise
+            return fn.answer.error_rows(fn.returns, len(obs), _numbered(str(error)))
 
     names = ["observations", *_GRID_ARGS] + [p.name for p in agg_udf_params(fn)] + (["threads"] if cut else [])
     return with_arity(udf, f"{fn.udf_name}_on_grid", fn.doc, names)
