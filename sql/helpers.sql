@@ -38,16 +38,14 @@ CREATE OR REPLACE TEMP MACRO __tsql_pairs(function, a, b, time) AS
 
 CREATE OR REPLACE TEMP MACRO __tsql_time_type(time) AS any_value(typeof(time));
 
--- A grid time from its tick and the type name of the time column (__tsql_time_type): TIMESTAMPTZ,
--- DATE or TIMESTAMP (as TIMESTAMP), or a number.
--- Each value is cast straight to the union (its type picks the member): no one-member union on the way.
-CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, time_type) AS
-    CASE WHEN time_type = 'TIMESTAMP WITH TIME ZONE'
-             THEN (to_timestamp(0) + to_microseconds(tick::BIGINT))::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ,
-                                                                           number DOUBLE)
-         WHEN regexp_full_match(time_type, 'DATE|TIMESTAMP(_S|_MS|_NS)?')
-             THEN make_timestamp(tick::BIGINT)::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
-         ELSE tick::DOUBLE::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
+-- A grid time from its tick and kind (0: TIMESTAMP, 1: TIMESTAMPTZ, 2: a number). Each value is cast
+-- straight to the union (its type picks the member): no one-member union on the way.
+CREATE OR REPLACE TEMP MACRO __tsql_moment(tick, kind) AS
+    CASE kind
+        WHEN 0 THEN make_timestamp(tick::BIGINT)::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
+        WHEN 1 THEN (to_timestamp(0) + to_microseconds(tick::BIGINT))::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ,
+                                                                                number DOUBLE)
+        ELSE tick::DOUBLE::UNION("time" TIMESTAMP, time_tz TIMESTAMPTZ, number DOUBLE)
     END;
 
 -- An *_agg UDF's answer, or its error message (an error found in the data) raised as an error naming
