@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 import statsmodels.datasets
 
-from tsql.kernels import changepoint, trend
+from tsql.kernels import changepoint, periodicity, trend
 from tsql.kernels.correlation import ljung_box
 from tsql.kernels.periodicity import fisher_g_pvalue, spectral_entropy
 from tsql.kernels.ragged import Ragged
@@ -161,21 +161,7 @@ def test_complete_rows_skip_the_masks_with_the_same_answers(n):
 def fisher_one_table(g: np.ndarray, m: np.ndarray) -> np.ndarray:
     """fisher_g_pvalue's sum as one table for all rows, as wide as the widest row needs (at most 128 terms)."""
     x, mm = g.astype(np.float64), np.floor(m.astype(np.float64))
-    needed = np.minimum(mm, np.floor(1.0 / x))
-    width = int(min(128, needed.max()))
-    j = np.arange(1, width + 1, dtype=np.float64)
-    jx = x[:, None] * j
-    used = (j <= mm[:, None]) & (jx < 1.0)
-    log_comb = np.cumsum(np.log(np.maximum(mm[:, None] - j + 1.0, 1.0) / j), axis=1)
-    log_term = np.where(used, log_comb + (mm[:, None] - 1.0) * np.log1p(-np.where(used, jx, 0.0)), -np.inf)
-    terms = np.exp(log_term)
-    exact = np.cumsum(np.where(j % 2 == 1, terms, -terms), axis=1)[:, -1]
-    stable = (log_term.max(axis=1) <= np.log(1e6)) & ~((needed > width) & (terms[:, -1] > 1e-30))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        tail = np.exp((mm - 1.0) * np.log1p(-x))
-        approx = -np.expm1(mm * np.log1p(-tail))
-    p = np.where((x == 0.0) | (mm == 1.0), 1.0, np.where(stable, exact, approx))
-    return np.clip(p, 0.0, 1.0)
+    return np.clip(periodicity._fisher_terms(x, mm, np.minimum(mm, np.floor(1.0 / x))), 0.0, 1.0)
 
 
 def test_fisher_bands_equal_one_table():
