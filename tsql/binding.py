@@ -580,12 +580,7 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
                 pieces[i] = form(clock(form.name, type_name), grid, tuple(arguments), ticks, values)
 
             parallel.run_each(work, len(bounds), threads)
-            found = [pieces[i] for i in range(len(bounds))]
-            if len(found) == 1:
-                return found[0]
-            if rows is None and fn.answer.errors_inside:  # the whole call: DuckDB reads the pieces as they are
-                return pa.chunked_array(found)
-            return pa.concat_arrays(found)
+            return pieces[0] if len(pieces) == 1 else pa.concat_arrays([pieces[i] for i in range(len(bounds))])
 
         if not fn.answer.errors_inside:
             return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)
