@@ -731,6 +731,211 @@ def _fpop(stats, m, beta, length_term, use_length_term, min_size, F, last, start
         last[t] = int(starts[k])
 
 
+#: rows searched at once by :func:`_fpop_lanes`, one per vector lane (8 doubles: one AVX-512 register)
+LANES = 8
+
+#: admitted steps between compactions of the lanes' slots (retired starts are masked until then)
+_COMPACT_EVERY = 4
+
+# the lane search's per-slot fields (``slots[(j * _SLOT_FIELDS + field) * LANES + lane]``) and per-lane
+# ones (``lane[field * LANES + lane]``): flat, with constant strides, so that the vectoriser sees
+# fields a constant distance apart and needs no run-time check between them
+_START, _F_START, _C1, _C2, _LOW, _HIGH, _OUT_LO, _OUT_HI, _TERM = range(9)
+_SLOT_FIELDS = 9
+_BEST, _BEST_START, _EX_LO, _EX_HI, _EX_GAP, _BASE, _A1, _A2, _CA1, _CA2, _FC, _TERM0 = range(12)
+_LANE_FIELDS = 12
+
+
+@njit(cache=True, error_model="numpy", inline="always")  # the index of a slot's field: no wrap-around
+def _at(j, field, lane):
+    return np.uint64((j * _SLOT_FIELDS + field) * LANES + lane)
+
+
+@njit(cache=True, error_model="numpy", inline="always")  # the index of a lane's field: no wrap-around
+def _of(field, lane):
+    return np.uint64(field * LANES + lane)
+
+
+@njit(cache=True, error_model="numpy")
+def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last) -> None:
+    """:func:`_fpop` on ``LANES`` rows of ``m`` present values at once, one row per vector lane.
+
+    ``stats[l]``, ``beta[l]``, ``length_term[l]`` are row ``l``'s as :func:`_fpop` takes them;
+    fills ``F[l]`` and ``last[l]`` as :func:`_pelt` does. The search is FPOP (Maidstone, Hocking,
+    Rigaill & Fearnhead 2017) as :func:`_fpop` prunes it, run in lockstep: step ``t`` of every row
+    at once, the inner loop over the lanes without branches (selects only), so that the compiler
+    turns it into vector instructions (two square roots and two divisions per slot and step for
+    all lanes together).
+
+    It stays exact, bit for bit: every lane does the same operations on its own starts in the
+    same order as :func:`_fpop` (its slots keep its starts in order; the exclusion is merged and the
+    least total taken along them, the earliest start among equal totals). A start retired in a lane
+    is not moved out at once but marked, its ``F(s)`` set to infinity: its cuts then leave the
+    hull, the exclusion and the least total as they are (each of its selects is off), and every
+    ``_COMPACT_EVERY`` admitted steps the lanes are compacted in order. Lanes keep different
+    numbers of starts; the pass runs to the largest, the others' extra slots marked retired.
+    The one division :func:`_fpop` looks up (``1 / length``) is divided here, the same value.
+    """
+    lanes = F.shape[0]  # LANES, read at run time: a constant trip count is unrolled, not vectorised
+    cap = 64
+    slots = np.empty(cap * _SLOT_FIELDS * LANES)
+    lane = np.empty(_LANE_FIELDS * LANES)
+    squares = np.empty(LANES)
+    for l in range(lanes):
+        squares[l] = _SQUARES_MARGIN * stats[l, 1, m]
+        F[l, 0] = -beta[l]
+        last[l, 0] = 0
+        for t in range(1, min_size):
+            F[l, t] = np.inf
+            last[l, t] = 0
+        lane[_of(_TERM0, l)] = length_term[l, min_size]
+    n = 0
+    due = _COMPACT_EVERY
+    for t in range(min_size, m + 1):
+        tf = float(t)
+        c = t - min_size
+        admit = c == 0 or c >= min_size
+        cf = float(c)
+        for l in range(lanes):
+            f_c = F[l, c]
+            lane[_of(_A1, l)] = stats[l, 0, t]
+            lane[_of(_A2, l)] = stats[l, 1, t]
+            lane[_of(_CA1, l)] = stats[l, 0, c]
+            lane[_of(_CA2, l)] = stats[l, 1, c]
+            lane[_of(_FC, l)] = f_c
+            lane[_of(_BASE, l)] = _PRUNE_MARGIN * (1.0 + abs(f_c)) + squares[l]
+            lane[_of(_BEST, l)] = np.inf
+            lane[_of(_BEST_START, l)] = 0.0
+            lane[_of(_EX_LO, l)] = np.inf
+            lane[_of(_EX_HI, l)] = -np.inf
+            lane[_of(_EX_GAP, l)] = -np.inf
+        if use_length_term:  # looked up apart: an index read from data keeps the pass below from vectors
+            for j in range(n):
+                for l in range(lanes):
+                    slots[_at(j, _TERM, l)] = length_term[l, t - int(slots[_at(j, _START, l)])]
+        _lanes_pass(slots, lane, n, lanes, tf, cf, admit, use_length_term)
+        if admit:
+            if n == cap:
+                cap *= 2
+                grown = np.empty(cap * _SLOT_FIELDS * LANES)
+                grown[: len(slots)] = slots
+                slots = grown
+            for l in range(lanes):
+                f_c = lane[_of(_FC, l)]
+                ca1 = lane[_of(_CA1, l)]
+                ca2 = lane[_of(_CA2, l)]
+                slots[_at(n, _START, l)] = cf
+                slots[_at(n, _F_START, l)] = f_c
+                slots[_at(n, _C1, l)] = ca1
+                slots[_at(n, _C2, l)] = ca2
+                slots[_at(n, _LOW, l)] = -np.inf
+                slots[_at(n, _HIGH, l)] = np.inf
+                slots[_at(n, _OUT_LO, l)] = lane[_of(_EX_LO, l)]
+                slots[_at(n, _OUT_HI, l)] = lane[_of(_EX_HI, l)]
+                value = _cost_mean_one(lane[_of(_A1, l)], lane[_of(_A2, l)], tf, f_c, cf, ca1, ca2)
+                if use_length_term:
+                    value += length_term[l, t - c]
+                if value < lane[_of(_BEST, l)]:
+                    lane[_of(_BEST, l)] = value
+                    lane[_of(_BEST_START, l)] = cf
+            n += 1
+            due -= 1
+        for l in range(lanes):
+            F[l, t] = lane[_of(_BEST, l)] + beta[l]
+            last[l, t] = int(lane[_of(_BEST_START, l)])
+        if due == 0:
+            n = _compact_lanes(slots, n, lanes)
+            due = _COMPACT_EVERY
+
+
+@njit(cache=True, error_model="numpy")
+def _lanes_pass(slots, lane, n, lanes, tf, cf, admit, use_length_term) -> None:
+    """One step of :func:`_fpop_lanes` over slots ``0..n-1`` of every lane: :func:`_fpop`'s pass, with selects."""
+    for j in range(n):
+        for l in range(lanes):
+            fs = slots[_at(j, _F_START, l)]
+            sj = slots[_at(j, _START, l)]
+            s1_j = slots[_at(j, _C1, l)]
+            s2_j = slots[_at(j, _C2, l)]
+            keep = fs < np.inf  # not retired
+            if admit:
+                length = cf - sj
+                inv = 1.0 / length
+                s1 = lane[_of(_CA1, l)] - s1_j
+                mean = s1 * inv
+                gap = lane[_of(_FC, l)] - fs - ((lane[_of(_CA2, l)] - s2_j) - s1 * mean)
+                margin = lane[_of(_BASE, l)] + _PRUNE_MARGIN * abs(fs)
+                room = gap + margin
+                half = math.sqrt((0.0 if 0.0 > room else room) * inv)
+                low = mean - half
+                old = slots[_at(j, _LOW, l)]
+                low = low if low > old else old
+                high = mean + half
+                old = slots[_at(j, _HIGH, l)]
+                high = high if high < old else old
+                out_lo = slots[_at(j, _OUT_LO, l)]
+                out_hi = slots[_at(j, _OUT_HI, l)]
+                below = out_lo < low
+                above = out_hi > high
+                low_cut = out_hi if out_hi > low else low
+                high_cut = out_lo if out_lo < high else high
+                low = np.inf if below & above else (low_cut if below else low)
+                high = high_cut if above & (not below) else high
+                keep = keep & (room >= 0.0) & (low <= high)
+                slots[_at(j, _LOW, l)] = low
+                slots[_at(j, _HIGH, l)] = high
+                slots[_at(j, _F_START, l)] = fs if keep else np.inf
+                shut = gap - margin
+                if use_length_term:
+                    shut -= slots[_at(j, _TERM, l)] - lane[_of(_TERM0, l)]
+                half = math.sqrt((0.0 if 0.0 > shut else shut) * inv)
+                e_lo = mean - half
+                e_hi = mean + half
+                excl_lo = lane[_of(_EX_LO, l)]
+                excl_hi = lane[_of(_EX_HI, l)]
+                excl_gap = lane[_of(_EX_GAP, l)]
+                shut_out = shut > 0.0
+                merge = shut_out & (e_lo < excl_hi) & (e_hi > excl_lo)
+                take = shut_out & (not merge) & (shut > excl_gap)
+                merged_lo = e_lo if e_lo < excl_lo else excl_lo
+                merged_hi = e_hi if e_hi > excl_hi else excl_hi
+                merged_gap = shut if shut > excl_gap else excl_gap
+                lane[_of(_EX_LO, l)] = merged_lo if merge else (e_lo if take else excl_lo)
+                lane[_of(_EX_HI, l)] = merged_hi if merge else (e_hi if take else excl_hi)
+                lane[_of(_EX_GAP, l)] = merged_gap if merge else (shut if take else excl_gap)
+            value = _cost_mean_one(lane[_of(_A1, l)], lane[_of(_A2, l)], tf, fs, sj, s1_j, s2_j)
+            if use_length_term:
+                value += slots[_at(j, _TERM, l)]
+            best = lane[_of(_BEST, l)]
+            lower = keep & (value < best)
+            lane[_of(_BEST, l)] = value if lower else best
+            lane[_of(_BEST_START, l)] = sj if lower else lane[_of(_BEST_START, l)]
+
+
+@njit(cache=True, error_model="numpy")
+def _compact_lanes(slots, n, lanes) -> int:
+    """Move each lane's kept starts down over its retired ones, in order; the slots the lanes now use.
+
+    A lane's slots past its own kept ones, up to the most any lane keeps, are marked retired
+    (``F(s)`` infinite, start 0: every later cut of theirs is off and reads only defined slots).
+    """
+    most = 0
+    for l in range(lanes):
+        kept = 0
+        for j in range(n):
+            if slots[_at(j, _F_START, l)] < np.inf:
+                if kept < j:
+                    for field in range(_SLOT_FIELDS):
+                        slots[_at(kept, field, l)] = slots[_at(j, field, l)]
+                kept += 1
+        for j in range(kept, n):
+            for field in range(_SLOT_FIELDS):
+                slots[_at(j, field, l)] = 0.0
+            slots[_at(j, _F_START, l)] = np.inf
+        most = max(most, kept)
+    return most
+
+
 # Geometric functional pruning for the two-parameter models. Both costs are a minimum over a
 # segment's parameters theta of a sum of per-point losses (for 'meanvar' with
 # l(z; mu, v) = log v + ((z - mu)^2 + floor) / v - 1, whose minimum over a segment is
