@@ -760,8 +760,8 @@ def _of(field, lane):
 def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last) -> None:
     """:func:`_fpop` on ``LANES`` rows of ``m`` present values at once, one row per vector lane.
 
-    ``stats[l]``, ``beta[l]``, ``length_term[l]`` are row ``l``'s as :func:`_fpop` takes them;
-    fills ``F[l]`` and ``last[l]`` as :func:`_pelt` does. The search is FPOP (Maidstone, Hocking,
+    ``stats[w]``, ``beta[w]``, ``length_term[w]`` are row ``w``'s as :func:`_fpop` takes them;
+    fills ``F[w]`` and ``last[w]`` as :func:`_pelt` does. The search is FPOP (Maidstone, Hocking,
     Rigaill & Fearnhead 2017) as :func:`_fpop` prunes it, run in lockstep: step ``t`` of every row
     at once, the inner loop over the lanes without branches (selects only), so that the compiler
     turns it into vector instructions (two square roots and two divisions per slot and step for
@@ -781,14 +781,14 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
     slots = np.empty(cap * _SLOT_FIELDS * LANES)
     lane = np.empty(_LANE_FIELDS * LANES)
     squares = np.empty(LANES)
-    for l in range(lanes):
-        squares[l] = _SQUARES_MARGIN * stats[l, 1, m]
-        F[l, 0] = -beta[l]
-        last[l, 0] = 0
+    for w in range(lanes):
+        squares[w] = _SQUARES_MARGIN * stats[w, 1, m]
+        F[w, 0] = -beta[w]
+        last[w, 0] = 0
         for t in range(1, min_size):
-            F[l, t] = np.inf
-            last[l, t] = 0
-        lane[_of(_TERM0, l)] = length_term[l, min_size]
+            F[w, t] = np.inf
+            last[w, t] = 0
+        lane[_of(_TERM0, w)] = length_term[w, min_size]
     n = 0
     due = _COMPACT_EVERY
     for t in range(min_size, m + 1):
@@ -796,23 +796,23 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
         c = t - min_size
         admit = c == 0 or c >= min_size
         cf = float(c)
-        for l in range(lanes):
-            f_c = F[l, c]
-            lane[_of(_A1, l)] = stats[l, 0, t]
-            lane[_of(_A2, l)] = stats[l, 1, t]
-            lane[_of(_CA1, l)] = stats[l, 0, c]
-            lane[_of(_CA2, l)] = stats[l, 1, c]
-            lane[_of(_FC, l)] = f_c
-            lane[_of(_BASE, l)] = _PRUNE_MARGIN * (1.0 + abs(f_c)) + squares[l]
-            lane[_of(_BEST, l)] = np.inf
-            lane[_of(_BEST_START, l)] = 0.0
-            lane[_of(_EX_LO, l)] = np.inf
-            lane[_of(_EX_HI, l)] = -np.inf
-            lane[_of(_EX_GAP, l)] = -np.inf
+        for w in range(lanes):
+            f_c = F[w, c]
+            lane[_of(_A1, w)] = stats[w, 0, t]
+            lane[_of(_A2, w)] = stats[w, 1, t]
+            lane[_of(_CA1, w)] = stats[w, 0, c]
+            lane[_of(_CA2, w)] = stats[w, 1, c]
+            lane[_of(_FC, w)] = f_c
+            lane[_of(_BASE, w)] = _PRUNE_MARGIN * (1.0 + abs(f_c)) + squares[w]
+            lane[_of(_BEST, w)] = np.inf
+            lane[_of(_BEST_START, w)] = 0.0
+            lane[_of(_EX_LO, w)] = np.inf
+            lane[_of(_EX_HI, w)] = -np.inf
+            lane[_of(_EX_GAP, w)] = -np.inf
         if use_length_term:  # looked up apart: an index read from data keeps the pass below from vectors
             for j in range(n):
-                for l in range(lanes):
-                    slots[_at(j, _TERM, l)] = length_term[l, t - int(slots[_at(j, _START, l)])]
+                for w in range(lanes):
+                    slots[_at(j, _TERM, w)] = length_term[w, t - int(slots[_at(j, _START, w)])]
         _lanes_pass(slots, lane, n, lanes, tf, cf, admit, use_length_term)
         if admit:
             if n == cap:
@@ -820,29 +820,29 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
                 grown = np.empty(cap * _SLOT_FIELDS * LANES)
                 grown[: len(slots)] = slots
                 slots = grown
-            for l in range(lanes):
-                f_c = lane[_of(_FC, l)]
-                ca1 = lane[_of(_CA1, l)]
-                ca2 = lane[_of(_CA2, l)]
-                slots[_at(n, _START, l)] = cf
-                slots[_at(n, _F_START, l)] = f_c
-                slots[_at(n, _C1, l)] = ca1
-                slots[_at(n, _C2, l)] = ca2
-                slots[_at(n, _LOW, l)] = -np.inf
-                slots[_at(n, _HIGH, l)] = np.inf
-                slots[_at(n, _OUT_LO, l)] = lane[_of(_EX_LO, l)]
-                slots[_at(n, _OUT_HI, l)] = lane[_of(_EX_HI, l)]
-                value = _cost_mean_one(lane[_of(_A1, l)], lane[_of(_A2, l)], tf, f_c, cf, ca1, ca2)
+            for w in range(lanes):
+                f_c = lane[_of(_FC, w)]
+                ca1 = lane[_of(_CA1, w)]
+                ca2 = lane[_of(_CA2, w)]
+                slots[_at(n, _START, w)] = cf
+                slots[_at(n, _F_START, w)] = f_c
+                slots[_at(n, _C1, w)] = ca1
+                slots[_at(n, _C2, w)] = ca2
+                slots[_at(n, _LOW, w)] = -np.inf
+                slots[_at(n, _HIGH, w)] = np.inf
+                slots[_at(n, _OUT_LO, w)] = lane[_of(_EX_LO, w)]
+                slots[_at(n, _OUT_HI, w)] = lane[_of(_EX_HI, w)]
+                value = _cost_mean_one(lane[_of(_A1, w)], lane[_of(_A2, w)], tf, f_c, cf, ca1, ca2)
                 if use_length_term:
-                    value += length_term[l, t - c]
-                if value < lane[_of(_BEST, l)]:
-                    lane[_of(_BEST, l)] = value
-                    lane[_of(_BEST_START, l)] = cf
+                    value += length_term[w, t - c]
+                if value < lane[_of(_BEST, w)]:
+                    lane[_of(_BEST, w)] = value
+                    lane[_of(_BEST_START, w)] = cf
             n += 1
             due -= 1
-        for l in range(lanes):
-            F[l, t] = lane[_of(_BEST, l)] + beta[l]
-            last[l, t] = int(lane[_of(_BEST_START, l)])
+        for w in range(lanes):
+            F[w, t] = lane[_of(_BEST, w)] + beta[w]
+            last[w, t] = int(lane[_of(_BEST_START, w)])
         if due == 0:
             n = _compact_lanes(slots, n, lanes)
             due = _COMPACT_EVERY
@@ -852,29 +852,29 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
 def _lanes_pass(slots, lane, n, lanes, tf, cf, admit, use_length_term) -> None:
     """One step of :func:`_fpop_lanes` over slots ``0..n-1`` of every lane: :func:`_fpop`'s pass, with selects."""
     for j in range(n):
-        for l in range(lanes):
-            fs = slots[_at(j, _F_START, l)]
-            sj = slots[_at(j, _START, l)]
-            s1_j = slots[_at(j, _C1, l)]
-            s2_j = slots[_at(j, _C2, l)]
+        for w in range(lanes):
+            fs = slots[_at(j, _F_START, w)]
+            sj = slots[_at(j, _START, w)]
+            s1_j = slots[_at(j, _C1, w)]
+            s2_j = slots[_at(j, _C2, w)]
             keep = fs < np.inf  # not retired
             if admit:
                 length = cf - sj
                 inv = 1.0 / length
-                s1 = lane[_of(_CA1, l)] - s1_j
+                s1 = lane[_of(_CA1, w)] - s1_j
                 mean = s1 * inv
-                gap = lane[_of(_FC, l)] - fs - ((lane[_of(_CA2, l)] - s2_j) - s1 * mean)
-                margin = lane[_of(_BASE, l)] + _PRUNE_MARGIN * abs(fs)
+                gap = lane[_of(_FC, w)] - fs - ((lane[_of(_CA2, w)] - s2_j) - s1 * mean)
+                margin = lane[_of(_BASE, w)] + _PRUNE_MARGIN * abs(fs)
                 room = gap + margin
                 half = math.sqrt((0.0 if 0.0 > room else room) * inv)
                 low = mean - half
-                old = slots[_at(j, _LOW, l)]
+                old = slots[_at(j, _LOW, w)]
                 low = low if low > old else old
                 high = mean + half
-                old = slots[_at(j, _HIGH, l)]
+                old = slots[_at(j, _HIGH, w)]
                 high = high if high < old else old
-                out_lo = slots[_at(j, _OUT_LO, l)]
-                out_hi = slots[_at(j, _OUT_HI, l)]
+                out_lo = slots[_at(j, _OUT_LO, w)]
+                out_hi = slots[_at(j, _OUT_HI, w)]
                 below = out_lo < low
                 above = out_hi > high
                 low_cut = out_hi if out_hi > low else low
@@ -882,34 +882,34 @@ def _lanes_pass(slots, lane, n, lanes, tf, cf, admit, use_length_term) -> None:
                 low = np.inf if below & above else (low_cut if below else low)
                 high = high_cut if above & (not below) else high
                 keep = keep & (room >= 0.0) & (low <= high)
-                slots[_at(j, _LOW, l)] = low
-                slots[_at(j, _HIGH, l)] = high
-                slots[_at(j, _F_START, l)] = fs if keep else np.inf
+                slots[_at(j, _LOW, w)] = low
+                slots[_at(j, _HIGH, w)] = high
+                slots[_at(j, _F_START, w)] = fs if keep else np.inf
                 shut = gap - margin
                 if use_length_term:
-                    shut -= slots[_at(j, _TERM, l)] - lane[_of(_TERM0, l)]
+                    shut -= slots[_at(j, _TERM, w)] - lane[_of(_TERM0, w)]
                 half = math.sqrt((0.0 if 0.0 > shut else shut) * inv)
                 e_lo = mean - half
                 e_hi = mean + half
-                excl_lo = lane[_of(_EX_LO, l)]
-                excl_hi = lane[_of(_EX_HI, l)]
-                excl_gap = lane[_of(_EX_GAP, l)]
+                excl_lo = lane[_of(_EX_LO, w)]
+                excl_hi = lane[_of(_EX_HI, w)]
+                excl_gap = lane[_of(_EX_GAP, w)]
                 shut_out = shut > 0.0
                 merge = shut_out & (e_lo < excl_hi) & (e_hi > excl_lo)
                 take = shut_out & (not merge) & (shut > excl_gap)
                 merged_lo = e_lo if e_lo < excl_lo else excl_lo
                 merged_hi = e_hi if e_hi > excl_hi else excl_hi
                 merged_gap = shut if shut > excl_gap else excl_gap
-                lane[_of(_EX_LO, l)] = merged_lo if merge else (e_lo if take else excl_lo)
-                lane[_of(_EX_HI, l)] = merged_hi if merge else (e_hi if take else excl_hi)
-                lane[_of(_EX_GAP, l)] = merged_gap if merge else (shut if take else excl_gap)
-            value = _cost_mean_one(lane[_of(_A1, l)], lane[_of(_A2, l)], tf, fs, sj, s1_j, s2_j)
+                lane[_of(_EX_LO, w)] = merged_lo if merge else (e_lo if take else excl_lo)
+                lane[_of(_EX_HI, w)] = merged_hi if merge else (e_hi if take else excl_hi)
+                lane[_of(_EX_GAP, w)] = merged_gap if merge else (shut if take else excl_gap)
+            value = _cost_mean_one(lane[_of(_A1, w)], lane[_of(_A2, w)], tf, fs, sj, s1_j, s2_j)
             if use_length_term:
-                value += slots[_at(j, _TERM, l)]
-            best = lane[_of(_BEST, l)]
+                value += slots[_at(j, _TERM, w)]
+            best = lane[_of(_BEST, w)]
             lower = keep & (value < best)
-            lane[_of(_BEST, l)] = value if lower else best
-            lane[_of(_BEST_START, l)] = sj if lower else lane[_of(_BEST_START, l)]
+            lane[_of(_BEST, w)] = value if lower else best
+            lane[_of(_BEST_START, w)] = sj if lower else lane[_of(_BEST_START, w)]
 
 
 @njit(cache=True, error_model="numpy")
@@ -920,18 +920,18 @@ def _compact_lanes(slots, n, lanes) -> int:
     (``F(s)`` infinite, start 0: every later cut of theirs is off and reads only defined slots).
     """
     most = 0
-    for l in range(lanes):
+    for w in range(lanes):
         kept = 0
         for j in range(n):
-            if slots[_at(j, _F_START, l)] < np.inf:
+            if slots[_at(j, _F_START, w)] < np.inf:
                 if kept < j:
                     for field in range(_SLOT_FIELDS):
-                        slots[_at(kept, field, l)] = slots[_at(j, field, l)]
+                        slots[_at(kept, field, w)] = slots[_at(j, field, w)]
                 kept += 1
         for j in range(kept, n):
             for field in range(_SLOT_FIELDS):
-                slots[_at(j, field, l)] = 0.0
-            slots[_at(j, _F_START, l)] = np.inf
+                slots[_at(j, field, w)] = 0.0
+            slots[_at(j, _F_START, w)] = np.inf
         most = max(most, kept)
     return most
 
@@ -2193,7 +2193,137 @@ def _segment_stats(y, p, lo, hi) -> tuple[float, float]:
     return my, (sxy / sxx if sxx > 0.0 else np.nan)
 
 
-@njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
+@njit(cache=True, error_model="numpy")
+def _row_start(
+    r,
+    values,
+    offsets,
+    valid,
+    code,
+    params_per_change,
+    penalty_kind,
+    penalty_value,
+    min_size,
+    residual,
+    least_factor,
+    stats,
+):
+    """Read row ``r`` and prepare its search: ``y, p, m, beta, length_term, use_length_term, state``.
+
+    ``state`` is 0 when the row has no answer (NULL, no present value, or an infinite one), 1 when
+    it is one segment (too short, constant, or no scale), 2 when it is searched: then ``stats``
+    (at least ``m + 1`` columns) holds its sums.
+    """
+    lo = offsets[r]
+    n = offsets[r + 1] - lo
+    if len(residual):
+        residual[lo : lo + n] = np.nan
+    no_term = np.zeros(1)
+    if not valid[r]:
+        return np.empty(0), np.empty(0, dtype=np.int64), 0, 0.0, no_term, False, 0
+    y, p, m, finite = _present(values, lo, n)
+    if m == 0 or not finite:
+        return y, p, m, 0.0, no_term, False, 0
+    lowest = y[0]
+    highest = y[0]
+    for i in range(m):
+        lowest = min(lowest, y[i])
+        highest = max(highest, y[i])
+    if not (m >= 2 * min_size and lowest < highest):
+        return y, p, m, 0.0, no_term, False, 1
+    work = np.empty(2 * m + 2)
+    scale = _prepare(code, y, p, m, stats, work)
+    if not scale > 0.0:
+        return y, p, m, 0.0, no_term, False, 1
+    log_m = math.log(m)
+    # a named penalty grows with the serial dependence of the noise (see segments, Notes)
+    factor = 1.0 if penalty_kind == _FIXED else _noise_factor(code, y, m, scale, work)
+    if penalty_kind != _FIXED:
+        factor = max(factor, least_factor[r])  # a removed cycle's degrees of freedom (see _cycle_factor)
+    if penalty_kind == _BIC:
+        beta = params_per_change * log_m * factor
+    elif penalty_kind == _MBIC:
+        beta = 3.0 * log_m * factor
+    else:
+        beta = penalty_value
+    use_length_term = penalty_kind == _MBIC
+    length_term = np.empty(m + 1)
+    length_term[0] = 0.0
+    for k in range(1, m + 1):
+        length_term[k] = (math.log(k) - log_m) * factor if use_length_term else 0.0
+    return y, p, m, beta, length_term, use_length_term, 2
+
+
+@njit(cache=True, error_model="numpy")
+def _row_end(
+    r,
+    y,
+    p,
+    m,
+    state,
+    stats,
+    beta,
+    length_term,
+    use_length_term,
+    last,
+    offsets,
+    code,
+    min_size,
+    max_changes,
+    out_first,
+    out_last,
+    out_mean,
+    out_slope,
+    counts,
+    row_ok,
+    residual,
+) -> None:
+    """Write row ``r``'s segments to ``out_*[offsets[r]:]``, their number to ``counts[r]`` (see :func:`_segment_row`).
+
+    ``last`` is the search's answer when ``state`` is 2 (see :func:`_row_start`).
+    """
+    counts[r] = 0
+    row_ok[r] = state > 0
+    if state == 0:
+        return
+    lo = offsets[r]
+    n = offsets[r + 1] - lo
+    seg = np.empty(m + 1, dtype=np.int64)
+    n_seg = 1
+    seg[0] = 0
+    if state == 2:
+        if max_changes >= 0 and _changes(last, m) > max_changes:
+            # PELT's optimum is the least cost + beta * changes over all segmentations, so when
+            # it has at most max_changes changes it is also the least over those that do (a
+            # subset holding it); only otherwise the O(max_changes m^2) programme runs
+            if m > MAX_PROGRAMME:
+                row_ok[r] = False
+                return
+            _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_changes, last)
+        # walk back from the end: the starts of the optimum's segments, last first
+        n_seg = 0
+        t = m
+        while t > 0:
+            t = last[t]
+            seg[n_seg] = t
+            n_seg += 1
+        for k in range(n_seg // 2):
+            a = seg[k]
+            seg[k] = seg[n_seg - 1 - k]
+            seg[n_seg - 1 - k] = a
+    for k in range(n_seg):
+        a = seg[k]
+        b = seg[k + 1] if k + 1 < n_seg else m
+        w = lo + k
+        out_first[w] = 1 if k == 0 else p[a] + 1
+        out_last[w] = p[b] if k + 1 < n_seg else n
+        out_mean[w], out_slope[w] = _segment_stats(y, p, a, b)
+        if len(residual):
+            _residual(y, p, a, b, out_mean[w], out_slope[w], code == TREND, residual[lo:])
+    counts[r] = n_seg
+
+
+@njit(cache=True, error_model="numpy")
 def _segment_row(
     r,
     values,
@@ -2224,96 +2354,46 @@ def _segment_row(
     rows without an answer). Every work buffer is the row's own, so the answer
     does not depend on what else runs, before, after or at the same time.
     """
-    counts[r] = 0
-    row_ok[r] = False
-    lo = offsets[r]
-    n = offsets[r + 1] - lo
-    if len(residual):
-        residual[lo : lo + n] = np.nan
-    if not valid[r]:
-        return
-    y, p, m, finite = _present(values, lo, n)
-    if m == 0 or not finite:
-        return
-    row_ok[r] = True
-    seg = np.empty(m + 1, dtype=np.int64)
-    n_seg = 1
-    seg[0] = 0
-    lowest = y[0]
-    highest = y[0]
-    for i in range(m):
-        lowest = min(lowest, y[i])
-        highest = max(highest, y[i])
-    if m >= 2 * min_size and lowest < highest:
-        work = np.empty(2 * m + 2)
-        stats = np.empty((MAX_STATS, m + 1))
-        scale = _prepare(code, y, p, m, stats, work)
-        if scale > 0.0:
-            log_m = math.log(m)
-            # a named penalty grows with the serial dependence of the noise (see segments, Notes)
-            factor = 1.0 if penalty_kind == _FIXED else _noise_factor(code, y, m, scale, work)
-            if penalty_kind != _FIXED:
-                factor = max(factor, least_factor[r])  # a removed cycle's degrees of freedom (see _cycle_factor)
-            if penalty_kind == _BIC:
-                beta = params_per_change * log_m * factor
-            elif penalty_kind == _MBIC:
-                beta = 3.0 * log_m * factor
-            else:
-                beta = penalty_value
-            use_length_term = penalty_kind == _MBIC
-            length_term = np.empty(m + 1)
-            length_term[0] = 0.0
-            for k in range(1, m + 1):
-                length_term[k] = (math.log(k) - log_m) * factor if use_length_term else 0.0
-            F = np.empty(m + 1)
-            last = np.empty(m + 1, dtype=np.int64)
-            _pelt(
-                code,
-                n_stats,
-                stats,
-                m,
-                beta,
-                length_term,
-                use_length_term,
-                min_size,
-                F,
-                last,
-                np.empty(m + 1),
-                np.empty((MAX_STATS, m + 1)),
-                np.empty(m + 1),
-                np.empty(m + 1),
-                np.empty(m + 1),
-                np.empty((_BOX_ROWS, m + 1)),
-            )
-            if max_changes >= 0 and _changes(last, m) > max_changes:
-                # PELT's optimum is the least cost + beta * changes over all segmentations, so when
-                # it has at most max_changes changes it is also the least over those that do (a
-                # subset holding it); only otherwise the O(max_changes m^2) programme runs
-                if m > MAX_PROGRAMME:
-                    row_ok[r] = False
-                    return
-                _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_changes, last)
-            # walk back from the end: the starts of the optimum's segments, last first
-            n_seg = 0
-            t = m
-            while t > 0:
-                t = last[t]
-                seg[n_seg] = t
-                n_seg += 1
-            for k in range(n_seg // 2):
-                a = seg[k]
-                seg[k] = seg[n_seg - 1 - k]
-                seg[n_seg - 1 - k] = a
-    for k in range(n_seg):
-        a = seg[k]
-        b = seg[k + 1] if k + 1 < n_seg else m
-        w = lo + k
-        out_first[w] = 1 if k == 0 else p[a] + 1
-        out_last[w] = p[b] if k + 1 < n_seg else n
-        out_mean[w], out_slope[w] = _segment_stats(y, p, a, b)
-        if len(residual):
-            _residual(y, p, a, b, out_mean[w], out_slope[w], code == TREND, residual[lo:])
-    counts[r] = n_seg
+    n = offsets[r + 1] - offsets[r]
+    stats = np.empty((MAX_STATS, n + 1))
+    y, p, m, beta, length_term, use_length_term, state = _row_start(
+        r,
+        values,
+        offsets,
+        valid,
+        code,
+        params_per_change,
+        penalty_kind,
+        penalty_value,
+        min_size,
+        residual,
+        least_factor,
+        stats,
+    )
+    last = np.empty(m + 1, dtype=np.int64)
+    if state == 2:
+        _pelt(
+            code,
+            n_stats,
+            stats,
+            m,
+            beta,
+            length_term,
+            use_length_term,
+            min_size,
+            np.empty(m + 1),
+            last,
+            np.empty(m + 1),
+            np.empty((MAX_STATS, m + 1)),
+            np.empty(m + 1),
+            np.empty(m + 1),
+            np.empty(m + 1),
+            np.empty((_BOX_ROWS, m + 1)),
+        )
+    _row_end(
+        r, y, p, m, state, stats, beta, length_term, use_length_term, last, offsets, code, min_size, max_changes,
+        out_first, out_last, out_mean, out_slope, counts, row_ok, residual,
+    )  # fmt: skip
 
 
 @njit(cache=True, error_model="numpy")
@@ -2352,29 +2432,115 @@ def _segment_rows(
     residual,
     least_factor,
 ) -> None:
-    """Segment every row (see :func:`_segment_row`)."""
-    for r in range(len(offsets) - 1):
-        _segment_row(
-            r,
-            values,
-            offsets,
-            valid,
-            code,
-            n_stats,
-            params_per_change,
-            penalty_kind,
-            penalty_value,
-            min_size,
-            max_changes,
-            out_first,
-            out_last,
-            out_mean,
-            out_slope,
-            counts,
-            row_ok,
-            residual,
-            least_factor,
-        )
+    """Segment every row (see :func:`_segment_row`).
+
+    For 'mean', the rows with the same number of present values are searched ``LANES`` at a time
+    (:func:`_segment_group`), the rest one by one; the answers are the same either way.
+    """
+    n_rows = len(offsets) - 1
+    present = np.zeros(n_rows, dtype=np.int64)
+    for r in range(n_rows):
+        if valid[r]:
+            for i in range(offsets[r], offsets[r + 1]):
+                present[r] += not np.isnan(values[i])
+    order = np.argsort(present, kind="mergesort")
+    first = 0
+    while first < n_rows:
+        m = present[order[first]]
+        stop = first + 1
+        while stop < n_rows and present[order[stop]] == m:
+            stop += 1
+        if code == MEAN and stop - first >= LANES:
+            _segment_group(
+                order[first:stop], m, values, offsets, valid, params_per_change, penalty_kind, penalty_value,
+                min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual, least_factor,
+            )  # fmt: skip
+        else:
+            for i in range(first, stop):
+                _segment_row(
+                    order[i], values, offsets, valid, code, n_stats, params_per_change, penalty_kind, penalty_value,
+                    min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual,
+                    least_factor,
+                )  # fmt: skip
+        first = stop
+
+
+@njit(cache=True, error_model="numpy")
+def _segment_group(
+    rows,
+    m,
+    values,
+    offsets,
+    valid,
+    params_per_change,
+    penalty_kind,
+    penalty_value,
+    min_size,
+    max_changes,
+    out_first,
+    out_last,
+    out_mean,
+    out_slope,
+    counts,
+    row_ok,
+    residual,
+    least_factor,
+) -> None:
+    """Segment ``rows`` ('mean', ``m`` present values each) as :func:`_segment_row` does, searched ``LANES`` at a time.
+
+    Each row is prepared by itself; every ``LANES`` rows that need a search are searched together
+    (:func:`_fpop_lanes`), then each writes its own answer. The rows left over are searched one by one.
+    """
+    stats = np.empty((LANES, MAX_STATS, m + 1))
+    ys = np.empty((LANES, m))
+    ps = np.empty((LANES, m), dtype=np.int64)
+    betas = np.empty(LANES)
+    terms = np.empty((LANES, m + 1))
+    members = np.empty(LANES, dtype=np.int64)
+    F = np.empty((LANES, m + 1))
+    last = np.empty((LANES, m + 1), dtype=np.int64)
+    use_length_term = penalty_kind == _MBIC
+    filled = 0
+    i = 0
+    while True:
+        done = i == len(rows)
+        if not done:
+            r = rows[i]
+            i += 1
+            y, p, _, beta, length_term, _, state = _row_start(
+                r, values, offsets, valid, MEAN, params_per_change, penalty_kind, penalty_value, min_size, residual,
+                least_factor, stats[filled],
+            )  # fmt: skip
+            if state != 2:
+                _row_end(
+                    r, y, p, m, state, stats[filled], beta, length_term, use_length_term, last[filled], offsets, MEAN,
+                    min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual,
+                )  # fmt: skip
+                continue
+            ys[filled] = y[:m]
+            ps[filled] = p[:m]
+            betas[filled] = beta
+            terms[filled] = length_term
+            members[filled] = r
+            filled += 1
+            if filled < LANES:
+                continue
+            _fpop_lanes(stats, m, betas, terms, use_length_term, min_size, F, last)
+        else:  # the rows left over
+            for k in range(filled):
+                _pelt(
+                    MEAN, 2, stats[k], m, betas[k], terms[k], use_length_term, min_size, F[k], last[k],
+                    np.empty(m + 1), np.empty((MAX_STATS, m + 1)), np.empty(m + 1), np.empty(m + 1),
+                    np.empty(m + 1), np.empty((_BOX_ROWS, m + 1)),
+                )  # fmt: skip
+        for k in range(filled):
+            _row_end(
+                members[k], ys[k], ps[k], m, 2, stats[k], betas[k], terms[k], use_length_term, last[k], offsets,
+                MEAN, min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual,
+            )  # fmt: skip
+        filled = 0
+        if done:
+            return
 
 
 # --------------------------------------------------------------------------- public
