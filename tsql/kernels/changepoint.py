@@ -26,7 +26,9 @@ it loads.
 
 Rows are independent: each row is read, segmented and written by itself, into
 output slots fixed by its position, so an answer depends neither on the other
-rows nor on the threads. The compiled search releases the GIL: DuckDB's threads
+rows nor on the threads ('mean' searches rows with the same number of present
+values together, one per vector lane, each lane doing exactly what the search
+of its row alone does: :func:`_fpop_lanes`). The compiled search releases the GIL: DuckDB's threads
 segment their batches at once.
 """
 
@@ -611,8 +613,9 @@ def _fpop(stats, m, beta, length_term, use_length_term, min_size, F, last, start
     The slots hold only the starts still kept, in order: one pass per step
     narrows them by the newest start, moves the kept ones down over the retired,
     and costs them at ``t`` (the least total, the earliest start among equal ones).
-    About seven starts are costed per step on white noise: too few for vectors (a
-    vectorised narrowing pass followed by an in-order merge measured 1.4x slower).
+    About seven starts are costed per step on white noise: too few for vectors within
+    a row (a vectorised narrowing pass followed by an in-order merge measured 1.4x
+    slower); :func:`_fpop_lanes` runs this search on several rows at once instead.
     """
     c1 = cand[0]
     c2 = cand[1]
@@ -775,6 +778,11 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
     ``_COMPACT_EVERY`` admitted steps the lanes are compacted in order. Lanes keep different
     numbers of starts; the pass runs to the largest, the others' extra slots marked retired.
     The one division :func:`_fpop` looks up (``1 / length``) is divided here, the same value.
+
+    References
+    ----------
+    .. [1] R. Maidstone, T. Hocking, G. Rigaill and P. Fearnhead, "On optimal multiple changepoint
+       algorithms for large data", Statistics and Computing 27:519-533, 2017.
     """
     lanes = F.shape[0]  # LANES, read at run time: a constant trip count is unrolled, not vectorised
     cap = 64
