@@ -737,6 +737,10 @@ def _fpop(stats, m, beta, length_term, use_length_term, min_size, F, last, start
 #: rows searched at once by :func:`_fpop_lanes`, one per vector lane (8 doubles: one AVX-512 register)
 LANES = 8
 
+#: most present values of a row searched in lanes: a group holds its rows' arrays all at once (about 56
+#: bytes per value each), a longer row is searched by itself (where a row's fixed costs matter little)
+LANE_POINTS = 100_000
+
 #: admitted steps between compactions of the lanes' slots (retired starts are masked until then)
 _COMPACT_EVERY = 4
 
@@ -2442,8 +2446,9 @@ def _segment_rows(
 ) -> None:
     """Segment every row (see :func:`_segment_row`).
 
-    For 'mean', the rows with the same number of present values are searched ``LANES`` at a time
-    (:func:`_segment_group`), the rest one by one; the answers are the same either way.
+    For 'mean', the rows with the same number of present values (at most ``LANE_POINTS``) are
+    searched ``LANES`` at a time (:func:`_segment_group`), the rest one by one; the answers are the
+    same either way.
     """
     n_rows = len(offsets) - 1
     present = np.zeros(n_rows, dtype=np.int64)
@@ -2458,7 +2463,7 @@ def _segment_rows(
         stop = first + 1
         while stop < n_rows and present[order[stop]] == m:
             stop += 1
-        if code == MEAN and stop - first >= LANES:
+        if code == MEAN and stop - first >= LANES and m <= LANE_POINTS:
             _segment_group(
                 order[first:stop], m, values, offsets, valid, params_per_change, penalty_kind, penalty_value,
                 min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual, least_factor,
