@@ -929,7 +929,8 @@ def _compact_lanes(slots, n, lanes) -> int:
     """Move each lane's kept starts down over its retired ones, in order; the slots the lanes now use.
 
     A lane's slots past its own kept ones, up to the most any lane keeps, are marked retired
-    (``F(s)`` infinite, start 0: every later cut of theirs is off and reads only defined slots).
+    (``F(s)`` infinite: every later cut of theirs is off; the rest of such a slot is what an
+    earlier start left there, finite, so its arithmetic reads only defined values).
     """
     most = 0
     for w in range(lanes):
@@ -941,8 +942,6 @@ def _compact_lanes(slots, n, lanes) -> int:
                         slots[_at(kept, field, w)] = slots[_at(j, field, w)]
                 kept += 1
         for j in range(kept, n):
-            for field in range(_SLOT_FIELDS):
-                slots[_at(j, field, w)] = 0.0
             slots[_at(j, _F_START, w)] = np.inf
         most = max(most, kept)
     return most
