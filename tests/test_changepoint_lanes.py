@@ -127,3 +127,26 @@ def test_a_batch_segments_each_row_as_it_does_alone():
             alone = segments(Ragged.from_list([x]), "mean", penalty, 2, "none").row(0)
             for field, values in together.row(i).items():
                 np.testing.assert_array_equal(alone[field], values, err_msg=f"row {i}, {field}")
+
+
+@pytest.mark.parametrize("min_size", [1, 2, 3])
+def test_lanes_break_exact_ties_as_the_search_of_one_row(min_size):
+    # piecewise constant integer values with no penalty: every start inside a block totals exactly
+    # what the block's first start totals (the sums are exact integers, each block costs exactly 0),
+    # so the answer rests on the tie-break (the earliest start among equal totals)
+    rng = np.random.default_rng(17)
+    m = 120
+    stats = np.zeros((LANES, changepoint.MAX_STATS, m + 1))
+    for w in range(LANES):
+        z = np.repeat(rng.integers(-2, 3, m), rng.integers(1, 9, m))[:m].astype(float)
+        stats[w, 0, 1:] = np.cumsum(z)
+        stats[w, 1, 1:] = np.cumsum(z * z)
+    beta = np.zeros(LANES)
+    length_term = np.zeros((LANES, m + 1))
+    F, last = row_by_row(stats, m, beta, length_term, False, min_size)
+    F_lanes = np.empty((LANES, m + 1))
+    last_lanes = np.empty((LANES, m + 1), dtype=np.int64)
+    changepoint._fpop_lanes(stats, m, beta, length_term, False, min_size, F_lanes, last_lanes)
+    for w in range(LANES):
+        assert F_lanes[w].tobytes() == F[w].tobytes(), w
+        np.testing.assert_array_equal(last_lanes[w], last[w], err_msg=f"lane {w}")
