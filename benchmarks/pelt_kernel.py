@@ -33,7 +33,10 @@
 7. With ``--against FILE`` (a copy of ``tsql/kernels/changepoint.py`` from another revision, e.g.
    ``git show main:tsql/kernels/changepoint.py > FILE``): 'meanvar' and 'trend' on part 4's series at
    each ``--against-lengths`` length, that copy's change_points against this one's in turns (same
-   answer checked), CPU seconds of this process, medians.
+   answer checked), CPU seconds of this process, medians; first 'mean' (the defaults) on
+   ``--profile-rows`` rows of 1,000 points of :func:`benchmarks.data.seasonal` and of white noise: one
+   segmentation pass (``_run``, with residuals) in microseconds per row, and the whole change_points
+   call, each copy in turns (same answers checked), CPU time, medians.
 
 All figures are medians of wall-clock times measured in this one run.
 """
@@ -185,8 +188,37 @@ def calm(n: int, longer: list[int], repeat: int, old_repeat: int) -> None:
             )
 
 
-def against(path: str, lengths: list[int], repeat: int) -> None:
+def against_mean(other, rows: int, repeat: int) -> None:
+    from benchmarks.data import seasonal
+
+    print(f"7. 'mean', BIC, {rows:,} rows of 1,000 points, the copy against this tree (CPU time, medians of {repeat})")
+    noise = np.random.default_rng(9).standard_normal((rows, 1000))
+    for label, values in (("seasonal", seasonal(rows, 1000)), ("white noise", noise)):
+        batch = Ragged.from_list(list(values))
+        modules = {"other": other, "this": changepoint}
+        same = np.array_equal(other.change_points(batch).values, changepoint.change_points(batch).values)
+        for step in ("_run", "change_points"):
+            cpu = {name: [] for name in modules}
+            for _ in range(repeat):
+                for name, module in modules.items():
+                    spec = module.MODELS["mean"]
+                    start = time.process_time()
+                    if step == "_run":
+                        module._run(batch, spec, module._BIC, 0.0, 2, None, True)
+                    else:
+                        module.change_points(batch)
+                    cpu[name].append(time.process_time() - start)
+            before, after = statistics.median(cpu["other"]), statistics.median(cpu["this"])
+            scale, unit = (1e6 / rows, "us/row") if step == "_run" else (1.0, "s")
+            print(
+                f"   {label:<12} {step:<14} other {before * scale:8.3f} {unit}   this {after * scale:8.3f} {unit}"
+                f"   ratio {before / after:5.2f}   same answers {same}"
+            )
+
+
+def against(path: str, lengths: list[int], repeat: int, rows: int) -> None:
     other = load_module(path, "changepoint_against")
+    against_mean(other, rows, repeat)
     print(f"7. 'meanvar' and 'trend', one level shift (1 sigma) in the middle, BIC: {path} against this tree")
     for n in lengths:
         rng = np.random.default_rng(1)
@@ -335,7 +367,7 @@ def main() -> None:
     if "6" in parts:
         mean_search(args.search_rows, args.repeat)
     if args.against:
-        against(args.against, [int(v) for v in args.against_lengths.split(",") if v], args.repeat)
+        against(args.against, [int(v) for v in args.against_lengths.split(",") if v], args.repeat, args.profile_rows)
 
 
 if __name__ == "__main__":
