@@ -28,8 +28,8 @@ Rows are independent: each row is read, segmented and written by itself, into
 output slots fixed by its position, so an answer depends neither on the other
 rows nor on the threads ('mean' searches rows with the same number of present
 values together, one per vector lane, each lane doing exactly what the search
-of its row alone does: :func:`_fpop_lanes`). The compiled search releases the GIL: DuckDB's threads
-segment their batches at once.
+of its row alone does: :func:`_fpop_lanes`). The compiled search releases the
+GIL: DuckDB's threads segment their batches at once.
 """
 
 from __future__ import annotations
