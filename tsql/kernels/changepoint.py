@@ -2464,8 +2464,9 @@ def _segment_rows(
             stop += 1
         if code == MEAN and stop - first >= LANES and m <= LANE_POINTS:
             _segment_group(
-                order[first:stop], m, values, offsets, valid, params_per_change, penalty_kind, penalty_value,
-                min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual, least_factor,
+                order[first:stop], m, values, offsets, valid, code, n_stats, params_per_change, penalty_kind,
+                penalty_value, min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok,
+                residual, least_factor,
             )  # fmt: skip
         else:
             for i in range(first, stop):
@@ -2484,6 +2485,8 @@ def _segment_group(
     values,
     offsets,
     valid,
+    code,
+    n_stats,
     params_per_change,
     penalty_kind,
     penalty_value,
@@ -2498,7 +2501,7 @@ def _segment_group(
     residual,
     least_factor,
 ) -> None:
-    """Segment ``rows`` ('mean', ``m`` present values each) as :func:`_segment_row` does, searched ``LANES`` at a time.
+    """Segment ``rows`` (``code`` 'mean', ``m`` present values each) as :func:`_segment_row` does, ``LANES`` at a time.
 
     Each row is prepared by itself; every ``LANES`` rows that need a search are searched together
     (:func:`_fpop_lanes`), then each writes its own answer. The rows left over are searched one by one.
@@ -2512,6 +2515,7 @@ def _segment_group(
     F = np.empty((LANES, m + 1))
     last = np.empty((LANES, m + 1), dtype=np.int64)
     use_length_term = penalty_kind == _MBIC
+    searched = np.int64(2)  # the state of a row that is searched (see _row_start); not a literal: one compile
     filled = 0
     i = 0
     while True:
@@ -2520,12 +2524,12 @@ def _segment_group(
             r = rows[i]
             i += 1
             y, p, _, beta, length_term, _, state = _row_start(
-                r, values, offsets, valid, MEAN, params_per_change, penalty_kind, penalty_value, min_size, residual,
+                r, values, offsets, valid, code, params_per_change, penalty_kind, penalty_value, min_size, residual,
                 least_factor, stats[filled],
             )  # fmt: skip
-            if state != 2:
+            if state != searched:
                 _row_end(
-                    r, y, p, m, state, stats[filled], beta, length_term, use_length_term, last[filled], offsets, MEAN,
+                    r, y, p, m, state, stats[filled], beta, length_term, use_length_term, last[filled], offsets, code,
                     min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual,
                 )  # fmt: skip
                 continue
@@ -2541,14 +2545,14 @@ def _segment_group(
         else:  # the rows left over
             for k in range(filled):
                 _pelt(
-                    MEAN, 2, stats[k], m, betas[k], terms[k], use_length_term, min_size, F[k], last[k],
+                    code, n_stats, stats[k], m, betas[k], terms[k], use_length_term, min_size, F[k], last[k],
                     np.empty(m + 1), np.empty((MAX_STATS, m + 1)), np.empty(m + 1), np.empty(m + 1),
                     np.empty(m + 1), np.empty((_BOX_ROWS, m + 1)),
                 )  # fmt: skip
         for k in range(filled):
             _row_end(
-                members[k], ys[k], ps[k], m, 2, stats[k], betas[k], terms[k], use_length_term, last[k], offsets,
-                MEAN, min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual,
+                members[k], ys[k], ps[k], m, searched, stats[k], betas[k], terms[k], use_length_term, last[k], offsets,
+                code, min_size, max_changes, out_first, out_last, out_mean, out_slope, counts, row_ok, residual,
             )  # fmt: skip
         filled = 0
         if done:
