@@ -800,7 +800,7 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
         for t in range(1, min_size):
             F[w, t] = np.inf
             last[w, t] = 0
-        lane[_of(_TERM0, w)] = length_term[w, min_size]
+        lane[_of(_TERM0, w)] = length_term[w, min_size] if use_length_term else -0.0
     n = 0
     due = _COMPACT_EVERY
     for t in range(min_size, m + 1):
@@ -825,7 +825,10 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
             for j in range(n):
                 for w in range(lanes):
                     slots[_at(j, _TERM, w)] = length_term[w, t - int(slots[_at(j, _START, w)])]
-        _lanes_pass(slots, lane, n, lanes, tf, cf, admit, use_length_term)
+        if admit:
+            _lanes_pass(slots, lane, n, lanes, tf, cf)
+        else:
+            _lanes_costs(slots, lane, n, lanes, tf)
         if admit:
             if n == cap:
                 cap *= 2
@@ -844,6 +847,7 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
                 slots[_at(n, _HIGH, w)] = np.inf
                 slots[_at(n, _OUT_LO, w)] = lane[_of(_EX_LO, w)]
                 slots[_at(n, _OUT_HI, w)] = lane[_of(_EX_HI, w)]
+                slots[_at(n, _TERM, w)] = -0.0  # the length term while unused (see _lanes_pass)
                 value = _cost_mean_one(lane[_of(_A1, w)], lane[_of(_A2, w)], tf, f_c, cf, ca1, ca2)
                 if use_length_term:
                     value += length_term[w, t - c]
@@ -861,67 +865,81 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
 
 
 @njit(cache=True, error_model="numpy")
-def _lanes_pass(slots, lane, n, lanes, tf, cf, admit, use_length_term) -> None:
-    """One step of :func:`_fpop_lanes` over slots ``0..n-1`` of every lane: :func:`_fpop`'s pass, with selects."""
+def _lanes_pass(slots, lane, n, lanes, tf, cf) -> None:
+    """A pruning step of :func:`_fpop_lanes` over slots ``0..n-1`` of every lane: :func:`_fpop`'s pass, with selects.
+
+    The length term is added whether or not it is in use: unused, it is -0.0, which leaves every
+    sum as it is (``x + -0.0 == x``, and ``x - 0.0 == x``, for every ``x``, signed zeros included).
+    """
     for j in range(n):
         for w in range(lanes):
             fs = slots[_at(j, _F_START, w)]
             sj = slots[_at(j, _START, w)]
             s1_j = slots[_at(j, _C1, w)]
             s2_j = slots[_at(j, _C2, w)]
-            keep = fs < np.inf  # not retired
-            if admit:
-                length = cf - sj
-                inv = 1.0 / length
-                s1 = lane[_of(_CA1, w)] - s1_j
-                mean = s1 * inv
-                gap = lane[_of(_FC, w)] - fs - ((lane[_of(_CA2, w)] - s2_j) - s1 * mean)
-                margin = lane[_of(_BASE, w)] + _PRUNE_MARGIN * abs(fs)
-                room = gap + margin
-                half = math.sqrt((0.0 if 0.0 > room else room) * inv)
-                low = mean - half
-                old = slots[_at(j, _LOW, w)]
-                low = low if low > old else old
-                high = mean + half
-                old = slots[_at(j, _HIGH, w)]
-                high = high if high < old else old
-                out_lo = slots[_at(j, _OUT_LO, w)]
-                out_hi = slots[_at(j, _OUT_HI, w)]
-                below = out_lo < low
-                above = out_hi > high
-                low_cut = out_hi if out_hi > low else low
-                high_cut = out_lo if out_lo < high else high
-                low = np.inf if below & above else (low_cut if below else low)
-                high = high_cut if above & (not below) else high
-                keep = keep & (room >= 0.0) & (low <= high)
-                slots[_at(j, _LOW, w)] = low
-                slots[_at(j, _HIGH, w)] = high
-                slots[_at(j, _F_START, w)] = fs if keep else np.inf
-                shut = gap - margin
-                if use_length_term:
-                    shut -= slots[_at(j, _TERM, w)] - lane[_of(_TERM0, w)]
-                half = math.sqrt((0.0 if 0.0 > shut else shut) * inv)
-                e_lo = mean - half
-                e_hi = mean + half
-                excl_lo = lane[_of(_EX_LO, w)]
-                excl_hi = lane[_of(_EX_HI, w)]
-                excl_gap = lane[_of(_EX_GAP, w)]
-                shut_out = shut > 0.0
-                merge = shut_out & (e_lo < excl_hi) & (e_hi > excl_lo)
-                take = shut_out & (not merge) & (shut > excl_gap)
-                merged_lo = e_lo if e_lo < excl_lo else excl_lo
-                merged_hi = e_hi if e_hi > excl_hi else excl_hi
-                merged_gap = shut if shut > excl_gap else excl_gap
-                lane[_of(_EX_LO, w)] = merged_lo if merge else (e_lo if take else excl_lo)
-                lane[_of(_EX_HI, w)] = merged_hi if merge else (e_hi if take else excl_hi)
-                lane[_of(_EX_GAP, w)] = merged_gap if merge else (shut if take else excl_gap)
-            value = _cost_mean_one(lane[_of(_A1, w)], lane[_of(_A2, w)], tf, fs, sj, s1_j, s2_j)
-            if use_length_term:
-                value += slots[_at(j, _TERM, w)]
+            term = slots[_at(j, _TERM, w)]
+            length = cf - sj
+            inv = 1.0 / length
+            s1 = lane[_of(_CA1, w)] - s1_j
+            mean = s1 * inv
+            gap = lane[_of(_FC, w)] - fs - ((lane[_of(_CA2, w)] - s2_j) - s1 * mean)
+            margin = lane[_of(_BASE, w)] + _PRUNE_MARGIN * abs(fs)
+            room = gap + margin
+            half = math.sqrt((0.0 if 0.0 > room else room) * inv)
+            low = mean - half
+            old = slots[_at(j, _LOW, w)]
+            low = low if low > old else old
+            high = mean + half
+            old = slots[_at(j, _HIGH, w)]
+            high = high if high < old else old
+            out_lo = slots[_at(j, _OUT_LO, w)]
+            out_hi = slots[_at(j, _OUT_HI, w)]
+            below = out_lo < low
+            above = out_hi > high
+            low_cut = out_hi if out_hi > low else low
+            high_cut = out_lo if out_lo < high else high
+            low = np.inf if below & above else (low_cut if below else low)
+            high = high_cut if above & (not below) else high
+            keep = (fs < np.inf) & (room >= 0.0) & (low <= high)  # a retired start's F(s) is infinite
+            slots[_at(j, _LOW, w)] = low
+            slots[_at(j, _HIGH, w)] = high
+            slots[_at(j, _F_START, w)] = fs if keep else np.inf
+            shut = (gap - margin) - (term - lane[_of(_TERM0, w)])
+            half = math.sqrt((0.0 if 0.0 > shut else shut) * inv)
+            e_lo = mean - half
+            e_hi = mean + half
+            excl_lo = lane[_of(_EX_LO, w)]
+            excl_hi = lane[_of(_EX_HI, w)]
+            excl_gap = lane[_of(_EX_GAP, w)]
+            shut_out = shut > 0.0
+            merge = shut_out & (e_lo < excl_hi) & (e_hi > excl_lo)
+            take = shut_out & (not merge) & (shut > excl_gap)
+            merged_lo = e_lo if e_lo < excl_lo else excl_lo
+            merged_hi = e_hi if e_hi > excl_hi else excl_hi
+            merged_gap = shut if shut > excl_gap else excl_gap
+            lane[_of(_EX_LO, w)] = merged_lo if merge else (e_lo if take else excl_lo)
+            lane[_of(_EX_HI, w)] = merged_hi if merge else (e_hi if take else excl_hi)
+            lane[_of(_EX_GAP, w)] = merged_gap if merge else (shut if take else excl_gap)
+            value = _cost_mean_one(lane[_of(_A1, w)], lane[_of(_A2, w)], tf, fs, sj, s1_j, s2_j) + term
             best = lane[_of(_BEST, w)]
             lower = keep & (value < best)
             lane[_of(_BEST, w)] = value if lower else best
             lane[_of(_BEST_START, w)] = sj if lower else lane[_of(_BEST_START, w)]
+
+
+@njit(cache=True, error_model="numpy")
+def _lanes_costs(slots, lane, n, lanes, tf) -> None:
+    """A step of :func:`_fpop_lanes` before pruning begins (``t < 2 min_size``): every start costed, none retired."""
+    for j in range(n):
+        for w in range(lanes):
+            sj = slots[_at(j, _START, w)]
+            value = _cost_mean_one(
+                lane[_of(_A1, w)], lane[_of(_A2, w)], tf, slots[_at(j, _F_START, w)], sj,
+                slots[_at(j, _C1, w)], slots[_at(j, _C2, w)],
+            ) + slots[_at(j, _TERM, w)]  # fmt: skip
+            if value < lane[_of(_BEST, w)]:
+                lane[_of(_BEST, w)] = value
+                lane[_of(_BEST_START, w)] = sj
 
 
 @njit(cache=True, error_model="numpy")
