@@ -22,6 +22,7 @@ import statsmodels.datasets
 
 from tsql.kernels import changepoint, periodicity, trend
 from tsql.kernels.correlation import ljung_box
+from tsql.kernels.normal_equations import cholesky, solve
 from tsql.kernels.periodicity import fisher_g_pvalue, spectral_entropy
 from tsql.kernels.ragged import Ragged
 
@@ -278,3 +279,83 @@ def test_diagonal_cross_products_equal_their_sums_one_by_one():
                 for k in range(m):
                     acc += cols[a0 + i, k] * cols[8, k]
                 assert four[i] == acc
+
+
+def plain_cycle_fit(residual: np.ndarray, period: float) -> np.ndarray:
+    """The fit _subtract_cycle removes, as the plain procedure: the harmonics turned position by position
+    (evaluated every _RESYNC-th), each cross product a loop of its own, each position's fit summed in order."""
+    n = len(residual)
+    h = changepoint._harmonics(period)
+    w = 2.0 * np.pi / period
+    turn_c, turn_s = math.cos(w), math.sin(w)
+    columns, norms = [], [0.0] * h
+    c, s = 1.0, 0.0
+    for t in range(n):
+        c, s = changepoint._turn(t, w, c, s, turn_c, turn_s, False)
+        cj, sj, row = c, s, []
+        for j in range(h):
+            row.append((j, cj, sj))
+            norms[j] += sj * sj
+            cj, sj = cj * c - sj * s, sj * c + cj * s
+        if not np.isnan(residual[t]):
+            columns.append([cj for _, cj, _ in row] + [sj for _, _, sj in row])
+    x = np.array(columns).reshape(-1, 2 * h)
+    r = residual[~np.isnan(residual)]
+    gram, rhs = np.zeros((2 * h, 2 * h)), np.zeros(2 * h)
+    for a in range(2 * h):
+        rhs[a] = sum_in_order(x[:, a] * r)
+        for b in range(a + 1):
+            gram[a, b] = sum_in_order(x[:, a] * x[:, b])
+    for a in range(h, 2 * h):
+        if not math.sqrt(norms[a - h]) > 1e-6 * math.sqrt(n):
+            gram[a, :] = gram[:, a] = 0.0
+    coef = solve(cholesky(gram, 1e-12)[0], rhs)
+    fit = np.full(n, np.nan)
+    fit[~np.isnan(residual)] = [sum_in_order(coef * row) for row in x]
+    return fit
+
+
+def sum_in_order(terms: np.ndarray) -> float:
+    total = 0.0
+    for term in terms:
+        total += term
+    return total
+
+
+def test_cycle_fit_equals_the_plain_procedure():
+    # monthly CO2 (statsmodels' Mauna Loa weekly record, its gaps kept) and seeded noise with a cycle and gaps,
+    # over periods at and near Nyquist, short, long, and with more harmonics than the fit takes
+    co2 = statsmodels.datasets.co2.load_pandas().data["co2"].to_numpy(float)[:400]
+    rng = np.random.default_rng(5)
+    k = np.arange(300)
+    noisy = 2 * np.sin(2 * np.pi * k / 12.2) + rng.standard_normal(300)
+    noisy[rng.random(300) < 0.2] = np.nan
+    for y in (co2 - np.nanmean(co2), noisy, noisy[:23]):
+        for period in (2.0, 2.5, 3.0, 7.0, 12.0, 52.18, len(y) / 4.0):
+            out = np.where(np.isnan(y), np.nan, 0.0)
+            changepoint._subtract_cycle(y, period, out, np.empty(len(y) * (2 * changepoint.MAX_HARMONICS + 2)))
+            want = plain_cycle_fit(y, period)
+            assert np.array_equal(out, 0.0 - want, equal_nan=True)
+
+
+def test_cycle_test_below_a_level_equals_the_full_test():
+    # statsmodels' datasets (sunspots, monthly CO2 with its gaps, El Nino), random walks (significant against
+    # white noise alone, not against red) and seeded white noise, cycles and near-Nyquist cycles
+    sunspots = statsmodels.datasets.sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(float)
+    co2 = statsmodels.datasets.co2.load_pandas().data["co2"].to_numpy(float)
+    elnino = statsmodels.datasets.elnino.load_pandas().data.iloc[:, 1:].to_numpy(float).ravel()
+    rng = np.random.default_rng(3)
+    rows = [sunspots, co2[:600], elnino]
+    rows += [np.cumsum(rng.standard_normal(n)) for n in (50, 200, 200, 500, 1000)]
+    rows += [rng.standard_normal(n) for n in (8, 30, 200, 1000)]
+    cycles = ((48, 12), (200, 2.2), (500, 30))
+    rows += [np.sin(2 * np.pi * np.arange(n) / p) + rng.standard_normal(n) for n, p in cycles]
+    batch = Ragged.from_list(rows)
+    full = periodicity.cycle_test(batch)
+    for level in (0.01, 1e-6):
+        found = periodicity.cycle_test(batch, below=level)
+        reached = full["p_value"] < level
+        assert 0 < reached.sum() < len(rows)
+        for key in ("period", "p_value"):
+            assert np.array_equal(found[key][reached], full[key][reached])
+            assert np.isnan(found[key][~reached]).all()

@@ -310,7 +310,7 @@ class Group:
         self.blocks = self.height + (self.tail is not None)
 
 
-def cycle_test(batch: Ragged) -> dict[str, np.ndarray]:
+def cycle_test(batch: Ragged, below: float | None = None) -> dict[str, np.ndarray]:
     """:func:`seasonality`'s period and p-value with its defaults, bit for bit, without the strength.
 
     What :func:`~tsql.kernels.changepoint.change_points` needs to decide on a cycle to remove: the
@@ -320,6 +320,9 @@ def cycle_test(batch: Ragged) -> dict[str, np.ndarray]:
     ----------
     batch : Ragged
         The series, one per row; NaN elements are missing.
+    below : float or None
+        A level: a row whose p-value against the white background alone is not below it (so
+        neither is its p-value) gets NaN for both, without the red test or the refinement.
 
     Returns
     -------
@@ -332,11 +335,16 @@ def cycle_test(batch: Ragged) -> dict[str, np.ndarray]:
     >>> bool(cycle_test(b)["period"][0] == seasonality(b)["period"][0])
     True
     """
-    return _analyse(batch, 2.0, None, stats=True, strength=False)
+    return _analyse(batch, 2.0, None, stats=True, strength=False, below=below)
 
 
 def _analyse(
-    batch: Ragged, min_period: float, max_period: float | None, stats: bool, strength: bool = True
+    batch: Ragged,
+    min_period: float,
+    max_period: float | None,
+    stats: bool,
+    strength: bool = True,
+    below: float | None = None,
 ) -> dict[str, np.ndarray]:
     keys = (("period", "strength", "p_value") if strength else ("period", "p_value")) if stats else ("period",)
     result = {key: full(batch.n_rows) for key in keys}
@@ -365,7 +373,7 @@ def _analyse(
             if len(sub_rows) == 0:
                 continue
             with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-                found = _spectral_peak(sub, gaps, bins, stats)
+                found = _spectral_peak(sub, gaps, bins, stats, below)
             if found is None:
                 continue
             answer, resid, present, k, near_bins, row_tss, row_p = found
@@ -411,11 +419,14 @@ def allowed_bins(n: int, min_period: float, max_period: float | None) -> np.ndar
     return k[ok]
 
 
-def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool) -> tuple[np.ndarray, ...] | None:
+def _spectral_peak(
+    matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool, below: float | None = None
+) -> tuple[np.ndarray, ...] | None:
     """Detrend rows of one length, take the periodogram and its peak among ``bins``.
 
     Returns ``(answerable rows mask, residuals, present mask, peak bin k, the DFT at bins
-    k - 1, k, k + 1, TSS, p-value)`` for the answerable rows, or None if there are none.
+    k - 1, k, k + 1, TSS, p-value)`` for the answerable rows, or None if there are none; with
+    ``below``, only rows whose p-value is below it are answerable (see :func:`cycle_test`).
     """
     n = matrix.shape[1]
     present = ~np.isnan(matrix) if gaps else None
@@ -453,11 +464,21 @@ def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool
             if present is not None:
                 filled = np.fft.rfft(fill_gaps(resid, present), axis=1)
                 test_power = filled.real**2 + filled.imag**2
-            p_value = cycle_p_value(test_power, n, k, tested)
+            p_value = cycle_p_value(test_power, n, k, tested, below)
+        if below is not None:
+            kept = p_value < below
+            if not kept.any():
+                return None
+            if not kept.all():
+                answer[answer] = kept
+                resid, k, near_bins, tss, p_value = resid[kept], k[kept], near_bins[kept], tss[kept], p_value[kept]
+                present = None if present is None else present[kept]
     return answer, resid, present, k, near_bins, tss, p_value
 
 
-def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarray) -> np.ndarray:
+def cycle_p_value(
+    power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarray, below: float | None = None
+) -> np.ndarray:
     """p-value of the periodogram ordinate at ``peak``: Fisher's g against a white and against a red
     background, whichever is larger.
 
@@ -473,7 +494,8 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
     autocorrelation ``sum_k w_k I_k cos(2 pi k / n) / sum_k w_k I_k`` (``w_k`` = 1 at 0 and
     Nyquist, 2 elsewhere), clipped to [-0.999, 0.999], and 0 (white) inside Bartlett's band
     ``+-1.96 / sqrt(n)``. NaN where a sum is 0 or nothing is tested. Why and how it was checked:
-    :func:`seasonality`, Notes.
+    :func:`seasonality`, Notes. With ``below``, a row whose white p-value is not below it gets that
+    p-value (the red test, which could only raise it, is left out).
 
     References
     ----------
@@ -500,7 +522,12 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
         m = tested.sum(axis=1).astype(np.float64)
         at_peak = np.take_along_axis(tested, peak[:, None], axis=1)[:, 0]
     untested = ~tested
-    tested = np.broadcast_to(tested, power.shape)
+    white = np.maximum(0.0, _fisher_at(np.where(tested, power, 0.0), peak, at_peak, m))  # NaN stays NaN
+    p_value = np.where(m > 0, white, np.nan)
+    red = slice(None) if below is None else np.flatnonzero(white < below)
+    if below is not None:
+        power, peak, at_peak, m = power[red], peak[red], at_peak[red], m[red]
+        untested = untested if untested.ndim == 1 else untested[red]
     cos = np.cos(2.0 * np.pi * np.arange(width) / n)
     weight = np.full(width, 2.0)
     weight[0] = 1.0
@@ -512,24 +539,26 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
     with np.errstate(invalid="ignore", divide="ignore"):
         phi = np.clip(weighted.sum(axis=1) / total, -_MAX_PHI, _MAX_PHI)
     phi = np.where((total > 0) & (np.abs(phi) > _RED_Z / np.sqrt(n)), phi, 0.0)[:, None]
-    p_value = np.zeros(rows)
-    for red in (False, True):
-        if red:  # power * (1 - 2 phi cos + phi^2), in place of the white one (one table less)
-            whitened = np.multiply(2.0 * phi, cos, out=weighted)
-            np.subtract(1.0, whitened, out=whitened)
-            whitened += phi * phi
-            whitened *= power
-            np.copyto(whitened, 0.0, where=untested)
-        else:
-            whitened = np.where(tested, power, 0.0)
-        top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
-        if not at_peak.all():
-            top[~at_peak] = whitened[~at_peak].max(axis=1)
-        denominator = whitened.sum(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            g = np.where(denominator > 0, top / denominator, np.nan)
-        p_value = np.maximum(p_value, fisher_g_pvalue(g, np.maximum(m, 1.0)))  # NaN stays NaN
-    return np.where(m > 0, p_value, np.nan)
+    # power * (1 - 2 phi cos + phi^2), in place of the weighted one (one table less)
+    whitened = np.multiply(2.0 * phi, cos, out=weighted)
+    np.subtract(1.0, whitened, out=whitened)
+    whitened += phi * phi
+    whitened *= power
+    np.copyto(whitened, 0.0, where=untested)
+    p_value[red] = np.where(m > 0, np.maximum(white[red], _fisher_at(whitened, peak, at_peak, m)), np.nan)
+    return p_value
+
+
+def _fisher_at(whitened: np.ndarray, peak: np.ndarray, at_peak: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """Fisher's g p-value of each row's ordinate at ``peak`` (its largest where not ``at_peak``) in ``whitened``,
+    whose untested bins are 0."""
+    top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
+    if not at_peak.all():
+        top[~at_peak] = whitened[~at_peak].max(axis=1)
+    denominator = whitened.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        g = np.where(denominator > 0, top / denominator, np.nan)
+    return fisher_g_pvalue(g, np.maximum(m, 1.0))
 
 
 def fill_gaps(resid: np.ndarray, present: np.ndarray) -> np.ndarray:
