@@ -359,3 +359,75 @@ def test_cycle_test_below_a_level_equals_the_full_test():
         for key in ("period", "p_value"):
             assert np.array_equal(found[key][reached], full[key][reached])
             assert np.isnan(found[key][~reached]).all()
+
+
+def plain_sums(groups: list, omega: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """periodicity.Sums.sums as whole-array numpy steps: the doubled tables of cos and sin, one matrix product
+    per row and block, the blocks turned and summed over by numpy's reduction along the first axis."""
+
+    def powers(theta, count, start=None):
+        cos, sin = np.empty((count, len(theta))), np.empty((count, len(theta)))
+        cos[0], sin[0] = (1.0, 0.0) if start is None else (np.cos(start), np.sin(start))
+        size, power = 1, 1.0
+        while size < count:
+            take = min(size, count - size)
+            turn_c, turn_s = np.cos(theta * power), np.sin(theta * power)
+            cos[size : size + take] = cos[:take] * turn_c - sin[:take] * turn_s
+            sin[size : size + take] = sin[:take] * turn_c + cos[:take] * turn_s
+            size, power = size + take, 2.0 * power
+        return cos, sin
+
+    rows, m = omega.shape
+    n = np.concatenate([np.full(len(g.rows), float(g.n)) for g in groups])
+    width = np.concatenate([np.full(len(g.rows), float(g.width)) for g in groups])
+    most, blocks = max(g.width for g in groups), max(g.blocks for g in groups)
+    flat = omega.ravel()
+    cos_l, sin_l = powers(flat, most)
+    inner = np.stack([cos_l.reshape(most, rows, m), sin_l.reshape(most, rows, m)], axis=-1)
+    inner = np.ascontiguousarray(inner.transpose(1, 0, 2, 3)).reshape(rows, most, 2 * m)
+    partial = np.zeros((rows, blocks, 2 * m))
+    lo = 0
+    for g in groups:
+        hi = lo + len(g.rows)
+        table = inner[lo:hi, : g.width]
+        partial[lo:hi, : g.height] = g.body @ table
+        if g.tail is not None:
+            partial[lo:hi, g.height] = (g.tail @ table[:, : g.tail.shape[2]])[:, 0]
+        lo = hi
+    partial = np.ascontiguousarray(partial.transpose(1, 0, 2)).reshape(blocks, rows, m, 2)
+    cos_h, sin_h = powers(flat * np.repeat(width, m), blocks, -0.5 * (np.repeat(n, m) - 1.0) * flat)
+    cos_h, sin_h = cos_h.reshape(blocks, rows, m), sin_h.reshape(blocks, rows, m)
+    c = (cos_h * partial[..., 0]).sum(axis=0) - (sin_h * partial[..., 1]).sum(axis=0)
+    s = (sin_h * partial[..., 0]).sum(axis=0) + (cos_h * partial[..., 1]).sum(axis=0)
+    return c, s
+
+
+def test_trigonometric_sums_equal_the_whole_array_procedure():
+    # residuals of statsmodels' sunspots and El Nino, and seeded rows of many lengths and magnitudes, in
+    # groups of one length each (one row, several, lengths whose blocks differ) at frequencies up to Nyquist
+    sunspots = statsmodels.datasets.sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(float)
+    elnino = statsmodels.datasets.elnino.load_pandas().data.iloc[:, 1:].to_numpy(float).ravel()
+    rng = np.random.default_rng(8)
+    rows_by_length = [sunspots[None, :300], elnino[None, :], rng.standard_normal((3, 4))]
+    rows_by_length += [
+        rng.standard_normal((k, n)) * 10.0 ** rng.integers(-6, 6, (k, 1)) for k, n in ((5, 17), (2, 1001))
+    ]
+    for chosen in ([0], [1, 2], [0, 3, 4], [4, 2, 1, 3]):
+        groups = []
+        for i in chosen:
+            resid = rows_by_length[i] - rows_by_length[i].mean(axis=1, keepdims=True)
+            groups.append(periodicity.Group(np.arange(len(resid)), resid, None))
+        sums = periodicity.Sums(groups)
+        for m in (3, 6):  # as the callers ask (numpy reduces a single sum, rows * m = 1, pairwise instead)
+            omega = rng.uniform(0.0, np.pi, (len(sums.n), m))
+            got, want = sums.sums(omega), plain_sums(groups, omega)
+            assert got[0].tobytes() == want[0].tobytes() and got[1].tobytes() == want[1].tobytes()
+
+
+def test_dirichlet_sums_from_shared_sines_equal_their_own():
+    rng = np.random.default_rng(2)
+    n = rng.integers(4, 5000, (200, 1)).astype(float)
+    theta = np.concatenate([rng.uniform(0.0, 2 * np.pi, (200, 3)), np.zeros((200, 1)), np.full((200, 1), 1e-12)], 1)
+    d, slope = periodicity._dirichlet_and_slope(theta, n)
+    assert d.tobytes() == periodicity._dirichlet(theta, n).tobytes()
+    assert slope.tobytes() == periodicity._dirichlet_slope(theta, n).tobytes()

@@ -37,6 +37,7 @@ rows are batched.
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
 
 from tsql.kernels.ragged import Ragged, full, in_safe_range
 
@@ -696,36 +697,47 @@ class Sums:
         self.max_blocks = max(group.blocks for group in groups)
 
     def sums(self, omega: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """``sum_t x_t (cos, sin)(omega (t - c))`` for ``omega`` of shape ``(rows, m)``."""
+        """``sum_t x_t (cos, sin)(omega (t - c))`` for ``omega`` of shape ``(rows, m)``, each summed over the
+        blocks in order (the callers' ``m`` is 3 or 6)."""
         n_rows, m = omega.shape
         flat = omega.ravel()
         width, blocks = self.max_width, self.max_blocks
-        cos_l, sin_l = _unit_powers(flat, width)  # (B, rows * m)
-        inner = np.empty((n_rows, width, m, 2))  # per row a (B, 2m) table: cos, sin interleaved
-        inner[..., 0] = cos_l.reshape(width, n_rows, m).transpose(1, 0, 2)
-        inner[..., 1] = sin_l.reshape(width, n_rows, m).transpose(1, 0, 2)
-        inner = inner.reshape(n_rows, width, 2 * m)
-        partial = np.zeros((n_rows, blocks, 2 * m))
+        inner = _unit_powers(flat, width, n_rows).reshape(n_rows, width, 2 * m)  # per row a (B, 2m) table
+        partial = np.empty((n_rows, blocks, 2 * m))
         for i, group in enumerate(self.groups):
             lo, hi = self.bounds[i], self.bounds[i + 1]
             table = inner[lo:hi, : group.width]  # each (B, 2m) matrix C-ordered: one BLAS layout
-            partial[lo:hi, : group.height] = group.body @ table
+            np.matmul(group.body, table, out=partial[lo:hi, : group.height])
             if group.tail is not None:
-                partial[lo:hi, group.height] = (group.tail @ table[:, : group.tail.shape[2]])[:, 0]
-        # (H, rows, m, 2): sum_l x_(h B + l) (cos, sin)(omega l)
-        partial = np.ascontiguousarray(partial.transpose(1, 0, 2)).reshape(blocks, n_rows, m, 2)
-        p_cos, p_sin = partial[..., 0], partial[..., 1]
+                np.matmul(group.tail, table[:, : group.tail.shape[2]], out=partial[lo:hi, group.height : group.blocks])
+            partial[lo:hi, group.blocks :] = 0.0
+        # partial[r, h]: sum_l x_(h B + l) (cos, sin)(omega l); turned by omega (h B - c) and summed over h
         shift = -0.5 * (np.repeat(self.n, m) - 1.0) * flat
-        cos_h, sin_h = _unit_powers(flat * np.repeat(self.width, m), blocks, start=shift)
-        cos_h = cos_h.reshape(blocks, n_rows, m)
-        sin_h = sin_h.reshape(blocks, n_rows, m)
-        # sums over h, in order (rows with fewer blocks add exact zeros)
-        work = np.empty_like(cos_h)
-        c = np.multiply(cos_h, p_cos, out=work).sum(axis=0)
-        c -= np.multiply(sin_h, p_sin, out=work).sum(axis=0)
-        s = np.multiply(sin_h, p_cos, out=work).sum(axis=0)
-        s += np.multiply(cos_h, p_sin, out=work).sum(axis=0)
+        turns = _unit_powers(flat * np.repeat(self.width, m), blocks, n_rows, start=shift)
+        c = np.empty((n_rows, m))
+        s = np.empty((n_rows, m))
+        _block_sums(partial.reshape(n_rows, blocks, m, 2), turns, c, s)
         return c, s
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _block_sums(partial, turns, c, s) -> None:
+    """``c, s[r, q] = sum_h`` of ``partial[r, h, q]`` turned by ``turns[r, h, q]`` (cos, sin pairs): the sum of
+    cos products less that of sin products, and of the cross products, each summed from 0 in order of ``h``
+    (rows with fewer blocks add exact zeros)."""
+    rows, blocks, m, _ = partial.shape
+    for r in range(rows):
+        for q in range(m):
+            cc = ss = sc = cs = 0.0
+            for h in range(blocks):
+                turn_c, turn_s = turns[r, h, q, 0], turns[r, h, q, 1]
+                p_cos, p_sin = partial[r, h, q, 0], partial[r, h, q, 1]
+                cc += turn_c * p_cos
+                ss += turn_s * p_sin
+                sc += turn_s * p_cos
+                cs += turn_c * p_sin
+            c[r, q] = cc - ss
+            s[r, q] = sc + cs
 
 
 def _block_width(n: int) -> int:
@@ -733,37 +745,49 @@ def _block_width(n: int) -> int:
     return 1 << max(1, int(np.ceil(0.5 * np.log2(n))))
 
 
-def _unit_powers(theta: np.ndarray, count: int, start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """``cos, sin(start + theta j)`` for ``j = 0..count-1``, each of shape ``(count, len(theta))``.
+def _unit_powers(theta: np.ndarray, count: int, rows: int, start: np.ndarray | None = None) -> np.ndarray:
+    """``cos, sin(start + theta j)`` for ``j = 0..count-1``, as a ``(rows, count, m, 2)`` table of the
+    ``theta`` of each row (``len(theta) = rows * m``, row by row).
 
     Built by doubling: only ``start`` and ``theta * 2**b`` go through cos/sin, and every entry is
     reached from ``start`` by at most ``log2(count)`` exact-angle rotations (entry ``j`` does not
     depend on ``count``). Rotations use real multiplications and additions only (a complex
     ufunc may round differently depending on how its operands broadcast).
     """
-    cos = np.empty((count, len(theta)))
-    sin = np.empty((count, len(theta)))
+    m = len(theta) // rows
+    table = np.empty((rows, count, m, 2))
     if start is None:
-        cos[0], sin[0] = 1.0, 0.0
+        table[:, 0, :, 0], table[:, 0, :, 1] = 1.0, 0.0
     else:
-        cos[0], sin[0] = np.cos(start), np.sin(start)
-    scratch = np.empty((max(1, count // 2), len(theta)))
-    size, power = 1, 1.0
-    while size < count:
-        take = min(size, count - size)
+        table[:, 0, :, 0], table[:, 0, :, 1] = np.cos(start).reshape(rows, m), np.sin(start).reshape(rows, m)
+    doublings = (count - 1).bit_length()
+    turn = np.empty((doublings, 2, rows, m))
+    power = 1.0
+    for b in range(doublings):
         angle = theta * power
-        rot_cos, rot_sin = np.cos(angle), np.sin(angle)
-        c0, s0, tmp = cos[:take], sin[:take], scratch[:take]
-        c1, s1 = cos[size : size + take], sin[size : size + take]
-        np.multiply(c0, rot_cos, out=c1)  # c1 = c0 rc - s0 rs
-        np.multiply(s0, rot_sin, out=tmp)
-        np.subtract(c1, tmp, out=c1)
-        np.multiply(s0, rot_cos, out=s1)  # s1 = s0 rc + c0 rs
-        np.multiply(c0, rot_sin, out=tmp)
-        np.add(s1, tmp, out=s1)
-        size += take
+        turn[b, 0], turn[b, 1] = np.cos(angle).reshape(rows, m), np.sin(angle).reshape(rows, m)
         power *= 2.0
-    return cos, sin
+    _doubled(table, turn)
+    return table
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _doubled(table, turn) -> None:
+    """Entries ``j >= 1`` of :func:`_unit_powers`' ``table`` from entry 0: entry ``2**b + i`` is entry ``i``
+    turned by ``turn[b]`` (cos, sin)."""
+    rows, count, m, _ = table.shape
+    size = 1
+    b = 0
+    while size < count:
+        for r in range(rows):
+            for j in range(size, min(2 * size, count)):
+                for q in range(m):
+                    c0, s0 = table[r, j - size, q, 0], table[r, j - size, q, 1]
+                    turn_c, turn_s = turn[b, 0, r, q], turn[b, 1, r, q]
+                    table[r, j, q, 0] = c0 * turn_c - s0 * turn_s
+                    table[r, j, q, 1] = s0 * turn_c + c0 * turn_s
+        size *= 2
+        b += 1
 
 
 def _dirichlet(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
@@ -786,6 +810,18 @@ def _dirichlet_slope(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
     return np.where(small, 0.0, regular)
 
 
+def _dirichlet_and_slope(theta: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_dirichlet` and :func:`_dirichlet_slope`, the same values from one set of sines and cosines."""
+    half = 0.5 * theta
+    s, c = np.sin(half), np.cos(half)
+    s_n, c_n = np.sin(n * half), np.cos(n * half)
+    small = np.abs(s) < 1e-9
+    safe = np.where(small, 1.0, s)
+    d = np.where(small, n * c_n / c, s_n / safe)
+    slope = np.where(small, 0.0, (0.5 * n * c_n * s - 0.5 * s_n * c) / (safe * safe))
+    return d, slope
+
+
 def _sinusoid_fit(sums: Sums, omega: np.ndarray) -> np.ndarray:
     """Sum of squares explained by ``cos(w t), sin(w t)`` fitted jointly with ``1, t``.
 
@@ -800,9 +836,8 @@ def _sinusoid_fit(sums: Sums, omega: np.ndarray) -> np.ndarray:
 
 def _fit_from_sums(c: np.ndarray, s: np.ndarray, omega: np.ndarray, n: np.ndarray) -> np.ndarray:
     """:func:`_sinusoid_fit` from the data sums ``C, S`` at ``omega``."""
-    d = _dirichlet(omega, n)
+    d, dd = _dirichlet_and_slope(omega, n)
     d2 = _dirichlet(2.0 * omega, n)
-    dd = _dirichlet_slope(omega, n)
     suu = n * (n * n - 1.0) / 12.0
     g_cos = 0.5 * (n + d2) - d * d / n
     g_sin = 0.5 * (n - d2) - dd * dd / suu
