@@ -760,21 +760,15 @@ def _unit_powers(theta: np.ndarray, count: int, rows: int, start: np.ndarray | N
         table[:, 0, :, 0], table[:, 0, :, 1] = 1.0, 0.0
     else:
         table[:, 0, :, 0], table[:, 0, :, 1] = np.cos(start).reshape(rows, m), np.sin(start).reshape(rows, m)
-    doublings = (count - 1).bit_length()
-    turn = np.empty((doublings, 2, rows, m))
-    power = 1.0
-    for b in range(doublings):
-        angle = theta * power
-        turn[b, 0], turn[b, 1] = np.cos(angle).reshape(rows, m), np.sin(angle).reshape(rows, m)
-        power *= 2.0
-    _doubled(table, turn)
+    angle = theta * 2.0 ** np.arange((count - 1).bit_length())[:, None]
+    _doubled(table, np.cos(angle).reshape(-1, rows, m), np.sin(angle).reshape(-1, rows, m))
     return table
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
-def _doubled(table, turn) -> None:
+def _doubled(table, turn_cos, turn_sin) -> None:
     """Entries ``j >= 1`` of :func:`_unit_powers`' ``table`` from entry 0: entry ``2**b + i`` is entry ``i``
-    turned by ``turn[b]`` (cos, sin)."""
+    turned by the angle whose cos and sin are ``turn_cos[b]``, ``turn_sin[b]``."""
     rows, count, m, _ = table.shape
     size = 1
     b = 0
@@ -783,7 +777,7 @@ def _doubled(table, turn) -> None:
             for j in range(size, min(2 * size, count)):
                 for q in range(m):
                     c0, s0 = table[r, j - size, q, 0], table[r, j - size, q, 1]
-                    turn_c, turn_s = turn[b, 0, r, q], turn[b, 1, r, q]
+                    turn_c, turn_s = turn_cos[b, r, q], turn_sin[b, r, q]
                     table[r, j, q, 0] = c0 * turn_c - s0 * turn_s
                     table[r, j, q, 1] = s0 * turn_c + c0 * turn_s
         size *= 2
