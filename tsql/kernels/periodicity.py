@@ -49,6 +49,7 @@ _START_GRID = np.linspace(-1.0, 1.0, 9)  # first look around the peak bin, in Fo
 _NEWTON_STEPS = (0.02, 0.002, 0.001)  # half-width of the central differences, in Fourier bins
 _MAX_STEP = (0.25, 0.05, 0.01)  # largest frequency move per Newton step, in Fourier bins
 _FISHER_TERMS = 128  # terms of the exact alternating sum that are ever evaluated
+_FISHER_TABLE = 1 << 13  # terms in a table that bands share
 _FISHER_MAX_TERM = 1e6  # a larger term means cancellation: use the stable approximation
 _MAX_PHI = 0.999  # the red-noise background's lag-1 coefficient is kept below a unit root
 _RED_Z = 1.96  # a lag-1 autocorrelation within +-1.96 / sqrt(n) (Bartlett's 95 % band) is white
@@ -254,12 +255,19 @@ def fisher_g_pvalue(g: np.ndarray, m: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore"):
         needed = np.minimum(mm, np.floor(1.0 / x))
     # rows in bands of the terms they need (1, 2, 3-4, 5-8, ...): each band's table only as wide as it
-    # needs; a row's terms beyond its own are 0 and leave its sum as it is, so the band changes no bit
+    # needs; a row's terms beyond its own are 0 and leave its sum as it is, so the band changes no bit.
+    # Narrow bands share the next one's table while it stays small (fewer calls for few rows).
     band = np.ceil(np.log2(np.clip(needed, 1.0, _FISHER_TERMS))).astype(np.int64)
+    bands, rows = np.unique(band, return_counts=True)
     p = np.empty(len(x))
-    for b in np.unique(band):
-        part = band == b
+    lo = 0
+    while lo < len(bands):
+        hi = lo + 1
+        while hi < len(bands) and rows[lo : hi + 1].sum() << bands[hi] <= _FISHER_TABLE:
+            hi += 1
+        part = (band >= bands[lo]) & (band <= bands[hi - 1])
         p[part] = _fisher_terms(x[part], mm[part], needed[part])
+        lo = hi
     out[ok] = np.clip(p, 0.0, 1.0)
     return out.reshape(shape)
 
