@@ -737,7 +737,18 @@ class Sums:
         n_rows, m = omega.shape
         flat = omega.ravel()
         width, blocks = self.max_width, self.max_blocks
-        inner = _unit_powers(flat, width, n_rows).reshape(n_rows, width, 2 * m)  # per row a (B, 2m) table
+        # the angles that go through cos and sin, in one call each: omega 2^b (within a block), B omega 2^b
+        # (from block to block) and -omega c (the first block's start)
+        within, between = (width - 1).bit_length(), (blocks - 1).bit_length()
+        angle = np.concatenate(
+            [
+                flat * 2.0 ** np.arange(within)[:, None],
+                flat * np.repeat(self.width, m) * 2.0 ** np.arange(between)[:, None],
+                (-0.5 * (np.repeat(self.n, m) - 1.0) * flat)[None],
+            ]
+        )
+        cos, sin = np.cos(angle).reshape(-1, n_rows, m), np.sin(angle).reshape(-1, n_rows, m)
+        inner = _unit_powers(width, cos[:within], sin[:within]).reshape(n_rows, width, 2 * m)  # per row (B, 2m)
         partial = np.empty((n_rows, blocks, 2 * m))
         for i, group in enumerate(self.groups):
             lo, hi = self.bounds[i], self.bounds[i + 1]
@@ -747,25 +758,27 @@ class Sums:
                 np.matmul(group.tail, table[:, : group.tail.shape[2]], out=partial[lo:hi, group.height : group.blocks])
             partial[lo:hi, group.blocks :] = 0.0
         # partial[r, h]: sum_l x_(h B + l) (cos, sin)(omega l); turned by omega (h B - c) and summed over h
-        shift = -0.5 * (np.repeat(self.n, m) - 1.0) * flat
-        turns = _unit_powers(flat * np.repeat(self.width, m), blocks, n_rows, start=shift)
         c = np.empty((n_rows, m))
         s = np.empty((n_rows, m))
-        _block_sums(partial.reshape(n_rows, blocks, m, 2), turns, c, s)
+        _block_sums(partial.reshape(n_rows, blocks, m, 2), cos[within:-1], sin[within:-1], cos[-1], sin[-1], c, s)
         return c, s
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
-def _block_sums(partial, turns, c, s) -> None:
-    """``c, s[r, q] = sum_h`` of ``partial[r, h, q]`` turned by ``turns[r, h, q]`` (cos, sin pairs): the sum of
+def _block_sums(partial, turn_cos, turn_sin, start_cos, start_sin, c, s) -> None:
+    """``c, s[r, q] = sum_h`` of ``partial[r, h, q]`` (cos, sin pairs) turned by the block's angle: the sum of
     cos products less that of sin products, and of the cross products, each summed from 0 in order of ``h``
-    (rows with fewer blocks add exact zeros)."""
+    (rows with fewer blocks add exact zeros). The angles are doubled from the start's (``start_cos``,
+    ``start_sin``) as :func:`_unit_powers` doubles them."""
     rows, blocks, m, _ = partial.shape
+    turns = np.empty((blocks, 2))
     for r in range(rows):
         for q in range(m):
+            turns[0, 0], turns[0, 1] = start_cos[r, q], start_sin[r, q]
+            _doubled(turns, turn_cos[:, r, q], turn_sin[:, r, q])
             cc = ss = sc = cs = 0.0
             for h in range(blocks):
-                turn_c, turn_s = turns[r, h, q, 0], turns[r, h, q, 1]
+                turn_c, turn_s = turns[h, 0], turns[h, 1]
                 p_cos, p_sin = partial[r, h, q, 0], partial[r, h, q, 1]
                 cc += turn_c * p_cos
                 ss += turn_s * p_sin
@@ -780,41 +793,38 @@ def _block_width(n: int) -> int:
     return 1 << max(1, int(np.ceil(0.5 * np.log2(n))))
 
 
-def _unit_powers(theta: np.ndarray, count: int, rows: int, start: np.ndarray | None = None) -> np.ndarray:
-    """``cos, sin(start + theta j)`` for ``j = 0..count-1``, as a ``(rows, count, m, 2)`` table of the
-    ``theta`` of each row (``len(theta) = rows * m``, row by row).
+@njit(cache=True, error_model="numpy", nogil=True)
+def _unit_powers(count, turn_cos, turn_sin):
+    """``cos, sin(omega j)`` for ``j = 0..count-1`` as a ``(rows, count, m, 2)`` table, from the cos and sin of
+    ``omega 2^b`` (``turn_cos[b]``, ``turn_sin[b]``, each ``(rows, m)``).
 
-    Built by doubling: only ``start`` and ``theta * 2**b`` go through cos/sin, and every entry is
-    reached from ``start`` by at most ``log2(count)`` exact-angle rotations (entry ``j`` does not
-    depend on ``count``). Rotations use real multiplications and additions only (a complex
-    ufunc may round differently depending on how its operands broadcast).
+    Built by doubling: only ``omega * 2**b`` go through cos/sin, and every entry is reached from
+    entry 0 by at most ``log2(count)`` exact-angle rotations (entry ``j`` does not depend on
+    ``count``). Rotations use real multiplications and additions only.
     """
-    m = len(theta) // rows
+    _, rows, m = turn_cos.shape
     table = np.empty((rows, count, m, 2))
-    if start is None:
-        table[:, 0, :, 0], table[:, 0, :, 1] = 1.0, 0.0
-    else:
-        table[:, 0, :, 0], table[:, 0, :, 1] = np.cos(start).reshape(rows, m), np.sin(start).reshape(rows, m)
-    angle = theta * 2.0 ** np.arange((count - 1).bit_length())[:, None]
-    _doubled(table, np.cos(angle).reshape(-1, rows, m), np.sin(angle).reshape(-1, rows, m))
+    for r in range(rows):
+        for q in range(m):
+            line = table[r, :, q]
+            line[0, 0], line[0, 1] = 1.0, 0.0
+            _doubled(line, turn_cos[:, r, q], turn_sin[:, r, q])
     return table
 
 
-@njit(cache=True, error_model="numpy", nogil=True)
-def _doubled(table, turn_cos, turn_sin) -> None:
-    """Entries ``j >= 1`` of :func:`_unit_powers`' ``table`` from entry 0: entry ``2**b + i`` is entry ``i``
-    turned by the angle whose cos and sin are ``turn_cos[b]``, ``turn_sin[b]``."""
-    rows, count, m, _ = table.shape
+@njit(cache=True, error_model="numpy", inline="always")  # in both loops above
+def _doubled(line, turn_cos, turn_sin) -> None:
+    """Entries ``j >= 1`` of ``line`` (cos, sin pairs) from entry 0: entry ``2**b + i`` is entry ``i`` turned by
+    the angle whose cos and sin are ``turn_cos[b]``, ``turn_sin[b]``."""
+    count = len(line)
     size = 1
     b = 0
     while size < count:
-        for r in range(rows):
-            for j in range(size, min(2 * size, count)):
-                for q in range(m):
-                    c0, s0 = table[r, j - size, q, 0], table[r, j - size, q, 1]
-                    turn_c, turn_s = turn_cos[b, r, q], turn_sin[b, r, q]
-                    table[r, j, q, 0] = c0 * turn_c - s0 * turn_s
-                    table[r, j, q, 1] = s0 * turn_c + c0 * turn_s
+        turn_c, turn_s = turn_cos[b], turn_sin[b]
+        for j in range(size, min(2 * size, count)):
+            c0, s0 = line[j - size, 0], line[j - size, 1]
+            line[j, 0] = c0 * turn_c - s0 * turn_s
+            line[j, 1] = s0 * turn_c + c0 * turn_s
         size *= 2
         b += 1
 
