@@ -445,3 +445,15 @@ def test_fisher_lower_bound_lies_below_the_p_value():
     assert (bound[trusted] <= exact[trusted] * (1.0 + 1e-9) + 1e-15).all()
     settles = trusted & (bound >= 0.02)
     assert (exact[settles] >= 0.02).all() and (bound[settles] >= 0.5 * exact[settles]).mean() > 0.9
+
+
+def test_row_magnitudes_equal_the_largest_finite_absolute_value():
+    # seeded rows over the whole exponent range, with NaN, infinities, empty and all-missing rows, subnormals
+    rng = np.random.default_rng(21)
+    rows = [rng.standard_normal(n) * 10.0 ** rng.integers(-320, 300) for n in rng.integers(0, 40, 300)]
+    rows += [[np.nan, np.inf, 1.0], [-np.inf, np.nan], [], [np.nan], [1e300, -1e305], [5e-310, -0.0], [-3.0, 2.0]]
+    batch = Ragged.from_list(rows)
+    got = np.empty(batch.n_rows)
+    changepoint._magnitudes(batch.values, batch.offsets, got)
+    want = [np.max(np.where(np.isfinite(r), np.abs(r), 0.0), initial=0.0) for r in map(np.asarray, rows)]
+    assert got.tobytes() == np.array(want, dtype=np.float64).tobytes()
