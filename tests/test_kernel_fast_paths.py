@@ -24,7 +24,7 @@ from tsql.kernels import changepoint, periodicity, trend
 from tsql.kernels.correlation import ljung_box
 from tsql.kernels.normal_equations import cholesky, solve
 from tsql.kernels.periodicity import fisher_g_pvalue, spectral_entropy
-from tsql.kernels.ragged import Ragged
+from tsql.kernels.ragged import Ragged, magnitudes
 
 
 def hoare_find(a: np.ndarray, k: int, n: int) -> float:
@@ -453,7 +453,6 @@ def test_row_magnitudes_equal_the_largest_finite_absolute_value():
     rows = [rng.standard_normal(n) * 10.0 ** rng.integers(-320, 300) for n in rng.integers(0, 40, 300)]
     rows += [[np.nan, np.inf, 1.0], [-np.inf, np.nan], [], [np.nan], [1e300, -1e305], [5e-310, -0.0], [-3.0, 2.0]]
     batch = Ragged.from_list(rows)
-    got = np.empty(batch.n_rows)
-    changepoint._magnitudes(batch.values, batch.offsets, got)
+    got = magnitudes(batch)
     want = [np.max(np.where(np.isfinite(r), np.abs(r), 0.0), initial=0.0) for r in map(np.asarray, rows)]
     assert got.tobytes() == np.array(want, dtype=np.float64).tobytes()

@@ -40,7 +40,7 @@ from numba import njit
 from scipy.stats import chi2
 
 from tsql.kernels.normal_equations import cholesky, solve
-from tsql.kernels.ragged import Ragged, RaggedRecords
+from tsql.kernels.ragged import Ragged, RaggedRecords, magnitudes
 
 __all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
 
@@ -2823,8 +2823,7 @@ def _in_range(batch: Ragged) -> tuple[Ragged, np.ndarray | None]:
     if len(values) == 0:
         return batch, None
     lengths = batch.lengths
-    magnitude = np.empty(batch.n_rows)
-    _magnitudes(values, np.ascontiguousarray(batch.offsets, dtype=np.int64), magnitude)
+    magnitude = magnitudes(batch)
     _, exponent = np.frexp(magnitude)
     out_of_range = (magnitude > 0) & ((exponent > 400) | (exponent < -400))
     if not out_of_range.any():
@@ -2832,18 +2831,6 @@ def _in_range(batch: Ragged) -> tuple[Ragged, np.ndarray | None]:
     shift = np.where(out_of_range, np.clip(exponent, -1020, 1020), 0)
     scaled = values * np.repeat(np.ldexp(1.0, -shift), lengths)
     return Ragged(scaled, batch.offsets, batch.valid), np.ldexp(1.0, shift)
-
-
-@njit(cache=True, error_model="numpy", nogil=True)
-def _magnitudes(values, offsets, out) -> None:
-    """The largest finite ``|value|`` of each row (0: none)."""
-    for r in range(len(out)):
-        top = 0.0
-        for i in range(offsets[r], offsets[r + 1]):
-            v = abs(values[i])
-            if v > top and v < np.inf:  # NaN compares false
-                top = v
-        out[r] = top
 
 
 def _segment(batch, model, penalty, min_size, seasonal, max_changes, skip_first: bool):
