@@ -812,7 +812,7 @@ def _unit_powers(count, turn_cos, turn_sin):
     return table
 
 
-@njit(cache=True, error_model="numpy", inline="always")  # in both loops above
+@njit(cache=True, error_model="numpy")
 def _doubled(line, turn_cos, turn_sin) -> None:
     """Entries ``j >= 1`` of ``line`` (cos, sin pairs) from entry 0: entry ``2**b + i`` is entry ``i`` turned by
     the angle whose cos and sin are ``turn_cos[b]``, ``turn_sin[b]``."""
