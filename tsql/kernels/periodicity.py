@@ -535,7 +535,7 @@ def cycle_p_value(
     white = np.maximum(0.0, _fisher_at(np.where(tested, power, 0.0), peak, at_peak, m, below))  # NaN stays NaN
     p_value = np.where(m > 0, white, np.nan)
     red = slice(None) if below is None else np.flatnonzero(white < below)
-    if below is not None:
+    if below is not None and len(red) < rows:
         power, peak, at_peak, m = power[red], peak[red], at_peak[red], m[red]
         untested = untested if untested.ndim == 1 else untested[red]
     cos = np.cos(2.0 * np.pi * np.arange(width) / n)
@@ -573,7 +573,11 @@ def _fisher_at(
     m = np.maximum(m, 1.0)
     if below is None:
         return fisher_g_pvalue(g, m)
-    p = _fisher_lower_bound(g, m)
+    # the bound reaches twice the level only where the sum's first term (an upper bound) does
+    p = np.full(len(g), np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        reach = np.flatnonzero(np.log(m) + (np.floor(m) - 1.0) * np.log1p(-g) >= np.log(2.0 * below))
+    p[reach] = _fisher_lower_bound(g[reach], m[reach])
     open_ = ~(p >= 2.0 * below)
     p[open_] = fisher_g_pvalue(g[open_], m[open_])
     return p
