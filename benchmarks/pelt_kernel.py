@@ -22,7 +22,7 @@
    each ``--calm-long`` length with the pruning alone (seconds per point should grow slowly).
 5. The default path (model 'mean', 'bic', ``seasonal='auto'``) step by step on
    :func:`benchmarks.data.seasonal` (``--profile-rows`` x ``--profile-points``, every row with a
-   cycle): the first segmentation, the periods (Fisher's screen, then seasonality), the cycles'
+   cycle): the first segmentation, the periods (cycle_test with a level), the cycles'
    fit, the second segmentation, and the whole call, each in CPU seconds of this process (medians
    of the steps run in turns; the machine's other load counts less than in wall-clock time).
 6. The 'mean' search alone on ``--search-rows`` rows of 1,000 points of white noise (no change, the
@@ -255,7 +255,7 @@ def profile(rows: int, points: int, repeat: int) -> None:
     cyclic, adjusted = changepoint._remove_cycles(batch, residual, periods)
     steps = {
         "first segmentation (with residuals)": first,
-        "periods (Fisher's screen, seasonality)": lambda: changepoint._periods(batch, residual, row_ok, "auto"),
+        "periods (cycle_test below the level)": lambda: changepoint._periods(batch, residual, row_ok, "auto"),
         "cycles' fit": lambda: changepoint._remove_cycles(batch, residual, periods),
         "the spread that follows a cycle": lambda: changepoint._steady_spread(adjusted, periods[cyclic], spec.code),
         "the penalty's factor for the cycle": lambda: changepoint._cycle_factor(adjusted, periods[cyclic], spec.code),

@@ -22,8 +22,9 @@ import statsmodels.datasets
 
 from tsql.kernels import changepoint, periodicity, trend
 from tsql.kernels.correlation import ljung_box
+from tsql.kernels.normal_equations import cholesky, solve
 from tsql.kernels.periodicity import fisher_g_pvalue, spectral_entropy
-from tsql.kernels.ragged import Ragged
+from tsql.kernels.ragged import Ragged, magnitudes
 
 
 def hoare_find(a: np.ndarray, k: int, n: int) -> float:
@@ -278,3 +279,180 @@ def test_diagonal_cross_products_equal_their_sums_one_by_one():
                 for k in range(m):
                     acc += cols[a0 + i, k] * cols[8, k]
                 assert four[i] == acc
+
+
+def plain_cycle_fit(residual: np.ndarray, period: float) -> np.ndarray:
+    """The fit _subtract_cycle removes, as the plain procedure: the harmonics turned position by position
+    (evaluated every _RESYNC-th), each cross product a loop of its own, each position's fit summed in order."""
+    n = len(residual)
+    h = changepoint._harmonics(period)
+    w = 2.0 * np.pi / period
+    turn_c, turn_s = math.cos(w), math.sin(w)
+    columns, norms = [], [0.0] * h
+    c, s = 1.0, 0.0
+    for t in range(n):
+        c, s = changepoint._turn(t, w, c, s, turn_c, turn_s, False)
+        cj, sj, row = c, s, []
+        for j in range(h):
+            row.append((j, cj, sj))
+            norms[j] += sj * sj
+            cj, sj = cj * c - sj * s, sj * c + cj * s
+        if not np.isnan(residual[t]):
+            columns.append([cj for _, cj, _ in row] + [sj for _, _, sj in row])
+    x = np.array(columns).reshape(-1, 2 * h)
+    r = residual[~np.isnan(residual)]
+    gram, rhs = np.zeros((2 * h, 2 * h)), np.zeros(2 * h)
+    for a in range(2 * h):
+        rhs[a] = sum_in_order(x[:, a] * r)
+        for b in range(a + 1):
+            gram[a, b] = sum_in_order(x[:, a] * x[:, b])
+    for a in range(h, 2 * h):
+        if not math.sqrt(norms[a - h]) > 1e-6 * math.sqrt(n):
+            gram[a, :] = gram[:, a] = 0.0
+    coef = solve(cholesky(gram, 1e-12)[0], rhs)
+    fit = np.full(n, np.nan)
+    fit[~np.isnan(residual)] = [sum_in_order(coef * row) for row in x]
+    return fit
+
+
+def sum_in_order(terms: np.ndarray) -> float:
+    total = 0.0
+    for term in terms:
+        total += term
+    return total
+
+
+def test_cycle_fit_equals_the_plain_procedure():
+    # monthly CO2 (statsmodels' Mauna Loa weekly record, its gaps kept) and seeded noise with a cycle and gaps,
+    # over periods at and near Nyquist, short, long, and with more harmonics than the fit takes
+    co2 = statsmodels.datasets.co2.load_pandas().data["co2"].to_numpy(float)[:400]
+    rng = np.random.default_rng(5)
+    k = np.arange(300)
+    noisy = 2 * np.sin(2 * np.pi * k / 12.2) + rng.standard_normal(300)
+    noisy[rng.random(300) < 0.2] = np.nan
+    for y in (co2 - np.nanmean(co2), noisy, noisy[:23]):
+        for period in (2.0, 2.5, 3.0, 7.0, 12.0, 52.18, len(y) / 4.0):
+            out = np.where(np.isnan(y), np.nan, 0.0)
+            changepoint._subtract_cycle(y, period, out, np.empty(len(y) * (2 * changepoint.MAX_HARMONICS + 2)))
+            want = plain_cycle_fit(y, period)
+            assert np.array_equal(out, 0.0 - want, equal_nan=True)
+
+
+def test_cycle_test_below_a_level_equals_the_full_test():
+    # statsmodels' datasets (sunspots, monthly CO2 with its gaps, El Nino), random walks (significant against
+    # white noise alone, not against red) and seeded white noise, cycles and near-Nyquist cycles
+    sunspots = statsmodels.datasets.sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(float)
+    co2 = statsmodels.datasets.co2.load_pandas().data["co2"].to_numpy(float)
+    elnino = statsmodels.datasets.elnino.load_pandas().data.iloc[:, 1:].to_numpy(float).ravel()
+    rng = np.random.default_rng(3)
+    rows = [sunspots, co2[:600], elnino]
+    rows += [np.cumsum(rng.standard_normal(n)) for n in (50, 200, 200, 500, 1000)]
+    rows += [rng.standard_normal(n) for n in (8, 30, 200, 1000)]
+    cycles = ((48, 12), (200, 2.2), (500, 30))
+    rows += [np.sin(2 * np.pi * np.arange(n) / p) + rng.standard_normal(n) for n, p in cycles]
+    batch = Ragged.from_list(rows)
+    full = periodicity.cycle_test(batch)
+    for level in (0.01, 1e-6):
+        found = periodicity.cycle_test(batch, below=level)
+        reached = full["p_value"] < level
+        assert 0 < reached.sum() < len(rows)
+        for key in ("period", "p_value"):
+            assert np.array_equal(found[key][reached], full[key][reached])
+            assert np.isnan(found[key][~reached]).all()
+
+
+def plain_sums(groups: list, omega: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """periodicity.Sums.sums as whole-array numpy steps: the doubled tables of cos and sin, one matrix product
+    per row and block, the blocks turned and summed over by numpy's reduction along the first axis."""
+
+    def powers(theta, count, start=None):
+        cos, sin = np.empty((count, len(theta))), np.empty((count, len(theta)))
+        cos[0], sin[0] = (1.0, 0.0) if start is None else (np.cos(start), np.sin(start))
+        size, power = 1, 1.0
+        while size < count:
+            take = min(size, count - size)
+            turn_c, turn_s = np.cos(theta * power), np.sin(theta * power)
+            cos[size : size + take] = cos[:take] * turn_c - sin[:take] * turn_s
+            sin[size : size + take] = sin[:take] * turn_c + cos[:take] * turn_s
+            size, power = size + take, 2.0 * power
+        return cos, sin
+
+    rows, m = omega.shape
+    n = np.concatenate([np.full(len(g.rows), float(g.n)) for g in groups])
+    width = np.concatenate([np.full(len(g.rows), float(g.width)) for g in groups])
+    most, blocks = max(g.width for g in groups), max(g.blocks for g in groups)
+    flat = omega.ravel()
+    cos_l, sin_l = powers(flat, most)
+    inner = np.stack([cos_l.reshape(most, rows, m), sin_l.reshape(most, rows, m)], axis=-1)
+    inner = np.ascontiguousarray(inner.transpose(1, 0, 2, 3)).reshape(rows, most, 2 * m)
+    partial = np.zeros((rows, blocks, 2 * m))
+    lo = 0
+    for g in groups:
+        hi = lo + len(g.rows)
+        table = inner[lo:hi, : g.width]
+        partial[lo:hi, : g.height] = g.body @ table
+        if g.tail is not None:
+            partial[lo:hi, g.height] = (g.tail @ table[:, : g.tail.shape[2]])[:, 0]
+        lo = hi
+    partial = np.ascontiguousarray(partial.transpose(1, 0, 2)).reshape(blocks, rows, m, 2)
+    cos_h, sin_h = powers(flat * np.repeat(width, m), blocks, -0.5 * (np.repeat(n, m) - 1.0) * flat)
+    cos_h, sin_h = cos_h.reshape(blocks, rows, m), sin_h.reshape(blocks, rows, m)
+    c = (cos_h * partial[..., 0]).sum(axis=0) - (sin_h * partial[..., 1]).sum(axis=0)
+    s = (sin_h * partial[..., 0]).sum(axis=0) + (cos_h * partial[..., 1]).sum(axis=0)
+    return c, s
+
+
+def test_trigonometric_sums_equal_the_whole_array_procedure():
+    # residuals of statsmodels' sunspots and El Nino, and seeded rows of many lengths and magnitudes, in
+    # groups of one length each (one row, several, lengths whose blocks differ) at frequencies up to Nyquist
+    sunspots = statsmodels.datasets.sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(float)
+    elnino = statsmodels.datasets.elnino.load_pandas().data.iloc[:, 1:].to_numpy(float).ravel()
+    rng = np.random.default_rng(8)
+    rows_by_length = [sunspots[None, :300], elnino[None, :], rng.standard_normal((3, 4))]
+    rows_by_length += [
+        rng.standard_normal((k, n)) * 10.0 ** rng.integers(-6, 6, (k, 1)) for k, n in ((5, 17), (2, 1001))
+    ]
+    for chosen in ([0], [1, 2], [0, 3, 4], [4, 2, 1, 3]):
+        groups = []
+        for i in chosen:
+            resid = rows_by_length[i] - rows_by_length[i].mean(axis=1, keepdims=True)
+            groups.append(periodicity.Group(np.arange(len(resid)), resid, None))
+        sums = periodicity.Sums(groups)
+        for m in (3, 6):  # as the callers ask (numpy reduces a single sum, rows * m = 1, pairwise instead)
+            omega = rng.uniform(0.0, np.pi, (len(sums.n), m))
+            got, want = sums.sums(omega), plain_sums(groups, omega)
+            assert got[0].tobytes() == want[0].tobytes() and got[1].tobytes() == want[1].tobytes()
+
+
+def test_dirichlet_sums_from_shared_sines_equal_their_own():
+    rng = np.random.default_rng(2)
+    n = rng.integers(4, 5000, (200, 1)).astype(float)
+    theta = np.concatenate([rng.uniform(0.0, 2 * np.pi, (200, 3)), np.zeros((200, 1)), np.full((200, 1), 1e-12)], 1)
+    d, slope = periodicity._dirichlet_and_slope(theta, n)
+    assert d.tobytes() == periodicity._dirichlet(theta, n).tobytes()
+    assert slope.tobytes() == periodicity._dirichlet_slope(theta, n).tobytes()
+
+
+def test_fisher_lower_bound_lies_below_the_p_value():
+    # the Bonferroni bound that settles a row short of a level without the whole sum: at or below the exact
+    # p-value everywhere (seeded g over many orders of magnitude and m), and close to it where it settles rows
+    rng = np.random.default_rng(12)
+    m = rng.integers(1, 5000, 40000).astype(float)
+    g = np.concatenate([rng.uniform(0.0, 1.0, 20000) ** 4, 10.0 ** rng.uniform(-4, 0, 20000)])
+    bound, exact = periodicity._fisher_lower_bound(g, m), fisher_g_pvalue(g, m)
+    trusted = ~np.isnan(bound)
+    assert trusted.mean() > 0.5
+    assert (bound[trusted] <= exact[trusted] * (1.0 + 1e-9) + 1e-15).all()
+    settles = trusted & (bound >= 0.02)
+    assert (exact[settles] >= 0.02).all() and (bound[settles] >= 0.5 * exact[settles]).mean() > 0.9
+
+
+def test_row_magnitudes_equal_the_largest_finite_absolute_value():
+    # seeded rows over the whole exponent range, with NaN, infinities, empty and all-missing rows, subnormals
+    rng = np.random.default_rng(21)
+    rows = [rng.standard_normal(n) * 10.0 ** rng.integers(-320, 300) for n in rng.integers(0, 40, 300)]
+    rows += [[np.nan, np.inf, 1.0], [-np.inf, np.nan], [], [np.nan], [1e300, -1e305], [5e-310, -0.0], [-3.0, 2.0]]
+    batch = Ragged.from_list(rows)
+    got = magnitudes(batch)
+    want = [np.max(np.where(np.isfinite(r), np.abs(r), 0.0), initial=0.0) for r in map(np.asarray, rows)]
+    assert got.tobytes() == np.array(want, dtype=np.float64).tobytes()

@@ -329,12 +329,14 @@ CAUTION = (
 )
 
 # The compiled kernels the steps call, and only those: change_points (one compiled search serves
-# every model), trend_test, sparkline and dtw_nearest's search. On a first run worker processes
-# compile them (tsql.warming) while the warehouse is built; this query then loads what they cached.
+# every model), trend_test, sparkline, seasonality's trigonometric sums and dtw_nearest's search. On a
+# first run worker processes compile them (tsql.warming) while the warehouse is built; this query then
+# loads what they cached.
 _WARM_UP = """\
 SELECT change_points([0.0, 0, 0, 5, 5, 5], model := 'meanvar'),
        trend_test([0.0, 2, 1, 3, 5, 4]),
        sparkline([0.0, 2, 1]),
+       seasonality([0.0, 1, 0, -1, 0, 1, 0, -1]).period,
        (SELECT count(*) FROM (SELECT unnest(dtw_nearest(id, s, k := 1, band := 2, normalize := true))
                               FROM (VALUES (1, [0.0, 1, 2]), (2, [0.0, 2, 1]), (3, [1.0, 1, 2])) AS c(id, s)))"""
 
@@ -352,7 +354,15 @@ WARM_UP_JOBS = (
         11.0,
     ),
     warming.Job("SELECT trend_test([0.0, 2, 1, 3, 5, 4])", ("tsql.kernels.trend:_rows",), 10.0),
-    warming.Job("SELECT sparkline([0.0, 2, 1])", ("tsql.kernels.sparkline:_row_levels",), 0.5),
+    warming.Job(
+        "SELECT sparkline([0.0, 2, 1]), seasonality([0.0, 1, 0, -1, 0, 1, 0, -1]).period",
+        (
+            "tsql.kernels.sparkline:_row_levels",
+            "tsql.kernels.periodicity:_unit_powers",
+            "tsql.kernels.periodicity:_block_sums",
+        ),
+        1.5,
+    ),
 )
 
 _TABLES = """\

@@ -42,7 +42,7 @@ from numba import njit
 from scipy.stats import chi2
 
 from tsql.kernels.normal_equations import cholesky, solve
-from tsql.kernels.ragged import CACHE_ELEMENTS, Ragged, RaggedRecords
+from tsql.kernels.ragged import Ragged, RaggedRecords, magnitudes
 
 __all__ = ["MODELS", "MIN_SIZE", "PENALTIES", "SEASONAL", "change_points", "change_points_path", "segments"]
 
@@ -2709,7 +2709,7 @@ def _subtract_cycle(residual, period, out, design) -> None:
     whose levels are the segments' to say. Normal equations by Cholesky; a column that
     depends on the others (too few present values) is left out too: every least-squares
     solution fits the present values alike, and only they are written (``out`` is NaN where
-    ``residual`` is). ``design`` is scratch of at least ``n * (2 MAX_HARMONICS + 1)`` values.
+    ``residual`` is). ``design`` is scratch of at least ``n * (2 MAX_HARMONICS + 2)`` values.
     """
     n = len(residual)
     h = _harmonics(period)
@@ -2724,8 +2724,8 @@ def _subtract_cycle(residual, period, out, design) -> None:
     present = 0
     for t in range(n):
         present += not np.isnan(residual[t])
-    # the columns at the present positions, one per row, then the residual there
-    cols = design[: (wide + 1) * present].reshape(wide + 1, present)
+    # the columns at the present positions, one per row, then the residual there and the fit
+    cols = design[: (wide + 2) * present].reshape(wide + 2, present)
     cols[k:wide] = 0.0
     c = 1.0
     sn = 0.0
@@ -2770,15 +2770,17 @@ def _subtract_cycle(residual, period, out, design) -> None:
                 gram[a, b] = 0.0
                 gram[b, a] = 0.0
     coef = solve(cholesky(gram, 1e-12)[0], rhs)
+    # each position's fit summed from 0 in order of the columns, column by column over the positions
+    fitted = cols[wide + 1]
+    fitted[:] = 0.0
+    for a in range(k):
+        for i in range(present):
+            fitted[i] += coef[a] * cols[a, i]
     i = 0
     for t in range(n):
-        if np.isnan(residual[t]):
-            continue
-        fitted = 0.0
-        for a in range(k):
-            fitted += coef[a] * cols[a, i]
-        out[t] -= fitted
-        i += 1
+        if not np.isnan(residual[t]):
+            out[t] -= fitted[i]
+            i += 1
 
 
 @njit(cache=True, error_model="numpy")
@@ -2852,7 +2854,7 @@ def _subtract_cycles(residual, offsets, rows, periods, out, out_offsets) -> None
     longest = 0
     for i in range(len(rows)):
         longest = max(longest, out_offsets[i + 1] - out_offsets[i])
-    design = np.empty(longest * (2 * MAX_HARMONICS + 1))
+    design = np.empty(longest * (2 * MAX_HARMONICS + 2))
     for i in range(len(rows)):
         r = rows[i]
         _subtract_cycle(
@@ -2863,7 +2865,7 @@ def _subtract_cycles(residual, offsets, rows, periods, out, out_offsets) -> None
 def _remove_cycles(batch: Ragged, residual: np.ndarray, periods: np.ndarray) -> tuple[np.ndarray, Ragged]:
     """The rows with a finite period and their values minus the cycle fitted to ``residual``."""
     cyclic = np.flatnonzero(np.isfinite(periods))
-    values = batch.take(cyclic)
+    values = batch if len(cyclic) == batch.n_rows else batch.take(cyclic)
     out = np.array(values.values, dtype=np.float64, copy=True)
     offsets = np.ascontiguousarray(values.offsets, dtype=np.int64)
     _subtract_cycles(residual, np.ascontiguousarray(batch.offsets, dtype=np.int64), cyclic, periods, out, offsets)
@@ -3202,45 +3204,17 @@ def _periods(batch: Ragged, residual: np.ndarray, row_ok: np.ndarray, seasonal: 
     from tsql.kernels.periodicity import cycle_test
 
     out = np.full(n_rows, np.nan)
-    residuals = Ragged(residual, batch.offsets, batch.valid)
-    rows = np.flatnonzero(row_ok & (_fisher_screen(residuals) < 2 * SEASONAL_LEVEL))
+    rows = np.flatnonzero(row_ok)
     if len(rows) == 0:
         return out
-    found = cycle_test(residuals if len(rows) == n_rows else residuals.take(rows))
+    # rows that cannot reach the level against white noise alone are left at once, before the
+    # refinement of their period and the red background's test
+    residuals = Ragged(residual, batch.offsets, batch.valid)
+    found = cycle_test(residuals if len(rows) == n_rows else residuals.take(rows), below=SEASONAL_LEVEL)
     # a cycle repeats: at least SEASONAL_CYCLES of it in the record, else it is a slow wander
     significant = (found["p_value"] < SEASONAL_LEVEL) & (found["period"] * SEASONAL_CYCLES <= lengths[rows])
     out[rows] = np.where(significant, found["period"], np.nan)
     return out
-
-
-def _fisher_screen(batch: Ragged) -> np.ndarray:
-    """Fisher's g p-value of each row against a white background, at most the p-value
-    :func:`~tsql.kernels.periodicity.seasonality` reports (which also tests against a red one), up to
-    rounding; 0 for a row with gaps (seasonality fills them for its test, so those rows always go on).
-
-    Only a screen: rows well above the level are left out before the full analysis (which also
-    refines the period), and the decision is the full analysis' own. Rows of one length go in
-    pieces of about ``CACHE_ELEMENTS`` values, so the transforms' temporaries stay in cache.
-    """
-    from tsql.kernels.periodicity import detrend, fisher_g_pvalue
-
-    p = np.ones(batch.n_rows)
-    for n, rows, matrix in batch.by_length():
-        if n < 5 or (n - 1) // 2 < 2:
-            continue  # no period n / k with 2 <= k < n / 2
-        step = max(1, CACHE_ELEMENTS // n)
-        g = np.empty(len(rows))
-        for lo in range(0, len(rows), step):
-            part = matrix[lo : lo + step]
-            present = ~np.isnan(part)
-            resid = detrend(part, None if present.all() else present)[0]
-            power = np.abs(np.fft.rfft(resid, axis=1)) ** 2
-            ordinates = power[:, 2 : (n - 1) // 2 + 1]  # periods n / k for 2 <= k < n / 2
-            total = ordinates.sum(axis=1)
-            g[lo : lo + step] = np.where(total > 0, ordinates.max(axis=1) / np.where(total > 0, total, 1.0), 0.0)
-            g[lo : lo + step][~present.all(axis=1)] = 1.0  # p = 0: the full analysis decides
-        p[rows] = fisher_g_pvalue(g, np.full(len(rows), float((n - 1) // 2 - 1)))
-    return p
 
 
 def _in_range(batch: Ragged) -> tuple[Ragged, np.ndarray | None]:
@@ -3253,11 +3227,8 @@ def _in_range(batch: Ragged) -> tuple[Ragged, np.ndarray | None]:
     values = np.asarray(batch.values, dtype=np.float64)
     if len(values) == 0:
         return batch, None
-    finite = np.where(np.isfinite(values), np.abs(values), 0.0)
     lengths = batch.lengths
-    magnitude = np.zeros(batch.n_rows)
-    filled = lengths > 0
-    magnitude[filled] = np.maximum.reduceat(finite, batch.offsets[:-1][filled])
+    magnitude = magnitudes(batch)
     _, exponent = np.frexp(magnitude)
     out_of_range = (magnitude > 0) & ((exponent > 400) | (exponent < -400))
     if not out_of_range.any():

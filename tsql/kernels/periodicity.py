@@ -37,6 +37,7 @@ rows are batched.
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
 
 from tsql.kernels.ragged import Ragged, full, in_safe_range
 
@@ -48,6 +49,7 @@ _START_GRID = np.linspace(-1.0, 1.0, 9)  # first look around the peak bin, in Fo
 _NEWTON_STEPS = (0.02, 0.002, 0.001)  # half-width of the central differences, in Fourier bins
 _MAX_STEP = (0.25, 0.05, 0.01)  # largest frequency move per Newton step, in Fourier bins
 _FISHER_TERMS = 128  # terms of the exact alternating sum that are ever evaluated
+_FISHER_TABLE = 1 << 13  # terms in a table that bands share
 _FISHER_MAX_TERM = 1e6  # a larger term means cancellation: use the stable approximation
 _MAX_PHI = 0.999  # the red-noise background's lag-1 coefficient is kept below a unit root
 _RED_Z = 1.96  # a lag-1 autocorrelation within +-1.96 / sqrt(n) (Bartlett's 95 % band) is white
@@ -253,12 +255,19 @@ def fisher_g_pvalue(g: np.ndarray, m: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore"):
         needed = np.minimum(mm, np.floor(1.0 / x))
     # rows in bands of the terms they need (1, 2, 3-4, 5-8, ...): each band's table only as wide as it
-    # needs; a row's terms beyond its own are 0 and leave its sum as it is, so the band changes no bit
+    # needs; a row's terms beyond its own are 0 and leave its sum as it is, so the band changes no bit.
+    # Narrow bands share the next one's table while it stays small (fewer calls for few rows).
     band = np.ceil(np.log2(np.clip(needed, 1.0, _FISHER_TERMS))).astype(np.int64)
+    bands, rows = np.unique(band, return_counts=True)
     p = np.empty(len(x))
-    for b in np.unique(band):
-        part = band == b
+    lo = 0
+    while lo < len(bands):
+        hi = lo + 1
+        while hi < len(bands) and rows[lo : hi + 1].sum() << bands[hi] <= _FISHER_TABLE:
+            hi += 1
+        part = (band >= bands[lo]) & (band <= bands[hi - 1])
         p[part] = _fisher_terms(x[part], mm[part], needed[part])
+        lo = hi
     out[ok] = np.clip(p, 0.0, 1.0)
     return out.reshape(shape)
 
@@ -310,7 +319,7 @@ class Group:
         self.blocks = self.height + (self.tail is not None)
 
 
-def cycle_test(batch: Ragged) -> dict[str, np.ndarray]:
+def cycle_test(batch: Ragged, below: float | None = None) -> dict[str, np.ndarray]:
     """:func:`seasonality`'s period and p-value with its defaults, bit for bit, without the strength.
 
     What :func:`~tsql.kernels.changepoint.change_points` needs to decide on a cycle to remove: the
@@ -320,6 +329,9 @@ def cycle_test(batch: Ragged) -> dict[str, np.ndarray]:
     ----------
     batch : Ragged
         The series, one per row; NaN elements are missing.
+    below : float or None
+        A level: a row whose p-value against the white background alone is not below it (so
+        neither is its p-value) gets NaN for both, without the red test or the refinement.
 
     Returns
     -------
@@ -332,11 +344,16 @@ def cycle_test(batch: Ragged) -> dict[str, np.ndarray]:
     >>> bool(cycle_test(b)["period"][0] == seasonality(b)["period"][0])
     True
     """
-    return _analyse(batch, 2.0, None, stats=True, strength=False)
+    return _analyse(batch, 2.0, None, stats=True, strength=False, below=below)
 
 
 def _analyse(
-    batch: Ragged, min_period: float, max_period: float | None, stats: bool, strength: bool = True
+    batch: Ragged,
+    min_period: float,
+    max_period: float | None,
+    stats: bool,
+    strength: bool = True,
+    below: float | None = None,
 ) -> dict[str, np.ndarray]:
     keys = (("period", "strength", "p_value") if strength else ("period", "p_value")) if stats else ("period",)
     result = {key: full(batch.n_rows) for key in keys}
@@ -365,7 +382,7 @@ def _analyse(
             if len(sub_rows) == 0:
                 continue
             with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-                found = _spectral_peak(sub, gaps, bins, stats)
+                found = _spectral_peak(sub, gaps, bins, stats, below)
             if found is None:
                 continue
             answer, resid, present, k, near_bins, row_tss, row_p = found
@@ -411,11 +428,14 @@ def allowed_bins(n: int, min_period: float, max_period: float | None) -> np.ndar
     return k[ok]
 
 
-def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool) -> tuple[np.ndarray, ...] | None:
+def _spectral_peak(
+    matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool, below: float | None = None
+) -> tuple[np.ndarray, ...] | None:
     """Detrend rows of one length, take the periodogram and its peak among ``bins``.
 
     Returns ``(answerable rows mask, residuals, present mask, peak bin k, the DFT at bins
-    k - 1, k, k + 1, TSS, p-value)`` for the answerable rows, or None if there are none.
+    k - 1, k, k + 1, TSS, p-value)`` for the answerable rows, or None if there are none; with
+    ``below``, only rows whose p-value is below it are answerable (see :func:`cycle_test`).
     """
     n = matrix.shape[1]
     present = ~np.isnan(matrix) if gaps else None
@@ -453,11 +473,21 @@ def _spectral_peak(matrix: np.ndarray, gaps: bool, bins: np.ndarray, stats: bool
             if present is not None:
                 filled = np.fft.rfft(fill_gaps(resid, present), axis=1)
                 test_power = filled.real**2 + filled.imag**2
-            p_value = cycle_p_value(test_power, n, k, tested)
+            p_value = cycle_p_value(test_power, n, k, tested, below)
+        if below is not None:
+            kept = p_value < below
+            if not kept.any():
+                return None
+            if not kept.all():
+                answer[answer] = kept
+                resid, k, near_bins, tss, p_value = resid[kept], k[kept], near_bins[kept], tss[kept], p_value[kept]
+                present = None if present is None else present[kept]
     return answer, resid, present, k, near_bins, tss, p_value
 
 
-def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarray) -> np.ndarray:
+def cycle_p_value(
+    power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarray, below: float | None = None
+) -> np.ndarray:
     """p-value of the periodogram ordinate at ``peak``: Fisher's g against a white and against a red
     background, whichever is larger.
 
@@ -473,7 +503,9 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
     autocorrelation ``sum_k w_k I_k cos(2 pi k / n) / sum_k w_k I_k`` (``w_k`` = 1 at 0 and
     Nyquist, 2 elsewhere), clipped to [-0.999, 0.999], and 0 (white) inside Bartlett's band
     ``+-1.96 / sqrt(n)``. NaN where a sum is 0 or nothing is tested. Why and how it was checked:
-    :func:`seasonality`, Notes.
+    :func:`seasonality`, Notes. With ``below``, a row whose white p-value is not below it gets that
+    p-value, or a lower bound of it at least twice ``below`` (:func:`_fisher_lower_bound`), and the
+    red test, which could only raise it, is left out.
 
     References
     ----------
@@ -500,7 +532,12 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
         m = tested.sum(axis=1).astype(np.float64)
         at_peak = np.take_along_axis(tested, peak[:, None], axis=1)[:, 0]
     untested = ~tested
-    tested = np.broadcast_to(tested, power.shape)
+    white = np.maximum(0.0, _fisher_at(np.where(tested, power, 0.0), peak, at_peak, m, below))  # NaN stays NaN
+    p_value = np.where(m > 0, white, np.nan)
+    red = slice(None) if below is None else np.flatnonzero(white < below)
+    if below is not None and len(red) < rows:
+        power, peak, at_peak, m = power[red], peak[red], at_peak[red], m[red]
+        untested = untested if untested.ndim == 1 else untested[red]
     cos = np.cos(2.0 * np.pi * np.arange(width) / n)
     weight = np.full(width, 2.0)
     weight[0] = 1.0
@@ -512,24 +549,56 @@ def cycle_p_value(power: np.ndarray, n: int, peak: np.ndarray, tested: np.ndarra
     with np.errstate(invalid="ignore", divide="ignore"):
         phi = np.clip(weighted.sum(axis=1) / total, -_MAX_PHI, _MAX_PHI)
     phi = np.where((total > 0) & (np.abs(phi) > _RED_Z / np.sqrt(n)), phi, 0.0)[:, None]
-    p_value = np.zeros(rows)
-    for red in (False, True):
-        if red:  # power * (1 - 2 phi cos + phi^2), in place of the white one (one table less)
-            whitened = np.multiply(2.0 * phi, cos, out=weighted)
-            np.subtract(1.0, whitened, out=whitened)
-            whitened += phi * phi
-            whitened *= power
-            np.copyto(whitened, 0.0, where=untested)
-        else:
-            whitened = np.where(tested, power, 0.0)
-        top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
-        if not at_peak.all():
-            top[~at_peak] = whitened[~at_peak].max(axis=1)
-        denominator = whitened.sum(axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            g = np.where(denominator > 0, top / denominator, np.nan)
-        p_value = np.maximum(p_value, fisher_g_pvalue(g, np.maximum(m, 1.0)))  # NaN stays NaN
-    return np.where(m > 0, p_value, np.nan)
+    # power * (1 - 2 phi cos + phi^2), in place of the weighted one (one table less)
+    whitened = np.multiply(2.0 * phi, cos, out=weighted)
+    np.subtract(1.0, whitened, out=whitened)
+    whitened += phi * phi
+    whitened *= power
+    np.copyto(whitened, 0.0, where=untested)
+    p_value[red] = np.where(m > 0, np.maximum(white[red], _fisher_at(whitened, peak, at_peak, m)), np.nan)
+    return p_value
+
+
+def _fisher_at(
+    whitened: np.ndarray, peak: np.ndarray, at_peak: np.ndarray, m: np.ndarray, below: float | None = None
+) -> np.ndarray:
+    """Fisher's g p-value of each row's ordinate at ``peak`` (its largest where not ``at_peak``) in ``whitened``,
+    whose untested bins are 0; with ``below``, a lower bound instead where that bound is at least twice it."""
+    top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
+    if not at_peak.all():
+        top[~at_peak] = whitened[~at_peak].max(axis=1)
+    denominator = whitened.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        g = np.where(denominator > 0, top / denominator, np.nan)
+    m = np.maximum(m, 1.0)
+    if below is None:
+        return fisher_g_pvalue(g, m)
+    # the bound reaches twice the level only where the sum's first term (an upper bound) does
+    p = np.full(len(g), np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        reach = np.flatnonzero(np.log(m) + (np.floor(m) - 1.0) * np.log1p(-g) >= np.log(2.0 * below))
+    p[reach] = _fisher_lower_bound(g[reach], m[reach])
+    open_ = ~(p >= 2.0 * below)
+    p[open_] = fisher_g_pvalue(g[open_], m[open_])
+    return p
+
+
+def _fisher_lower_bound(g: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """A lower bound of :func:`fisher_g_pvalue`: the largest of its sum's first 2, 4, 6 and 8 terms (Bonferroni's
+    inequalities for the union of the events "ordinate j holds more than g"); NaN where the terms are too large
+    to sum without cancellation, or ``g`` or ``m`` leave no test.
+
+    The exact p-value's own rounding is far below the factor of two its callers keep from a level."""
+    j = np.arange(1.0, 9.0)
+    mm = np.floor(m)[:, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        jx = g[:, None] * j
+        used = (j <= mm) & (jx < 1.0)
+        log_comb = np.cumsum(np.log(np.maximum(mm - j + 1.0, 1.0) / j), axis=1)
+        terms = np.where(used, np.exp(log_comb + (mm - 1.0) * np.log1p(-np.where(used, jx, 0.0))), 0.0)
+    bound = np.cumsum(np.where(j % 2 == 1, terms, -terms), axis=1)[:, 1::2].max(axis=1)
+    trusted = (g > 0.0) & (g <= 1.0) & (mm[:, 0] >= 2.0) & (terms.max(axis=1) <= _FISHER_MAX_TERM)
+    return np.where(trusted, bound, np.nan)
 
 
 def fill_gaps(resid: np.ndarray, present: np.ndarray) -> np.ndarray:
@@ -667,36 +736,60 @@ class Sums:
         self.max_blocks = max(group.blocks for group in groups)
 
     def sums(self, omega: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """``sum_t x_t (cos, sin)(omega (t - c))`` for ``omega`` of shape ``(rows, m)``."""
+        """``sum_t x_t (cos, sin)(omega (t - c))`` for ``omega`` of shape ``(rows, m)``, each summed over the
+        blocks in order (the callers' ``m`` is 3 or 6)."""
         n_rows, m = omega.shape
         flat = omega.ravel()
         width, blocks = self.max_width, self.max_blocks
-        cos_l, sin_l = _unit_powers(flat, width)  # (B, rows * m)
-        inner = np.empty((n_rows, width, m, 2))  # per row a (B, 2m) table: cos, sin interleaved
-        inner[..., 0] = cos_l.reshape(width, n_rows, m).transpose(1, 0, 2)
-        inner[..., 1] = sin_l.reshape(width, n_rows, m).transpose(1, 0, 2)
-        inner = inner.reshape(n_rows, width, 2 * m)
-        partial = np.zeros((n_rows, blocks, 2 * m))
+        # the angles that go through cos and sin, in one call each: omega 2^b (within a block), B omega 2^b
+        # (from block to block) and -omega c (the first block's start)
+        within, between = (width - 1).bit_length(), (blocks - 1).bit_length()
+        angle = np.concatenate(
+            [
+                flat * 2.0 ** np.arange(within)[:, None],
+                flat * np.repeat(self.width, m) * 2.0 ** np.arange(between)[:, None],
+                (-0.5 * (np.repeat(self.n, m) - 1.0) * flat)[None],
+            ]
+        )
+        cos, sin = np.cos(angle).reshape(-1, n_rows, m), np.sin(angle).reshape(-1, n_rows, m)
+        inner = _unit_powers(width, cos[:within], sin[:within]).reshape(n_rows, width, 2 * m)  # per row (B, 2m)
+        partial = np.empty((n_rows, blocks, 2 * m))
         for i, group in enumerate(self.groups):
             lo, hi = self.bounds[i], self.bounds[i + 1]
             table = inner[lo:hi, : group.width]  # each (B, 2m) matrix C-ordered: one BLAS layout
-            partial[lo:hi, : group.height] = group.body @ table
+            np.matmul(group.body, table, out=partial[lo:hi, : group.height])
             if group.tail is not None:
-                partial[lo:hi, group.height] = (group.tail @ table[:, : group.tail.shape[2]])[:, 0]
-        # (H, rows, m, 2): sum_l x_(h B + l) (cos, sin)(omega l)
-        partial = np.ascontiguousarray(partial.transpose(1, 0, 2)).reshape(blocks, n_rows, m, 2)
-        p_cos, p_sin = partial[..., 0], partial[..., 1]
-        shift = -0.5 * (np.repeat(self.n, m) - 1.0) * flat
-        cos_h, sin_h = _unit_powers(flat * np.repeat(self.width, m), blocks, start=shift)
-        cos_h = cos_h.reshape(blocks, n_rows, m)
-        sin_h = sin_h.reshape(blocks, n_rows, m)
-        # sums over h, in order (rows with fewer blocks add exact zeros)
-        work = np.empty_like(cos_h)
-        c = np.multiply(cos_h, p_cos, out=work).sum(axis=0)
-        c -= np.multiply(sin_h, p_sin, out=work).sum(axis=0)
-        s = np.multiply(sin_h, p_cos, out=work).sum(axis=0)
-        s += np.multiply(cos_h, p_sin, out=work).sum(axis=0)
+                np.matmul(group.tail, table[:, : group.tail.shape[2]], out=partial[lo:hi, group.height : group.blocks])
+            partial[lo:hi, group.blocks :] = 0.0
+        # partial[r, h]: sum_l x_(h B + l) (cos, sin)(omega l); turned by omega (h B - c) and summed over h
+        c = np.empty((n_rows, m))
+        s = np.empty((n_rows, m))
+        _block_sums(partial.reshape(n_rows, blocks, m, 2), cos[within:-1], sin[within:-1], cos[-1], sin[-1], c, s)
         return c, s
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _block_sums(partial, turn_cos, turn_sin, start_cos, start_sin, c, s) -> None:
+    """``c, s[r, q] = sum_h`` of ``partial[r, h, q]`` (cos, sin pairs) turned by the block's angle: the sum of
+    cos products less that of sin products, and of the cross products, each summed from 0 in order of ``h``
+    (rows with fewer blocks add exact zeros). The angles are doubled from the start's (``start_cos``,
+    ``start_sin``) as :func:`_unit_powers` doubles them."""
+    rows, blocks, m, _ = partial.shape
+    turns = np.empty((blocks, 2))
+    for r in range(rows):
+        for q in range(m):
+            turns[0, 0], turns[0, 1] = start_cos[r, q], start_sin[r, q]
+            _doubled(turns, turn_cos[:, r, q], turn_sin[:, r, q])
+            cc = ss = sc = cs = 0.0
+            for h in range(blocks):
+                turn_c, turn_s = turns[h, 0], turns[h, 1]
+                p_cos, p_sin = partial[r, h, q, 0], partial[r, h, q, 1]
+                cc += turn_c * p_cos
+                ss += turn_s * p_sin
+                sc += turn_s * p_cos
+                cs += turn_c * p_sin
+            c[r, q] = cc - ss
+            s[r, q] = sc + cs
 
 
 def _block_width(n: int) -> int:
@@ -704,37 +797,40 @@ def _block_width(n: int) -> int:
     return 1 << max(1, int(np.ceil(0.5 * np.log2(n))))
 
 
-def _unit_powers(theta: np.ndarray, count: int, start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """``cos, sin(start + theta j)`` for ``j = 0..count-1``, each of shape ``(count, len(theta))``.
+@njit(cache=True, error_model="numpy", nogil=True)
+def _unit_powers(count, turn_cos, turn_sin):
+    """``cos, sin(omega j)`` for ``j = 0..count-1`` as a ``(rows, count, m, 2)`` table, from the cos and sin of
+    ``omega 2^b`` (``turn_cos[b]``, ``turn_sin[b]``, each ``(rows, m)``).
 
-    Built by doubling: only ``start`` and ``theta * 2**b`` go through cos/sin, and every entry is
-    reached from ``start`` by at most ``log2(count)`` exact-angle rotations (entry ``j`` does not
-    depend on ``count``). Rotations use real multiplications and additions only (a complex
-    ufunc may round differently depending on how its operands broadcast).
+    Built by doubling: only ``omega * 2**b`` go through cos/sin, and every entry is reached from
+    entry 0 by at most ``log2(count)`` exact-angle rotations (entry ``j`` does not depend on
+    ``count``). Rotations use real multiplications and additions only.
     """
-    cos = np.empty((count, len(theta)))
-    sin = np.empty((count, len(theta)))
-    if start is None:
-        cos[0], sin[0] = 1.0, 0.0
-    else:
-        cos[0], sin[0] = np.cos(start), np.sin(start)
-    scratch = np.empty((max(1, count // 2), len(theta)))
-    size, power = 1, 1.0
+    _, rows, m = turn_cos.shape
+    table = np.empty((rows, count, m, 2))
+    for r in range(rows):
+        for q in range(m):
+            line = table[r, :, q]
+            line[0, 0], line[0, 1] = 1.0, 0.0
+            _doubled(line, turn_cos[:, r, q], turn_sin[:, r, q])
+    return table
+
+
+@njit(cache=True, error_model="numpy")
+def _doubled(line, turn_cos, turn_sin) -> None:
+    """Entries ``j >= 1`` of ``line`` (cos, sin pairs) from entry 0: entry ``2**b + i`` is entry ``i`` turned by
+    the angle whose cos and sin are ``turn_cos[b]``, ``turn_sin[b]``."""
+    count = len(line)
+    size = 1
+    b = 0
     while size < count:
-        take = min(size, count - size)
-        angle = theta * power
-        rot_cos, rot_sin = np.cos(angle), np.sin(angle)
-        c0, s0, tmp = cos[:take], sin[:take], scratch[:take]
-        c1, s1 = cos[size : size + take], sin[size : size + take]
-        np.multiply(c0, rot_cos, out=c1)  # c1 = c0 rc - s0 rs
-        np.multiply(s0, rot_sin, out=tmp)
-        np.subtract(c1, tmp, out=c1)
-        np.multiply(s0, rot_cos, out=s1)  # s1 = s0 rc + c0 rs
-        np.multiply(c0, rot_sin, out=tmp)
-        np.add(s1, tmp, out=s1)
-        size += take
-        power *= 2.0
-    return cos, sin
+        turn_c, turn_s = turn_cos[b], turn_sin[b]
+        for j in range(size, min(2 * size, count)):
+            c0, s0 = line[j - size, 0], line[j - size, 1]
+            line[j, 0] = c0 * turn_c - s0 * turn_s
+            line[j, 1] = s0 * turn_c + c0 * turn_s
+        size *= 2
+        b += 1
 
 
 def _dirichlet(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
@@ -757,6 +853,18 @@ def _dirichlet_slope(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
     return np.where(small, 0.0, regular)
 
 
+def _dirichlet_and_slope(theta: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_dirichlet` and :func:`_dirichlet_slope`, the same values from one set of sines and cosines."""
+    half = 0.5 * theta
+    s, c = np.sin(half), np.cos(half)
+    s_n, c_n = np.sin(n * half), np.cos(n * half)
+    small = np.abs(s) < 1e-9
+    safe = np.where(small, 1.0, s)
+    d = np.where(small, n * c_n / c, s_n / safe)
+    slope = np.where(small, 0.0, (0.5 * n * c_n * s - 0.5 * s_n * c) / (safe * safe))
+    return d, slope
+
+
 def _sinusoid_fit(sums: Sums, omega: np.ndarray) -> np.ndarray:
     """Sum of squares explained by ``cos(w t), sin(w t)`` fitted jointly with ``1, t``.
 
@@ -771,9 +879,8 @@ def _sinusoid_fit(sums: Sums, omega: np.ndarray) -> np.ndarray:
 
 def _fit_from_sums(c: np.ndarray, s: np.ndarray, omega: np.ndarray, n: np.ndarray) -> np.ndarray:
     """:func:`_sinusoid_fit` from the data sums ``C, S`` at ``omega``."""
-    d = _dirichlet(omega, n)
+    d, dd = _dirichlet_and_slope(omega, n)
     d2 = _dirichlet(2.0 * omega, n)
-    dd = _dirichlet_slope(omega, n)
     suu = n * (n * n - 1.0) / 12.0
     g_cos = 0.5 * (n + d2) - d * d / n
     g_sin = 0.5 * (n - d2) - dd * dd / suu

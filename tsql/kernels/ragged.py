@@ -182,18 +182,29 @@ def rows_in_safe_range(batch: Ragged) -> Ragged:
     """``batch`` with each row whose magnitude would overflow or underflow a sum of squares multiplied by a
     power of two that brings it near 1, as :func:`in_safe_range` does for the rows of a matrix."""
     lengths = batch.lengths
-    filled = lengths > 0
-    if not filled.any():
+    if not (lengths > 0).any():
         return batch
-    size = np.where(np.isfinite(batch.values), np.abs(batch.values), 0.0)
-    magnitude = np.zeros(batch.n_rows)
-    magnitude[filled] = np.maximum.reduceat(size, batch.offsets[:-1][filled])
+    magnitude = magnitudes(batch)
     _, exponent = np.frexp(magnitude)
     out_of_range = (magnitude > 0) & ((exponent > 400) | (exponent < -400))
     if not out_of_range.any():
         return batch
     factor = np.where(out_of_range, np.ldexp(1.0, -np.clip(exponent, -1020, 1020)), 1.0)
     return Ragged(batch.values * np.repeat(factor, lengths), batch.offsets, batch.valid)
+
+
+def magnitudes(batch: Ragged) -> np.ndarray:
+    """The largest finite ``|value|`` of each row (0: none)."""
+    magnitude = np.zeros(batch.n_rows)
+    filled = batch.lengths > 0
+    if filled.any():
+        # fmax skips NaN; an infinity needs a second look
+        magnitude[filled] = np.fmax.reduceat(np.abs(batch.values), batch.offsets[:-1][filled])
+        infinite = np.flatnonzero(np.isinf(magnitude))
+        for r in infinite:
+            row = batch.row(r)
+            magnitude[r] = np.abs(row[np.isfinite(row)]).max(initial=0.0)
+    return np.where(np.isnan(magnitude), 0.0, magnitude)
 
 
 def full(n_rows: int, fill: float = np.nan) -> np.ndarray:
