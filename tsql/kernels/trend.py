@@ -91,12 +91,17 @@ _SECANT = 30  # most secant steps before the bracketing rounds
 # --------------------------------------------------------------------------- #
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _at(i):
+    """An index known not to be negative, as unsigned: the access skips the
+    code that wraps negative indices around (a third of a merge step)."""
+    return np.uint64(i)
+
+
 @njit(cache=True, nogil=True)
 def _sort_count(key, idx, work_key, work_idx):
     """Stable merge sort of ``key`` carrying ``idx``, in place; returns the
-    number of pairs ``p < q`` with ``key[p] > key[q]`` (Knight 1966).  A
-    merge of two runs of one length fills the front and the back at once:
-    two chains of work that do not wait on each other."""
+    number of pairs ``p < q`` with ``key[p] > key[q]`` (Knight 1966)."""
     n = len(key)
     inv = 0
     whole = n - n % _RUN
@@ -119,53 +124,60 @@ def _sort_count(key, idx, work_key, work_idx):
                 q -= 1
             inv += p - q
             key[q], idx[q] = k, v
-    src_k, src_i, dst_k, dst_i = key, idx, work_key, work_idx
     moved = False
     width = _RUN
     while width < n:
-        for s in range(0, n, 2 * width):
-            mid, end = min(s + width, n), min(s + 2 * width, n)
-            if end - mid == width:  # runs of one length: from both ends at once, two chains apart
-                a, b, o, a2, b2, o2 = s, mid, s, mid - 1, end - 1, end - 1
-                for _ in range(width):  # neither end runs out: each side takes half
-                    right = np.int64(src_k[b] < src_k[a])  # no branches on the data
-                    src = a + right * (b - a)
-                    dst_k[o], dst_i[o] = src_k[src], src_i[src]
-                    inv += right * (mid - a)
-                    a += 1 - right
-                    b += right
-                    o += 1
-                    left = np.int64(src_k[a2] > src_k[b2])
-                    src = b2 + left * (a2 - b2)
-                    dst_k[o2], dst_i[o2] = src_k[src], src_i[src]
-                    inv += (1 - left) * (mid - 1 - a2)  # the right one passes the left ones after a2
-                    a2 -= left
-                    b2 -= 1 - left
-                    o2 -= 1
-                continue
-            a, b, o = s, mid, s
-            while a < mid and b < end:
-                right = np.int64(src_k[b] < src_k[a])
-                src = a + right * (b - a)
-                dst_k[o], dst_i[o] = src_k[src], src_i[src]
+        if moved:
+            inv += _merges(work_key, work_idx, key, idx, width)
+        else:
+            inv += _merges(key, idx, work_key, work_idx, width)
+        moved = not moved
+        width *= 2
+    if moved:
+        key[:] = work_key
+        idx[:] = work_idx
+    return inv
+
+
+@njit(cache=True, nogil=True)
+def _merges(src_k, src_i, dst_k, dst_i, width):
+    """One level of the merge sort: the sorted runs of ``width`` of ``src``
+    merged in pairs into ``dst``; returns the pairs put in order.  A merge
+    of two runs of one length fills the front and the back at once: two
+    chains of work that do not wait on each other."""
+    n = len(src_k)
+    inv = 0
+    for s in range(0, n, 2 * width):
+        mid, end = min(s + width, n), min(s + 2 * width, n)
+        if end - mid == width:  # runs of one length: from both ends at once
+            a, b, o, a2, b2, o2 = s, mid, s, mid - 1, end - 1, end - 1
+            for _ in range(width):  # neither end runs out: each side takes half
+                right = np.int64(src_k[_at(b)] < src_k[_at(a)])  # no branches on the data
+                src = _at(a + right * (b - a))
+                dst_k[_at(o)], dst_i[_at(o)] = src_k[src], src_i[src]
                 inv += right * (mid - a)
                 a += 1 - right
                 b += right
                 o += 1
-            while a < mid:
-                dst_k[o], dst_i[o] = src_k[a], src_i[a]
-                a += 1
-                o += 1
-            while b < end:
-                dst_k[o], dst_i[o] = src_k[b], src_i[b]
-                b += 1
-                o += 1
-        src_k, src_i, dst_k, dst_i = dst_k, dst_i, src_k, src_i
-        moved = not moved
-        width *= 2
-    if moved:
-        key[:] = src_k
-        idx[:] = src_i
+                left = np.int64(src_k[_at(a2)] > src_k[_at(b2)])
+                src = _at(b2 + left * (a2 - b2))
+                dst_k[_at(o2)], dst_i[_at(o2)] = src_k[src], src_i[src]
+                inv += (1 - left) * (mid - 1 - a2)  # the right one passes the left ones after a2
+                a2 -= left
+                b2 -= 1 - left
+                o2 -= 1
+            continue
+        a, b, o = s, mid, s
+        while a < mid and b < end:
+            right = np.int64(src_k[_at(b)] < src_k[_at(a)])
+            src = _at(a + right * (b - a))
+            dst_k[_at(o)], dst_i[_at(o)] = src_k[src], src_i[src]
+            inv += right * (mid - a)
+            a += 1 - right
+            b += right
+            o += 1
+        dst_k[o:end] = src_k[a:mid] if a < mid else src_k[b:end]
+        dst_i[o:end] = src_i[a:mid] if a < mid else src_i[b:end]
     return inv
 
 
