@@ -301,15 +301,21 @@ def _recount(theta, u, tau, idx, key, count):
     by insertion, in O(n + exchanges); returns the new inversion count."""
     n = len(idx)
     for p in range(n):
-        key[p] = u[idx[p]] - theta * tau[idx[p]]
+        e = _at(idx[p])
+        key[p] = u[e] - theta * tau[e]
+    last = key[0]  # the largest key so far, kept out of memory just written
     for p in range(1, n):
-        k, e, q = key[p], idx[p], p
-        while q > 0 and key[q - 1] > k:
-            f = idx[q - 1]
-            key[q], idx[q] = key[q - 1], f
+        k = key[_at(p)]
+        if last <= k:
+            last = k
+            continue
+        e, q = idx[_at(p)], p
+        while q > 0 and key[_at(q - 1)] > k:
+            f = idx[_at(q - 1)]
+            key[_at(q)], idx[_at(q)] = key[_at(q - 1)], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
-        key[q], idx[q] = k, e
+        key[_at(q)], idx[_at(q)] = k, e
     return count
 
 
@@ -322,16 +328,22 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
     and the slopes in ``(r_lo, r_hi]`` (as theilslopes computes them)."""
     n = len(idx)
     for p in range(n):
-        key[p] = u[idx[p]] - theta * tau[idx[p]]
+        e = _at(idx[p])
+        key[p] = u[e] - theta * tau[e]
     only_before = 0
     below = 0
     found = np.empty(256)
     nfound = 0
+    last = key[0]
     for p in range(1, n):
-        k, e, q = key[p], idx[p], p
-        while q > 0 and key[q - 1] > k:
-            f = idx[q - 1]
-            key[q], idx[q] = key[q - 1], f
+        k = key[_at(p)]
+        if last <= k:
+            last = k
+            continue
+        e, q = idx[_at(p)], p
+        while q > 0 and key[_at(q - 1)] > k:
+            f = idx[_at(q - 1)]
+            key[_at(q)], idx[_at(q)] = key[_at(q - 1)], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
             i, j = min(e, f), max(e, f)
@@ -346,7 +358,7 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
                     found = grown
                 found[nfound] = sl
                 nfound += 1
-        key[q], idx[q] = k, e
+        key[_at(q)], idx[_at(q)] = k, e
     return count, only_before, below, found, nfound
 
 
