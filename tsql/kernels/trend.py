@@ -477,9 +477,11 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_bu
             p1, p2 = max(br[0], theta_b + (target - h - count_b) * g), min(br[1], theta_b + (target + h - count_b) * g)
             got = np.nan
             if count_b < target and theta_b < p2:  # from the last count's order straight on
-                got = _listed(x, t, u, tau, umax, tmax, theta_b, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
+                d = _delta(umax, tmax, max(abs(theta_b), abs(p2)))
+                cb = int(count_b)
+                got = _listed(x, t, u, tau, theta_b, p2, cb, theta_b + d, p2 - d, k1, k2, iw[0, :n], fw[2, :n])
             elif p1 < p2:
-                got = _final(x, t, u, tau, umax, tmax, p1, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
+                got = _final(x, t, u, tau, umax, tmax, p1, p2, theta_b, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
             if not np.isnan(got):
                 return got
             break
@@ -523,7 +525,7 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_bu
         tiny = hi - lo <= 8 * d
         stalled = kprev < 1.5 * K
         if K <= n + 64 or ((stalled or tiny) and K <= k_final):
-            return _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, fw[2, :n])
+            return _final(x, t, u, tau, umax, tmax, lo, hi, lo, clo, k1, k2, order_lo, fw[2, :n])
         if tiny:  # a cluster: one sampled slope in it
             m = 0
             for q in range(s):  # the sampled slopes in [lo - d, hi + d), to their middle one
@@ -547,7 +549,8 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_bu
             lower = e1 - clo <= chi - e1
             trial = iw[1, :n]
             trial[:] = order_lo if lower else order_hi
-            got = _final(x, t, u, tau, umax, tmax, p1, p2, clo if lower else chi, k1, k2, trial, fw[2, :n])
+            start, count_s = (lo, clo) if lower else (hi, chi)
+            got = _final(x, t, u, tau, umax, tmax, p1, p2, start, count_s, k1, k2, trial, fw[2, :n])
             if not np.isnan(got):
                 return got
         if br[0] < p1 < br[1]:
@@ -588,33 +591,40 @@ def _probe(theta, expect, br, bc, k1, k2, x, t, fw, iw):
 
 
 @njit(cache=True, nogil=True)
-def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
-    """Select the middle slopes from those between the bracket ends.
+def _final(x, t, u, tau, umax, tmax, lo, hi, theta_s, count_s, k1, k2, order_s, key):
+    """Select the middle slopes from those between the bracket ends ``lo``
+    and ``hi``, starting from ``order_s``, sorted at ``theta_s`` (its
+    inversion count ``count_s``).
 
     With a = lo - 3 d0 and b = hi + 3 d0 (d0 the rounding margin at the
-    bracket), the order at ``lo`` is sorted at ``a`` and then at ``b`` by
-    insertion.  Let d be the margin at a and b: a pair whose computed slope is
-    farther than d from a (resp. b) is ordered at a (b) as its slope says, so
-    every slope in R = (a + d, b - d] is exchanged by the second sort, and the
-    exact number of slopes <= a + d is the count at a, less the exchanged
-    pairs inverted at a, plus the exchanged slopes <= a + d.  The counts at
-    lo and hi are within d0 of exact, so the middle ranks lie in R.
+    bracket), the order is sorted at b by insertion, from ``theta_s`` when
+    that lies outside (a, b), else from a (one insertion more).  Let d be the
+    margin at a and b: a pair whose computed slope is farther than d from a
+    (resp. b) is ordered at a (b) as its slope says, so every slope in
+    R = (a + d, b - d] is exchanged on the way, and the exact number of
+    slopes <= a + d is the count at the start, less the exchanged pairs
+    inverted there, plus the exchanged slopes <= a + d.  The counts at lo
+    and hi are within d0 of exact, so the middle ranks lie in R.
     """
     d0 = _delta(umax, tmax, max(abs(lo), abs(hi)))
     a, b = lo - 3 * d0, hi + 3 * d0
-    count_a = _recount(a, u, tau, order_lo, key, clo)
-    return _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_lo, key)
+    d = _delta(umax, tmax, max(abs(a), abs(b)))
+    if a < theta_s < b:
+        theta_s, count_s = a, _recount(a, u, tau, order_s, key, count_s)
+    end = a if theta_s >= b else b
+    return _listed(x, t, u, tau, theta_s, end, count_s, a + d, b - d, k1, k2, order_s, key)
 
 
 @njit(cache=True, nogil=True)
-def _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_a, key):
-    """The middle slopes from those exchanged on the way from ``a`` to ``b``
-    (``order_a`` sorted at ``a``, its inversion count ``count_a``), or NaN
-    when they are not among them (see ``_final``)."""
-    d = _delta(umax, tmax, max(abs(a), abs(b)))
-    _, only_a, below, found, nr = _resort(b, u, tau, order_a, key, count_a, x, t, a + d, b - d)
-    base = count_a - only_a + below
-    l1, l2 = k1 - base, k2 - base  # 1-based ranks inside R
+def _listed(x, t, u, tau, start, end, count_s, r_lo, r_hi, k1, k2, order_s, key):
+    """The middle slopes from those exchanged on the way from ``start`` to
+    ``end`` (``order_s`` sorted at ``start``, its inversion count
+    ``count_s``), or NaN when they are not among them (see ``_final``).
+    The window ``(r_lo, r_hi]`` lies between the two, at least the rounding
+    margin inside each: every slope in it is exchanged."""
+    _, only_s, below, found, nr = _resort(end, u, tau, order_s, key, count_s, x, t, r_lo, r_hi)
+    base = count_s - only_s + below
+    l1, l2 = k1 - base, k2 - base  # 1-based ranks inside the window
     if l1 < 1 or l2 > nr:
         return np.nan
     lower, upper = _kth(found, nr, l1 - 1)
