@@ -6,8 +6,9 @@ Time is the 0-based position of an element in its list, so a missing element
 One compiled pass per row does the work, in O(n log n) time for typical rows:
 
 * S from one stable merge sort of the values that counts the pairs out of
-  order (Knight [4]_), each merge run from both ends at once; the tie groups
-  for the variance are runs of the sorted values.
+  order (Knight [4]_), each merge run from both ends at once, on integers in
+  the values' order; the tie groups for the variance are runs of the sorted
+  values.
 * Sen's slope by slope selection by counting: the number of pairwise slopes
   not above ``theta`` is the number of inversions of ``x_t - theta * t`` read
   in time order.  The counts at ``theta = 0`` are exact from the Mann–Kendall
@@ -181,11 +182,25 @@ def _merges(src_k, src_i, dst_k, dst_i, width):
     return inv
 
 
+@njit(cache=True, nogil=True)
+def _ordered(key, out):
+    """``out[p]``: an integer in the order of ``key[p]`` (not NaN; -0.0 and
+    0.0 alike, ``key`` is changed so), for a merge sort: comparing integers
+    is a shorter step on its critical path than comparing doubles."""
+    for p in range(len(key)):
+        key[p] += 0.0  # -0.0 becomes 0.0
+    bits = key.view(np.int64)
+    for p in range(len(key)):
+        b = bits[p]
+        out[p] = b ^ ((b >> 63) & 0x7FFFFFFFFFFFFFFF)  # negative doubles: magnitude bits reversed
+
+
 def _inversions(perm: np.ndarray) -> np.ndarray:
     """Per row of ``perm``, the number of pairs ``p < q`` with ``perm[p] > perm[q]``."""
     out = np.empty(len(perm), dtype=np.int64)
     for r, row in enumerate(perm):
-        key = np.ascontiguousarray(row, dtype=np.float64).copy()
+        key = np.empty(len(row), dtype=np.int64)
+        _ordered(np.array(row, dtype=np.float64), key)
         idx = np.arange(len(key), dtype=np.int64)
         out[r] = _sort_count(key, idx, np.empty_like(key), np.empty_like(idx))
     return out
@@ -580,7 +595,8 @@ def _probe(theta, expect, br, bc, k1, k2, x, t, fw, iw):
         for p in range(n):
             key[p] = u[p] - theta * tau[p]
             idx[p] = p
-        c = _sort_count(key, idx, fw[3, :n], iw[1, :n])
+        _ordered(key, iw[4, :n])
+        c = _sort_count(iw[4, :n], idx, iw[5, :n], iw[1, :n])
     if c < k1:
         br[0], bc[0] = theta, c
         order_lo[:] = idx
@@ -641,8 +657,8 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, count
     for r in rows:
         longest = max(longest, offsets[r + 1] - offsets[r])
     xb, tb = np.empty(longest), np.empty(longest)
-    fw = np.empty((4, longest))  # u, tau, key, merge work
-    iw = np.empty((4, longest), dtype=np.int64)  # order, merge work, order at lo, order at hi
+    fw = np.empty((3, longest))  # u, tau, key
+    iw = np.empty((6, longest), dtype=np.int64)  # order, merge work, order at lo, order at hi, key, merge work
     sample = np.empty(max(1024, longest))
     pairs = np.empty((max(1024, longest), 2), dtype=np.int64)
     pairs_of, npairs_sampled = -1, 0  # the length the pairs were drawn for
@@ -662,11 +678,12 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, count
         if n < 3:
             continue
         x, t = xb[:n], tb[:n]
-        kv, iv = fw[2, :n], iw[0, :n]
+        iv, kv = iw[0, :n], iw[4, :n]
+        fw[2, :n] = x
+        _ordered(fw[2, :n], kv)
         for p in range(n):
-            kv[p] = x[p]
             iv[p] = p
-        disc = _sort_count(kv, iv, fw[3, :n], iw[1, :n])
+        disc = _sort_count(kv, iv, iw[5, :n], iw[1, :n])
         tie2, tie3 = 0, 0
         a = 0
         while a < n:  # tie groups: runs of the sorted values
