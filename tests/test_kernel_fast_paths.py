@@ -101,8 +101,7 @@ def test_merge_sort_by_ordered_integers():
     zeros = np.where(rng.random(300) < 0.5, -0.0, 0.0)
     for a in [*arrays(7), special, np.tile(special, 9)[rng.permutation(108)], zeros, -np.abs(zeros) + 0.5]:
         n = len(a)
-        key, idx = np.empty(n, dtype=np.int64), np.arange(n, dtype=np.int64)
-        trend._ordered(a.copy(), key)
+        key, idx = trend._ordered(a.copy()), np.arange(n, dtype=np.int64)
         count = trend._sort_count(key, idx, np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64))
         np.testing.assert_array_equal(idx, np.argsort(a, kind="stable"))
         assert count == sum(int((a[p] > a[p + 1 :]).sum()) for p in range(n))

@@ -183,24 +183,35 @@ def _merges(src_k, src_i, dst_k, dst_i, width):
 
 
 @njit(cache=True, nogil=True)
-def _ordered(key, out):
-    """``out[p]``: an integer in the order of ``key[p]`` (not NaN; -0.0 and
-    0.0 alike, ``key`` is changed so), for a merge sort: comparing integers
-    is a shorter step on its critical path than comparing doubles."""
+def _ordered(key):
+    """The doubles ``key`` (not NaN) turned in place into integers in their
+    order, -0.0 and 0.0 alike; returns them (``key`` viewed as int64).
+    Sorts compare integers: a shorter step on a merge's critical path, and
+    an insertion learns sooner where an element stops."""
     for p in range(len(key)):
         key[p] += 0.0  # -0.0 becomes 0.0
     bits = key.view(np.int64)
     for p in range(len(key)):
         b = bits[p]
-        out[p] = b ^ ((b >> 63) & 0x7FFFFFFFFFFFFFFF)  # negative doubles: magnitude bits reversed
+        bits[p] = b ^ ((b >> 63) & 0x7FFFFFFFFFFFFFFF)  # negative doubles: magnitude bits reversed
+    return bits
+
+
+@njit(cache=True, nogil=True)
+def _keys(theta, u, tau, idx, key):
+    """``u - theta * tau`` in the order ``idx``, into ``key`` as ``_ordered``
+    integers (returned)."""
+    for p in range(len(idx)):
+        e = _at(idx[p])
+        key[p] = u[e] - theta * tau[e]
+    return _ordered(key)
 
 
 def _inversions(perm: np.ndarray) -> np.ndarray:
     """Per row of ``perm``, the number of pairs ``p < q`` with ``perm[p] > perm[q]``."""
     out = np.empty(len(perm), dtype=np.int64)
     for r, row in enumerate(perm):
-        key = np.empty(len(row), dtype=np.int64)
-        _ordered(np.array(row, dtype=np.float64), key)
+        key = _ordered(np.array(row, dtype=np.float64))
         idx = np.arange(len(key), dtype=np.int64)
         out[r] = _sort_count(key, idx, np.empty_like(key), np.empty_like(idx))
     return out
@@ -315,22 +326,20 @@ def _recount(theta, u, tau, idx, key, count):
     """Sort the order ``idx`` (inversion count ``count``) by ``u - theta * tau``
     by insertion, in O(n + exchanges); returns the new inversion count."""
     n = len(idx)
-    for p in range(n):
-        e = _at(idx[p])
-        key[p] = u[e] - theta * tau[e]
-    last = key[0]  # the largest key so far, kept out of memory just written
+    ik = _keys(theta, u, tau, idx, key)
+    last = ik[0]  # the largest key so far, kept out of memory just written
     for p in range(1, n):
-        k = key[_at(p)]
+        k = ik[_at(p)]
         if last <= k:
             last = k
             continue
         e, q = idx[_at(p)], p
-        while q > 0 and key[_at(q - 1)] > k:
+        while q > 0 and ik[_at(q - 1)] > k:
             f = idx[_at(q - 1)]
-            key[_at(q)], idx[_at(q)] = key[_at(q - 1)], f
+            ik[_at(q)], idx[_at(q)] = ik[_at(q - 1)], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
-        key[_at(q)], idx[_at(q)] = k, e
+        ik[_at(q)], idx[_at(q)] = k, e
     return count
 
 
@@ -342,23 +351,21 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
     once): how many were inverted before, how many have a slope <= ``r_lo``
     and the slopes in ``(r_lo, r_hi]`` (as theilslopes computes them)."""
     n = len(idx)
-    for p in range(n):
-        e = _at(idx[p])
-        key[p] = u[e] - theta * tau[e]
+    ik = _keys(theta, u, tau, idx, key)
     only_before = 0
     below = 0
     found = np.empty(256)
     nfound = 0
-    last = key[0]
+    last = ik[0]
     for p in range(1, n):
-        k = key[_at(p)]
+        k = ik[_at(p)]
         if last <= k:
             last = k
             continue
         e, q = idx[_at(p)], p
-        while q > 0 and key[_at(q - 1)] > k:
+        while q > 0 and ik[_at(q - 1)] > k:
             f = idx[_at(q - 1)]
-            key[_at(q)], idx[_at(q)] = key[_at(q - 1)], f
+            ik[_at(q)], idx[_at(q)] = ik[_at(q - 1)], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
             i, j = min(e, f), max(e, f)
@@ -373,7 +380,7 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
                     found = grown
                 found[nfound] = sl
                 nfound += 1
-        key[_at(q)], idx[_at(q)] = k, e
+        ik[_at(q)], idx[_at(q)] = k, e
     return count, only_before, below, found, nfound
 
 
@@ -593,10 +600,8 @@ def _probe(theta, expect, br, bc, k1, k2, x, t, fw, iw):
         c = _recount(theta, u, tau, idx, key, bc[0] if lower else bc[1])
     else:
         for p in range(n):
-            key[p] = u[p] - theta * tau[p]
             idx[p] = p
-        _ordered(key, iw[4, :n])
-        c = _sort_count(iw[4, :n], idx, iw[5, :n], iw[1, :n])
+        c = _sort_count(_keys(theta, u, tau, idx, key), idx, iw[4, :n], iw[1, :n])
     if c < k1:
         br[0], bc[0] = theta, c
         order_lo[:] = idx
@@ -658,7 +663,7 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, count
         longest = max(longest, offsets[r + 1] - offsets[r])
     xb, tb = np.empty(longest), np.empty(longest)
     fw = np.empty((3, longest))  # u, tau, key
-    iw = np.empty((6, longest), dtype=np.int64)  # order, merge work, order at lo, order at hi, key, merge work
+    iw = np.empty((5, longest), dtype=np.int64)  # order, its merge work, order at lo, order at hi, the keys' merge work
     sample = np.empty(max(1024, longest))
     pairs = np.empty((max(1024, longest), 2), dtype=np.int64)
     pairs_of, npairs_sampled = -1, 0  # the length the pairs were drawn for
@@ -678,12 +683,12 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, count
         if n < 3:
             continue
         x, t = xb[:n], tb[:n]
-        iv, kv = iw[0, :n], iw[4, :n]
+        iv = iw[0, :n]
         fw[2, :n] = x
-        _ordered(fw[2, :n], kv)
+        kv = _ordered(fw[2, :n])
         for p in range(n):
             iv[p] = p
-        disc = _sort_count(kv, iv, iw[5, :n], iw[1, :n])
+        disc = _sort_count(kv, iv, iw[4, :n], iw[1, :n])
         tie2, tie3 = 0, 0
         a = 0
         while a < n:  # tie groups: runs of the sorted values
