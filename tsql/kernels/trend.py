@@ -368,18 +368,16 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
             ik[_at(q)], idx[_at(q)] = ik[_at(q - 1)], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
-            i, j = min(e, f), max(e, f)
+            i, j = _at(min(e, f)), _at(max(e, f))
             only_before += f > e
             sl = (x[j] - x[i]) / (t[j] - t[i])
-            if sl <= r_lo:
-                below += 1
-            elif sl <= r_hi:
-                if nfound == len(found):
-                    grown = np.empty(2 * len(found))
-                    grown[:nfound] = found
-                    found = grown
-                found[nfound] = sl
-                nfound += 1
+            below += sl <= r_lo
+            found[_at(nfound)] = sl  # kept when inside the window, without a branch
+            nfound += (sl > r_lo) & (sl <= r_hi)
+            if nfound == len(found):
+                grown = np.empty(2 * len(found))
+                grown[:nfound] = found
+                found = grown
         ik[_at(q)], idx[_at(q)] = k, e
     return count, only_before, below, found, nfound
 
