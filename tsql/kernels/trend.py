@@ -30,11 +30,13 @@ One compiled pass per row does the work, in O(n log n) time for typical rows:
   median, a sampled slope just beyond the middle ranks on the other side,
   then points where linear interpolation of the counts puts the middle
   ranks, until the two ends hold about ``2n`` slopes.  Last, an insertion
-  sort carries the order at the lower end of a window to the order at its
-  upper end: its exchanges are exactly the pairs whose slope lies between,
-  and the middle ones are selected from those.  A rounding margin makes the
-  counts exact in floating point (see ``_final``), so the answer equals the
-  median of the slopes as ``scipy.stats.theilslopes`` computes them.  Only
+  sort carries an order sorted on one side of a window (below or above it)
+  to the other side: its exchanges are exactly the pairs whose slope lies
+  between, and the middle ones are selected from those.  Sorts compare
+  integers in the order of the doubles (``_ordered``).  A rounding margin
+  makes the counts exact in floating point (see ``_final``), so the answer
+  equals the median of the slopes as ``scipy.stats.theilslopes`` computes
+  them.  Only
   when more than ``_K_FINAL`` slopes lie within rounding distance of the
   median (a long series on a straight line, say) is the answer one of those
   slopes instead, exact when they are tied exactly.  The sample only decides
