@@ -36,11 +36,11 @@ One compiled pass per row does the work, in O(n log n) time for typical rows:
   integers in the order of the doubles (``_ordered``).  A rounding margin
   makes the counts exact in floating point (see ``_final``), so the answer
   equals the median of the slopes as ``scipy.stats.theilslopes`` computes
-  them.  Only
-  when more than ``_K_FINAL`` slopes lie within rounding distance of the
-  median (a long series on a straight line, say) is the answer one of those
-  slopes instead, exact when they are tied exactly.  The sample only decides
-  where to count: the answer never depends on it otherwise.
+  them.  Only when more than ``_K_FINAL`` slopes lie within rounding
+  distance of the median (a long series on a straight line, say) is the
+  answer one of those slopes instead, exact when they are tied exactly.
+  The sample only decides where to count: the answer never depends on it
+  otherwise.
 
 Rows with at most ``PAIRWISE_MAX`` present values list all their slopes.
 
