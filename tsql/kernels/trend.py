@@ -449,7 +449,9 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_bu
         return 0.0
     u, tau = fw[0, :n], fw[1, :n]
     order_lo, order_hi = iw[2, :n], iw[3, :n]
-    xmin, xmax = x.min(), x.max()
+    xmin, xmax = x[0], x[0]
+    for p in range(n):  # one pass, without the NaN checks of x.min() and x.max() (there is none)
+        xmin, xmax = min(xmin, x[p]), max(xmax, x[p])
     c = 0.5 * xmin + 0.5 * xmax
     t0 = 0.5 * (t[0] + t[n - 1])
     umax, tmax = 0.0, 0.0
