@@ -678,9 +678,8 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, count
             if np.isinf(v):
                 n = -1
                 break
-            if not np.isnan(v):  # present: keeps its position as time
-                xb[n], tb[n] = v, p - offsets[r]
-                n += 1
+            xb[n], tb[n] = v, p - offsets[r]  # kept when present (keeps its position as time), no branch
+            n += not np.isnan(v)
         counts[r] = n
         if n < 3:
             continue
