@@ -97,7 +97,7 @@ _SECANT = 30  # most secant steps before the bracketing rounds
 @njit(cache=True, nogil=True, inline="always")
 def _at(i):
     """An index known not to be negative, as unsigned: the access skips the
-    code that wraps negative indices around (a third of a merge step)."""
+    code that wraps negative indices around (a quarter of a merge step)."""
     return np.uint64(i)
 
 
