@@ -101,6 +101,13 @@ def _at(i):
     return np.uint64(i)
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _exchange(ka, kb, ia, ib):
+    """Two neighbours in order, without a branch, and whether they were not."""
+    out = kb < ka
+    return (kb, ka, ib, ia, 1) if out else (ka, kb, ia, ib, 0)
+
+
 @njit(cache=True, nogil=True)
 def _sort_count(key, idx, work_key, work_idx):
     """Stable merge sort of ``key`` carrying ``idx``, in place; returns the
@@ -109,15 +116,17 @@ def _sort_count(key, idx, work_key, work_idx):
     inv = 0
     whole = n - n % _RUN
     for s in range(0, whole, _RUN):
-        # runs of four by odd-even transposition, branch-free: exchanges of neighbours out of order (as
-        # insertion makes them: stable, one per inversion)
-        for p in (0, 2, 1, 0, 2, 1):
-            a, b = s + p, s + p + 1
-            ka, kb, ia, ib = key[a], key[b], idx[a], idx[b]
-            out = kb < ka
-            key[a], key[b] = (kb, ka) if out else (ka, kb)
-            idx[a], idx[b] = (ib, ia) if out else (ia, ib)
-            inv += out
+        # runs of four by odd-even transposition in registers, branch-free: exchanges of neighbours out
+        # of order (as insertion makes them: stable, one per inversion)
+        k0, k1, k2, k3 = key[_at(s)], key[_at(s + 1)], key[_at(s + 2)], key[_at(s + 3)]
+        i0, i1, i2, i3 = idx[_at(s)], idx[_at(s + 1)], idx[_at(s + 2)], idx[_at(s + 3)]
+        for _ in range(2):
+            k0, k1, i0, i1, c01 = _exchange(k0, k1, i0, i1)
+            k2, k3, i2, i3, c23 = _exchange(k2, k3, i2, i3)
+            k1, k2, i1, i2, c12 = _exchange(k1, k2, i1, i2)
+            inv += c01 + c23 + c12
+        key[_at(s)], key[_at(s + 1)], key[_at(s + 2)], key[_at(s + 3)] = k0, k1, k2, k3
+        idx[_at(s)], idx[_at(s + 1)], idx[_at(s + 2)], idx[_at(s + 3)] = i0, i1, i2, i3
     for s in range(whole, n, _RUN):
         e = min(s + _RUN, n)
         for p in range(s + 1, e):
