@@ -4,7 +4,8 @@ The noise scale of change_points sums parts of an array in the order Hoare's FIN
 selection must make his exchanges, in his order: checked against FIND written out plainly from the
 paper (C. A. R. Hoare, "Algorithm 65: Find", Communications of the ACM 4(7), 321-322, 1961; pivot a
 median of three, as the kernels choose it). trend_test's merge sort must give the stable order
-(numpy's stable argsort) and the inversion count (counted pair by pair). The spread test of
+(numpy's stable argsort) and the inversion count (counted pair by pair), also on the integers it sorts
+in the order of the doubles. The spread test of
 change_points settles most rows on a harmonic turned from one position to the next; its statistic
 must lie far within the margin it is trusted by of the one on the evaluated harmonic. spectral_entropy
 and ljung_box skip their masks for complete rows: the same answers as through the masks. fisher_g_pvalue sums
@@ -91,6 +92,20 @@ def test_merge_sort_order_and_count():
         np.testing.assert_array_equal(idx, order)
         np.testing.assert_array_equal(key, a[order])
         assert count == sum(int((a[p] > a[p + 1 :]).sum()) for p in range(n))  # pair by pair
+
+
+def test_merge_sort_by_ordered_integers():
+    # trend_test merges integers in the order of its doubles: the same stable order (numpy's stable
+    # argsort) and count (pair by pair), signed zeros alike, negatives and subnormals in place
+    rng = np.random.default_rng(6)
+    special = np.array([0.0, -0.0, 5e-324, -5e-324, 1e-300, -1e-300, 1.0, -1.0, 1e300, -1e300, -2.5, 2.5])
+    zeros = np.where(rng.random(300) < 0.5, -0.0, 0.0)
+    for a in [*arrays(7), special, np.tile(special, 9)[rng.permutation(108)], zeros, -np.abs(zeros) + 0.5]:
+        n = len(a)
+        key, idx = trend._ordered(a.copy()), np.arange(n, dtype=np.int64)
+        count = trend._sort_count(key, idx, np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64))
+        np.testing.assert_array_equal(idx, np.argsort(a, kind="stable"))
+        assert count == sum(int((a[p] > a[p + 1 :]).sum()) for p in range(n))
 
 
 def spread_inputs(y: np.ndarray):

@@ -352,6 +352,34 @@ def test_secant_steps_and_rounds_agree(monkeypatch):
     check_against_scipy(series)
 
 
+def test_final_listing_from_either_side_of_its_window():
+    # the last step lists a window's slopes from an order sorted below it, above it (one insertion
+    # pass, up or down) or inside it (sorted below it first): the same middle slopes, bit for bit,
+    # and theilslopes' slope
+    rng = np.random.default_rng(31)
+    t = np.arange(400.0)
+    rows = [np.cumsum(rng.normal(size=400)), np.round(rng.normal(size=400) * 3) + 0.01 * t]
+    rows += [100 + np.sin(t / 2) + rng.normal(size=400), rng.poisson(2.0, size=400) - 0.002 * t]
+    for x in rows:
+        n = len(x)
+        npairs = n * (n - 1) // 2
+        k1, k2 = (npairs + 1) // 2, npairs // 2 + 1
+        i, j = np.triu_indices(n, 1)
+        slopes = np.sort((x[j] - x[i]) / (t[j] - t[i]))
+        width = 0.01 * (slopes[-1] - slopes[0])
+        lo, hi = slopes[k1 - 1] - width, slopes[k2 - 1] + width  # the middle ranks between
+        u, tau = x - (0.5 * x.min() + 0.5 * x.max()), t - 0.5 * (t[0] + t[-1])
+        got = []
+        for start in (lo - 5 * width, 0.5 * (lo + hi), hi + 5 * width):
+            order = np.arange(n, dtype=np.int64)
+            key = trend._keys(start, u, tau, order, np.empty(n))
+            count = trend._sort_count(key, order, np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64))
+            umax, tmax = np.abs(u).max(), np.abs(tau).max()
+            got.append(trend._final(x, t, u, tau, umax, tmax, lo, hi, start, count, k1, k2, order, np.empty(n)))
+        assert got[0] == got[1] == got[2]
+        np.testing.assert_allclose(got[0], stats.theilslopes(x, t).slope, rtol=1e-12, atol=0)  # reference: scipy
+
+
 @pytest.mark.parametrize("n", [2, 3, 4, 5, 7, 8, 9, 15, 16, 17, 31, 32, 33, 100, 1000, 1024, 1025])
 def test_inversion_count_with_ties_against_kendalltau(n):
     # merges of runs of one length run from both ends, others from the front:

@@ -6,8 +6,9 @@ Time is the 0-based position of an element in its list, so a missing element
 One compiled pass per row does the work, in O(n log n) time for typical rows:
 
 * S from one stable merge sort of the values that counts the pairs out of
-  order (Knight [4]_), each merge run from both ends at once; the tie groups
-  for the variance are runs of the sorted values.
+  order (Knight [4]_), each merge run from both ends at once, on integers in
+  the values' order; the tie groups for the variance are runs of the sorted
+  values.
 * Sen's slope by slope selection by counting: the number of pairwise slopes
   not above ``theta`` is the number of inversions of ``x_t - theta * t`` read
   in time order.  The counts at ``theta = 0`` are exact from the Mann–Kendall
@@ -29,15 +30,17 @@ One compiled pass per row does the work, in O(n log n) time for typical rows:
   median, a sampled slope just beyond the middle ranks on the other side,
   then points where linear interpolation of the counts puts the middle
   ranks, until the two ends hold about ``2n`` slopes.  Last, an insertion
-  sort carries the order at the lower end of a window to the order at its
-  upper end: its exchanges are exactly the pairs whose slope lies between,
-  and the middle ones are selected from those.  A rounding margin makes the
-  counts exact in floating point (see ``_final``), so the answer equals the
-  median of the slopes as ``scipy.stats.theilslopes`` computes them.  Only
-  when more than ``_K_FINAL`` slopes lie within rounding distance of the
-  median (a long series on a straight line, say) is the answer one of those
-  slopes instead, exact when they are tied exactly.  The sample only decides
-  where to count: the answer never depends on it otherwise.
+  sort carries an order sorted on one side of a window (below or above it)
+  to the other side: its exchanges are exactly the pairs whose slope lies
+  between, and the middle ones are selected from those.  Sorts compare
+  integers in the order of the doubles (``_ordered``).  A rounding margin
+  makes the counts exact in floating point (see ``_final``), so the answer
+  equals the median of the slopes as ``scipy.stats.theilslopes`` computes
+  them.  Only when more than ``_K_FINAL`` slopes lie within rounding
+  distance of the median (a long series on a straight line, say) is the
+  answer one of those slopes instead, exact when they are tied exactly.
+  The sample only decides where to count: the answer never depends on it
+  otherwise.
 
 Rows with at most ``PAIRWISE_MAX`` present values list all their slopes.
 
@@ -91,25 +94,39 @@ _SECANT = 30  # most secant steps before the bracketing rounds
 # --------------------------------------------------------------------------- #
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _at(i):
+    """An index known not to be negative, as unsigned: the access skips the
+    code that wraps negative indices around (a quarter of a merge step)."""
+    return np.uint64(i)
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _exchange(ka, kb, ia, ib):
+    """Two neighbours in order, without a branch, and whether they were not."""
+    out = kb < ka
+    return (kb, ka, ib, ia, 1) if out else (ka, kb, ia, ib, 0)
+
+
 @njit(cache=True, nogil=True)
 def _sort_count(key, idx, work_key, work_idx):
     """Stable merge sort of ``key`` carrying ``idx``, in place; returns the
-    number of pairs ``p < q`` with ``key[p] > key[q]`` (Knight 1966).  A
-    merge of two runs of one length fills the front and the back at once:
-    two chains of work that do not wait on each other."""
+    number of pairs ``p < q`` with ``key[p] > key[q]`` (Knight 1966)."""
     n = len(key)
     inv = 0
     whole = n - n % _RUN
     for s in range(0, whole, _RUN):
-        # runs of four by odd-even transposition, branch-free: exchanges of neighbours out of order (as
-        # insertion makes them: stable, one per inversion)
-        for p in (0, 2, 1, 0, 2, 1):
-            a, b = s + p, s + p + 1
-            ka, kb, ia, ib = key[a], key[b], idx[a], idx[b]
-            out = kb < ka
-            key[a], key[b] = (kb, ka) if out else (ka, kb)
-            idx[a], idx[b] = (ib, ia) if out else (ia, ib)
-            inv += out
+        # runs of four by odd-even transposition in registers, branch-free: exchanges of neighbours out
+        # of order (as insertion makes them: stable, one per inversion)
+        k0, k1, k2, k3 = key[_at(s)], key[_at(s + 1)], key[_at(s + 2)], key[_at(s + 3)]
+        i0, i1, i2, i3 = idx[_at(s)], idx[_at(s + 1)], idx[_at(s + 2)], idx[_at(s + 3)]
+        for _ in range(2):
+            k0, k1, i0, i1, c01 = _exchange(k0, k1, i0, i1)
+            k2, k3, i2, i3, c23 = _exchange(k2, k3, i2, i3)
+            k1, k2, i1, i2, c12 = _exchange(k1, k2, i1, i2)
+            inv += c01 + c23 + c12
+        key[_at(s)], key[_at(s + 1)], key[_at(s + 2)], key[_at(s + 3)] = k0, k1, k2, k3
+        idx[_at(s)], idx[_at(s + 1)], idx[_at(s + 2)], idx[_at(s + 3)] = i0, i1, i2, i3
     for s in range(whole, n, _RUN):
         e = min(s + _RUN, n)
         for p in range(s + 1, e):
@@ -119,61 +136,93 @@ def _sort_count(key, idx, work_key, work_idx):
                 q -= 1
             inv += p - q
             key[q], idx[q] = k, v
-    src_k, src_i, dst_k, dst_i = key, idx, work_key, work_idx
     moved = False
     width = _RUN
     while width < n:
-        for s in range(0, n, 2 * width):
-            mid, end = min(s + width, n), min(s + 2 * width, n)
-            if end - mid == width:  # runs of one length: from both ends at once, two chains apart
-                a, b, o, a2, b2, o2 = s, mid, s, mid - 1, end - 1, end - 1
-                for _ in range(width):  # neither end runs out: each side takes half
-                    right = np.int64(src_k[b] < src_k[a])  # no branches on the data
-                    src = a + right * (b - a)
-                    dst_k[o], dst_i[o] = src_k[src], src_i[src]
-                    inv += right * (mid - a)
-                    a += 1 - right
-                    b += right
-                    o += 1
-                    left = np.int64(src_k[a2] > src_k[b2])
-                    src = b2 + left * (a2 - b2)
-                    dst_k[o2], dst_i[o2] = src_k[src], src_i[src]
-                    inv += (1 - left) * (mid - 1 - a2)  # the right one passes the left ones after a2
-                    a2 -= left
-                    b2 -= 1 - left
-                    o2 -= 1
-                continue
-            a, b, o = s, mid, s
-            while a < mid and b < end:
-                right = np.int64(src_k[b] < src_k[a])
-                src = a + right * (b - a)
-                dst_k[o], dst_i[o] = src_k[src], src_i[src]
+        if moved:
+            inv += _merges(work_key, work_idx, key, idx, width)
+        else:
+            inv += _merges(key, idx, work_key, work_idx, width)
+        moved = not moved
+        width *= 2
+    if moved:
+        key[:] = work_key
+        idx[:] = work_idx
+    return inv
+
+
+@njit(cache=True, nogil=True)
+def _merges(src_k, src_i, dst_k, dst_i, width):
+    """One level of the merge sort: the sorted runs of ``width`` of ``src``
+    merged in pairs into ``dst``; returns the pairs put in order.  A merge
+    of two runs of one length fills the front and the back at once: two
+    chains of work that do not wait on each other."""
+    n = len(src_k)
+    inv = 0
+    for s in range(0, n, 2 * width):
+        mid, end = min(s + width, n), min(s + 2 * width, n)
+        if end - mid == width:  # runs of one length: from both ends at once
+            a, b, o, a2, b2, o2 = s, mid, s, mid - 1, end - 1, end - 1
+            for _ in range(width):  # neither end runs out: each side takes half
+                right = np.int64(src_k[_at(b)] < src_k[_at(a)])  # no branches on the data
+                src = _at(a + right * (b - a))
+                dst_k[_at(o)], dst_i[_at(o)] = src_k[src], src_i[src]
                 inv += right * (mid - a)
                 a += 1 - right
                 b += right
                 o += 1
-            while a < mid:
-                dst_k[o], dst_i[o] = src_k[a], src_i[a]
-                a += 1
-                o += 1
-            while b < end:
-                dst_k[o], dst_i[o] = src_k[b], src_i[b]
-                b += 1
-                o += 1
-        src_k, src_i, dst_k, dst_i = dst_k, dst_i, src_k, src_i
-        moved = not moved
-        width *= 2
-    if moved:
-        key[:] = src_k
-        idx[:] = src_i
+                left = np.int64(src_k[_at(a2)] > src_k[_at(b2)])
+                src = _at(b2 + left * (a2 - b2))
+                dst_k[_at(o2)], dst_i[_at(o2)] = src_k[src], src_i[src]
+                inv += (1 - left) * (mid - 1 - a2)  # the right one passes the left ones after a2
+                a2 -= left
+                b2 -= 1 - left
+                o2 -= 1
+            continue
+        a, b, o = s, mid, s
+        while a < mid and b < end:
+            right = np.int64(src_k[_at(b)] < src_k[_at(a)])
+            src = _at(a + right * (b - a))
+            dst_k[_at(o)], dst_i[_at(o)] = src_k[src], src_i[src]
+            inv += right * (mid - a)
+            a += 1 - right
+            b += right
+            o += 1
+        dst_k[o:end] = src_k[a:mid] if a < mid else src_k[b:end]
+        dst_i[o:end] = src_i[a:mid] if a < mid else src_i[b:end]
     return inv
+
+
+@njit(cache=True, nogil=True)
+def _ordered(key):
+    """The doubles ``key`` (not NaN) turned in place into integers in their
+    order, -0.0 and 0.0 alike; returns them (``key`` viewed as int64).
+    Sorts compare integers: a shorter step on a merge's critical path, and
+    an insertion learns sooner where an element stops."""
+    for p in range(len(key)):
+        key[p] += 0.0  # -0.0 becomes 0.0
+    bits = key.view(np.int64)
+    for p in range(len(key)):
+        b = bits[p]
+        bits[p] = b ^ ((b >> 63) & 0x7FFFFFFFFFFFFFFF)  # negative doubles: magnitude bits reversed
+    return bits
+
+
+@njit(cache=True, nogil=True)
+def _keys(theta, u, tau, idx, key):
+    """``u - theta * tau`` in the order ``idx``, into ``key`` as ``_ordered``
+    integers (returned)."""
+    for p in range(len(idx)):
+        e = _at(idx[p])
+        key[p] = u[e] - theta * tau[e]
+    return _ordered(key)
 
 
 def _inversions(perm: np.ndarray) -> np.ndarray:
     """Per row of ``perm``, the number of pairs ``p < q`` with ``perm[p] > perm[q]``."""
     out = np.empty(len(perm), dtype=np.int64)
     for r, row in enumerate(perm):
-        key = np.ascontiguousarray(row, dtype=np.float64).copy()
+        key = _ordered(np.array(row, dtype=np.float64))
         idx = np.arange(len(key), dtype=np.int64)
         out[r] = _sort_count(key, idx, np.empty_like(key), np.empty_like(idx))
     return out
@@ -288,16 +337,20 @@ def _recount(theta, u, tau, idx, key, count):
     """Sort the order ``idx`` (inversion count ``count``) by ``u - theta * tau``
     by insertion, in O(n + exchanges); returns the new inversion count."""
     n = len(idx)
-    for p in range(n):
-        key[p] = u[idx[p]] - theta * tau[idx[p]]
+    ik = _keys(theta, u, tau, idx, key)
+    last = ik[0]  # the largest key so far, kept out of memory just written
     for p in range(1, n):
-        k, e, q = key[p], idx[p], p
-        while q > 0 and key[q - 1] > k:
-            f = idx[q - 1]
-            key[q], idx[q] = key[q - 1], f
+        k = ik[_at(p)]
+        if last <= k:
+            last = k
+            continue
+        e, q = idx[_at(p)], p
+        while q > 0 and ik[_at(q - 1)] > k:
+            f = idx[_at(q - 1)]
+            ik[_at(q)], idx[_at(q)] = ik[_at(q - 1)], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
-        key[q], idx[q] = k, e
+        ik[_at(q)], idx[_at(q)] = k, e
     return count
 
 
@@ -309,32 +362,34 @@ def _resort(theta, u, tau, idx, key, count, x, t, r_lo, r_hi):
     once): how many were inverted before, how many have a slope <= ``r_lo``
     and the slopes in ``(r_lo, r_hi]`` (as theilslopes computes them)."""
     n = len(idx)
-    for p in range(n):
-        key[p] = u[idx[p]] - theta * tau[idx[p]]
+    ik = _keys(theta, u, tau, idx, key)
     only_before = 0
     below = 0
     found = np.empty(256)
     nfound = 0
+    last = ik[0]
     for p in range(1, n):
-        k, e, q = key[p], idx[p], p
-        while q > 0 and key[q - 1] > k:
-            f = idx[q - 1]
-            key[q], idx[q] = key[q - 1], f
+        k = ik[_at(p)]
+        if last <= k:
+            last = k
+            continue
+        e, q = idx[_at(p)], p
+        while q > 0 and ik[_at(q - 1)] > k:
+            f = idx[_at(q - 1)]
+            ik[_at(q)], idx[_at(q)] = ik[_at(q - 1)], f
             q -= 1
             count += 2 * (f < e) - 1  # f was before e: the pair becomes inverted
-            i, j = min(e, f), max(e, f)
+            i, j = _at(min(e, f)), _at(max(e, f))
             only_before += f > e
             sl = (x[j] - x[i]) / (t[j] - t[i])
-            if sl <= r_lo:
-                below += 1
-            elif sl <= r_hi:
-                if nfound == len(found):
-                    grown = np.empty(2 * len(found))
-                    grown[:nfound] = found
-                    found = grown
-                found[nfound] = sl
-                nfound += 1
-        key[q], idx[q] = k, e
+            below += sl <= r_lo
+            found[_at(nfound)] = sl  # kept when inside the window, without a branch
+            nfound += (sl > r_lo) & (sl <= r_hi)
+            if nfound == len(found):
+                grown = np.empty(2 * len(found))
+                grown[:nfound] = found
+                found = grown
+        ik[_at(q)], idx[_at(q)] = k, e
     return count, only_before, below, found, nfound
 
 
@@ -403,7 +458,9 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_bu
         return 0.0
     u, tau = fw[0, :n], fw[1, :n]
     order_lo, order_hi = iw[2, :n], iw[3, :n]
-    xmin, xmax = x.min(), x.max()
+    xmin, xmax = x[0], x[0]
+    for p in range(n):  # one pass, without the NaN checks of x.min() and x.max() (there is none)
+        xmin, xmax = min(xmin, x[p]), max(xmax, x[p])
     c = 0.5 * xmin + 0.5 * xmax
     t0 = 0.5 * (t[0] + t[n - 1])
     umax, tmax = 0.0, 0.0
@@ -453,9 +510,11 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_bu
             p1, p2 = max(br[0], theta_b + (target - h - count_b) * g), min(br[1], theta_b + (target + h - count_b) * g)
             got = np.nan
             if count_b < target and theta_b < p2:  # from the last count's order straight on
-                got = _listed(x, t, u, tau, umax, tmax, theta_b, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
+                d = _delta(umax, tmax, max(abs(theta_b), abs(p2)))
+                cb = int(count_b)
+                got = _listed(x, t, u, tau, theta_b, p2, cb, theta_b + d, p2 - d, k1, k2, iw[0, :n], fw[2, :n])
             elif p1 < p2:
-                got = _final(x, t, u, tau, umax, tmax, p1, p2, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
+                got = _final(x, t, u, tau, umax, tmax, p1, p2, theta_b, int(count_b), k1, k2, iw[0, :n], fw[2, :n])
             if not np.isnan(got):
                 return got
             break
@@ -499,7 +558,7 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_bu
         tiny = hi - lo <= 8 * d
         stalled = kprev < 1.5 * K
         if K <= n + 64 or ((stalled or tiny) and K <= k_final):
-            return _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, fw[2, :n])
+            return _final(x, t, u, tau, umax, tmax, lo, hi, lo, clo, k1, k2, order_lo, fw[2, :n])
         if tiny:  # a cluster: one sampled slope in it
             m = 0
             for q in range(s):  # the sampled slopes in [lo - d, hi + d), to their middle one
@@ -523,7 +582,8 @@ def _sen(x, t, disc, ties, order0, k_final, speculate, secant, fw, iw, sample_bu
             lower = e1 - clo <= chi - e1
             trial = iw[1, :n]
             trial[:] = order_lo if lower else order_hi
-            got = _final(x, t, u, tau, umax, tmax, p1, p2, clo if lower else chi, k1, k2, trial, fw[2, :n])
+            start, count_s = (lo, clo) if lower else (hi, chi)
+            got = _final(x, t, u, tau, umax, tmax, p1, p2, start, count_s, k1, k2, trial, fw[2, :n])
             if not np.isnan(got):
                 return got
         if br[0] < p1 < br[1]:
@@ -545,15 +605,14 @@ def _probe(theta, expect, br, bc, k1, k2, x, t, fw, iw):
     u, tau, key, idx = fw[0, :n], fw[1, :n], fw[2, :n], iw[0, :n]
     order_lo, order_hi = iw[2, :n], iw[3, :n]
     from_lo, from_hi = expect - bc[0], bc[1] - expect
-    if min(from_lo, from_hi) <= 24 * n + 256:
+    if min(from_lo, from_hi) <= 12 * n + 256:  # about what a merge sort costs, now that it compares integers
         lower = from_lo <= from_hi
         idx[:] = order_lo if lower else order_hi
         c = _recount(theta, u, tau, idx, key, bc[0] if lower else bc[1])
     else:
         for p in range(n):
-            key[p] = u[p] - theta * tau[p]
             idx[p] = p
-        c = _sort_count(key, idx, fw[3, :n], iw[1, :n])
+        c = _sort_count(_keys(theta, u, tau, idx, key), idx, iw[4, :n], iw[1, :n])
     if c < k1:
         br[0], bc[0] = theta, c
         order_lo[:] = idx
@@ -564,33 +623,40 @@ def _probe(theta, expect, br, bc, k1, k2, x, t, fw, iw):
 
 
 @njit(cache=True, nogil=True)
-def _final(x, t, u, tau, umax, tmax, lo, hi, clo, k1, k2, order_lo, key):
-    """Select the middle slopes from those between the bracket ends.
+def _final(x, t, u, tau, umax, tmax, lo, hi, theta_s, count_s, k1, k2, order_s, key):
+    """Select the middle slopes from those between the bracket ends ``lo``
+    and ``hi``, starting from ``order_s``, sorted at ``theta_s`` (its
+    inversion count ``count_s``).
 
     With a = lo - 3 d0 and b = hi + 3 d0 (d0 the rounding margin at the
-    bracket), the order at ``lo`` is sorted at ``a`` and then at ``b`` by
-    insertion.  Let d be the margin at a and b: a pair whose computed slope is
-    farther than d from a (resp. b) is ordered at a (b) as its slope says, so
-    every slope in R = (a + d, b - d] is exchanged by the second sort, and the
-    exact number of slopes <= a + d is the count at a, less the exchanged
-    pairs inverted at a, plus the exchanged slopes <= a + d.  The counts at
-    lo and hi are within d0 of exact, so the middle ranks lie in R.
+    bracket), the order is sorted at b by insertion, from ``theta_s`` when
+    that lies outside (a, b), else from a (one insertion more).  Let d be the
+    margin at a and b: a pair whose computed slope is farther than d from a
+    (resp. b) is ordered at a (b) as its slope says, so every slope in
+    R = (a + d, b - d] is exchanged on the way, and the exact number of
+    slopes <= a + d is the count at the start, less the exchanged pairs
+    inverted there, plus the exchanged slopes <= a + d.  The counts at lo
+    and hi are within d0 of exact, so the middle ranks lie in R.
     """
     d0 = _delta(umax, tmax, max(abs(lo), abs(hi)))
     a, b = lo - 3 * d0, hi + 3 * d0
-    count_a = _recount(a, u, tau, order_lo, key, clo)
-    return _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_lo, key)
+    d = _delta(umax, tmax, max(abs(a), abs(b)))
+    if a < theta_s < b:
+        theta_s, count_s = a, _recount(a, u, tau, order_s, key, count_s)
+    end = a if theta_s >= b else b
+    return _listed(x, t, u, tau, theta_s, end, count_s, a + d, b - d, k1, k2, order_s, key)
 
 
 @njit(cache=True, nogil=True)
-def _listed(x, t, u, tau, umax, tmax, a, b, count_a, k1, k2, order_a, key):
-    """The middle slopes from those exchanged on the way from ``a`` to ``b``
-    (``order_a`` sorted at ``a``, its inversion count ``count_a``), or NaN
-    when they are not among them (see ``_final``)."""
-    d = _delta(umax, tmax, max(abs(a), abs(b)))
-    _, only_a, below, found, nr = _resort(b, u, tau, order_a, key, count_a, x, t, a + d, b - d)
-    base = count_a - only_a + below
-    l1, l2 = k1 - base, k2 - base  # 1-based ranks inside R
+def _listed(x, t, u, tau, start, end, count_s, r_lo, r_hi, k1, k2, order_s, key):
+    """The middle slopes from those exchanged on the way from ``start`` to
+    ``end`` (``order_s`` sorted at ``start``, its inversion count
+    ``count_s``), or NaN when they are not among them (see ``_final``).
+    The window ``(r_lo, r_hi]`` lies between the two, at least the rounding
+    margin inside each: every slope in it is exchanged."""
+    _, only_s, below, found, nr = _resort(end, u, tau, order_s, key, count_s, x, t, r_lo, r_hi)
+    base = count_s - only_s + below
+    l1, l2 = k1 - base, k2 - base  # 1-based ranks inside the window
     if l1 < 1 or l2 > nr:
         return np.nan
     lower, upper = _kth(found, nr, l1 - 1)
@@ -607,8 +673,8 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, count
     for r in rows:
         longest = max(longest, offsets[r + 1] - offsets[r])
     xb, tb = np.empty(longest), np.empty(longest)
-    fw = np.empty((4, longest))  # u, tau, key, merge work
-    iw = np.empty((4, longest), dtype=np.int64)  # order, merge work, order at lo, order at hi
+    fw = np.empty((3, longest))  # u, tau, key
+    iw = np.empty((5, longest), dtype=np.int64)  # order, its merge work, order at lo, order at hi, the keys' merge work
     sample = np.empty(max(1024, longest))
     pairs = np.empty((max(1024, longest), 2), dtype=np.int64)
     pairs_of, npairs_sampled = -1, 0  # the length the pairs were drawn for
@@ -621,18 +687,18 @@ def _rows(values, offsets, rows, pairwise_max, k_final, speculate, secant, count
             if np.isinf(v):
                 n = -1
                 break
-            if not np.isnan(v):  # present: keeps its position as time
-                xb[n], tb[n] = v, p - offsets[r]
-                n += 1
+            xb[n], tb[n] = v, p - offsets[r]  # kept when present (keeps its position as time), no branch
+            n += not np.isnan(v)
         counts[r] = n
         if n < 3:
             continue
         x, t = xb[:n], tb[:n]
-        kv, iv = fw[2, :n], iw[0, :n]
+        iv = iw[0, :n]
+        fw[2, :n] = x
+        kv = _ordered(fw[2, :n])
         for p in range(n):
-            kv[p] = x[p]
             iv[p] = p
-        disc = _sort_count(kv, iv, fw[3, :n], iw[1, :n])
+        disc = _sort_count(kv, iv, iw[4, :n], iw[1, :n])
         tie2, tie3 = 0, 0
         a = 0
         while a < n:  # tie groups: runs of the sorted values
