@@ -139,7 +139,8 @@ def pelt_search(x: np.ndarray, model: str, functional: bool) -> np.ndarray:
     spec = changepoint.MODELS[model]
     m = len(x)
     stats = np.empty((changepoint.MAX_STATS, m + 1))
-    changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, stats, np.empty(2 * m + 2))
+    lowest, highest, total = changepoint._summary(x, m)
+    changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, lowest, highest, total, stats)
     last = np.empty(m + 1, dtype=np.int64)
     changepoint._pelt(
         spec.code,
