@@ -139,7 +139,7 @@ def pelt_search(x: np.ndarray, model: str, functional: bool) -> np.ndarray:
     spec = changepoint.MODELS[model]
     m = len(x)
     stats = np.empty((changepoint.MAX_STATS, m + 1))
-    lowest, highest, total = changepoint._summary(x, m)
+    lowest, highest, total = changepoint._present(x, 0, m)[4:]
     changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, lowest, highest, total, stats)
     last = np.empty(m + 1, dtype=np.int64)
     changepoint._pelt(

@@ -197,19 +197,6 @@ def _rounding(lowest: float, highest: float) -> float:
 
 
 @njit(cache=True, error_model="numpy")
-def _summary(y: np.ndarray, m: int) -> tuple[float, float, float]:
-    """Smallest and largest of ``y[:m]`` (``m >= 1``, finite) and their sum (from 0, in order)."""
-    lowest = y[0]
-    highest = y[0]
-    total = 0.0
-    for i in range(m):
-        lowest = min(lowest, y[i])
-        highest = max(highest, y[i])
-        total += y[i]
-    return lowest, highest, total
-
-
-@njit(cache=True, error_model="numpy")
 def _line_residual_sd(y: np.ndarray, p: np.ndarray, m: int) -> tuple[float, float, float]:
     """Mean of ``y[:m]``, least-squares slope against the positions ``p``, and the residuals' sd (ddof 0)."""
     my = 0.0
@@ -501,7 +488,7 @@ def _prepare(code, y, p, m, lowest, highest, total, stats) -> float:
     """Fill ``stats[:, :m + 1]`` for model ``code``; the scale the series is standardised by, 0 if it has none
     (the standard deviation about its mean, for 'trend' about its line).
 
-    ``lowest``, ``highest`` and ``total`` are those of :func:`_summary`.
+    ``lowest``, ``highest`` and ``total``: the smallest and largest values and their sum (see :func:`_present`).
     """
     if code == MEAN:
         return _prepare_mean(y, p, m, lowest, highest, total, stats)
@@ -2126,19 +2113,28 @@ def _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_c
 
 @njit(cache=True, error_model="numpy")
 def _present(values, lo, n):
-    """The present (non-NaN) values of ``values[lo:lo + n]``, their 0-based positions, their count, all finite?"""
+    """The present (non-NaN) values of ``values[lo:lo + n]``, their 0-based positions, their count, all finite?
+
+    And, when they are all finite, the smallest, the largest and their sum (from 0, in order).
+    """
     y = np.empty(n)
     p = np.empty(n, dtype=np.int64)
     m = 0
     finite = True
+    lowest = np.inf
+    highest = -np.inf
+    total = 0.0
     for i in range(n):
         v = values[lo + i]
         if not np.isnan(v):
             finite = finite and np.isfinite(v)
+            lowest = min(lowest, v)
+            highest = max(highest, v)
+            total += v
             y[m] = v
             p[m] = i
             m += 1
-    return y, p, m, finite
+    return y, p, m, finite, lowest, highest, total
 
 
 @njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
@@ -2155,7 +2151,7 @@ def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p
         return
     lo = offsets[r]
     n = offsets[r + 1] - lo
-    y, p, m, finite = _present(values, lo, n)
+    y, p, m, finite, lowest, highest, total = _present(values, lo, n)
     if m == 0 or not finite or m > MAX_PROGRAMME:
         return
     row_ok[r] = True
@@ -2166,7 +2162,6 @@ def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p
     p_from[slot] = 0.0
     p_to[slot] = np.inf
     counts[r] = 1
-    lowest, highest, total = _summary(y, m)
     if m < 2 * min_size or not lowest < highest:
         return
     stats = np.empty((MAX_STATS, m + 1))
@@ -2269,10 +2264,9 @@ def _row_start(
     no_term = np.zeros(1)
     if not valid[r]:
         return np.empty(0), np.empty(0, dtype=np.int64), 0, 0.0, no_term, False, 0
-    y, p, m, finite = _present(values, lo, n)
+    y, p, m, finite, lowest, highest, total = _present(values, lo, n)
     if m == 0 or not finite:
         return y, p, m, 0.0, no_term, False, 0
-    lowest, highest, total = _summary(y, m)
     if not (m >= 2 * min_size and lowest < highest):
         return y, p, m, 0.0, no_term, False, 1
     scale = _prepare(code, y, p, m, lowest, highest, total, stats)
@@ -3193,7 +3187,7 @@ def _segment_levels(values, offsets, rows, slots, counts, first, out_mean, out_s
     """Level and slope of each segment of ``rows``, from ``values``: segments ``slots[r]`` to
     ``slots[r] + counts[r]``, each starting at the 1-based position ``first``."""
     for r in rows:
-        y, p, m, _ = _present(values, offsets[r], offsets[r + 1] - offsets[r])
+        y, p, m = _present(values, offsets[r], offsets[r + 1] - offsets[r])[:3]
         a = 0
         for k in range(counts[r]):
             w = slots[r] + k
