@@ -2,7 +2,8 @@
 
 The noise scale of change_points sums parts of an array in the order Hoare's FIND leaves it, so its
 selection must make his exchanges, in his order (and its two lags' squares, made in one pass, must give
-what each lag gives by itself): checked against FIND written out plainly from the
+what each lag gives by itself, and a row's range and sum, made while its present values are gathered,
+those of the plain procedure): checked against FIND written out plainly from the
 paper (C. A. R. Hoare, "Algorithm 65: Find", Communications of the ACM 4(7), 321-322, 1961; pivot a
 median of three, as the kernels choose it). trend_test's merge sort must give the stable order
 (numpy's stable argsort) and the inversion count (counted pair by pair), also on the integers it sorts
@@ -114,6 +115,21 @@ def test_both_lags_difference_scales_equal_one_lag_at_a_time(centred):
         index = np.full(2 * m, -1, dtype=np.int64)
         got = changepoint._difference_scales(y, np.int64(m), centred, work, index)
         assert got == (plain_difference_scale(y, 1, centred), plain_difference_scale(y, 2, centred))
+
+
+def test_present_values_range_and_sum_equal_the_plain_procedure():
+    # Mauna Loa CO2 (statsmodels' weekly record, its gaps kept: NaN), seeded noise with gaps, ties, signed zeros
+    co2 = statsmodels.datasets.co2.load_pandas().data["co2"].to_numpy()
+    rng = np.random.default_rng(9)
+    gappy = rng.normal(size=500) * 1e3 + 1e6
+    gappy[rng.integers(0, 500, 120)] = np.nan
+    for y in [co2, gappy, np.round(rng.normal(size=300)), np.array([-0.0, 0.0, np.nan, 3.0]), np.array([np.nan, -2.0])]:
+        values, positions, m, finite, lowest, highest, total = changepoint._present(y, 0, len(y))
+        present = y[~np.isnan(y)]
+        assert finite and m == len(present)
+        np.testing.assert_array_equal(values[:m], present)
+        np.testing.assert_array_equal(positions[:m], np.flatnonzero(~np.isnan(y)))
+        assert (lowest, highest, total) == (present.min(), present.max(), sum_in_order(present))
 
 
 def test_merge_sort_order_and_count():
