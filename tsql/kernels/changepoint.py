@@ -233,6 +233,20 @@ def _trimmed_half_mean(s: np.ndarray, k: int, index: np.ndarray) -> float:
 
 
 @njit(cache=True, error_model="numpy")
+def _centred_scale(y: np.ndarray, m: int, lag: int, work: np.ndarray, index: np.ndarray) -> float:
+    """:func:`_difference_scales` at one ``lag``, centred: the differences go to ``work[m:]``, their squares to
+    ``work[:m]``."""
+    k = m - lag
+    d = work[m:]
+    for i in range(k):
+        d[i] = y[i + lag] - y[i]
+    centre = _median(d, k, index)
+    for i in range(k):
+        work[i] = (d[i] - centre) ** 2
+    return _trimmed_half_mean(work, k, index)
+
+
+@njit(cache=True, error_model="numpy")
 def _difference_scales(y: np.ndarray, m: int, centred: bool, work: np.ndarray, index: np.ndarray):
     """Trimmed semivariograms at lags 1 and 2: half the mean of the smallest 90 % of ``(d - c)^2``.
 
@@ -242,29 +256,19 @@ def _difference_scales(y: np.ndarray, m: int, centred: bool, work: np.ndarray, i
     factor TRIM_CONSISTENCY makes the rest a consistent Gaussian estimate.
     Uses ``work[:2 m]`` and ``index[:2 m]``; uncentred, both lags' squares in one pass.
     """
-    if not centred:
-        for i in range(m - 2):
-            d1 = y[i + 1] - y[i]
-            d2 = y[i + 2] - y[i]
-            work[i] = d1**2
-            work[m + i] = d2**2
-        work[m - 2] = (y[m - 1] - y[m - 2]) ** 2
-        return _trimmed_half_mean(work, m - 1, index), _trimmed_half_mean(work[m:], m - 2, index)
-    g = np.empty(2)
-    for lag in range(1, 3):
-        k = m - lag
-        d = work[m:]
-        for i in range(k):
-            d[i] = y[i + lag] - y[i]
-        centre = _median(d, k, index)
-        for i in range(k):
-            work[i] = (d[i] - centre) ** 2
-        g[lag - 1] = _trimmed_half_mean(work, k, index)
-    return g[0], g[1]
+    if centred:  # int64 lags, not two literal types: one compile
+        return _centred_scale(y, m, np.int64(1), work, index), _centred_scale(y, m, np.int64(2), work, index)
+    for i in range(m - 2):
+        d1 = y[i + 1] - y[i]
+        d2 = y[i + 2] - y[i]
+        work[i] = d1**2
+        work[m + i] = d2**2
+    work[m - 2] = (y[m - 1] - y[m - 2]) ** 2
+    return _trimmed_half_mean(work, m - 1, index), _trimmed_half_mean(work[m:], m - 2, index)
 
 
 @njit(cache=True, error_model="numpy")
-def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work: np.ndarray, index) -> float:
+def _long_run_factor(y, m, variance, centred, work, index) -> float:
     """How much serial dependence inflates the noise: ``max(1, s2_LR / variance)``, at most ``m / 20``.
 
     AR(1) read off a robust semivariogram (see :func:`segments`, Notes):
