@@ -139,7 +139,8 @@ def pelt_search(x: np.ndarray, model: str, functional: bool) -> np.ndarray:
     spec = changepoint.MODELS[model]
     m = len(x)
     stats = np.empty((changepoint.MAX_STATS, m + 1))
-    changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, stats, np.empty(2 * m + 2))
+    lowest, highest, total = changepoint._present(x, 0, m)[4:]
+    changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, lowest, highest, total, stats)
     last = np.empty(m + 1, dtype=np.int64)
     changepoint._pelt(
         spec.code,
@@ -288,10 +289,12 @@ def mean_search(rows: int, repeat: int) -> None:
 
     def search_args(x: np.ndarray) -> tuple:
         stats = np.empty((changepoint.MAX_STATS, m + 1))
-        work = np.empty(2 * m + 2)
+        work = np.empty(2 * m)
+        index = np.empty(2 * m, dtype=np.int64)
         p = np.arange(m, dtype=np.int64)
-        scale = changepoint._prepare(spec.code, x, p, m, stats, work)
-        beta = spec.params_per_change * math.log(m) * changepoint._noise_factor(spec.code, x, m, scale, work)
+        scale = changepoint._prepare(spec.code, x, p, m, *changepoint._present(x, 0, m)[4:], stats)
+        factor = changepoint._noise_factor(spec.code, x, m, scale, work, index)
+        beta = spec.params_per_change * math.log(m) * factor
         sums = (stats, m, beta, np.zeros(m + 1), False, 2)
         # F, last, starts, candidates' sums, F of the starts, until, values, bounds
         buffers = (np.empty(m + 1), np.empty(m + 1, dtype=np.int64), np.empty(m + 1))

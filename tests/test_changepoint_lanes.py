@@ -55,11 +55,13 @@ def prepared(rows: list[np.ndarray], penalty):
     stats = np.zeros((LANES, changepoint.MAX_STATS, m + 1))
     beta = np.empty(LANES)
     length_term = np.zeros((LANES, m + 1))
-    work = np.empty(2 * m + 2)
+    work = np.empty(2 * m)
+    index = np.empty(2 * m, dtype=np.int64)
     for w, y in enumerate(rows):
-        scale = changepoint._prepare(changepoint.MEAN, y, np.arange(m), m, stats[w], work)
+        lowest, highest, total = changepoint._present(y, 0, m)[4:]
+        scale = changepoint._prepare(changepoint.MEAN, y, np.arange(m), m, lowest, highest, total, stats[w])
         assert scale > 0.0
-        factor = changepoint._noise_factor(changepoint.MEAN, y, m, scale, work)
+        factor = changepoint._noise_factor(changepoint.MEAN, y, m, scale, work, index)
         beta[w] = (
             float(penalty)
             if not isinstance(penalty, str)

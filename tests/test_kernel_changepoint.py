@@ -548,7 +548,7 @@ def search(x, model: str, penalty, min_size: int, functional: bool = True):
     p = np.flatnonzero(keep).astype(np.int64)
     m = len(y)
     stats = np.empty((changepoint.MAX_STATS, m + 1))
-    assert changepoint._prepare(spec.code, y, p, m, stats, np.empty(2 * m + 2))
+    assert changepoint._prepare(spec.code, y, p, m, *changepoint._present(y, 0, m)[4:], stats)
     log_m = math.log(m)
     beta = spec.params_per_change * log_m if penalty == "bic" else 3 * log_m if penalty == "mbic" else float(penalty)
     length_term = np.r_[0.0, np.log(np.arange(1, m + 1)) - log_m]
@@ -800,7 +800,8 @@ def test_rounding_bound_holds_for_segment_costs_at_a_million_points(model):
     x[600_000:600_050] = 2.0
     spec = changepoint.MODELS[model]
     stats = np.empty((changepoint.MAX_STATS, m + 1))
-    assert changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, stats, np.empty(2 * m + 2))
+    summary = changepoint._present(x, 0, m)[4:]
+    assert changepoint._prepare(spec.code, x, np.arange(m, dtype=np.int64), m, *summary, stats)
     bound = changepoint._rounding_scale(spec.code, stats, m)
     pairs = [(m - k, m) for k in (2, 3, 5, 40, 1_000)] + [(600_000, 600_050), (600_010, 600_040), (0, m)]
     pairs += [(m // 2 - 7, m // 2 + 9), (10, 900_000)]
@@ -845,7 +846,7 @@ def test_trend_costs_on_a_million_points_equal_direct_least_squares():
     y = 5.0 + 0.002 * p + rng.standard_normal(len(p))
     m = len(p)
     stats = np.empty((changepoint.MAX_STATS, m + 1))
-    assert changepoint._prepare(changepoint.TREND, y, p, m, stats, np.empty(2 * m + 2))
+    assert changepoint._prepare(changepoint.TREND, y, p, m, *changepoint._present(y, 0, m)[4:], stats)
     variance = changepoint._line_residual_sd(y, p, m)[2] ** 2
     pairs = [(m - 3, m), (m - 10, m), (m - 100, m), (m - 5000, m - 17), (m // 2, m // 2 + 7), (10, 200_000), (0, m)]
     for s, t in pairs:
@@ -1063,7 +1064,7 @@ def test_trend_pruning_margin_holds_for_clipped_costs_at_a_start_line():
     p = np.flatnonzero(keep).astype(np.int64)
     m = len(p)
     stats = np.empty((changepoint.MAX_STATS, m + 1))
-    assert changepoint._prepare(changepoint.TREND, x[keep], p, m, stats, np.empty(2 * m + 2))
+    assert changepoint._prepare(changepoint.TREND, x[keep], p, m, *changepoint._present(x[keep], 0, m)[4:], stats)
     margins = changepoint._trend_margins(changepoint.TREND, stats, m, 28.0, np.zeros(m + 1))
     own = changepoint._trend_rounding(stats, m)[0]
 

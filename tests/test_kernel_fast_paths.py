@@ -1,7 +1,9 @@
 """The kernels' branch-free and shortcut forms against the plain procedures they must equal exactly.
 
 The noise scale of change_points sums parts of an array in the order Hoare's FIND leaves it, so its
-selection must make his exchanges, in his order: checked against FIND written out plainly from the
+selection must make his exchanges, in his order (and its two lags' squares, made in one pass, must give
+what each lag gives by itself, and a row's range and sum, made while its present values are gathered,
+those of the plain procedure): checked against FIND written out plainly from the
 paper (C. A. R. Hoare, "Algorithm 65: Find", Communications of the ACM 4(7), 321-322, 1961; pivot a
 median of three, as the kernels choose it). trend_test's merge sort must give the stable order
 (numpy's stable argsort) and the inversion count (counted pair by pair), also on the integers it sorts
@@ -75,12 +77,59 @@ def test_selection_makes_hoares_exchanges(select):
             if select == "changepoint":
                 m = n if n < 3 else int(rng.integers(n // 2 + 1, n + 1))  # a prefix, as the noise scale uses
                 k = min(k, m - 1)
-                got = changepoint._select(mine, np.int64(k), np.int64(m))
+                index = np.full(2 * m, -1, dtype=np.int64)  # scratch: what it holds must not matter
+                got = changepoint._select(mine, np.int64(k), np.int64(m), index)
             else:
                 m = n
                 got = trend._select(mine, np.int64(k))
             assert got == hoare_find(plain, k, m)
             np.testing.assert_array_equal(mine, plain)  # the same arrangement, not only the same value
+
+
+def plain_difference_scale(y: np.ndarray, lag: int, centred: bool) -> float:
+    """The trimmed semivariogram at ``lag`` one lag at a time: differences, centred on their median (FIND, which
+    reorders them), squared, FIND for the 90 % bound, the smallest summed in the order FIND leaves them."""
+    d = y[lag:] - y[:-lag]
+    centre = 0.0
+    if centred:
+        k = len(d)
+        upper = hoare_find(d, k // 2, k)
+        centre = upper if k % 2 else (max(d[: k // 2]) + upper) / 2.0
+        assert centre == np.median(d)
+    s = (d - centre) ** 2
+    keep = max(1, math.ceil(changepoint.TRIM_KEEP * len(s)))
+    bound = hoare_find(s, keep - 1, len(s))
+    return 0.5 * changepoint.TRIM_CONSISTENCY * (sum_in_order(s[: keep - 1]) + bound) / keep
+
+
+@pytest.mark.parametrize("centred", [False, True])
+def test_both_lags_difference_scales_equal_one_lag_at_a_time(centred):
+    # Mauna Loa CO2 (statsmodels' weekly record, gaps dropped) and seeded noise, walks, ties and level shifts
+    co2 = statsmodels.datasets.co2.load_pandas().data["co2"].dropna().to_numpy()
+    rng = np.random.default_rng(8)
+    rows = [co2, co2[:20], np.round(rng.normal(size=999) * 2), np.cumsum(rng.normal(size=500))]
+    rows += [rng.normal(size=n) + (np.arange(n) > n // 3) * 4.0 for n in (20, 21, 64, 1000)]
+    for y in rows:
+        m = len(y)
+        work = np.full(2 * m, np.nan)
+        index = np.full(2 * m, -1, dtype=np.int64)
+        got = changepoint._difference_scales(y, np.int64(m), centred, work, index)
+        assert got == (plain_difference_scale(y, 1, centred), plain_difference_scale(y, 2, centred))
+
+
+def test_present_values_range_and_sum_equal_the_plain_procedure():
+    # Mauna Loa CO2 (statsmodels' weekly record, its gaps kept: NaN), seeded noise with gaps, ties, signed zeros
+    co2 = statsmodels.datasets.co2.load_pandas().data["co2"].to_numpy()
+    rng = np.random.default_rng(9)
+    gappy = rng.normal(size=500) * 1e3 + 1e6
+    gappy[rng.integers(0, 500, 120)] = np.nan
+    for y in [co2, gappy, np.round(rng.normal(size=300)), np.array([-0.0, 0.0, np.nan, 3.0]), np.array([np.nan, -2.0])]:
+        values, positions, m, finite, lowest, highest, total = changepoint._present(y, 0, len(y))
+        present = y[~np.isnan(y)]
+        assert finite and m == len(present)
+        np.testing.assert_array_equal(values[:m], present)
+        np.testing.assert_array_equal(positions[:m], np.flatnonzero(~np.isnan(y)))
+        assert (lowest, highest, total) == (present.min(), present.max(), sum_in_order(present))
 
 
 def test_merge_sort_order_and_count():

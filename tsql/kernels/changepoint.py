@@ -107,8 +107,8 @@ MODELS: dict[str, CostModel] = {
 
 
 @njit(cache=True, error_model="numpy")
-def _select(a: np.ndarray, k: int, n: int) -> float:
-    """The k-th smallest of ``a[:n]`` (0-based), reordering ``a`` (Hoare 1961, FIND).
+def _select(a: np.ndarray, k: int, n: int, index: np.ndarray) -> float:
+    """The k-th smallest of ``a[:n]`` (0-based), reordering ``a`` (Hoare 1961, FIND); ``index``: ``2 n`` scratch.
 
     Median-of-three pivots; afterwards every ``a[i]`` with ``i < k`` is at most
     the answer.
@@ -120,8 +120,8 @@ def _select(a: np.ndarray, k: int, n: int) -> float:
     two have not crossed; both lists are made first, branch-free, and where the scans
     end follows from them. The array ends as his does (the callers sum parts of it).
     """
-    left = np.empty(n, dtype=np.int64)
-    right = np.empty(n, dtype=np.int64)
+    left = index[:n]
+    right = index[n : 2 * n]
     lo = 0
     hi = n - 1
     while lo < hi:
@@ -130,12 +130,12 @@ def _select(a: np.ndarray, k: int, n: int) -> float:
         z = a[hi]
         pivot = max(min(x, y), min(max(x, y), z))
         n_left = 0
-        for i in range(lo, hi + 1):
-            left[n_left] = i
-            n_left += not (a[i] < pivot)
         n_right = 0
-        for j in range(hi, lo - 1, -1):
+        for i in range(lo, hi + 1):
+            j = hi + lo - i
+            left[n_left] = i
             right[n_right] = j
+            n_left += not (a[i] < pivot)
             n_right += not (a[j] > pivot)
         q = 0
         while q < n_left and q < n_right and left[q] <= right[q]:
@@ -168,9 +168,9 @@ def _select(a: np.ndarray, k: int, n: int) -> float:
 
 
 @njit(cache=True, error_model="numpy")
-def _median(a: np.ndarray, n: int) -> float:
-    """Median of ``a[:n]`` as numpy.median defines it; reorders ``a``."""
-    upper = _select(a, n // 2, n)
+def _median(a: np.ndarray, n: int, index: np.ndarray) -> float:
+    """Median of ``a[:n]`` as numpy.median defines it; reorders ``a`` (``index``: scratch, see :func:`_select`)."""
+    upper = _select(a, n // 2, n, index)
     if n % 2:
         return upper
     lower = a[0]
@@ -180,12 +180,9 @@ def _median(a: np.ndarray, n: int) -> float:
 
 
 @njit(cache=True, error_model="numpy")
-def _std(y: np.ndarray, m: int) -> tuple[float, float]:
-    """Mean and standard deviation (ddof 0) of ``y[:m]``."""
-    mean = 0.0
-    for i in range(m):
-        mean += y[i]
-    mean /= m
+def _std(y: np.ndarray, m: int, total: float) -> tuple[float, float]:
+    """Mean and standard deviation (ddof 0) of ``y[:m]``, whose sum (from 0, in order) is ``total``."""
+    mean = total / m
     acc = 0.0
     for i in range(m):
         acc += (y[i] - mean) ** 2
@@ -193,12 +190,10 @@ def _std(y: np.ndarray, m: int) -> tuple[float, float]:
 
 
 @njit(cache=True, error_model="numpy")
-def _rounding(y: np.ndarray, m: int) -> float:
-    """The scale below which a spread in ``y[:m]`` is rounding: ROUNDING_ULPS ulps of max |y|."""
-    top = 0.0
-    for i in range(m):
-        top = max(top, abs(y[i]))
-    return ROUNDING_ULPS * np.finfo(np.float64).eps * top
+def _rounding(lowest: float, highest: float) -> float:
+    """The scale below which a spread in values from ``lowest`` to ``highest`` is rounding: ROUNDING_ULPS ulps
+    of their largest magnitude."""
+    return ROUNDING_ULPS * np.finfo(np.float64).eps * max(abs(lowest), abs(highest))
 
 
 @njit(cache=True, error_model="numpy")
@@ -226,33 +221,54 @@ def _line_residual_sd(y: np.ndarray, p: np.ndarray, m: int) -> tuple[float, floa
 
 
 @njit(cache=True, error_model="numpy")
-def _difference_scale(y: np.ndarray, m: int, lag: int, centred: bool, work: np.ndarray) -> float:
-    """Trimmed semivariogram at ``lag``: half the mean of the smallest 90 % of ``(d - c)^2``.
-
-    ``d = y[i + lag] - y[i]``; ``c`` is the median of ``d`` when ``centred``
-    (blind to a straight line), else 0 (a trend then counts as drift). The
-    largest tenth, where the level shifts' differences are, is left out; the
-    factor TRIM_CONSISTENCY makes the rest a consistent Gaussian estimate.
-    Reorders ``work[:2 m]``.
-    """
-    k = m - lag
-    d = work[m:]
-    for i in range(k):
-        d[i] = y[i + lag] - y[i]
-    centre = _median(d, k) if centred else 0.0
-    for i in range(k):
-        work[i] = (d[i] - centre) ** 2
+def _trimmed_half_mean(s: np.ndarray, k: int, index: np.ndarray) -> float:
+    """Half the mean of the smallest 90 % of ``s[:k]``, times TRIM_CONSISTENCY; reorders ``s``."""
     keep = max(1, int(math.ceil(TRIM_KEEP * k)))
-    bound = _select(work, keep - 1, k)
+    bound = _select(s, keep - 1, k, index)
     total = 0.0
     for i in range(keep - 1):
-        total += work[i]
+        total += s[i]
     total += bound
     return 0.5 * TRIM_CONSISTENCY * total / keep
 
 
 @njit(cache=True, error_model="numpy")
-def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work: np.ndarray) -> float:
+def _centred_scale(y: np.ndarray, m: int, lag: int, work: np.ndarray, index: np.ndarray) -> float:
+    """:func:`_difference_scales` at one ``lag``, centred: the differences go to ``work[m:]``, their squares to
+    ``work[:m]``."""
+    k = m - lag
+    d = work[m:]
+    for i in range(k):
+        d[i] = y[i + lag] - y[i]
+    centre = _median(d, k, index)
+    for i in range(k):
+        work[i] = (d[i] - centre) ** 2
+    return _trimmed_half_mean(work, k, index)
+
+
+@njit(cache=True, error_model="numpy")
+def _difference_scales(y: np.ndarray, m: int, centred: bool, work: np.ndarray, index: np.ndarray):
+    """Trimmed semivariograms at lags 1 and 2: half the mean of the smallest 90 % of ``(d - c)^2``.
+
+    ``d = y[i + lag] - y[i]``; ``c`` is the median of ``d`` when ``centred``
+    (blind to a straight line), else 0 (a trend then counts as drift). The
+    largest tenth, where the level shifts' differences are, is left out; the
+    factor TRIM_CONSISTENCY makes the rest a consistent Gaussian estimate.
+    Uses ``work[:2 m]`` and ``index[:2 m]``; uncentred, both lags' squares in one pass.
+    """
+    if centred:  # int64 lags, not two literal types: one compile
+        return _centred_scale(y, m, np.int64(1), work, index), _centred_scale(y, m, np.int64(2), work, index)
+    for i in range(m - 2):
+        d1 = y[i + 1] - y[i]
+        d2 = y[i + 2] - y[i]
+        work[i] = d1**2
+        work[m + i] = d2**2
+    work[m - 2] = (y[m - 1] - y[m - 2]) ** 2
+    return _trimmed_half_mean(work, m - 1, index), _trimmed_half_mean(work[m:], m - 2, index)
+
+
+@njit(cache=True, error_model="numpy")
+def _long_run_factor(y, m, variance, centred, work, index) -> float:
     """How much serial dependence inflates the noise: ``max(1, s2_LR / variance)``, at most ``m / 20``.
 
     AR(1) read off a robust semivariogram (see :func:`segments`, Notes):
@@ -264,8 +280,7 @@ def _long_run_factor(y: np.ndarray, m: int, variance: float, centred: bool, work
     """
     if m < LONG_RUN_MIN or not variance > 0.0:
         return 1.0
-    g1 = _difference_scale(y, m, np.int64(1), centred, work)  # int64, not two literal types: one compile
-    g2 = _difference_scale(y, m, np.int64(2), centred, work)
+    g1, g2 = _difference_scales(y, m, centred, work, index)
     if not g1 > 0.0:
         return 1.0
     rho = min(max(g2 / g1 - 1.0, 0.0), LONG_RUN_RHO)
@@ -309,9 +324,9 @@ def _standardised_sums(y, m, centre, scale, stats) -> None:
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare_mean(y, p, m, stats, work) -> float:
-    centre, sd = _std(y, m)
-    if not sd > _rounding(y, m):
+def _prepare_mean(y, p, m, lowest, highest, total, stats) -> float:
+    centre, sd = _std(y, m, total)
+    if not sd > _rounding(lowest, highest):
         return 0.0
     _standardised_sums(y, m, centre, sd, stats)
     return sd
@@ -341,9 +356,9 @@ def _cost_mean(stats, rows, starts, base, idx, m, t, out) -> None:
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare_meanvar(y, p, m, stats, work) -> float:
-    centre, sd = _std(y, m)
-    if not sd > _rounding(y, m):
+def _prepare_meanvar(y, p, m, lowest, highest, total, stats) -> float:
+    centre, sd = _std(y, m, total)
+    if not sd > _rounding(lowest, highest):
         return 0.0
     _standardised_sums(y, m, centre, sd, stats)
     return sd
@@ -375,7 +390,7 @@ _SQUARES_SPLIT = 1 << 24
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare_trend(y, p, m, stats, work) -> float:
+def _prepare_trend(y, p, m, lowest, highest, stats) -> float:
     """Sums over the positions ``u`` (centred on the middle one) and ``z``, the values' residuals
     about the whole series' line in units of their standard deviation.
 
@@ -387,7 +402,7 @@ def _prepare_trend(y, p, m, stats, work) -> float:
     (:func:`_accumulate`).
     """
     centre, slope, sigma = _line_residual_sd(y, p, m)
-    if not sigma > _rounding(y, m):
+    if not sigma > _rounding(lowest, highest):
         return 0.0
     mp = 0.0
     for i in range(m):
@@ -473,21 +488,21 @@ def _cost_trend(stats, rows, starts, base, idx, m, t, out) -> None:
 
 
 @njit(cache=True, error_model="numpy")
-def _prepare(code, y, p, m, stats, work) -> float:
+def _prepare(code, y, p, m, lowest, highest, total, stats) -> float:
     """Fill ``stats[:, :m + 1]`` for model ``code``; the scale the series is standardised by, 0 if it has none
     (the standard deviation about its mean, for 'trend' about its line).
 
-    ``work`` needs ``2 * m`` elements of scratch.
+    ``lowest``, ``highest`` and ``total``: the smallest and largest values and their sum (see :func:`_present`).
     """
     if code == MEAN:
-        return _prepare_mean(y, p, m, stats, work)
+        return _prepare_mean(y, p, m, lowest, highest, total, stats)
     if code == MEANVAR:
-        return _prepare_meanvar(y, p, m, stats, work)
-    return _prepare_trend(y, p, m, stats, work)
+        return _prepare_meanvar(y, p, m, lowest, highest, total, stats)
+    return _prepare_trend(y, p, m, lowest, highest, stats)
 
 
 @njit(cache=True, error_model="numpy")
-def _noise_factor(code, y, m, scale, work) -> float:
+def _noise_factor(code, y, m, scale, work, index) -> float:
     """The long-run factor (>= 1) that multiplies a named penalty for model ``code``.
 
     Against the variance the cost is scaled by, ``scale ** 2`` (``scale`` as :func:`_prepare`
@@ -495,7 +510,7 @@ def _noise_factor(code, y, m, scale, work) -> float:
     residuals' about the series' line for 'trend' (its semivariogram centred, blind to the line).
     """
     centred = code == TREND  # one call site: a literal True / False would compile the callee twice
-    return _long_run_factor(y, m, scale**2, centred, work)
+    return _long_run_factor(y, m, scale**2, centred, work, index)
 
 
 #: smallest ``min_size`` each model accepts
@@ -2102,19 +2117,28 @@ def _at_most(code, stats, m, beta, length_term, use_length_term, min_size, max_c
 
 @njit(cache=True, error_model="numpy")
 def _present(values, lo, n):
-    """The present (non-NaN) values of ``values[lo:lo + n]``, their 0-based positions, their count, all finite?"""
+    """The present (non-NaN) values of ``values[lo:lo + n]``, their 0-based positions, their count, all finite?
+
+    And, when they are all finite, the smallest, the largest and their sum (from 0, in order).
+    """
     y = np.empty(n)
     p = np.empty(n, dtype=np.int64)
     m = 0
     finite = True
+    lowest = np.inf
+    highest = -np.inf
+    total = 0.0
     for i in range(n):
         v = values[lo + i]
         if not np.isnan(v):
             finite = finite and np.isfinite(v)
+            lowest = min(lowest, v)
+            highest = max(highest, v)
+            total += v
             y[m] = v
             p[m] = i
             m += 1
-    return y, p, m, finite
+    return y, p, m, finite, lowest, highest, total
 
 
 @njit(cache=True, error_model="numpy", inline="always")  # one call site: no library of its own
@@ -2131,7 +2155,7 @@ def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p
         return
     lo = offsets[r]
     n = offsets[r + 1] - lo
-    y, p, m, finite = _present(values, lo, n)
+    y, p, m, finite, lowest, highest, total = _present(values, lo, n)
     if m == 0 or not finite or m > MAX_PROGRAMME:
         return
     row_ok[r] = True
@@ -2142,16 +2166,10 @@ def _path_row(r, values, offsets, valid, code, min_size, k_max, changes, cost, p
     p_from[slot] = 0.0
     p_to[slot] = np.inf
     counts[r] = 1
-    lowest = y[0]
-    highest = y[0]
-    for i in range(m):
-        lowest = min(lowest, y[i])
-        highest = max(highest, y[i])
     if m < 2 * min_size or not lowest < highest:
         return
-    work = np.empty(2 * m + 2)
     stats = np.empty((MAX_STATS, m + 1))
-    if not _prepare(code, y, p, m, stats, work) > 0.0:
+    if not _prepare(code, y, p, m, lowest, highest, total, stats) > 0.0:
         return
     k_eff = min(k_max, m // min_size - 1)
     D = np.empty((k_eff + 1, m + 1))
@@ -2250,23 +2268,19 @@ def _row_start(
     no_term = np.zeros(1)
     if not valid[r]:
         return np.empty(0), np.empty(0, dtype=np.int64), 0, 0.0, no_term, False, 0
-    y, p, m, finite = _present(values, lo, n)
+    y, p, m, finite, lowest, highest, total = _present(values, lo, n)
     if m == 0 or not finite:
         return y, p, m, 0.0, no_term, False, 0
-    lowest = y[0]
-    highest = y[0]
-    for i in range(m):
-        lowest = min(lowest, y[i])
-        highest = max(highest, y[i])
     if not (m >= 2 * min_size and lowest < highest):
         return y, p, m, 0.0, no_term, False, 1
-    work = np.empty(2 * m + 2)
-    scale = _prepare(code, y, p, m, stats, work)
+    scale = _prepare(code, y, p, m, lowest, highest, total, stats)
     if not scale > 0.0:
         return y, p, m, 0.0, no_term, False, 1
     log_m = math.log(m)
     # a named penalty grows with the serial dependence of the noise (see segments, Notes)
-    factor = 1.0 if penalty_kind == _FIXED else _noise_factor(code, y, m, scale, work)
+    factor = 1.0
+    if penalty_kind != _FIXED:
+        factor = _noise_factor(code, y, m, scale, np.empty(2 * m), np.empty(2 * m, dtype=np.int64))
     if penalty_kind != _FIXED:
         factor = max(factor, least_factor[r])  # a removed cycle's degrees of freedom (see _cycle_factor)
     if penalty_kind == _BIC:
@@ -2276,10 +2290,10 @@ def _row_start(
     else:
         beta = penalty_value
     use_length_term = penalty_kind == _MBIC
-    length_term = np.empty(m + 1)
-    length_term[0] = 0.0
-    for k in range(1, m + 1):
-        length_term[k] = (math.log(k) - log_m) * factor if use_length_term else 0.0
+    length_term = np.zeros(m + 1)
+    if use_length_term:
+        for k in range(1, m + 1):
+            length_term[k] = (math.log(k) - log_m) * factor
     return y, p, m, beta, length_term, use_length_term, 2
 
 
@@ -3177,7 +3191,7 @@ def _segment_levels(values, offsets, rows, slots, counts, first, out_mean, out_s
     """Level and slope of each segment of ``rows``, from ``values``: segments ``slots[r]`` to
     ``slots[r] + counts[r]``, each starting at the 1-based position ``first``."""
     for r in rows:
-        y, p, m, _ = _present(values, offsets[r], offsets[r + 1] - offsets[r])
+        y, p, m = _present(values, offsets[r], offsets[r + 1] - offsets[r])[:3]
         a = 0
         for k in range(counts[r]):
             w = slots[r] + k
