@@ -345,7 +345,7 @@ WARM_UP_JOBS = (
     warming.Job(
         "SELECT change_points([0.0, 0, 0, 5, 5, 5], model := 'meanvar')",
         ("tsql.kernels.changepoint:_segment_rows",),
-        15.0,
+        28.0,
     ),
     warming.Job(
         """SELECT count(*) FROM (SELECT unnest(dtw_nearest(id, s, k := 1, band := 2, normalize := true))
@@ -353,7 +353,7 @@ WARM_UP_JOBS = (
         ("tsql.kernels.nearest:_prepare_rows", "tsql.kernels.nearest:_setup", "tsql.kernels.nearest:_items"),
         11.0,
     ),
-    warming.Job("SELECT trend_test([0.0, 2, 1, 3, 5, 4])", ("tsql.kernels.trend:_rows",), 10.0),
+    warming.Job("SELECT trend_test([0.0, 2, 1, 3, 5, 4])", ("tsql.kernels.trend:_rows",), 15.0),
     warming.Job(
         "SELECT sparkline([0.0, 2, 1]), seasonality([0.0, 1, 0, -1, 0, 1, 0, -1]).period",
         (
