@@ -2415,27 +2415,19 @@ def _segment_row(
     )
     last = np.empty(m + 1, dtype=np.int64)
     if state == 2:
-        _pelt(
-            code,
-            n_stats,
-            stats,
-            m,
-            beta,
-            length_term,
-            use_length_term,
-            min_size,
-            np.empty(m + 1),
-            last,
-            np.empty(m + 1),
-            np.empty((MAX_STATS, m + 1)),
-            np.empty(m + 1),
-            np.empty(m + 1),
-            np.empty(m + 1),
-            np.empty((_BOX_ROWS, m + 1)),
-        )
+        _search_row(code, n_stats, stats, m, beta, length_term, use_length_term, min_size, np.empty(m + 1), last)
     _row_end(
         r, y, p, m, state, stats, beta, length_term, use_length_term, last, offsets, code, min_size, max_changes,
         out_first, out_last, out_mean, out_slope, counts, row_ok, residual,
+    )  # fmt: skip
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _search_row(code, n_stats, stats, m, beta, length_term, use_length_term, min_size, F, last) -> None:
+    """:func:`_pelt` on one row with work buffers of its own (so no answer depends on another row's)."""
+    _pelt(
+        code, n_stats, stats, m, beta, length_term, use_length_term, min_size, F, last, np.empty(m + 1),
+        np.empty((MAX_STATS, m + 1)), np.empty(m + 1), np.empty(m + 1), np.empty(m + 1), np.empty((_BOX_ROWS, m + 1)),
     )  # fmt: skip
 
 
@@ -2576,11 +2568,7 @@ def _segment_group(
             _fpop_lanes(stats, m, betas, terms, use_length_term, min_size, F, last)
         else:  # the rows left over
             for k in range(filled):
-                _pelt(
-                    code, n_stats, stats[k], m, betas[k], terms[k], use_length_term, min_size, F[k], last[k],
-                    np.empty(m + 1), np.empty((MAX_STATS, m + 1)), np.empty(m + 1), np.empty(m + 1),
-                    np.empty(m + 1), np.empty((_BOX_ROWS, m + 1)),
-                )  # fmt: skip
+                _search_row(code, n_stats, stats[k], m, betas[k], terms[k], use_length_term, min_size, F[k], last[k])
         for k in range(filled):
             _row_end(
                 members[k], ys[k], ps[k], m, searched, stats[k], betas[k], terms[k], use_length_term, last[k], offsets,
