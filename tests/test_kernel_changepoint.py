@@ -112,6 +112,26 @@ def exhaustive(x, model: str, penalty, min_size: int) -> list[int]:
     return [int(t[s]) + 1 for s in sorted(starts)[1:]]
 
 
+def segmentation_total(x, model: str, penalty, changes: list[int]) -> float:
+    """The penalised total cost that :func:`exhaustive` minimises, of the segmentation with these change points."""
+    x = np.asarray(x, dtype=float)
+    keep = ~np.isnan(x)
+    y, t = x[keep], np.flatnonzero(keep).astype(float)
+    m = len(y)
+    scale = sigma_first(y) if model == "mean" else sigma_second(y, t) if model == "trend" else float(np.std(y))
+    params = {"mean": 2, "meanvar": 3, "trend": 3}[model]
+    factor = 1.0 if not isinstance(penalty, str) else long_run_factor(model, y, t)
+    beta = params * math.log(m) if penalty == "bic" else 3 * math.log(m) if penalty == "mbic" else penalty
+    beta *= factor
+    bounds = [0] + [int(np.searchsorted(t, c - 1)) for c in changes] + [m]
+    total = -beta
+    for a, b in zip(bounds[:-1], bounds[1:]):
+        total += segment_cost(model, y[a:b], t[a:b], scale) + beta
+        if penalty == "mbic":
+            total += math.log((b - a) / m) * factor
+    return total
+
+
 def optimal_partitioning_mean(x, penalty, min_size: int) -> list[int]:
     """Optimal partitioning (Jackson et al. 2005) for 'mean', every start at once for each end: O(n^2).
 
@@ -214,15 +234,23 @@ def test_pelt_equals_exhaustive_search(model, sizes):
             x[rng.integers(0, len(x), 3)] = np.nan
         signals.append(x)
     batch = Ragged.from_list(signals)
-    checked = 0
+    checked = ties = 0
     for min_size in sizes:
         for penalty in (0.0, 0.7, 4.0, 15.0, "bic", "mbic"):
             got = change_points(batch, model, penalty, min_size, seasonal="none")
             for i, x in enumerate(signals):
                 expected = exhaustive(x, model, penalty, min_size)
-                assert cps(got, i) == expected, (model, min_size, penalty, i)
+                if cps(got, i) != expected:
+                    # only a tie may differ: the two totals equal but for the reference's own rounding
+                    # (np.polyfit's LAPACK rounds differently on different CPUs; a 4-point 'trend'
+                    # series costs 4 unsegmented, as much as a change at its middle with penalty 4)
+                    ours = segmentation_total(x, model, penalty, cps(got, i))
+                    best = segmentation_total(x, model, penalty, expected)
+                    assert abs(ours - best) <= 1e-12 * (1.0 + abs(best)), (model, min_size, penalty, i, ours, best)
+                    ties += 1
                 checked += len(expected)
     assert checked > 300  # the signals do have change points to find
+    assert ties <= 2  # a tie within rounding is rare: the answers are compared, not only the totals
 
 
 def test_pelt_equals_ruptures_exact_pelt():
