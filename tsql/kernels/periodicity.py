@@ -695,8 +695,8 @@ def detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray,
         mean = matrix.sum(axis=1) / n
         suu = n * (n * n - 1.0) / 12.0
         slope = np.einsum("ij,j->i", matrix, u) / suu  # sum u = 0, so the mean drops out
-        resid = matrix - mean[:, None]
-        resid -= slope[:, None] * u
+        resid = np.empty((n_rows, n))
+        _line_removed(matrix, mean, slope, u, resid)
         return resid, count, np.abs(mean), slope * slope * suu
     w = present.astype(np.float64)
     x = np.where(present, matrix, 0.0)
@@ -708,6 +708,16 @@ def detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray,
     suu = (uc * uc).sum(axis=1)
     slope = np.where(suu > 0, (uc * xc).sum(axis=1) / np.where(suu > 0, suu, 1.0), 0.0)
     return xc - slope[:, None] * uc, count, np.abs(mean), slope * slope * suu
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _line_removed(matrix, mean, slope, u, out) -> None:
+    """``out[r, t] = (matrix[r, t] - mean[r]) - slope[r] u[t]``, in one pass without a table of the line."""
+    rows, n = matrix.shape
+    for r in range(rows):
+        level, rise = mean[r], slope[r]
+        for t in range(n):
+            out[r, t] = (matrix[r, t] - level) - rise * u[t]
 
 
 # --------------------------------------------------------------------------------------------
@@ -1044,7 +1054,7 @@ def spectral_entropy(batch: Ragged) -> np.ndarray:
         if n < _MIN_PRESENT:
             continue
         matrix = in_safe_range(matrix)
-        scale = np.abs(matrix).max(axis=1)  # NaN where a value is missing
+        scale = np.maximum(matrix.max(axis=1), -matrix.min(axis=1))  # max |value|; NaN where a value is missing
         if np.isfinite(scale).all():  # every value present and finite: the masks below would keep them all
             count = np.full(len(rows), n)
             x = matrix - (matrix.sum(axis=1) / n)[:, None]
@@ -1061,11 +1071,12 @@ def spectral_entropy(batch: Ragged) -> np.ndarray:
         if not answered.any():
             continue
         spectrum = np.fft.rfft(x if answered.all() else x[answered], axis=1)[:, 1:]
-        power = spectrum.real * spectrum.real + spectrum.imag * spectrum.imag
+        power = spectrum.real**2 + spectrum.imag**2
         power[:, : (n - 1) // 2] *= 2.0  # the one-sided periodogram: every bin but Nyquist stands for two
         share = power / power.sum(axis=1)[:, None]
         if (share > 0).all():
-            terms = share * np.log(share)
+            terms = np.log(share)
+            terms *= share
         else:
             terms = np.where(share > 0, share * np.log(np.where(share > 0, share, 1.0)), 0.0)
         out[rows[answered]] = np.clip(-terms.sum(axis=1) / np.log(n // 2), 0.0, 1.0) + 0.0  # no -0.0
