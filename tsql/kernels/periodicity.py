@@ -258,7 +258,9 @@ def fisher_g_pvalue(g: np.ndarray, m: np.ndarray) -> np.ndarray:
     # needs; a row's terms beyond its own are 0 and leave its sum as it is, so the band changes no bit.
     # Narrow bands share the next one's table while it stays small (fewer calls for few rows).
     band = np.ceil(np.log2(np.clip(needed, 1.0, _FISHER_TERMS))).astype(np.int64)
-    bands, rows = np.unique(band, return_counts=True)
+    rows = np.bincount(band)
+    bands = np.flatnonzero(rows)
+    rows = rows[bands]
     p = np.empty(len(x))
     lo = 0
     while lo < len(bands):
@@ -278,7 +280,9 @@ def _fisher_terms(x: np.ndarray, mm: np.ndarray, needed: np.ndarray) -> np.ndarr
     j = np.arange(1, width + 1, dtype=np.float64)
     jx = x[:, None] * j
     used = (j <= mm[:, None]) & (jx < 1.0)
-    log_comb = np.cumsum(np.log(np.maximum(mm[:, None] - j + 1.0, 1.0) / j), axis=1)
+    # log C(m, j) depends on m alone: one row of it when every row has the same m (one length)
+    first = mm[:1] if mm.min() == mm.max() else mm
+    log_comb = np.cumsum(np.log(np.maximum(first[:, None] - j + 1.0, 1.0) / j), axis=1)
     log_term = np.where(used, log_comb + (mm[:, None] - 1.0) * np.log1p(-np.where(used, jx, 0.0)), -np.inf)
     terms = np.exp(log_term)
     # a running (sequential) sum: a row's value does not depend on the table width
@@ -532,12 +536,28 @@ def cycle_p_value(
         m = tested.sum(axis=1).astype(np.float64)
         at_peak = np.take_along_axis(tested, peak[:, None], axis=1)[:, 0]
     untested = ~tested
+    if below is None:  # both tests of every row: their statistics referred to Fisher's distribution in one call
+        white_g = _fisher_statistic(np.where(tested, power, 0.0), peak, at_peak)
+        red_g = _fisher_statistic(_red(power, n, untested), peak, at_peak)
+        p = fisher_g_pvalue(np.concatenate([white_g, red_g]), np.tile(np.maximum(m, 1.0), 2))
+        white = np.maximum(0.0, p[:rows])  # NaN stays NaN
+        return np.where(m > 0, np.maximum(white, p[rows:]), np.nan)
     white = np.maximum(0.0, _fisher_at(np.where(tested, power, 0.0), peak, at_peak, m, below))  # NaN stays NaN
     p_value = np.where(m > 0, white, np.nan)
-    red = slice(None) if below is None else np.flatnonzero(white < below)
-    if below is not None and len(red) < rows:
+    red = np.flatnonzero(white < below)
+    if len(red) < rows:
         power, peak, at_peak, m = power[red], peak[red], at_peak[red], m[red]
         untested = untested if untested.ndim == 1 else untested[red]
+    p_value[red] = np.where(
+        m > 0, np.maximum(white[red], _fisher_at(_red(power, n, untested), peak, at_peak, m)), np.nan
+    )
+    return p_value
+
+
+def _red(power: np.ndarray, n: int, untested: np.ndarray) -> np.ndarray:
+    """The ordinates ``power`` divided by each row's red background (see :func:`cycle_p_value`), 0 where
+    ``untested``."""
+    width = power.shape[1]
     cos = np.cos(2.0 * np.pi * np.arange(width) / n)
     weight = np.full(width, 2.0)
     weight[0] = 1.0
@@ -555,8 +575,7 @@ def cycle_p_value(
     whitened += phi * phi
     whitened *= power
     np.copyto(whitened, 0.0, where=untested)
-    p_value[red] = np.where(m > 0, np.maximum(white[red], _fisher_at(whitened, peak, at_peak, m)), np.nan)
-    return p_value
+    return whitened
 
 
 def _fisher_at(
@@ -564,12 +583,7 @@ def _fisher_at(
 ) -> np.ndarray:
     """Fisher's g p-value of each row's ordinate at ``peak`` (its largest where not ``at_peak``) in ``whitened``,
     whose untested bins are 0; with ``below``, a lower bound instead where that bound is at least twice it."""
-    top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
-    if not at_peak.all():
-        top[~at_peak] = whitened[~at_peak].max(axis=1)
-    denominator = whitened.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        g = np.where(denominator > 0, top / denominator, np.nan)
+    g = _fisher_statistic(whitened, peak, at_peak)
     m = np.maximum(m, 1.0)
     if below is None:
         return fisher_g_pvalue(g, m)
@@ -581,6 +595,17 @@ def _fisher_at(
     open_ = ~(p >= 2.0 * below)
     p[open_] = fisher_g_pvalue(g[open_], m[open_])
     return p
+
+
+def _fisher_statistic(whitened: np.ndarray, peak: np.ndarray, at_peak: np.ndarray) -> np.ndarray:
+    """Fisher's g of each row's ordinate at ``peak`` (its largest where not ``at_peak``) in ``whitened``, whose
+    untested bins are 0 (NaN where their sum is 0)."""
+    top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
+    if not at_peak.all():
+        top[~at_peak] = whitened[~at_peak].max(axis=1)
+    denominator = whitened.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(denominator > 0, top / denominator, np.nan)
 
 
 def _fisher_lower_bound(g: np.ndarray, m: np.ndarray) -> np.ndarray:
@@ -647,8 +672,9 @@ def refine(sums: Sums, k: np.ndarray, near_bins: np.ndarray, lo: np.ndarray, hi:
     omega = 2.0 * np.pi * grid[:, on_bins]
     turn = omega * (0.5 * (n[:, None] - 1.0))
     re, im = near_bins.real, near_bins.imag
-    c = re * np.cos(turn) - im * np.sin(turn)
-    s = -(im * np.cos(turn) + re * np.sin(turn))
+    cos_turn, sin_turn = np.cos(turn), np.sin(turn)
+    c = re * cos_turn - im * sin_turn
+    s = -(im * cos_turn + re * sin_turn)
     q[:, on_bins] = _fit_from_sums(c, s, omega, n[:, None])
     q[:, ~on_bins] = _sinusoid_fit(sums, 2.0 * np.pi * grid[:, ~on_bins])
     inside = (grid >= lo[:, None]) & (grid <= hi[:, None])
@@ -848,9 +874,12 @@ def _dirichlet(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
     half = 0.5 * theta
     s = np.sin(half)
     small = np.abs(s) < 1e-9
-    regular = np.sin(n * half) / np.where(small, 1.0, s)
-    limit = n * np.cos(n * half) / np.cos(half)
-    return np.where(small, limit, regular)
+    n_half = n * half
+    out = np.sin(n_half) / np.where(small, 1.0, s)
+    if small.any():  # the limit only where it is taken
+        n_small, half_small = np.broadcast_to(n, out.shape)[small], np.broadcast_to(half, out.shape)[small]
+        out[small] = n_small * np.cos(np.broadcast_to(n_half, out.shape)[small]) / np.cos(half_small)
+    return out
 
 
 def _dirichlet_slope(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
