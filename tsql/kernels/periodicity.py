@@ -445,7 +445,7 @@ def _spectral_peak(
     present = ~np.isnan(matrix) if gaps else None
     resid, count, level, trend_ss = detrend(matrix, present)
     spectrum = np.fft.rfft(resid, axis=1)
-    power = spectrum.real**2 + spectrum.imag**2
+    power = _power(spectrum)
     # sum of squares of the residuals, by Parseval (missing elements are 0)
     tss = 2.0 * power.sum(axis=1) - power[:, 0]
     if n % 2 == 0:
@@ -476,7 +476,7 @@ def _spectral_peak(
             test_power = power
             if present is not None:
                 filled = np.fft.rfft(fill_gaps(resid, present), axis=1)
-                test_power = filled.real**2 + filled.imag**2
+                test_power = _power(filled)
             p_value = cycle_p_value(test_power, n, k, tested, below)
         if below is not None:
             kept = p_value < below
@@ -734,6 +734,25 @@ def detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray,
     suu = (uc * uc).sum(axis=1)
     slope = np.where(suu > 0, (uc * xc).sum(axis=1) / np.where(suu > 0, suu, 1.0), 0.0)
     return xc - slope[:, None] * uc, count, np.abs(mean), slope * slope * suu
+
+
+def _power(spectrum: np.ndarray, first: int = 0, doubled: int = 0) -> np.ndarray:
+    """``|X_k|^2`` (``re * re + im * im``) of the columns from ``first`` of each row of ``spectrum``, the first
+    ``doubled`` of them times 2."""
+    out = np.empty((spectrum.shape[0], spectrum.shape[1] - first))
+    _periodogram(spectrum, first, doubled, out)
+    return out
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _periodogram(spectrum, first, doubled, out) -> None:
+    """:func:`_power` into ``out``, in one pass without tables of the real and imaginary parts."""
+    rows, width = out.shape
+    for r in range(rows):
+        for k in range(width):
+            z = spectrum[r, first + k]
+            p = z.real * z.real + z.imag * z.imag
+            out[r, k] = 2.0 * p if k < doubled else p
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
@@ -1099,9 +1118,9 @@ def spectral_entropy(batch: Ragged) -> np.ndarray:
         answered = valid[rows] & finite & (count >= _MIN_PRESENT) & (spread > _CONSTANT_RTOL * scale)
         if not answered.any():
             continue
-        spectrum = np.fft.rfft(x if answered.all() else x[answered], axis=1)[:, 1:]
-        power = spectrum.real**2 + spectrum.imag**2
-        power[:, : (n - 1) // 2] *= 2.0  # the one-sided periodogram: every bin but Nyquist stands for two
+        spectrum = np.fft.rfft(x if answered.all() else x[answered], axis=1)
+        # the one-sided periodogram without the zero frequency: every bin but Nyquist stands for two
+        power = _power(spectrum, first=1, doubled=(n - 1) // 2)
         share = power / power.sum(axis=1)[:, None]
         if (share > 0).all():
             terms = np.log(share)
