@@ -39,7 +39,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from tsql.kernels.ragged import Ragged, full, in_safe_range
+from tsql.kernels.ragged import Ragged, frozen, full, in_safe_range
 
 __all__ = ["dominant_period", "seasonality", "cycle_test", "fisher_g_pvalue", "cycle_p_value", "fill_gaps"]
 
@@ -722,7 +722,7 @@ def detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray,
         suu = n * (n * n - 1.0) / 12.0
         slope = np.einsum("ij,j->i", matrix, u) / suu  # sum u = 0, so the mean drops out
         resid = np.empty((n_rows, n))
-        _line_removed(matrix, mean, slope, u, resid)
+        _line_removed(frozen(matrix), mean, slope, u, resid)  # frozen: one compiled signature for views and copies
         return resid, count, np.abs(mean), slope * slope * suu
     w = present.astype(np.float64)
     x = np.where(present, matrix, 0.0)
