@@ -51,5 +51,5 @@ def test_stop_ends_the_workers():
 
 def test_jobs_go_longest_first_to_the_least_loaded_worker():
     shares = warming._shares(list(WARM_UP_JOBS), 2)
-    assert [[job.seconds for job in share] for share in shares] == [[28.0], [15.0, 11.0, 1.5]]
+    assert [[job.seconds for job in share] for share in shares] == [[28.0], [15.0, 11.0, 2.5]]
     assert [len(share) for share in warming._shares(list(WARM_UP_JOBS), 4)] == [1, 1, 1, 1]

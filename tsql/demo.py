@@ -360,8 +360,10 @@ WARM_UP_JOBS = (
             "tsql.kernels.sparkline:_row_levels",
             "tsql.kernels.periodicity:_unit_powers",
             "tsql.kernels.periodicity:_block_sums",
+            "tsql.kernels.periodicity:_line_removed",
+            "tsql.kernels.periodicity:_periodogram",
         ),
-        1.5,
+        2.5,
     ),
 )
 

@@ -39,7 +39,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from tsql.kernels.ragged import Ragged, full, in_safe_range
+from tsql.kernels.ragged import Ragged, frozen, full, in_safe_range
 
 __all__ = ["dominant_period", "seasonality", "cycle_test", "fisher_g_pvalue", "cycle_p_value", "fill_gaps"]
 
@@ -258,7 +258,9 @@ def fisher_g_pvalue(g: np.ndarray, m: np.ndarray) -> np.ndarray:
     # needs; a row's terms beyond its own are 0 and leave its sum as it is, so the band changes no bit.
     # Narrow bands share the next one's table while it stays small (fewer calls for few rows).
     band = np.ceil(np.log2(np.clip(needed, 1.0, _FISHER_TERMS))).astype(np.int64)
-    bands, rows = np.unique(band, return_counts=True)
+    rows = np.bincount(band)
+    bands = np.flatnonzero(rows)
+    rows = rows[bands]
     p = np.empty(len(x))
     lo = 0
     while lo < len(bands):
@@ -278,7 +280,9 @@ def _fisher_terms(x: np.ndarray, mm: np.ndarray, needed: np.ndarray) -> np.ndarr
     j = np.arange(1, width + 1, dtype=np.float64)
     jx = x[:, None] * j
     used = (j <= mm[:, None]) & (jx < 1.0)
-    log_comb = np.cumsum(np.log(np.maximum(mm[:, None] - j + 1.0, 1.0) / j), axis=1)
+    # log C(m, j) depends on m alone: one row of it when every row has the same m (one length)
+    first = mm[:1] if mm.min() == mm.max() else mm
+    log_comb = np.cumsum(np.log(np.maximum(first[:, None] - j + 1.0, 1.0) / j), axis=1)
     log_term = np.where(used, log_comb + (mm[:, None] - 1.0) * np.log1p(-np.where(used, jx, 0.0)), -np.inf)
     terms = np.exp(log_term)
     # a running (sequential) sum: a row's value does not depend on the table width
@@ -441,7 +445,7 @@ def _spectral_peak(
     present = ~np.isnan(matrix) if gaps else None
     resid, count, level, trend_ss = detrend(matrix, present)
     spectrum = np.fft.rfft(resid, axis=1)
-    power = spectrum.real**2 + spectrum.imag**2
+    power = _power(spectrum)
     # sum of squares of the residuals, by Parseval (missing elements are 0)
     tss = 2.0 * power.sum(axis=1) - power[:, 0]
     if n % 2 == 0:
@@ -472,7 +476,7 @@ def _spectral_peak(
             test_power = power
             if present is not None:
                 filled = np.fft.rfft(fill_gaps(resid, present), axis=1)
-                test_power = filled.real**2 + filled.imag**2
+                test_power = _power(filled)
             p_value = cycle_p_value(test_power, n, k, tested, below)
         if below is not None:
             kept = p_value < below
@@ -532,12 +536,28 @@ def cycle_p_value(
         m = tested.sum(axis=1).astype(np.float64)
         at_peak = np.take_along_axis(tested, peak[:, None], axis=1)[:, 0]
     untested = ~tested
+    if below is None:  # both tests of every row: their statistics referred to Fisher's distribution in one call
+        white_g = _fisher_statistic(np.where(tested, power, 0.0), peak, at_peak)
+        red_g = _fisher_statistic(_red(power, n, untested), peak, at_peak)
+        p = fisher_g_pvalue(np.concatenate([white_g, red_g]), np.tile(np.maximum(m, 1.0), 2))
+        white = np.maximum(0.0, p[:rows])  # NaN stays NaN
+        return np.where(m > 0, np.maximum(white, p[rows:]), np.nan)
     white = np.maximum(0.0, _fisher_at(np.where(tested, power, 0.0), peak, at_peak, m, below))  # NaN stays NaN
     p_value = np.where(m > 0, white, np.nan)
-    red = slice(None) if below is None else np.flatnonzero(white < below)
-    if below is not None and len(red) < rows:
+    red = np.flatnonzero(white < below)
+    if len(red) < rows:
         power, peak, at_peak, m = power[red], peak[red], at_peak[red], m[red]
         untested = untested if untested.ndim == 1 else untested[red]
+    p_value[red] = np.where(
+        m > 0, np.maximum(white[red], _fisher_at(_red(power, n, untested), peak, at_peak, m)), np.nan
+    )
+    return p_value
+
+
+def _red(power: np.ndarray, n: int, untested: np.ndarray) -> np.ndarray:
+    """The ordinates ``power`` divided by each row's red background (see :func:`cycle_p_value`), 0 where
+    ``untested``."""
+    width = power.shape[1]
     cos = np.cos(2.0 * np.pi * np.arange(width) / n)
     weight = np.full(width, 2.0)
     weight[0] = 1.0
@@ -555,8 +575,7 @@ def cycle_p_value(
     whitened += phi * phi
     whitened *= power
     np.copyto(whitened, 0.0, where=untested)
-    p_value[red] = np.where(m > 0, np.maximum(white[red], _fisher_at(whitened, peak, at_peak, m)), np.nan)
-    return p_value
+    return whitened
 
 
 def _fisher_at(
@@ -564,12 +583,7 @@ def _fisher_at(
 ) -> np.ndarray:
     """Fisher's g p-value of each row's ordinate at ``peak`` (its largest where not ``at_peak``) in ``whitened``,
     whose untested bins are 0; with ``below``, a lower bound instead where that bound is at least twice it."""
-    top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
-    if not at_peak.all():
-        top[~at_peak] = whitened[~at_peak].max(axis=1)
-    denominator = whitened.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        g = np.where(denominator > 0, top / denominator, np.nan)
+    g = _fisher_statistic(whitened, peak, at_peak)
     m = np.maximum(m, 1.0)
     if below is None:
         return fisher_g_pvalue(g, m)
@@ -581,6 +595,17 @@ def _fisher_at(
     open_ = ~(p >= 2.0 * below)
     p[open_] = fisher_g_pvalue(g[open_], m[open_])
     return p
+
+
+def _fisher_statistic(whitened: np.ndarray, peak: np.ndarray, at_peak: np.ndarray) -> np.ndarray:
+    """Fisher's g of each row's ordinate at ``peak`` (its largest where not ``at_peak``) in ``whitened``, whose
+    untested bins are 0 (NaN where their sum is 0)."""
+    top = np.take_along_axis(whitened, peak[:, None], axis=1)[:, 0]
+    if not at_peak.all():
+        top[~at_peak] = whitened[~at_peak].max(axis=1)
+    denominator = whitened.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(denominator > 0, top / denominator, np.nan)
 
 
 def _fisher_lower_bound(g: np.ndarray, m: np.ndarray) -> np.ndarray:
@@ -647,8 +672,9 @@ def refine(sums: Sums, k: np.ndarray, near_bins: np.ndarray, lo: np.ndarray, hi:
     omega = 2.0 * np.pi * grid[:, on_bins]
     turn = omega * (0.5 * (n[:, None] - 1.0))
     re, im = near_bins.real, near_bins.imag
-    c = re * np.cos(turn) - im * np.sin(turn)
-    s = -(im * np.cos(turn) + re * np.sin(turn))
+    cos_turn, sin_turn = np.cos(turn), np.sin(turn)
+    c = re * cos_turn - im * sin_turn
+    s = -(im * cos_turn + re * sin_turn)
     q[:, on_bins] = _fit_from_sums(c, s, omega, n[:, None])
     q[:, ~on_bins] = _sinusoid_fit(sums, 2.0 * np.pi * grid[:, ~on_bins])
     inside = (grid >= lo[:, None]) & (grid <= hi[:, None])
@@ -695,8 +721,8 @@ def detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray,
         mean = matrix.sum(axis=1) / n
         suu = n * (n * n - 1.0) / 12.0
         slope = np.einsum("ij,j->i", matrix, u) / suu  # sum u = 0, so the mean drops out
-        resid = matrix - mean[:, None]
-        resid -= slope[:, None] * u
+        resid = np.empty((n_rows, n))
+        _line_removed(frozen(matrix), mean, slope, u, resid)  # frozen: one compiled signature for views and copies
         return resid, count, np.abs(mean), slope * slope * suu
     w = present.astype(np.float64)
     x = np.where(present, matrix, 0.0)
@@ -708,6 +734,35 @@ def detrend(matrix: np.ndarray, present: np.ndarray | None) -> tuple[np.ndarray,
     suu = (uc * uc).sum(axis=1)
     slope = np.where(suu > 0, (uc * xc).sum(axis=1) / np.where(suu > 0, suu, 1.0), 0.0)
     return xc - slope[:, None] * uc, count, np.abs(mean), slope * slope * suu
+
+
+def _power(spectrum: np.ndarray, first: int = 0, doubled: int = 0) -> np.ndarray:
+    """``|X_k|^2`` (``re * re + im * im``) of the columns from ``first`` of each row of ``spectrum``, the first
+    ``doubled`` of them times 2."""
+    out = np.empty((spectrum.shape[0], spectrum.shape[1] - first))
+    _periodogram(spectrum, first, doubled, out)
+    return out
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _periodogram(spectrum, first, doubled, out) -> None:
+    """:func:`_power` into ``out``, in one pass without tables of the real and imaginary parts."""
+    rows, width = out.shape
+    for r in range(rows):
+        for k in range(width):
+            z = spectrum[r, first + k]
+            p = z.real * z.real + z.imag * z.imag
+            out[r, k] = 2.0 * p if k < doubled else p
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _line_removed(matrix, mean, slope, u, out) -> None:
+    """``out[r, t] = (matrix[r, t] - mean[r]) - slope[r] u[t]``, in one pass without a table of the line."""
+    rows, n = matrix.shape
+    for r in range(rows):
+        level, rise = mean[r], slope[r]
+        for t in range(n):
+            out[r, t] = (matrix[r, t] - level) - rise * u[t]
 
 
 # --------------------------------------------------------------------------------------------
@@ -838,9 +893,12 @@ def _dirichlet(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
     half = 0.5 * theta
     s = np.sin(half)
     small = np.abs(s) < 1e-9
-    regular = np.sin(n * half) / np.where(small, 1.0, s)
-    limit = n * np.cos(n * half) / np.cos(half)
-    return np.where(small, limit, regular)
+    n_half = n * half
+    out = np.sin(n_half) / np.where(small, 1.0, s)
+    if small.any():  # the limit only where it is taken
+        n_small, half_small = np.broadcast_to(n, out.shape)[small], np.broadcast_to(half, out.shape)[small]
+        out[small] = n_small * np.cos(np.broadcast_to(n_half, out.shape)[small]) / np.cos(half_small)
+    return out
 
 
 def _dirichlet_slope(theta: np.ndarray, n: np.ndarray) -> np.ndarray:
@@ -1044,7 +1102,7 @@ def spectral_entropy(batch: Ragged) -> np.ndarray:
         if n < _MIN_PRESENT:
             continue
         matrix = in_safe_range(matrix)
-        scale = np.abs(matrix).max(axis=1)  # NaN where a value is missing
+        scale = np.maximum(matrix.max(axis=1), -matrix.min(axis=1))  # max |value|; NaN where a value is missing
         if np.isfinite(scale).all():  # every value present and finite: the masks below would keep them all
             count = np.full(len(rows), n)
             x = matrix - (matrix.sum(axis=1) / n)[:, None]
@@ -1060,12 +1118,13 @@ def spectral_entropy(batch: Ragged) -> np.ndarray:
         answered = valid[rows] & finite & (count >= _MIN_PRESENT) & (spread > _CONSTANT_RTOL * scale)
         if not answered.any():
             continue
-        spectrum = np.fft.rfft(x if answered.all() else x[answered], axis=1)[:, 1:]
-        power = spectrum.real * spectrum.real + spectrum.imag * spectrum.imag
-        power[:, : (n - 1) // 2] *= 2.0  # the one-sided periodogram: every bin but Nyquist stands for two
+        spectrum = np.fft.rfft(x if answered.all() else x[answered], axis=1)
+        # the one-sided periodogram without the zero frequency: every bin but Nyquist stands for two
+        power = _power(spectrum, first=1, doubled=(n - 1) // 2)
         share = power / power.sum(axis=1)[:, None]
         if (share > 0).all():
-            terms = share * np.log(share)
+            terms = np.log(share)
+            terms *= share
         else:
             terms = np.where(share > 0, share * np.log(np.where(share > 0, share, 1.0)), 0.0)
         out[rows[answered]] = np.clip(-terms.sum(axis=1) / np.log(n // 2), 0.0, 1.0) + 0.0  # no -0.0

@@ -164,7 +164,7 @@ def in_safe_range(matrix: np.ndarray) -> np.ndarray:
     """
     if matrix.size == 0:
         return matrix
-    magnitude = np.fmax.reduce(np.abs(matrix), axis=1)  # fmax skips NaN; an infinity needs a second look
+    magnitude = _largest_magnitude(np.fmax.reduce(matrix, axis=1), np.fmin.reduce(matrix, axis=1))
     infinite = np.isinf(magnitude)
     if infinite.any():
         rows = matrix[infinite]
@@ -199,12 +199,19 @@ def magnitudes(batch: Ragged) -> np.ndarray:
     filled = batch.lengths > 0
     if filled.any():
         # fmax skips NaN; an infinity needs a second look
-        magnitude[filled] = np.fmax.reduceat(np.abs(batch.values), batch.offsets[:-1][filled])
+        values, starts = batch.values, batch.offsets[:-1][filled]
+        magnitude[filled] = _largest_magnitude(np.fmax.reduceat(values, starts), np.fmin.reduceat(values, starts))
         infinite = np.flatnonzero(np.isinf(magnitude))
         for r in infinite:
             row = batch.row(r)
             magnitude[r] = np.abs(row[np.isfinite(row)]).max(initial=0.0)
     return np.where(np.isnan(magnitude), 0.0, magnitude)
+
+
+def _largest_magnitude(largest: np.ndarray, smallest: np.ndarray) -> np.ndarray:
+    """``max |v|`` from the largest and smallest values (fmax and fmin skip NaN, so NaN only for no value), no
+    table of magnitudes; ``+ 0.0`` makes a zero positive, as ``abs`` does."""
+    return np.fmax(largest, np.negative(smallest, out=smallest), out=largest) + 0.0
 
 
 def full(n_rows: int, fill: float = np.nan) -> np.ndarray:
