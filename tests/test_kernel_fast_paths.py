@@ -393,8 +393,9 @@ def test_cycle_fit_equals_the_plain_procedure():
     rng = np.random.default_rng(5)
     k = np.arange(300)
     noisy = 2 * np.sin(2 * np.pi * k / 12.2) + rng.standard_normal(300)
+    whole = noisy.copy()  # no gaps: the columns are made harmonic by harmonic (_harmonic_columns)
     noisy[rng.random(300) < 0.2] = np.nan
-    for y in (co2 - np.nanmean(co2), noisy, noisy[:23]):
+    for y in (co2 - np.nanmean(co2), noisy, noisy[:23], whole, whole[:23], whole[:5]):
         for period in (2.0, 2.5, 3.0, 7.0, 12.0, 52.18, len(y) / 4.0):
             out = np.where(np.isnan(y), np.nan, 0.0)
             changepoint._subtract_cycle(y, period, out, np.empty(len(y) * (2 * changepoint.MAX_HARMONICS + 2)))
@@ -520,3 +521,29 @@ def test_row_magnitudes_equal_the_largest_finite_absolute_value():
     got = magnitudes(batch)
     want = [np.max(np.where(np.isfinite(r), np.abs(r), 0.0), initial=0.0) for r in map(np.asarray, rows)]
     assert got.tobytes() == np.array(want, dtype=np.float64).tobytes()
+
+
+def test_periodogram_steps_equal_their_numpy_forms():
+    # the detrending, the periodogram and the Dirichlet kernel, each as the numpy steps it replaces
+    rng = np.random.default_rng(17)
+    matrix = rng.standard_normal((9, 301)) * 1e3 + np.arange(301) * 0.7
+    n = matrix.shape[1]
+    u = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
+    resid, _, _, _ = periodicity.detrend(matrix, None)
+    mean = matrix.sum(axis=1) / n
+    slope = np.einsum("ij,j->i", matrix, u) / (n * (n * n - 1.0) / 12.0)
+    plain = matrix - mean[:, None]
+    plain -= slope[:, None] * u
+    assert np.array_equal(resid, plain)
+    spectrum = np.fft.rfft(resid, axis=1)
+    assert np.array_equal(periodicity._power(spectrum), spectrum.real**2 + spectrum.imag**2)
+    theta = np.concatenate([rng.uniform(-7, 7, 50), [0.0, 1e-12, -1e-10, 2 * np.pi, 4 * np.pi + 1e-11]])
+    for counts in (np.array([7.0]), rng.integers(2, 500, len(theta)).astype(float)):
+        half = 0.5 * theta
+        s = np.sin(half)
+        small = np.abs(s) < 1e-9
+        want = np.where(
+            small, counts * np.cos(counts * half) / np.cos(half), np.sin(counts * half) / np.where(small, 1.0, s)
+        )
+        assert small.any()
+        assert np.array_equal(periodicity._dirichlet(theta, counts), want)
