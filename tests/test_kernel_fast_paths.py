@@ -547,3 +547,22 @@ def test_periodogram_steps_equal_their_numpy_forms():
         )
         assert small.any()
         assert np.array_equal(periodicity._dirichlet(theta, counts), want)
+
+
+def test_whitened_ordinates_equal_their_numpy_form():
+    # the red background's ordinates, for one mask of tested bins and for one per row
+    rng = np.random.default_rng(23)
+    power = rng.exponential(size=(7, 65)) * 10.0 ** rng.integers(-3, 4, (7, 1))
+    cos = np.cos(2.0 * np.pi * np.arange(65) / 128)
+    phi = np.r_[0.0, 0.5, -0.3, 0.999, -0.999, 1e-3, 0.2][:, None]
+    for untested in (np.arange(65) < 2, rng.random((7, 65)) < 0.3):
+        want = np.multiply(2.0 * phi, cos)
+        np.subtract(1.0, want, out=want)
+        want += phi * phi
+        want *= power
+        np.copyto(want, 0.0, where=untested)
+        got = np.empty_like(power)
+        periodicity._whiten(
+            power, cos, (2.0 * phi)[:, 0], (phi * phi)[:, 0], np.broadcast_to(untested, power.shape), got
+        )
+        assert np.array_equal(got, want)
