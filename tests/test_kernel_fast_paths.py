@@ -27,7 +27,7 @@ from tsql.kernels import changepoint, periodicity, trend
 from tsql.kernels.correlation import ljung_box
 from tsql.kernels.normal_equations import cholesky, solve
 from tsql.kernels.periodicity import fisher_g_pvalue, spectral_entropy
-from tsql.kernels.ragged import Ragged, magnitudes
+from tsql.kernels.ragged import Ragged, in_safe_range, magnitudes
 
 
 def hoare_find(a: np.ndarray, k: int, n: int) -> float:
@@ -566,3 +566,23 @@ def test_whitened_ordinates_equal_their_numpy_form():
             power, cos, (2.0 * phi)[:, 0], (phi * phi)[:, 0], np.broadcast_to(untested, power.shape), got
         )
         assert np.array_equal(got, want)
+
+
+def test_safe_range_scales_as_the_largest_magnitude_says():
+    # rows in range, beyond it either way, with NaN, infinities, zeros and all missing: the rows the
+    # magnitude max |x| (NaN skipped, infinities looked past) puts out of range are scaled by a power of two
+    rng = np.random.default_rng(29)
+    rows = [rng.standard_normal(6) * s for s in (1.0, 1e130, -1e130, 1e-130, 1e300, 1e-300)]
+    rows += [np.r_[np.nan, -3e150, 2.0, np.nan, 1.0, 0.0], np.r_[np.inf, 1e-200, -np.inf, np.nan, 0.0, 0.0]]
+    rows += [np.zeros(6), np.full(6, np.nan), -np.zeros(6), np.r_[-np.inf, -1e200, 0.0, 0.0, 0.0, 0.0]]
+    matrix = np.array(rows)
+    out = in_safe_range(matrix)
+    for row, got in zip(matrix, out, strict=True):
+        finite = np.abs(row[np.isfinite(row)])
+        top = finite.max() if len(finite) else 0.0
+        exponent = np.frexp(top)[1]
+        if top > 0 and abs(exponent) > 400:
+            want = row * np.ldexp(1.0, -int(np.clip(exponent, -1020, 1020)))
+        else:
+            want = row
+        assert np.array_equal(got, want, equal_nan=True)
