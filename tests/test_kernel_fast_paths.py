@@ -27,7 +27,7 @@ from tsql.kernels import changepoint, periodicity, trend
 from tsql.kernels.correlation import ljung_box
 from tsql.kernels.normal_equations import cholesky, solve
 from tsql.kernels.periodicity import fisher_g_pvalue, spectral_entropy
-from tsql.kernels.ragged import Ragged, magnitudes
+from tsql.kernels.ragged import Ragged, in_safe_range, magnitudes
 
 
 def hoare_find(a: np.ndarray, k: int, n: int) -> float:
@@ -393,8 +393,9 @@ def test_cycle_fit_equals_the_plain_procedure():
     rng = np.random.default_rng(5)
     k = np.arange(300)
     noisy = 2 * np.sin(2 * np.pi * k / 12.2) + rng.standard_normal(300)
+    whole = noisy.copy()  # no gaps: the columns are made harmonic by harmonic (_harmonic_columns)
     noisy[rng.random(300) < 0.2] = np.nan
-    for y in (co2 - np.nanmean(co2), noisy, noisy[:23]):
+    for y in (co2 - np.nanmean(co2), noisy, noisy[:23], whole, whole[:23], whole[:5]):
         for period in (2.0, 2.5, 3.0, 7.0, 12.0, 52.18, len(y) / 4.0):
             out = np.where(np.isnan(y), np.nan, 0.0)
             changepoint._subtract_cycle(y, period, out, np.empty(len(y) * (2 * changepoint.MAX_HARMONICS + 2)))
@@ -520,3 +521,68 @@ def test_row_magnitudes_equal_the_largest_finite_absolute_value():
     got = magnitudes(batch)
     want = [np.max(np.where(np.isfinite(r), np.abs(r), 0.0), initial=0.0) for r in map(np.asarray, rows)]
     assert got.tobytes() == np.array(want, dtype=np.float64).tobytes()
+
+
+def test_periodogram_steps_equal_their_numpy_forms():
+    # the detrending, the periodogram and the Dirichlet kernel, each as the numpy steps it replaces
+    rng = np.random.default_rng(17)
+    matrix = rng.standard_normal((9, 301)) * 1e3 + np.arange(301) * 0.7
+    n = matrix.shape[1]
+    u = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
+    resid, _, _, _ = periodicity.detrend(matrix, None)
+    mean = matrix.sum(axis=1) / n
+    slope = np.einsum("ij,j->i", matrix, u) / (n * (n * n - 1.0) / 12.0)
+    plain = matrix - mean[:, None]
+    plain -= slope[:, None] * u
+    assert np.array_equal(resid, plain)
+    spectrum = np.fft.rfft(resid, axis=1)
+    assert np.array_equal(periodicity._power(spectrum), spectrum.real**2 + spectrum.imag**2)
+    theta = np.concatenate([rng.uniform(-7, 7, 50), [0.0, 1e-12, -1e-10, 2 * np.pi, 4 * np.pi + 1e-11]])
+    for counts in (np.array([7.0]), rng.integers(2, 500, len(theta)).astype(float)):
+        half = 0.5 * theta
+        s = np.sin(half)
+        small = np.abs(s) < 1e-9
+        want = np.where(
+            small, counts * np.cos(counts * half) / np.cos(half), np.sin(counts * half) / np.where(small, 1.0, s)
+        )
+        assert small.any()
+        assert np.array_equal(periodicity._dirichlet(theta, counts), want)
+
+
+def test_whitened_ordinates_equal_their_numpy_form():
+    # the red background's ordinates, for one mask of tested bins and for one per row
+    rng = np.random.default_rng(23)
+    power = rng.exponential(size=(7, 65)) * 10.0 ** rng.integers(-3, 4, (7, 1))
+    cos = np.cos(2.0 * np.pi * np.arange(65) / 128)
+    phi = np.r_[0.0, 0.5, -0.3, 0.999, -0.999, 1e-3, 0.2][:, None]
+    for untested in (np.arange(65) < 2, rng.random((7, 65)) < 0.3):
+        want = np.multiply(2.0 * phi, cos)
+        np.subtract(1.0, want, out=want)
+        want += phi * phi
+        want *= power
+        np.copyto(want, 0.0, where=untested)
+        got = np.empty_like(power)
+        periodicity._whiten(
+            power, cos, (2.0 * phi)[:, 0], (phi * phi)[:, 0], np.broadcast_to(untested, power.shape), got
+        )
+        assert np.array_equal(got, want)
+
+
+def test_safe_range_scales_as_the_largest_magnitude_says():
+    # rows in range, beyond it either way, with NaN, infinities, zeros and all missing: the rows the
+    # magnitude max |x| (NaN skipped, infinities looked past) puts out of range are scaled by a power of two
+    rng = np.random.default_rng(29)
+    rows = [rng.standard_normal(6) * s for s in (1.0, 1e130, -1e130, 1e-130, 1e300, 1e-300)]
+    rows += [np.r_[np.nan, -3e150, 2.0, np.nan, 1.0, 0.0], np.r_[np.inf, 1e-200, -np.inf, np.nan, 0.0, 0.0]]
+    rows += [np.zeros(6), np.full(6, np.nan), -np.zeros(6), np.r_[-np.inf, -1e200, 0.0, 0.0, 0.0, 0.0]]
+    matrix = np.array(rows)
+    out = in_safe_range(matrix)
+    for row, got in zip(matrix, out, strict=True):
+        finite = np.abs(row[np.isfinite(row)])
+        top = finite.max() if len(finite) else 0.0
+        exponent = np.frexp(top)[1]
+        if top > 0 and abs(exponent) > 400:
+            want = row * np.ldexp(1.0, -int(np.clip(exponent, -1020, 1020)))
+        else:
+            want = row
+        assert np.array_equal(got, want, equal_nan=True)

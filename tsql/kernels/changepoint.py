@@ -2729,24 +2729,27 @@ def _subtract_cycle(residual, period, out, design) -> None:
     # the columns at the present positions, one per row, then the residual there and the fit
     cols = design[: (wide + 2) * present].reshape(wide + 2, present)
     cols[k:wide] = 0.0
-    c = 1.0
-    sn = 0.0
-    i = 0
-    for t in range(n):
-        c, sn = _turn(t, w, c, sn, turn_c, turn_s, False)
-        r = residual[t]
-        here = not np.isnan(r)
-        cj = c
-        sj = sn
-        for j in range(h):
+    if present == n:
+        _harmonic_columns(residual, w, turn_c, turn_s, h, cols, norms)
+    else:
+        c = 1.0
+        sn = 0.0
+        i = 0
+        for t in range(n):
+            c, sn = _turn(t, w, c, sn, turn_c, turn_s, False)
+            r = residual[t]
+            here = not np.isnan(r)
+            cj = c
+            sj = sn
+            for j in range(h):
+                if here:
+                    cols[j, i] = cj
+                    cols[h + j, i] = sj
+                norms[j] += sj * sj
+                cj, sj = cj * c - sj * sn, sj * c + cj * sn
             if here:
-                cols[j, i] = cj
-                cols[h + j, i] = sj
-            norms[j] += sj * sj
-            cj, sj = cj * c - sj * sn, sj * c + cj * sn
-        if here:
-            cols[wide, i] = r
-            i += 1
+                cols[wide, i] = r
+                i += 1
     # the cross products by blocks of four columns against four (sixteen sums side by side, each over the
     # present positions in order, from 0: the sums a loop over the positions makes)
     gram = np.zeros((k, k))
@@ -2783,6 +2786,42 @@ def _subtract_cycle(residual, period, out, design) -> None:
         if not np.isnan(residual[t]):
             out[t] -= fitted[i]
             i += 1
+
+
+@njit(cache=True, error_model="numpy")
+def _harmonic_columns(residual, w, turn_c, turn_s, h, cols, norms) -> None:
+    """:func:`_subtract_cycle`'s columns and residual row for a row without gaps, the same values: the fundamental
+    turned from position to position, then each harmonic from the one before, one loop over the (independent)
+    positions per harmonic. ``norms[j]``: the squared length of the ``j``-th sine, summed in order only until it
+    is safely above the floor :func:`_subtract_cycle` tests it against (the sum only grows: the same answer)."""
+    n = len(residual)
+    k = 2 * h
+    wide = (k + 3) // 4 * 4
+    base_c = cols[0]
+    base_s = cols[h]
+    c = 1.0
+    sn = 0.0
+    for t in range(n):
+        c, sn = _turn(t, w, c, sn, turn_c, turn_s, False)
+        base_c[t] = c
+        base_s[t] = sn
+        cols[wide, t] = residual[t]
+    for j in range(1, h):
+        prev_c, prev_s = cols[j - 1], cols[h + j - 1]
+        next_c, next_s = cols[j], cols[h + j]
+        for t in range(n):
+            cj, sj = prev_c[t], prev_s[t]
+            next_c[t] = cj * base_c[t] - sj * base_s[t]
+            next_s[t] = sj * base_c[t] + cj * base_s[t]
+    safe = 4.0 * (1e-6 * math.sqrt(n)) ** 2  # well above the floor's square: the length is above the floor
+    for j in range(h):
+        line = cols[h + j]
+        top = 0.0
+        for t in range(n):
+            top += line[t] * line[t]
+            if top > safe:
+                break
+        norms[j] = top
 
 
 @njit(cache=True, error_model="numpy")
