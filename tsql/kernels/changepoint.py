@@ -808,9 +808,10 @@ def _fpop_lanes(stats, m, beta, length_term, use_length_term, min_size, F, last)
     ``stats[w]``, ``beta[w]``, ``length_term[w]`` are row ``w``'s as :func:`_fpop` takes them;
     fills ``F[w]`` and ``last[w]`` as :func:`_pelt` does. The search is FPOP (Maidstone, Hocking,
     Rigaill & Fearnhead 2017) as :func:`_fpop` prunes it, run in lockstep: step ``t`` of every row
-    at once, the inner loop over the lanes without branches (selects only), so that the compiler
-    turns it into vector instructions (two square roots and two divisions per slot and step for
-    all lanes together).
+    at once, the inner loop over the lanes without branches (selects only, and :func:`_pick` where a
+    value may be stored back over itself, so that no store is masked), so that the compiler turns it
+    into vector instructions (two square roots and two divisions per slot and step for all lanes
+    together).
 
     It stays exact, bit for bit: every lane does the same operations on its own starts in the
     same order as :func:`_fpop` (its slots keep its starts in order; the exclusion is merged and the
