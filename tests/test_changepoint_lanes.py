@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from numba import njit
 
 from tsql.kernels import changepoint
 from tsql.kernels.changepoint import segments
@@ -152,3 +153,26 @@ def test_lanes_break_exact_ties_as_the_search_of_one_row(min_size):
     for w in range(LANES):
         assert F_lanes[w].tobytes() == F[w].tobytes(), w
         np.testing.assert_array_equal(last_lanes[w], last[w], err_msg=f"lane {w}")
+
+
+@njit
+def picks(keep, a, b, zero):
+    out = np.empty((3, len(a)))
+    for i in range(len(a)):
+        out[0, i] = changepoint._pick(keep[i], a[i], b[i])
+        out[1, i] = changepoint._pick(keep[i], a[i], b[i] + zero[0])  # as the lanes store it back
+        out[2, i] = a[i] if keep[i] else b[i]
+    return out
+
+
+def test_the_lanes_select_is_the_conditional_expression_bit_for_bit():
+    # the lane pass stores selects (changepoint._pick) of values added to a -0.0 read at run time:
+    # both must give exactly the conditional expression's bits, signed zeros and infinities included
+    special = np.array([0.0, -0.0, np.inf, -np.inf, 5e-324, -1.5, 1e308, 3.0])
+    a = np.repeat(special, len(special))
+    b = np.tile(special, len(special))
+    for keep in (np.ones(len(a), dtype=bool), np.zeros(len(a), dtype=bool), np.arange(len(a)) % 3 == 0):
+        out = picks(keep, a, b, np.array([-0.0]))
+        expected = np.where(keep, a, b)
+        for row in out:
+            assert row.tobytes() == expected.tobytes()
