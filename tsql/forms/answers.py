@@ -398,7 +398,11 @@ class SeriesPieces(Pieces):
                 grown[:start] = old[:start]
                 self.fields[name] = grown
         for name in self.names:
-            self.fields[name][start:end] = records.field(name).to_numpy(zero_copy_only=False)
+            field = records.field(name)
+            if len(field):  # the data as Series.compute gave it (NaN under each NULL): no copy to read it
+                out = self.fields[name]
+                data = np.frombuffer(field.buffers()[1], dtype=out.dtype, count=field.offset + len(field))
+                out[start:end] = data[field.offset :]
         self.offsets.append(np.asarray(piece.offsets)[1:] + np.int32(start))
         self.valid.append(np.asarray(piece.is_valid()))
         self.size = end
