@@ -571,16 +571,16 @@ def _agg_udf(fn: Function) -> Callable[..., pa.Array]:
             part = obs if rows is None else obs.take(pa.array(rows))
             type_name, span, fill, same_time, *arguments = key
             bounds = row_pieces([part], form.piece_points, min(threads, parallel.cores()))
-            pieces: dict[int, pa.Array] = {}
+            pieces = fn.answer.pieces(len(bounds), int(part.offsets[-1].as_py()) - int(part.offsets[0].as_py()))
 
             def work(i: int) -> None:
                 lo, hi = bounds[i]
                 ticks, values = unpack(part.slice(lo, hi - lo))
                 grid = (span, fill, same_time)
-                pieces[i] = form(clock(form.name, type_name), grid, tuple(arguments), ticks, values)
+                pieces.add(i, form(clock(form.name, type_name), grid, tuple(arguments), ticks, values))
 
             parallel.run_each(work, len(bounds), threads)
-            return pieces[0] if len(pieces) == 1 else pa.concat_arrays([pieces[i] for i in range(len(bounds))])
+            return pieces.joined()
 
         if not fn.answer.errors_inside:
             return _answers_or_error(form.name, len(obs), lambda: by_settings(len(obs), settings, run), answer_type)

@@ -6,6 +6,8 @@ answer in a DuckDB macro, and how a host that hands over times (Spark) gets them
 
 from __future__ import annotations
 
+import mmap
+import threading
 from collections.abc import Callable
 from typing import Any
 
@@ -48,6 +50,10 @@ class Answer:
         """The answers of a gridded batch."""
         return to_arrow(returns, kernel(grid.values, **kwargs), grid.values.row_valid)
 
+    def pieces(self, count: int, points: int) -> Pieces:
+        """Where a call cut into ``count`` pieces (about ``points`` observations in all) gathers their answers."""
+        return Pieces(count)
+
     def finish_sql(self, returns: SqlType, call: str) -> str:
         """The macro body around the UDF call: ``__tsql_answer(udf(...))``, or the bare call (:attr:`errors_inside`)."""
         return call
@@ -66,6 +72,22 @@ class Answer:
 
 
 SAME = Answer()
+
+
+class Pieces:
+    """A call's answer from the answers of its pieces (numbered from 0, in any order): :meth:`add` each, then
+    :meth:`joined`."""
+
+    def __init__(self, count: int):
+        self.count = count
+        self.found: dict[int, pa.Array] = {}
+
+    def add(self, i: int, piece: pa.Array) -> None:
+        self.found[i] = piece
+
+    def joined(self) -> pa.Array:
+        pieces = [self.found.pop(i) for i in range(self.count)]
+        return pieces[0] if len(pieces) == 1 else pa.concat_arrays(pieces)
 
 
 class Period(Answer):
@@ -307,6 +329,9 @@ class Series(Answer):
         offsets = pa.array(smooth.offsets.astype(np.int32))
         return pa.ListArray.from_arrays(offsets, records, mask=None if valid.all() else pa.array(~valid))
 
+    def pieces(self, count: int, points: int) -> Pieces:
+        return SeriesPieces(count, points) if count > 1 else Pieces(count)
+
     def error_rows(self, returns: SqlType, n_rows: int, number: int) -> pa.Array:
         """``n_rows`` answers that stand for the error numbered ``number`` (the host keeps its message): one record
         each, with no tick and ``number`` in its first value, which the macro raises (``__tsql_message``)."""
@@ -334,6 +359,70 @@ class Series(Answer):
         fields = [at] + [records.field(n) for n in names]
         records = pa.StructArray.from_arrays(fields, names=["time", *names])
         return pa.ListArray.from_arrays(answer.offsets, records, mask=mask)
+
+
+class SeriesPieces(Pieces):
+    """:class:`Series` answers of a call's pieces, each copied as it comes into one buffer per field and let go:
+    the pieces and the joined answer are never all held at once (as with :func:`pyarrow.concat_arrays`), nor
+    the pieces all together. The buffers start at the call's number of observations and grow by half when a
+    piece does not fit; the pages past the last point are never written (nor resident)."""
+
+    def __init__(self, count: int, points: int):
+        super().__init__(count)
+        self.capacity = max(points, 1)
+        self.fields: dict[str, np.ndarray] = {}
+        self.names: list[str] = []
+        self.offsets = [np.zeros(1, dtype=np.int32)]
+        self.valid: list[np.ndarray] = []
+        self.size = 0
+        self.next = 0
+        self.lock = threading.Lock()
+
+    def add(self, i: int, piece: pa.Array) -> None:
+        with self.lock:
+            self.found[i] = piece
+            while self.next in self.found:
+                self._copy(self.found.pop(self.next))
+                self.next += 1
+
+    def _copy(self, piece: pa.Array) -> None:
+        records = piece.values
+        if not self.fields:
+            self.names = [f.name for f in records.type]
+            self.fields = {f.name: _mapped(self.capacity, f.type.to_pandas_dtype()) for f in records.type}
+        start, end = self.size, self.size + len(records)
+        if end > self.capacity:
+            self.capacity = max(end, self.capacity + self.capacity // 2)
+            for name, old in self.fields.items():
+                grown = _mapped(self.capacity, old.dtype)
+                grown[:start] = old[:start]
+                self.fields[name] = grown
+        for name in self.names:
+            field = records.field(name)
+            if len(field):  # the data as Series.compute gave it (NaN under each NULL): no copy to read it
+                out = self.fields[name]
+                data = np.frombuffer(field.buffers()[1], dtype=out.dtype, count=field.offset + len(field))
+                out[start:end] = data[field.offset :]
+        self.offsets.append(np.asarray(piece.offsets)[1:] + np.int32(start))
+        self.valid.append(np.asarray(piece.is_valid()))
+        self.size = end
+
+    def joined(self) -> pa.Array:
+        fields = [self.fields.pop(n)[: self.size] for n in self.names]
+        arrays = [pa.array(fields[0]), pa.array(fields[1])]  # tick and kind: never NULL here
+        for values in fields[2:]:  # NULL exactly where NaN, as Series.compute made them
+            missing = np.isnan(values)
+            arrays.append(pa.array(values, mask=missing if missing.any() else None))
+        records = pa.StructArray.from_arrays(arrays, names=self.names)
+        valid = np.concatenate(self.valid)
+        mask = None if valid.all() else pa.array(~valid)
+        return pa.ListArray.from_arrays(pa.array(np.concatenate(self.offsets)), records, mask=mask)
+
+
+def _mapped(n: int, dtype: np.dtype) -> np.ndarray:
+    """An array of its own mapped pages, given back to the system when the last view of it goes."""
+    dtype = np.dtype(dtype)
+    return np.frombuffer(mmap.mmap(-1, max(n * dtype.itemsize, 1)), dtype=dtype, count=n)
 
 
 class Periods(Answer):
