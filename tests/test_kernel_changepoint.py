@@ -75,6 +75,16 @@ def segment_cost(model: str, y: np.ndarray, t: np.ndarray, scale: float) -> floa
     return float(np.sum((y - (intercept + slope * t)) ** 2)) / scale**2
 
 
+def reference_terms(model: str, penalty, y: np.ndarray, t: np.ndarray) -> tuple[float, float, float]:
+    """The references' scale, long-run factor and penalty per change of the present values ``y`` at ``t``."""
+    m = len(y)
+    scale = sigma_first(y) if model == "mean" else sigma_second(y, t) if model == "trend" else float(np.std(y))
+    params = {"mean": 2, "meanvar": 3, "trend": 3}[model]
+    factor = 1.0 if not isinstance(penalty, str) else long_run_factor(model, y, t)
+    beta = params * math.log(m) if penalty == "bic" else 3 * math.log(m) if penalty == "mbic" else penalty
+    return scale, factor, beta * factor
+
+
 def exhaustive(x, model: str, penalty, min_size: int) -> list[int]:
     """Optimal partitioning (Jackson et al. 2005): every last-segment start, no pruning, O(n^2) costs.
 
@@ -87,11 +97,7 @@ def exhaustive(x, model: str, penalty, min_size: int) -> list[int]:
     m = len(y)
     if m < 2 * min_size or y.min() == y.max():
         return []
-    scale = sigma_first(y) if model == "mean" else sigma_second(y, t) if model == "trend" else float(np.std(y))
-    params = {"mean": 2, "meanvar": 3, "trend": 3}[model]
-    factor = 1.0 if not isinstance(penalty, str) else long_run_factor(model, y, t)
-    beta = params * math.log(m) if penalty == "bic" else 3 * math.log(m) if penalty == "mbic" else penalty
-    beta *= factor
+    scale, factor, beta = reference_terms(model, penalty, y, t)
     best = np.full(m + 1, np.inf)
     best[0] = -beta
     last = np.zeros(m + 1, dtype=int)
@@ -118,11 +124,7 @@ def segmentation_total(x, model: str, penalty, changes: list[int]) -> float:
     keep = ~np.isnan(x)
     y, t = x[keep], np.flatnonzero(keep).astype(float)
     m = len(y)
-    scale = sigma_first(y) if model == "mean" else sigma_second(y, t) if model == "trend" else float(np.std(y))
-    params = {"mean": 2, "meanvar": 3, "trend": 3}[model]
-    factor = 1.0 if not isinstance(penalty, str) else long_run_factor(model, y, t)
-    beta = params * math.log(m) if penalty == "bic" else 3 * math.log(m) if penalty == "mbic" else penalty
-    beta *= factor
+    scale, factor, beta = reference_terms(model, penalty, y, t)
     bounds = [0] + [int(np.searchsorted(t, c - 1)) for c in changes] + [m]
     total = -beta
     for a, b in zip(bounds[:-1], bounds[1:]):
